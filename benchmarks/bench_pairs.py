@@ -1,0 +1,250 @@
+"""Speed of the (r_p, π) pair-counting engine against Corrfunc and scipy's cKDTree.
+
+Run:  python benchmarks/bench_pairs.py [--quick] [--no-write]
+
+Measured in one run, on the same points, two threads for every threaded code:
+
+* box DD(r_p, π): N = 10⁶ uniform points in L = 500 Mpc/h, π_max = 40 Mpc/h (Δπ = 1),
+  14 log r_p bins from 0.1 to 30 Mpc/h — conecheck (without and with 25 jackknife
+  regions), ``Corrfunc.theory.DDrppi`` (nthreads=2) and cKDTree ``query_pairs``;
+* cone DD and DR: 2×10⁵ data and 2×10⁶ randoms in a 30°-radius cap between χ = 600 and
+  1200 Mpc/h — conecheck, ``Corrfunc.mocks.DDrppi_mocks`` (comoving distances) and
+  cKDTree ``sparse_distance_matrix``;
+* linear growth of the engine's run time with N at fixed density (box).
+
+The cKDTree route returns every pair within r_max, so it runs on a subset and its time is
+scaled to the full size (time ∝ number of query points at fixed density: stated in the
+output).  Results go to benchmarks/RESULTS.md (section between the bench_pairs markers)
+unless --no-write.
+"""
+
+from __future__ import annotations
+
+import argparse
+import platform
+import sys
+import time
+from pathlib import Path
+
+import numba
+import numpy as np
+from scipy.spatial import cKDTree
+
+from conecheck.atomic import write_text_atomic
+from conecheck.pairs import count_rppi_box, count_rppi_cone
+
+THREADS = 2
+START = "<!-- bench_pairs:start -->"
+END = "<!-- bench_pairs:end -->"
+
+try:
+    import Corrfunc
+    from Corrfunc.mocks import DDrppi_mocks
+    from Corrfunc.theory import DDrppi
+except ImportError:  # pragma: no cover - optional reference
+    Corrfunc = None
+
+
+def best_of(fn, repeat):
+    best, out = np.inf, None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        out = fn()
+        best = min(best, time.perf_counter() - t0)
+    return best, out
+
+
+def ckd_box(pos, L, edges, pi_max):
+    """(r_p, π) counts via cKDTree pair finding (periodic), as a user would do it."""
+    t = cKDTree(pos, boxsize=L)
+    pairs = t.query_pairs(np.hypot(edges[-1], pi_max), output_type="ndarray")
+    d = pos[pairs[:, 1]] - pos[pairs[:, 0]]
+    d -= L * np.round(d / L)
+    rp = np.hypot(d[:, 0], d[:, 1])
+    h, _, _ = np.histogram2d(rp, np.abs(d[:, 2]), bins=[edges, np.arange(pi_max + 1)])
+    return h
+
+
+def ckd_cone(p1, tree2, p2, edges, pi_max):
+    """Midpoint-LOS counts of query points p1 against a prebuilt tree of p2."""
+    sm = cKDTree(p1).sparse_distance_matrix(tree2, np.hypot(edges[-1], pi_max),
+                                            output_type="coo_matrix")
+    a, b = p1[sm.row], p2[sm.col]
+    s = a - b
+    ell = a + b
+    pi = np.abs(np.einsum("ij,ij->i", s, ell)) / np.linalg.norm(ell, axis=1)
+    rp = np.sqrt(np.maximum(np.einsum("ij,ij->i", s, s) - pi**2, 0))
+    h, _, _ = np.histogram2d(rp, pi, bins=[edges, np.arange(pi_max + 1)])
+    return h
+
+
+def cap_points(rng, n, chi_lo, chi_hi, radius_deg):
+    """Uniform in volume inside a polar cap of the given radius."""
+    cos_min = np.cos(np.radians(radius_deg))
+    mu = rng.uniform(cos_min, 1.0, n)
+    phi = rng.uniform(0, 2 * np.pi, n)
+    chi = np.cbrt(rng.uniform(chi_lo**3, chi_hi**3, n))
+    st = np.sqrt(1 - mu**2)
+    xyz = np.column_stack([chi * st * np.cos(phi), chi * st * np.sin(phi), chi * mu])
+    ra = np.degrees(phi)
+    dec = np.degrees(np.arcsin(mu))
+    return xyz, ra, dec, chi
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="10× smaller sizes, for a smoke run")
+    ap.add_argument("--no-write", action="store_true", help="do not update RESULTS.md")
+    args = ap.parse_args(argv)
+    numba.set_num_threads(min(THREADS, numba.config.NUMBA_NUM_THREADS))
+    rng = np.random.default_rng(2024)
+    scale = 0.1 if args.quick else 1.0
+    repeat = 1 if args.quick else 3
+    edges = np.geomspace(0.1, 30.0, 15)
+    pi_max = 40.0
+    lines = []
+
+    def say(s=""):
+        print(s, flush=True)
+        lines.append(s)
+
+    say(f"Machine: {platform.processor() or platform.machine()}, {THREADS} threads; "
+        f"numba {numba.__version__}, numpy {np.__version__}"
+        + (f", Corrfunc {Corrfunc.__version__}" if Corrfunc else ", Corrfunc not installed")
+        + (" — QUICK run (sizes /10)" if args.quick else ""))
+    say()
+
+    # warm-up: compile the kernels outside the timings
+    small = rng.uniform(0, 100, (2000, 3))
+    count_rppi_box(small, box_size=100.0, rp_edges=edges, pi_max=pi_max)
+    count_rppi_box(small, None, np.zeros(2000, int), box_size=100.0, rp_edges=edges,
+                   pi_max=pi_max, n_regions=2)
+    count_rppi_cone(small + 500, rp_edges=edges, pi_max=pi_max)
+    count_rppi_cone(small + 500, None, None, small + 510, rp_edges=edges, pi_max=pi_max)
+
+    # ------------------------------------------------------------------ box
+    n_box = int(1_000_000 * scale)
+    density = 1_000_000 / 500.0**3
+    L = np.cbrt(n_box / density)
+    pos = rng.uniform(0, L, (n_box, 3))
+    t_eng, pc = best_of(lambda: count_rppi_box(pos, box_size=L, rp_edges=edges,
+                                               pi_max=pi_max), repeat)
+    n_pairs = pc.total.sum()
+    reg = (np.floor(pos[:, 0] / (L / 5)) * 5 + np.floor(pos[:, 1] / (L / 5))).astype(int)
+    t_jk, _ = best_of(lambda: count_rppi_box(pos, None, reg, box_size=L, rp_edges=edges,
+                                             pi_max=pi_max, n_regions=25), repeat)
+    say(f"## Box DD(r_p, π): N = {n_box:,}, L = {L:.0f} Mpc/h, r_p ≤ 30, π_max = 40 Mpc/h")
+    say()
+    say("| code | time [s] | ratio to conecheck | pairs/s |")
+    say("|---|---|---|---|")
+    say(f"| conecheck | {t_eng:.2f} | 1.00 | {n_pairs / t_eng:.3g} |")
+    say(f"| conecheck, 25 jackknife regions | {t_jk:.2f} | {t_jk / t_eng:.2f} | "
+        f"{n_pairs / t_jk:.3g} |")
+    if Corrfunc:
+        x, y, z = (np.ascontiguousarray(pos[:, i]) for i in range(3))
+        t_cf, res = best_of(lambda: DDrppi(1, THREADS, pi_max, edges, x, y, z, boxsize=L,
+                                           periodic=True), repeat)
+        cf_tot = res["npairs"].astype(float).reshape(len(edges) - 1, int(pi_max)) / 2
+        same = np.array_equal(cf_tot, pc.total)
+        say(f"| Corrfunc.theory.DDrppi (nthreads=2) | {t_cf:.2f} | {t_cf / t_eng:.2f} | "
+            f"{n_pairs / t_cf:.3g} |")
+    n_sub = max(2000, int(8000 * scale))
+    l_sub = np.cbrt(n_sub / density)
+    sub = rng.uniform(0, l_sub, (n_sub, 3))
+    t0 = time.perf_counter()
+    ckd_box(sub, l_sub, edges, pi_max)
+    t_ckd = (time.perf_counter() - t0) * n_box / n_sub
+    say(f"| scipy cKDTree query_pairs + histogram (single thread; {n_sub:,} points in "
+        f"L = {l_sub:.0f}, scaled ×{n_box / n_sub:.0f}) | {t_ckd:.1f} | {t_ckd / t_eng:.1f} | "
+        f"{n_pairs / t_ckd:.3g} |")
+    say()
+    if Corrfunc:
+        say(f"Counts identical to Corrfunc (its ordered pairs / 2): {same}.")
+        say()
+
+    # ------------------------------------------------------------------ linear scaling
+    say("## Box: run time against N at fixed density (conecheck)")
+    say()
+    say("| N | L [Mpc/h] | time [s] | time / N [µs] |")
+    say("|---|---|---|---|")
+    for f in (0.125, 0.25, 0.5, 1.0):
+        n = int(n_box * f)
+        ll = np.cbrt(n / density)
+        p = rng.uniform(0, ll, (n, 3))
+        t, _ = best_of(lambda p=p, ll=ll: count_rppi_box(p, box_size=ll, rp_edges=edges,
+                                                         pi_max=pi_max), repeat)
+        say(f"| {n:,} | {ll:.0f} | {t:.3f} | {t / n * 1e6:.3f} |")
+    say()
+
+    # ------------------------------------------------------------------ cone
+    n_d = int(200_000 * scale)
+    n_r = 10 * n_d
+    radius = 30.0 if not args.quick else 30.0 * np.sqrt(scale)
+    dxyz, dra, ddec, dchi = cap_points(rng, n_d, 600.0, 1200.0, radius)
+    rxyz, rra, rdec, rchi = cap_points(rng, n_r, 600.0, 1200.0, radius)
+    t_dd, dd = best_of(lambda: count_rppi_cone(dxyz, rp_edges=edges, pi_max=pi_max), repeat)
+    t_dr, dr = best_of(lambda: count_rppi_cone(dxyz, None, None, rxyz, rp_edges=edges,
+                                               pi_max=pi_max), repeat)
+    say(f"## Cone DD and DR: {n_d:,} data, {n_r:,} randoms, cap of radius {radius:.0f}°, "
+        "600 < χ < 1200 Mpc/h")
+    say()
+    say("| count | code | time [s] | ratio to conecheck | pairs/s |")
+    say("|---|---|---|---|---|")
+    say(f"| DD | conecheck | {t_dd:.2f} | 1.00 | {dd.total.sum() / t_dd:.3g} |")
+    if Corrfunc:
+        kw = {"is_comoving_dist": True}
+        t_cdd, rdd = best_of(lambda: DDrppi_mocks(1, 2, THREADS, pi_max, edges, dra, ddec,
+                                                  dchi, **kw), repeat)
+        say(f"| DD | Corrfunc.mocks.DDrppi_mocks | {t_cdd:.2f} | {t_cdd / t_dd:.2f} | "
+            f"{dd.total.sum() / t_cdd:.3g} |")
+    n_q = max(1000, n_d // 40)
+    dtree = cKDTree(dxyz)
+    t0 = time.perf_counter()
+    ckd_cone(dxyz[:n_q], dtree, dxyz, edges, pi_max)
+    t_kdd = (time.perf_counter() - t0) * n_d / n_q / 2  # ordered pairs: half the work needed
+    say(f"| DD | cKDTree ({n_q:,} query points, scaled ×{n_d / n_q:.0f}, /2 for ordered "
+        f"pairs) | {t_kdd:.1f} | {t_kdd / t_dd:.1f} | {dd.total.sum() / t_kdd:.3g} |")
+    say(f"| DR | conecheck | {t_dr:.2f} | 1.00 | {dr.total.sum() / t_dr:.3g} |")
+    if Corrfunc:
+        t_cdr, rdr = best_of(lambda: DDrppi_mocks(0, 2, THREADS, pi_max, edges, dra, ddec,
+                                                  dchi, RA2=rra, DEC2=rdec, CZ2=rchi, **kw),
+                             repeat)
+        say(f"| DR | Corrfunc.mocks.DDrppi_mocks | {t_cdr:.2f} | {t_cdr / t_dr:.2f} | "
+            f"{dr.total.sum() / t_cdr:.3g} |")
+    t0 = time.perf_counter()
+    rtree = cKDTree(rxyz)
+    t_build = time.perf_counter() - t0
+    n_q = max(500, n_d // 200)
+    t0 = time.perf_counter()
+    ckd_cone(dxyz[:n_q], rtree, rxyz, edges, pi_max)
+    t_kdr = t_build + (time.perf_counter() - t0) * n_d / n_q
+    say(f"| DR | cKDTree (tree of all randoms + {n_q:,} data queries, scaled "
+        f"×{n_d / n_q:.0f}) | {t_kdr:.1f} | {t_kdr / t_dr:.1f} | {dr.total.sum() / t_kdr:.3g} |")
+    say()
+    if Corrfunc:
+        cdd = rdd["npairs"].astype(float).reshape(len(edges) - 1, int(pi_max)) / 2
+        cdr = rdr["npairs"].astype(float).reshape(len(edges) - 1, int(pi_max))
+        ddiff = np.max(np.abs(cdd - dd.total)) / dd.total.max()
+        rdiff = np.max(np.abs(cdr - dr.total)) / dr.total.max()
+        say(f"Largest difference to Corrfunc's counts, relative to the fullest bin: DD "
+            f"{ddiff:.1e}, DR {rdiff:.1e} (Corrfunc rebuilds Cartesian positions from RA, Dec, "
+            "χ, so a pair within rounding of a bin edge could move).")
+        say()
+
+    if not args.no_write:
+        path = Path(__file__).with_name("RESULTS.md")
+        body = "\n".join(["## Pair counting (`python benchmarks/bench_pairs.py`)", "",
+                          *lines])
+        block = f"{START}\n{body}\n{END}"
+        old = path.read_text() if path.exists() else "# Benchmark results\n"
+        if START in old and END in old:
+            new = old[:old.index(START)] + block + old[old.index(END) + len(END):]
+        else:
+            new = old.rstrip("\n") + "\n\n" + block + "\n"
+        write_text_atomic(path, new)
+        print(f"\nwrote {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,32 @@
+"""Box stage: synthetic lognormal halos, HOD population and box-side effects.
+
+Public entry points:
+
+* :func:`read_halo_catalog`, :class:`HaloCatalog` — halo input.
+* :class:`ZhengParams`, :class:`HODThreshold`, :class:`AssemblyBias`, :class:`HODModel`,
+  :func:`load_hod`, :func:`default_hod_model` — occupation models.
+* :func:`populate` — halos + HOD -> :class:`conecheck.catalog.GalaxyBox`.
+* :func:`make_synthetic_halos`, :func:`make_synthetic_box` — no N-body input needed.
+* :func:`apply_box_rsd`, :func:`apply_box_redshift_scatter` — box-side effects.
+"""
+
+from .effects import apply_box_redshift_scatter, apply_box_rsd
+from .halos import HaloCatalog, read_halo_catalog
+from .hod import (
+    AssemblyBias,
+    HODModel,
+    HODThreshold,
+    ZhengParams,
+    default_hod_model,
+    default_hod_path,
+    load_hod,
+)
+from .populate import populate
+from .synthetic import hod_number_density, make_synthetic_box, make_synthetic_halos
+
+__all__ = [
+    "AssemblyBias", "HODModel", "HODThreshold", "HaloCatalog", "ZhengParams",
+    "apply_box_redshift_scatter", "apply_box_rsd", "default_hod_model", "default_hod_path",
+    "hod_number_density",
+    "load_hod", "make_synthetic_box", "make_synthetic_halos", "populate", "read_halo_catalog",
+]

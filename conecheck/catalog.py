@@ -1,0 +1,321 @@
+"""Catalogue input/output and the in-memory galaxy-box catalogue.
+
+Every catalogue goes through :mod:`astropy.table`, so FITS, HDF5, ECSV, Parquet and
+numpy ``.npz`` files are all read and written the same way.  A *column mapping*
+(from the config) renames the user's columns to conecheck's canonical names.
+
+Canonical galaxy-box columns (design.md §3 units):
+
+========== ============ ===============================================
+name        unit         meaning
+========== ============ ===============================================
+x, y, z     Mpc/h        comoving position in [0, L)
+vx, vy, vz  km/s         peculiar velocity
+abs_mag     mag          absolute magnitude M − 5 log10 h (optional)
+is_central  —            True for centrals (optional)
+halo_id     —            host-halo identifier (optional)
+halo_mass   Msun/h       host-halo mass (optional)
+========== ============ ===============================================
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from astropy.table import Table
+from numpy.typing import NDArray
+
+from .atomic import atomic_path
+from .errors import InputError
+
+log = logging.getLogger(__name__)
+
+#: File suffix -> astropy.table format name (``None``: handled here).
+FORMATS: dict[str, str | None] = {
+    ".fits": "fits", ".fit": "fits", ".fits.gz": "fits",
+    ".hdf5": "hdf5", ".h5": "hdf5",
+    ".ecsv": "ascii.ecsv",
+    ".parquet": "parquet",
+    ".npz": None,
+}
+
+POSITION_COLUMNS = ("x", "y", "z")
+VELOCITY_COLUMNS = ("vx", "vy", "vz")
+#: Fractional tolerance of the periodic wrap: positions within tol·L outside [0, L) are wrapped.
+WRAP_TOLERANCE = 1e-3
+
+
+def _suffix(path: Path) -> str:
+    name = path.name.lower()
+    for suf in sorted(FORMATS, key=len, reverse=True):
+        if name.endswith(suf):
+            return suf
+    raise InputError(f"{path}: unknown catalogue format '{path.suffix}'; expected one of "
+                     + ", ".join(sorted(FORMATS)))
+
+
+def read_table(path: str | os.PathLike[str]) -> Table:
+    """Read a catalogue file into an astropy Table (format from the file name).
+
+    Raises
+    ------
+    InputError
+        When the file is missing, unreadable or not a table of the named format.
+    """
+    path = Path(path)
+    suf = _suffix(path)
+    if not path.exists():
+        raise InputError(f"{path}: file not found")
+    if not path.is_file():
+        raise InputError(f"{path}: not a regular file")
+    try:
+        if FORMATS[suf] is None:
+            with np.load(path, allow_pickle=False) as data:
+                return Table({k: data[k] for k in data.files})
+        kwargs: dict[str, Any] = {}
+        if FORMATS[suf] == "hdf5":
+            kwargs["path"] = _first_hdf5_dataset(path)
+        return Table.read(path, format=FORMATS[suf], **kwargs)
+    except InputError:
+        raise
+    except ImportError as exc:
+        raise InputError(f"{path}: reading this format needs an extra package ({exc}); "
+                         "install it with: pip install 'conecheck[io]'") from None
+    except Exception as exc:  # noqa: BLE001 - any parser failure is a user-file problem
+        raise InputError(f"{path}: cannot read as {FORMATS[suf] or 'npz'} table "
+                         f"({type(exc).__name__}: {exc})") from None
+
+
+def _first_hdf5_dataset(path: Path) -> str:
+    import h5py
+
+    found: list[str] = []
+    with h5py.File(path, "r") as f:
+        f.visititems(lambda name, obj: found.append(name)
+                     if isinstance(obj, h5py.Dataset) and obj.dtype.names else None)
+    if not found:
+        raise InputError(f"{path}: no table (compound dataset) found in the HDF5 file")
+    return found[0]
+
+
+def write_table(table: Table, path: str | os.PathLike[str]) -> None:
+    """Write ``table`` atomically; the format follows the file name."""
+    path = Path(path)
+    suf = _suffix(path)
+    with atomic_path(path) as tmp:
+        if FORMATS[suf] is None:
+            arrays = {name: np.asarray(table[name]) for name in table.colnames}
+            with open(tmp, "wb") as fh:
+                np.savez(fh, **arrays)
+        elif FORMATS[suf] == "hdf5":
+            table.write(tmp, format="hdf5", path="catalog", overwrite=True,
+                        serialize_meta=True)
+        else:
+            table.write(tmp, format=FORMATS[suf], overwrite=True)
+
+
+def apply_column_map(table: Table, column_map: Mapping[str, str], source: str) -> Table:
+    """Rename user columns to canonical names.
+
+    Parameters
+    ----------
+    column_map : mapping
+        canonical name -> name in the user's file.
+    source : str
+        File name, for error messages.
+    """
+    out = Table(meta=dict(table.meta))
+    problems = []
+    for canonical, user in column_map.items():
+        if user not in table.colnames:
+            problems.append(f"{source}: column '{user}' (mapped to '{canonical}') not found; "
+                            f"available columns: {', '.join(table.colnames)}")
+            continue
+        out[canonical] = table[user]
+    for name in table.colnames:
+        if name not in column_map.values() and name not in out.colnames:
+            out[name] = table[name]
+    if problems:
+        raise InputError("; ".join(problems), problems)
+    return out
+
+
+def require_columns(table: Table, names: Sequence[str], source: str) -> None:
+    """Check that ``names`` exist, are numeric and finite."""
+    problems = []
+    for name in names:
+        if name not in table.colnames:
+            problems.append(f"{source}: missing required column '{name}'")
+            continue
+        col = np.asarray(table[name])
+        if col.dtype.kind not in "fiub":
+            problems.append(f"{source}: column '{name}' has dtype {col.dtype}; expected numbers")
+            continue
+        if col.dtype.kind == "f":
+            bad = ~np.isfinite(col)
+            if bad.any():
+                problems.append(f"{source}: column '{name}' has {int(bad.sum())} NaN/inf "
+                                f"values (first at row {int(np.argmax(bad))})")
+    if problems:
+        raise InputError("; ".join(problems), problems)
+
+
+def wrap_positions(pos: NDArray[np.float64], box_size: float, source: str) -> NDArray[np.float64]:
+    """Wrap positions into [0, L), refusing anything beyond a small tolerance.
+
+    Also refuses coordinates that are clearly in the wrong units: all positions
+    below 1e-2 L (e.g. Gpc/h or box units in a box given in Mpc/h).
+    """
+    pos = np.asarray(pos, dtype=np.float64)
+    if pos.size == 0:
+        raise InputError(f"{source}: catalogue is empty")
+    tol = WRAP_TOLERANCE * box_size
+    lo, hi = pos.min(), pos.max()
+    if lo < -tol or hi >= box_size + tol:
+        raise InputError(f"{source}: positions span [{lo:.4g}, {hi:.4g}] Mpc/h, outside the box "
+                         f"[0, {box_size:g}) beyond the wrap tolerance {tol:.3g} Mpc/h; check "
+                         "box_size and the position columns")
+    if hi < 1e-2 * box_size and len(pos) > 10:
+        raise InputError(f"{source}: all positions are below {hi:.4g} while box_size = "
+                         f"{box_size:g} Mpc/h; the positions look like they are in other units "
+                         "(Gpc/h or box units?)")
+    return np.mod(pos, box_size)
+
+
+@dataclass
+class GalaxyBox:
+    """A periodic galaxy catalogue: what every box input turns into.
+
+    Attributes
+    ----------
+    position : ndarray, shape (N, 3)
+        Comoving positions in [0, box_size), Mpc/h.
+    velocity : ndarray, shape (N, 3)
+        Peculiar velocities, km/s.
+    box_size : float
+        Side of the periodic box, Mpc/h.
+    redshift : float
+        Snapshot redshift.
+    abs_mag : ndarray or None
+        Absolute magnitude M − 5 log10 h; needed for luminosity cuts and flux limits.
+    is_central, halo_id, halo_mass : ndarray or None
+        Central flag, host-halo id and host-halo mass [Msun/h], when known.
+    meta : dict
+        Provenance (how the box was made, parameters, seeds).
+    """
+
+    position: NDArray[np.float64]
+    velocity: NDArray[np.float64]
+    box_size: float
+    redshift: float
+    abs_mag: NDArray[np.float64] | None = None
+    is_central: NDArray[np.bool_] | None = None
+    halo_id: NDArray[np.int64] | None = None
+    halo_mass: NDArray[np.float64] | None = None
+    meta: dict[str, Any] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return int(self.position.shape[0])
+
+    def subset(self, mask: NDArray[np.bool_]) -> GalaxyBox:
+        """A new box holding only the galaxies where ``mask`` is True."""
+        def pick(a: NDArray[Any] | None) -> NDArray[Any] | None:
+            return None if a is None else a[mask]
+        return GalaxyBox(self.position[mask], self.velocity[mask], self.box_size, self.redshift,
+                         pick(self.abs_mag), pick(self.is_central), pick(self.halo_id),
+                         pick(self.halo_mass), dict(self.meta))
+
+    def to_table(self) -> Table:
+        """Canonical-column astropy Table with box_size and redshift in the metadata."""
+        t = Table()
+        for i, c in enumerate(POSITION_COLUMNS):
+            t[c] = self.position[:, i]
+            t[c].unit = "Mpc/h"
+        for i, c in enumerate(VELOCITY_COLUMNS):
+            t[c] = self.velocity[:, i]
+            t[c].unit = "km/s"
+        for name in ("abs_mag", "is_central", "halo_id", "halo_mass"):
+            val = getattr(self, name)
+            if val is not None:
+                t[name] = val
+        t.meta["BOXSIZE"] = float(self.box_size)
+        t.meta["REDSHIFT"] = float(self.redshift)
+        for k, v in self.meta.items():
+            if isinstance(v, (int, float, str, bool)):
+                t.meta[str(k)[:8].upper() if len(str(k)) > 8 else str(k).upper()] = v
+        return t
+
+    @classmethod
+    def from_table(cls, table: Table, box_size: float | None = None,
+                   redshift: float | None = None, source: str = "catalogue",
+                   require_magnitudes: bool = False) -> GalaxyBox:
+        """Build a box from a canonical-column table, checking every input.
+
+        ``box_size`` [Mpc/h] and ``redshift`` default to the table's BOXSIZE/REDSHIFT
+        metadata when not given.
+        """
+        meta = {k.upper(): v for k, v in table.meta.items()}
+        if box_size is None:
+            if "BOXSIZE" not in meta:
+                raise InputError(f"{source}: box size not given and no BOXSIZE in the file header")
+            box_size = float(meta["BOXSIZE"])
+        if redshift is None:
+            if "REDSHIFT" not in meta:
+                raise InputError(f"{source}: snapshot redshift not given and no REDSHIFT in the "
+                                 "file header")
+            redshift = float(meta["REDSHIFT"])
+        if not box_size > 0:
+            raise InputError(f"{source}: box size {box_size!r} must be > 0 Mpc/h")
+        needed = list(POSITION_COLUMNS + VELOCITY_COLUMNS)
+        if require_magnitudes:
+            needed.append("abs_mag")
+        require_columns(table, needed, source)
+        pos = np.column_stack([np.asarray(table[c], dtype=np.float64) for c in POSITION_COLUMNS])
+        vel = np.column_stack([np.asarray(table[c], dtype=np.float64) for c in VELOCITY_COLUMNS])
+        pos = wrap_positions(pos, box_size, source)
+        if np.abs(vel).max() > 2e4:
+            raise InputError(f"{source}: peculiar velocities reach {np.abs(vel).max():.3g}; "
+                             "expected km/s (|v| < 20000)")
+
+        def opt(name: str, dtype: Any) -> NDArray[Any] | None:
+            if name not in table.colnames:
+                return None
+            if name in ("abs_mag", "halo_mass"):
+                require_columns(table, [name], source)
+            return np.asarray(table[name]).astype(dtype)
+
+        return cls(pos, vel, float(box_size), float(redshift), opt("abs_mag", np.float64),
+                   opt("is_central", bool), opt("halo_id", np.int64), opt("halo_mass", np.float64),
+                   {"source": source})
+
+
+def read_galaxy_box(path: str | os.PathLike[str], column_map: Mapping[str, str] | None = None,
+                    box_size: float | None = None, redshift: float | None = None,
+                    require_magnitudes: bool = False) -> GalaxyBox:
+    """Read a galaxy-box file, map its columns and check it (see :class:`GalaxyBox`)."""
+    table = read_table(path)
+    if column_map:
+        table = apply_column_map(table, column_map, str(path))
+    return GalaxyBox.from_table(table, box_size, redshift, str(path), require_magnitudes)
+
+
+def write_galaxy_box(box: GalaxyBox, path: str | os.PathLike[str]) -> None:
+    """Write a galaxy box atomically in the format given by the file name."""
+    write_table(box.to_table(), path)
+
+
+def file_sha256(path: str | os.PathLike[str], chunk: int = 1 << 20) -> str:
+    """Hex SHA-256 of a file's content (for provenance and cache keys)."""
+    import hashlib
+
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(chunk):
+            h.update(block)
+    return h.hexdigest()

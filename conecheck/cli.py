@@ -1,0 +1,104 @@
+"""Command-line interface: subcommands, logging, exit codes.
+
+Exit codes: 0 every statistic passes (or a non-validating command succeeded),
+1 a statistic failed, 2 unusable input (bad config, file or value).  User errors
+print one readable message and never a Python traceback.
+
+Each subcommand lives in the module that owns its stage and exposes two functions,
+``add_arguments(parser)`` and ``main(args) -> int``; this file only wires them.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import sys
+from collections.abc import Sequence
+
+from . import __version__
+from .errors import ConecheckError, InputError
+
+EXIT_PASS, EXIT_FAIL, EXIT_INPUT = 0, 1, 2
+
+#: subcommand -> (module implementing it, one-line help)
+SUBCOMMANDS: dict[str, tuple[str, str]] = {
+    "init": ("conecheck.commands.init", "write a commented configuration template"),
+    "check": ("conecheck.commands.check",
+              "validate a configuration and the files it names; print resolved settings"),
+    "run": ("conecheck.commands.run", "run a whole validation: box, cones, statistics, report"),
+    "demo": ("conecheck.commands.demo",
+             "run the built-in invented-survey demo end to end (writes reports/demo/)"),
+    "report": ("conecheck.commands.report", "re-render the PDF report from a run directory"),
+    "mask": ("conecheck.footprint.commands", "build, inspect and plot HEALPix footprint masks"),
+    "mockbox": ("conecheck.box.commands",
+                "make a galaxy box: populate halos with an HOD, or a synthetic box"),
+    "cones": ("conecheck.cone.commands", "write light-cone mocks and randoms for a config"),
+}
+
+log = logging.getLogger("conecheck")
+
+
+def _configure_logging(verbosity: int) -> None:
+    level = {-1: logging.WARNING, 0: logging.INFO}.get(verbosity, logging.DEBUG)
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("%(levelname)s: %(message)s"))
+    root = logging.getLogger("conecheck")
+    root.handlers[:] = [handler]
+    root.setLevel(level)
+    root.propagate = False
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The top-level parser with every subcommand attached."""
+    parser = argparse.ArgumentParser(
+        prog="conecheck",
+        description="Check that statistics measured in a periodic simulation box are unbiased "
+                    "estimates of what survey-like light cones measure.",
+        epilog="Exit codes: 0 all statistics pass, 1 a statistic fails, 2 unusable input.")
+    parser.add_argument("--version", action="version", version=f"conecheck {__version__}")
+    common = argparse.ArgumentParser(add_help=False)
+    verb = common.add_mutually_exclusive_group()
+    verb.add_argument("-v", "--verbose", action="store_const", const=1, dest="verbosity",
+                      default=0, help="more log output (debug level)")
+    verb.add_argument("-q", "--quiet", action="store_const", const=-1, dest="verbosity",
+                      help="only warnings and errors; no progress display")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, (module_name, help_text) in SUBCOMMANDS.items():
+        module = importlib.import_module(module_name)
+        p = sub.add_parser(name, help=help_text, description=(module.__doc__ or help_text),
+                           parents=[common], formatter_class=argparse.RawDescriptionHelpFormatter)
+        module.add_arguments(p)
+        p.set_defaults(_handler=module.main)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``conecheck`` console script; returns the exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "command", None):
+        parser.print_help()
+        return EXIT_INPUT
+    _configure_logging(args.verbosity)
+    try:
+        return int(args._handler(args))
+    except InputError as exc:
+        if len(exc.problems) > 1:
+            print(f"conecheck {args.command}: {len(exc.problems)} problems:", file=sys.stderr)
+            for p in exc.problems:
+                print(f"  - {p}", file=sys.stderr)
+        else:
+            print(f"conecheck {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except ConecheckError as exc:
+        print(f"conecheck {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("conecheck: interrupted; finished tasks are kept and a re-run resumes.",
+              file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""Subcommands that drive the whole pipeline (init, check, run, demo, report)."""

@@ -1,0 +1,410 @@
+"""Build light cones from a periodic galaxy box.
+
+One cone, in order (design.md §4): replicate the box around the observer and rotate
+it → sky coordinates and cosmological redshift → footprint sampling → radial RSD →
+redshift errors → flux limit (the *target* list) → fibre-collision emulator →
+correction → cut to the shell in observed redshift.  Footprint sampling is applied
+while scanning replicas (it does not depend on redshifts), so only galaxies inside the
+footprint are ever kept in memory.  Galaxies are kept out to a margin beyond the shell
+in true distance (``SurveyShell.margin_mpch``) so that RSD and errors can move them in;
+the fibre emulator sees every target in that padded shell (targets just outside still
+collide with those inside), and the final cut to z_min <= z_obs < z_max follows the
+correction.  A galaxy blueshifted to z_obs <= 0 is dropped (no survey shell holds it).
+
+Randomness is split into independent streams per stage (footprint, redshift errors,
+fibres, corrections), so switching one effect off leaves the draws of every other
+stage unchanged, and :func:`build_all_cones` derives every cone's streams from
+``SeedSequence([seed, cone_index, stage_code])``: a cone's content depends only on the
+seed and its index, never on the order in which cones are built.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+import warnings
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+from astropy.table import Table
+from numpy.typing import ArrayLike, NDArray
+from scipy.spatial.transform import Rotation
+
+from ..catalog import GalaxyBox
+from ..cosmology import Cosmology
+from ..errors import InputError
+from .corrections import CORRECTIONS, ZFLAG_COLLIDED, ZFLAG_OWN_FIBRE, ZFLAG_SECOND_PASS
+from .fibres import OverlapMap, assign_fibres, load_overlap_map, no_fibres
+from .geometry import (
+    BoxCells,
+    SkyCoverage,
+    as_rotation_matrix,
+    check_observer,
+    check_replication,
+    iter_shell_chunks,
+    observer_position,
+    replica_offsets,
+    rotation_matrix,
+    sky_coordinates,
+    sky_coverage,
+)
+from .redshift_space import add_redshift_errors, doppler_redshift, redshift_margin
+from .selection import apparent_magnitude, footprint_keep
+from .settings import (
+    CorrectionSettings,
+    EffectSwitches,
+    FibreSettings,
+    ObserverSettings,
+    RedshiftErrorSettings,
+    SurveyShell,
+)
+
+log = logging.getLogger(__name__)
+
+#: Stage → code used in ``SeedSequence([seed, cone_index, code])``.
+STAGE_CODES: dict[str, int] = {"observer": 1, "rotation": 2, "footprint": 3,
+                               "redshift_errors": 4, "fibres": 5, "corrections": 6}
+
+
+@dataclass
+class SurveyModel:
+    """Everything a cone needs besides the box, the observer and the rotation.
+
+    Attributes
+    ----------
+    cosmology : Cosmology
+        Fiducial cosmology (true and analysis distances use the same one).
+    shell : SurveyShell
+        Outer redshift shell, flux limit, K-correction, margin.
+    footprint : Footprint or None
+        Sky mask with ``completeness(ra_deg, dec_deg)``, ``nside`` and ``area_deg2``;
+        None (or ``effects.footprint = False``) means full sky with completeness 1.
+    effects : EffectSwitches
+    fibres : FibreSettings
+    correction : CorrectionSettings
+    redshift_errors : RedshiftErrorSettings
+    observers : ObserverSettings
+        Only its replication policy is used by :func:`build_cone`.
+    overlap : OverlapMap or None
+        Second-pass probability map; loaded from ``fibres.overlap_map`` when None.
+    """
+
+    cosmology: Cosmology = field(default_factory=Cosmology)
+    shell: SurveyShell = field(default_factory=SurveyShell)
+    footprint: Any = None
+    effects: EffectSwitches = field(default_factory=EffectSwitches)
+    fibres: FibreSettings = field(default_factory=FibreSettings)
+    correction: CorrectionSettings = field(default_factory=CorrectionSettings)
+    redshift_errors: RedshiftErrorSettings = field(default_factory=RedshiftErrorSettings)
+    observers: ObserverSettings = field(default_factory=ObserverSettings)
+    overlap: OverlapMap | None = None
+    _coverage: SkyCoverage | None = field(default=None, init=False, repr=False)
+    _coverage_done: bool = field(default=False, init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        if (self.overlap is None and self.fibres.overlap_map is not None
+                and self.effects.fibres):
+            self.overlap = load_overlap_map(self.fibres.overlap_map, self.fibres.overlap_map_nest)
+
+    @property
+    def active_footprint(self) -> Any:
+        """The footprint in use, or None for the full sky."""
+        return self.footprint if self.effects.footprint else None
+
+    def coverage(self) -> SkyCoverage | None:
+        """Coarse footprint coverage used to skip replicas (computed once)."""
+        if not self._coverage_done:
+            fp = self.active_footprint
+            if fp is not None:
+                area = float(getattr(fp, "area_deg2", 1.0))
+                if not area > 0:
+                    raise InputError("footprint: effective area is zero (every pixel has "
+                                     "completeness 0); check the mask and its vetoes")
+            self._coverage = None if fp is None else sky_coverage(fp)
+            self._coverage_done = True
+        return self._coverage
+
+    def settings_dict(self) -> dict[str, Any]:
+        """The plain settings, for manifests."""
+        return {"shell": asdict(self.shell), "effects": asdict(self.effects),
+                "fibres": asdict(self.fibres), "correction": asdict(self.correction),
+                "redshift_errors": asdict(self.redshift_errors),
+                "observers": asdict(self.observers),
+                "cosmology": {"omega_m": self.cosmology.omega_m,
+                              "omega_k": self.cosmology.omega_k, "h": self.cosmology.h}}
+
+
+# ------------------------------------------------------------------ randomness
+def cone_rngs(seed: int, cone_index: int) -> dict[str, np.random.Generator]:
+    """One independent Generator per stage, from ``SeedSequence([seed, cone_index, code])``."""
+    return {name: np.random.default_rng(np.random.SeedSequence([int(seed), int(cone_index),
+                                                                code]))
+            for name, code in STAGE_CODES.items()}
+
+
+def _stage_rngs(rng: np.random.Generator | Mapping[str, np.random.Generator]
+                ) -> Mapping[str, np.random.Generator]:
+    if isinstance(rng, Mapping):
+        missing = {"footprint", "redshift_errors", "fibres", "corrections"} - set(rng)
+        if missing:
+            raise ValueError(f"rng mapping lacks streams {sorted(missing)}")
+        return rng
+    key = [int(k) for k in rng.integers(0, 2**63 - 1, size=2)]
+    return {name: np.random.default_rng(np.random.SeedSequence([*key, code]))
+            for name, code in STAGE_CODES.items()}
+
+
+def cone_geometry(observers: ObserverSettings, box_size: float, n_cones: int, seed: int,
+                  cone_index: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Observer position [Mpc/h] and rotation matrix of cone ``cone_index``."""
+    streams = cone_rngs(seed, cone_index)
+    o = observer_position(observers, box_size, n_cones, cone_index, streams["observer"])
+    return o, rotation_matrix(observers, cone_index, streams["rotation"])
+
+
+def prepare_box(box: GalaxyBox) -> BoxCells:
+    """Sort the box into cells once; pass the result to every :func:`build_cone` call."""
+    return BoxCells.build(box.position, box.box_size)
+
+
+# ------------------------------------------------------------------ one cone
+def shell_margin(box: GalaxyBox, survey: SurveyModel) -> float:
+    """Distance margin [Mpc/h] kept beyond the shell in true distance."""
+    if survey.shell.margin_mpch is not None:
+        return float(survey.shell.margin_mpch)
+    speed = float(np.sqrt(np.einsum("ij,ij->i", box.velocity, box.velocity)).max()) \
+        if survey.effects.rsd and len(box) else 0.0
+    errors = survey.redshift_errors if survey.effects.redshift_errors else None
+    return redshift_margin(speed, survey.shell.z_max, errors, survey.cosmology) + 1e-6
+
+
+def _check_flux_inputs(box: GalaxyBox, survey: SurveyModel) -> bool:
+    flux = survey.effects.flux_limit and survey.shell.m_lim is not None
+    if flux and box.abs_mag is None:
+        raise InputError(f"shell.m_lim = {survey.shell.m_lim}: a flux limit needs an absolute "
+                         "magnitude column 'abs_mag' in the box catalogue; map one in the "
+                         "column mapping, or remove m_lim / set effects.flux_limit = false")
+    return flux
+
+
+def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotation: Any,
+               rng: np.random.Generator | Mapping[str, np.random.Generator],
+               *, cells: BoxCells | None = None,
+               keep_targets: bool = False) -> tuple[Table, dict[str, Any]]:
+    """Turn ``box`` into one light cone seen from ``observer``.
+
+    Parameters
+    ----------
+    box : GalaxyBox
+        Periodic box: positions [Mpc/h], velocities [km/s], optional abs_mag.
+    survey : SurveyModel
+        Footprint, shell, effects, fibres, correction, redshift errors, cosmology.
+    observer : array_like (3,)
+        Observer position in box coordinates [Mpc/h], inside [0, L)³.
+    rotation : (3, 3) array, scipy Rotation or None
+        Box frame → sky frame; r = R (x + n L − o).
+    rng : numpy Generator or mapping stage → Generator
+        A Generator is split into independent per-stage streams; a mapping (see
+        :func:`cone_rngs`) is used as is.
+    cells : BoxCells, optional
+        The box sorted into cells (:func:`prepare_box`); built here when omitted.
+    keep_targets : bool
+        Also return the pre-correction target list as ``info["targets"]``.
+
+    Returns
+    -------
+    table : astropy Table
+        One row per galaxy in the shell: ra, dec [deg], z_cos, z_obs, z_obs_true,
+        chi_true, chi_obs [Mpc/h], v_los [km/s], completeness, weight, zflag, box_index,
+        replica, and abs_mag, app_mag, is_central, halo_id, halo_mass when known.
+    info : dict
+        n_replicas, n_replicas_used, n_repeated (box galaxies seen twice), margin_mpch,
+        fibres (emulator statistics), correction, n_targets, n_galaxies, timing_s, …
+    """
+    t0 = time.perf_counter()
+    timing: dict[str, float] = {}
+    L = float(box.box_size)
+    o = check_observer(observer, L)
+    rot = as_rotation_matrix(rotation)
+    streams = _stage_rngs(rng)
+    cosmo, shell, fx = survey.cosmology, survey.shell, survey.effects
+    flux = _check_flux_inputs(box, survey)
+    if survey.correction.name not in CORRECTIONS:
+        raise InputError(f"correction.name = {survey.correction.name!r}: expected one of "
+                         + ", ".join(sorted(CORRECTIONS)))
+    chi_min = float(cosmo.comoving_distance(shell.z_min))
+    chi_max = float(cosmo.comoving_distance(shell.z_max))
+    margin = shell_margin(box, survey)
+    r_in, r_out = max(chi_min - margin, 0.0), chi_max + margin
+    replicas = replica_offsets(o, L, r_in, r_out)
+    repeats_possible = check_replication(len(replicas), r_out, L, survey.observers)
+    fp = survey.active_footprint
+    coverage = survey.coverage()
+    if cells is None:
+        cells = BoxCells.build(box.position, L)
+    timing["setup"] = time.perf_counter() - t0
+
+    # -- replicas → sky coordinates → footprint (chunked, bounded memory)
+    t1 = time.perf_counter()
+    parts: dict[str, list[NDArray[Any]]] = {k: [] for k in
+                                            ("idx", "rep", "ra", "dec", "chi", "comp", "vlos")}
+    for chunk in iter_shell_chunks(box.position, cells, L, o, rot, replicas, r_in, r_out,
+                                   coverage):
+        ra, dec, chi = sky_coordinates(chunk.r)
+        if fp is not None:
+            keep, comp = footprint_keep(ra, dec, fp, streams["footprint"])
+        else:
+            keep, comp = np.ones(len(ra), dtype=bool), np.ones(len(ra))
+        if not keep.any():
+            continue
+        idx = chunk.box_index[keep]
+        r = chunk.r[keep]
+        v_sky = box.velocity[idx] @ rot.T
+        parts["idx"].append(idx)
+        parts["rep"].append(chunk.replica[keep])
+        parts["ra"].append(ra[keep])
+        parts["dec"].append(dec[keep])
+        parts["chi"].append(chi[keep])
+        parts["comp"].append(comp[keep])
+        parts["vlos"].append(np.einsum("ij,ij->i", v_sky, r) / np.maximum(chi[keep], 1e-300))
+    if not parts["idx"]:
+        raise InputError(
+            f"footprint/shell: no galaxy of the box falls inside the footprint within "
+            f"{shell.z_min} < z < {shell.z_max} (chi {chi_min:.1f}-{chi_max:.1f} Mpc/h) for "
+            f"the observer at {o.tolist()}; check the footprint and shell.z_min/z_max")
+    cols = {k: np.concatenate(v) for k, v in parts.items()}
+    del parts
+    timing["replicate"] = time.perf_counter() - t1
+
+    # -- redshifts
+    t1 = time.perf_counter()
+    z_cos = cosmo.redshift_at(cols["chi"])
+    z_obs = doppler_redshift(z_cos, cols["vlos"]) if fx.rsd else z_cos.copy()
+    if fx.redshift_errors:
+        z_obs = add_redshift_errors(z_obs, z_cos, survey.redshift_errors,
+                                    streams["redshift_errors"])
+    # a blueshift below z = 0 cannot fall in any survey shell
+    ok = z_obs > 0.0
+    app_mag = None
+    if box.abs_mag is not None:
+        app_mag = apparent_magnitude(box.abs_mag[cols["idx"]], z_obs, cosmo, shell)
+        if flux:
+            ok &= app_mag < shell.m_lim
+    n_in_footprint = len(z_obs)
+    targets = Table()
+    targets["ra"] = cols["ra"][ok]
+    targets["dec"] = cols["dec"][ok]
+    targets["z_cos"] = z_cos[ok]
+    targets["z_obs"] = z_obs[ok]
+    targets["z_obs_true"] = z_obs[ok]
+    targets["chi_true"] = cols["chi"][ok]
+    targets["chi_obs"] = cosmo.comoving_distance(z_obs[ok])
+    targets["v_los"] = cols["vlos"][ok]
+    targets["completeness"] = cols["comp"][ok]
+    idx = cols["idx"][ok]
+    if box.abs_mag is not None and app_mag is not None:
+        targets["abs_mag"] = box.abs_mag[idx]
+        targets["app_mag"] = app_mag[ok]
+    for name in ("is_central", "halo_id", "halo_mass"):
+        val = getattr(box, name)
+        if val is not None:
+            targets[name] = val[idx]
+    targets["box_index"] = idx.astype(np.int64)
+    targets["replica"] = cols["rep"][ok]
+    targets["weight"] = np.ones(len(targets))
+    del cols
+    timing["redshifts"] = time.perf_counter() - t1
+
+    # -- fibres and correction on the target list
+    t1 = time.perf_counter()
+    if fx.fibres:
+        fres = assign_fibres(targets["ra"], targets["dec"], survey.fibres, streams["fibres"],
+                             survey.overlap)
+    else:
+        fres = no_fibres(len(targets))
+    zflag = np.full(len(targets), ZFLAG_OWN_FIBRE, dtype=np.int16)
+    zflag[fres.second_pass] = ZFLAG_SECOND_PASS
+    zflag[~fres.fibred] = ZFLAG_COLLIDED
+    targets["zflag"] = zflag
+    timing["fibres"] = time.perf_counter() - t1
+    t1 = time.perf_counter()
+    corrected = CORRECTIONS[survey.correction.name](targets, fres.fibred,
+                                                    streams["corrections"], cosmo)
+    zc = np.asarray(corrected["z_obs"])
+    cone = corrected[(zc >= shell.z_min) & (zc < shell.z_max)]
+    timing["correction"] = time.perf_counter() - t1
+    if len(cone) == 0:
+        raise InputError(f"shell: the cone is empty after the flux limit and the cut "
+                         f"{shell.z_min} <= z_obs < {shell.z_max}; check shell.m_lim, "
+                         "shell.z_min/z_max and the footprint")
+
+    _, counts = np.unique(np.asarray(cone["box_index"]), return_counts=True)
+    n_repeated = int((counts > 1).sum())
+    if n_repeated:
+        log.info("cone holds %d box galaxies more than once (periodic replicas)", n_repeated)
+    with warnings.catch_warnings():  # gimbal lock (e.g. no rotation) is harmless here
+        warnings.simplefilter("ignore", UserWarning)
+        euler = Rotation.from_matrix(rot).as_euler("ZYZ", degrees=True).tolist()
+    info: dict[str, Any] = {
+        "observer_mpch": o.tolist(),
+        "rotation_matrix": rot.tolist(),
+        "euler_zyz_deg": euler,
+        "chi_min": chi_min, "chi_max": chi_max, "margin_mpch": margin,
+        "n_replicas": int(len(replicas)),
+        "n_replicas_used": int(np.unique(np.asarray(cone["replica"])).size),
+        "repeats_possible": bool(repeats_possible),
+        "n_repeated": n_repeated,
+        "n_in_footprint": int(n_in_footprint),
+        "n_targets": int(len(targets)),
+        "n_galaxies": int(len(cone)),
+        "sum_weight": float(np.sum(cone["weight"])),
+        "fibres": fres.stats,
+        "correction": survey.correction.name,
+        "effects": asdict(fx),
+        "timing_s": {**timing, "total": time.perf_counter() - t0},
+    }
+    if keep_targets:
+        targets["fibred"] = fres.fibred
+        info["targets"] = targets
+    cone.meta.update({"NREPL": int(len(replicas)), "COLLFRAC": float(
+        fres.stats.get("collided_fraction", 0.0)), "CORRECT": survey.correction.name})
+    return cone, info
+
+
+def build_all_cones(box: GalaxyBox, footprint: Any, shell: SurveyShell,
+                    observers: ObserverSettings, effects: EffectSwitches, fibres: FibreSettings,
+                    correction: CorrectionSettings, redshift_errors: RedshiftErrorSettings,
+                    cosmology: Cosmology, n_cones: int, seed: int,
+                    keep_targets: bool = False) -> list[tuple[Table, dict[str, Any]]]:
+    """Build ``n_cones`` cones from one box (the function ``conecheck cones`` calls).
+
+    Cone i's observer, rotation and every stage's draws come from
+    ``SeedSequence([seed, i, stage_code])`` (:func:`cone_rngs`), so any subset of cones
+    can be rebuilt alone, in any order, with identical results.
+
+    Returns
+    -------
+    list of (Table, dict)
+        Each cone and its info (with ``cone_index`` and ``seed`` added).
+    """
+    if not isinstance(n_cones, int) or n_cones < 1:
+        raise InputError(f"n_cones = {n_cones!r}: expected an integer >= 1")
+    survey = SurveyModel(cosmology=cosmology, shell=shell, footprint=footprint, effects=effects,
+                         fibres=fibres, correction=correction, redshift_errors=redshift_errors,
+                         observers=observers)
+    cells = prepare_box(box)
+    out = []
+    for i in range(n_cones):
+        o, rot = cone_geometry(observers, box.box_size, n_cones, seed, i)
+        table, info = build_cone(box, survey, o, rot, cone_rngs(seed, i), cells=cells,
+                                 keep_targets=keep_targets)
+        info["cone_index"] = i
+        info["seed"] = int(seed)
+        table.meta["CONEIDX"] = i
+        out.append((table, info))
+        log.info("cone %d/%d: %d galaxies, %d replicas, collided fraction %.3f", i + 1,
+                 n_cones, info["n_galaxies"], info["n_replicas"],
+                 info["fibres"].get("collided_fraction", 0.0))
+    return out

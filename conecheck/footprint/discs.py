@@ -1,0 +1,145 @@
+"""Completeness-weighted fraction of spherical discs inside a footprint.
+
+For a disc D of angular radius r the fraction is f = (1/Ω_D) ∫_D c dΩ, with c the
+completeness map.  It is evaluated as a midpoint rule on a finer HEALPix grid:
+``healpy.query_disc(..., inclusive=False)`` at N_side_q = N_side · 2^k returns the
+sub-pixels whose *centres* lie in the disc, and f is the mean completeness of their
+parent pixels.  ``inclusive=False`` is the right choice: the centre-in-disc test is
+the midpoint rule, whose errors along the rim cancel to first order, while
+``inclusive=True`` returns every sub-pixel that touches the disc and so over-weights
+the rim (biasing f towards the completeness just outside the disc).  N_side_q is the
+smallest one whose pixel size is below r / ``samples_per_radius`` (≈ π·10² ≈ 300
+sub-pixels per disc by default), so the rim error is ≲ 1 %.
+
+Speed-up for many centres: a disc far from any change in completeness has f equal
+to the completeness of its centre pixel.  We keep, per footprint, a KD-tree of the
+*boundary* pixels (pixels with a neighbour of different value); if the nearest one
+is farther than r + 3 ρ_max (ρ_max: largest centre-to-corner distance of a pixel)
+from the centre pixel, every point of the disc lies in a pixel of the same value
+(any path from the centre pixel to a pixel of different value crosses two adjacent
+boundary pixels within that distance), and the exact answer needs no query.
+Only centres near edges and holes go through ``query_disc``.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import healpy as hp
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy.spatial import cKDTree
+
+from ..errors import InputError
+from ._sphere import check_radec, chord_to_angle, radec_to_vec
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .maps import Footprint
+
+#: Largest sub-pixel N_side used (healpy's limit).
+MAX_NSIDE = 2**29
+#: Sub-pixels gathered per batch of the exact path (bounds memory).
+BATCH_PIXELS = 4_000_000
+
+
+def _boundary_tree(fp: Footprint) -> cKDTree | None:
+    """KD-tree of unit vectors of pixels that have a neighbour of different value."""
+    cached = getattr(fp, "_boundary_tree_cache", None)
+    if cached is not None:
+        return cached[0]
+    occ = fp.occupied
+    vals = fp.values
+    nb = hp.get_all_neighbours(fp.nside, occ, nest=fp.nest)  # (8, m), -1 where missing
+    valid = nb >= 0
+    nbv = np.where(valid, vals[np.where(valid, nb, 0)], vals[occ][None, :])
+    differs = (nbv != vals[occ][None, :]) & valid
+    inner_edge = occ[differs.any(axis=0)]
+    outer_edge = nb[valid & (nbv == 0)]
+    boundary = np.unique(np.concatenate([inner_edge, outer_edge]))
+    tree = None
+    if boundary.size:
+        tree = cKDTree(np.column_stack(hp.pix2vec(fp.nside, boundary, nest=fp.nest)))
+    fp._boundary_tree_cache = (tree,)
+    return tree
+
+
+def _query_level(nside: int, radius_rad: NDArray[np.float64], samples_per_radius: float
+                 ) -> NDArray[np.int64]:
+    """Smallest k with pixel size of N_side·2^k below r / samples_per_radius."""
+    resol = hp.nside2resol(nside)
+    need = np.log2(np.maximum(resol * samples_per_radius / radius_rad, 1.0))
+    kmax = int(np.floor(np.log2(MAX_NSIDE / nside)))
+    return np.clip(np.ceil(need), 0, kmax).astype(np.int64)
+
+
+def disc_fraction(fp: Footprint, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_deg: ArrayLike,
+                  samples_per_radius: float = 10.0) -> NDArray[np.float64]:
+    """Completeness-weighted fraction of each disc inside the footprint.
+
+    Parameters
+    ----------
+    fp : Footprint
+    ra_deg, dec_deg : array_like
+        Disc centres in degrees (broadcast together with ``radius_deg``).
+    radius_deg : array_like
+        Angular radii in degrees, in (0, 180].
+    samples_per_radius : float
+        Sub-pixels per disc radius of the midpoint rule (accuracy ≈ 1/this²·rim).
+
+    Returns
+    -------
+    ndarray
+        f in [0, 1], shape of the broadcast inputs.  Discs smaller than the finest
+        sub-pixel take the completeness at their centre.
+    """
+    ra, dec = check_radec(ra_deg, dec_deg, "disc centres")
+    ra, dec, rad = np.broadcast_arrays(ra, dec, np.asarray(radius_deg, dtype=np.float64))
+    shape = ra.shape
+    ra, dec, rad = ra.ravel(), dec.ravel(), rad.ravel()
+    bad = ~np.isfinite(rad) | (rad <= 0) | (rad > 180)
+    if bad.any():
+        raise InputError(f"disc radii must be in (0, 180] degrees; got {rad[bad][0]!r} "
+                         f"({int(bad.sum())} bad values)")
+    r = np.radians(rad)
+    nside, nest, vals = fp.nside, fp.nest, fp.values
+    pix = np.asarray(hp.ang2pix(nside, ra, dec, nest=nest, lonlat=True))
+    out = vals[pix].astype(np.float64)
+    tree = _boundary_tree(fp)
+    if tree is None:
+        return out.reshape(shape)
+    upix, inv = np.unique(pix, return_inverse=True)
+    centres = np.column_stack(hp.pix2vec(nside, upix, nest=nest))
+    dist, _ = tree.query(centres)
+    d_edge = chord_to_angle(dist)[inv]
+    hard = np.flatnonzero(d_edge <= r + 3.0 * hp.max_pixrad(nside))
+    if hard.size == 0:
+        return out.reshape(shape)
+    vec = radec_to_vec(ra[hard], dec[hard])
+    levels = _query_level(nside, r[hard], samples_per_radius)
+    for level in np.unique(levels):
+        sel = np.flatnonzero(levels == level)
+        nside_q = nside << int(level)
+        r_max = r[hard[sel]].max()
+        start = 0
+        while start < sel.size:
+            # Batch so that the gathered sub-pixel lists stay bounded in memory.
+            per_disc = 2.0 * np.pi * (1 - np.cos(r_max)) / hp.nside2pixarea(nside_q)
+            stop = min(sel.size, start + max(1, int(BATCH_PIXELS / max(per_disc, 1.0))))
+            chunk = sel[start:stop]
+            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False, nest=nest)
+                     for i in chunk]
+            counts = np.array([len(q) for q in lists], dtype=np.int64)
+            if counts.sum():
+                sub = np.concatenate(lists).astype(np.int64)
+                if nest:
+                    parent = sub >> (2 * int(level))
+                else:
+                    parent = hp.vec2pix(nside, *hp.pix2vec(nside_q, sub))
+                pv = vals[parent]
+                has = counts > 0
+                offsets = np.concatenate([[0], np.cumsum(counts)[:-1]])
+                sums = np.add.reduceat(pv, offsets[has])
+                out[hard[chunk[has]]] = sums / counts[has]
+            start = stop
+    return np.clip(out, 0.0, 1.0).reshape(shape)
+

@@ -1,0 +1,13 @@
+"""The numba pair-counting engine: (r_p, π) pair counts and per-centre neighbour counts.
+
+Periodic boxes (one axis as the line of sight, minimum image) and light cones (observer at
+the origin, line of sight at the pair midpoint), weighted, with every jackknife delete-one
+count from a single pass.  See :mod:`.counts` for the counting conventions.
+"""
+
+from .binning import RpPiBins, make_bins
+from .counts import PairCounts, count_rppi_box, count_rppi_cone
+from .neighbours import neighbours_box, neighbours_cone
+
+__all__ = ["PairCounts", "RpPiBins", "count_rppi_box", "count_rppi_cone", "make_bins",
+           "neighbours_box", "neighbours_cone"]

@@ -1,0 +1,420 @@
+"""Numba kernels of the pair and neighbour counters.
+
+Layout shared by every kernel: points sorted by cell (see :mod:`.grid`), one slice of
+contiguous float64 arrays per cell, sorted inside the cell by the LOS coordinate.  The
+outer loop runs over cells in parallel; for each point the neighbour cell's candidates
+are the contiguous window with |Δ_LOS| < π_max, found by two moving pointers.
+
+Pair counts, per point and neighbour cell, run in passes over that window:
+
+1. a branch-free loop (SIMD-vectorised by LLVM) computing each candidate's separations and
+   whether it passes every cut (box: also its bin cell from the bit pattern of r_p², see
+   :class:`.binning.Rp2Lookup`);
+2. a compaction of the accepted candidates by a conditional increment (no branch to
+   mispredict);
+3. a scalar loop binning the accepted candidates and adding their weights into the
+   histogram (histogram updates cannot be vectorised).
+
+Indices in the hot loops are cast to unsigned integers: numba then skips its
+negative-index wrap-around, which otherwise costs as much as the arithmetic.
+
+Pair-count kernels accumulate into ``n_chunks`` private accumulators (chunk ``c`` owns
+tasks ``c, c + n_chunks, …``); the chunk split depends only on the data, so the sums come
+out bit-identical whatever the number of threads.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+from numba import prange, types
+from numba.extending import intrinsic
+
+
+@intrinsic
+def _f2i(typingctx, x):
+    """Reinterpret the bits of a float64 as an int64 (no conversion)."""
+    sig = types.int64(types.float64)
+
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], context.get_value_type(types.int64))
+
+    return sig, codegen
+
+
+@numba.njit(cache=True, inline="always")
+def _wrap(i, n):
+    """Cell index modulo n and the number of box lengths crossed."""
+    k = i % n
+    return k, (i - k) // n
+
+
+@numba.njit(cache=True, inline="always")
+def _rp_bin(rp2, edges2, n_rp):
+    """Bin by a linear scan from the top (most pairs lie in the outer bins)."""
+    k = n_rp - 1
+    while rp2 < edges2[k]:
+        k -= 1
+    return k
+
+
+@numba.njit(cache=True, inline="always")
+def _bin_of(c, rp2, lut, nxt, scan, edges2, n_rp):
+    """Bin of a candidate from its look-up cell (``n_rp`` for the dummy cell)."""
+    if scan:
+        if c == lut.size - 1:
+            return n_rp
+        return _rp_bin(rp2, edges2, n_rp)
+    return lut[c] + (rp2 >= nxt[c])
+
+
+@numba.njit(cache=True)
+def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
+               sx, sy, sz, same, edges2, pi_max, inv_dpi, n_pi,
+               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch):
+    """All pairs between one cell of set 1 and one (shifted) cell of set 2, periodic box."""
+    n_rp = edges2.size - 1
+    rpmin2 = edges2[0]
+    rpmax2 = edges2[n_rp]
+    dummy = lut.size - 1
+    last = lut.size - 2
+    nb = (n_rp + 1) * n_pi
+    jlo = s2
+    jhi = s2
+    for i in range(s1, e1):
+        zi = z1[i] - sz
+        while jlo < e2 and z2[jlo] <= zi - pi_max:
+            jlo += 1
+        if jhi < jlo:
+            jhi = jlo
+        while jhi < e2 and z2[jhi] < zi + pi_max:
+            jhi += 1
+        j0 = jlo
+        if same and j0 <= i:
+            j0 = i + 1
+        nwin = jhi - j0
+        if nwin <= 0:
+            continue
+        xi = x1[i] - sx
+        yi = y1[i] - sy
+        for q in range(nwin):
+            j = np.uint64(j0 + q)
+            dx = x2[j] - xi
+            dy = y2[j] - yi
+            rp2 = dx * dx + dy * dy
+            c = min(max((_f2i(rp2) >> shift) - base, 0), last)
+            cbuf[q] = c if (rp2 < rpmax2) & (rp2 >= rpmin2) else dummy
+            pbuf[q] = min(np.int64(abs(z2[j] - zi) * inv_dpi), n_pi - 1)
+            fbuf[q] = rp2
+        m = 0
+        for q in range(nwin):
+            jbuf[m] = q
+            m += cbuf[q] != dummy
+        wi = w1[i]
+        ri = np.int64(g1[i])
+        for a in range(m):
+            q = np.uint64(jbuf[a])
+            c = np.uint64(cbuf[q])
+            k = _bin_of(c, fbuf[q], lut, nxt, scan, edges2, n_rp)
+            idx = np.uint64(k * n_pi + pbuf[q])
+            j = np.uint64(j0) + q
+            ww = wi * w2[j]
+            tot[idx] += ww
+            if with_touch:
+                rj = np.int64(g2[j])
+                touch[np.uint64(ri * nb) + idx] += ww
+                touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+
+
+@numba.njit(cache=True)
+def _reduce(tot, touch, n_regions, n_rp, n_pi):
+    """Sum the chunk accumulators and drop the overflow row."""
+    n_chunks = tot.shape[0]
+    nb = (n_rp + 1) * n_pi
+    total = np.zeros((n_rp, n_pi))
+    tch = np.zeros((n_regions, n_rp, n_pi))
+    for c in range(n_chunks):
+        total += tot[c, : n_rp * n_pi].reshape(n_rp, n_pi)
+        for r in range(n_regions):
+            tch[r] += touch[c, r * nb: r * nb + n_rp * n_pi].reshape(n_rp, n_pi)
+    return total, tch
+
+
+@numba.njit(parallel=True, cache=True)
+def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offsets,
+             dims, box_size, edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks,
+             lut, nxt, shift, base, scan, max_cell):
+    """Weighted (r_p, |π|) pair counts in a periodic box, LOS along z.
+
+    Returns ``(total[n_rp, n_pi], touch[n_regions, n_rp, n_pi])``.
+    """
+    n_rp = edges2.size - 1
+    nx, ny, nz = dims[0], dims[1], dims[2]
+    inv_dpi = 1.0 / dpi
+    with_touch = n_regions > 0
+    nb = (n_rp + 1) * n_pi
+    tot = np.zeros((n_chunks, nb))
+    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    for c in prange(n_chunks):
+        tot_c = tot[c]
+        touch_c = touch[c]
+        fbuf = np.empty(max_cell)
+        cbuf = np.empty(max_cell, dtype=np.int64)
+        pbuf = np.empty(max_cell, dtype=np.int64)
+        jbuf = np.empty(max_cell, dtype=np.int64)
+        for t in range(c, tasks.size, n_chunks):
+            cell = tasks[t]
+            ix = cell // (ny * nz)
+            iy = (cell // nz) % ny
+            iz = cell % nz
+            s1 = start1[cell]
+            e1 = start1[cell + 1]
+            for o in range(offsets.shape[0]):
+                kx, wx = _wrap(ix + offsets[o, 0], nx)
+                ky, wy = _wrap(iy + offsets[o, 1], ny)
+                kz, wz = _wrap(iz + offsets[o, 2], nz)
+                cell2 = (kx * ny + ky) * nz + kz
+                s2 = start2[cell2]
+                e2 = start2[cell2 + 1]
+                if s2 == e2:
+                    continue
+                same = auto and o == 0
+                _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
+                           wx * box_size, wy * box_size, wz * box_size, same,
+                           edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
+                           fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch)
+    return _reduce(tot, touch, n_regions, n_rp, n_pi)
+
+
+@numba.njit(cache=True)
+def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
+                edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
+                sbuf, lbuf, fbuf, obuf, jbuf, tot, touch, with_touch):
+    """All pairs between two cells of a cone (observer at the origin), midpoint LOS.
+
+    With l = r₁ + r₂: s·l = χ₁² − χ₂² and |l|² = 2χ₁² + 2χ₂² − s², so π² = (s·l)²/|l|²
+    and r_p² |l|² = s²|l|² − (s·l)²; the vectorised pass tests every cut without a
+    division, a compaction keeps the accepted candidates, and only those are binned.
+    """
+    n_rp = edges2.size - 1
+    rpmin2 = edges2[0]
+    rpmax2 = edges2[n_rp]
+    pimax2 = pi_max * pi_max
+    smax2 = rpmax2 + pimax2
+    last = lut.size - 2
+    nb = (n_rp + 1) * n_pi
+    jlo = s2
+    jhi = s2
+    for i in range(s1, e1):
+        ci = c1[i]
+        while jlo < e2 and c2[jlo] <= ci - pi_max:
+            jlo += 1
+        if jhi < jlo:
+            jhi = jlo
+        while jhi < e2 and c2[jhi] < ci + pi_max:
+            jhi += 1
+        j0 = jlo
+        if same and j0 <= i:
+            j0 = i + 1
+        nwin = jhi - j0
+        if nwin <= 0:
+            continue
+        xi = x1[i]
+        yi = y1[i]
+        zi = z1[i]
+        ci2 = ci * ci
+        for q in range(nwin):
+            j = np.uint64(j0 + q)
+            cj = c2[j]
+            dx = x2[j] - xi
+            dy = y2[j] - yi
+            dz = z2[j] - zi
+            s2v = dx * dx + dy * dy + dz * dz
+            sl = cj * cj - ci2
+            sl2 = sl * sl
+            l2 = 2.0 * (ci2 + cj * cj) - s2v
+            t = s2v * l2 - sl2
+            sbuf[q] = s2v
+            fbuf[q] = sl2
+            lbuf[q] = l2
+            obuf[q] = ((s2v < smax2) & (sl2 < pimax2 * l2) & (t < rpmax2 * l2)
+                       & (t >= rpmin2 * l2))
+        m = 0
+        for q in range(nwin):
+            jbuf[m] = q
+            m += obuf[q]
+        if m == 0:
+            continue
+        wi = w1[i]
+        ri = np.int64(g1[i])
+        for a in range(m):
+            q = np.uint64(jbuf[a])
+            pi2 = fbuf[q] / lbuf[q]
+            rp2 = sbuf[q] - pi2
+            cc = np.uint64(min(max((_f2i(rp2) >> shift) - base, 0), last))
+            k = _bin_of(cc, rp2, lut, nxt, scan, edges2, n_rp)
+            if k >= n_rp:  # rounding at the outer edge: the pass-1 test said inside
+                k = n_rp - 1
+            p = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
+            idx = np.uint64(max(k, 0) * n_pi + p)
+            j = np.uint64(j0) + q
+            ww = wi * w2[j]
+            tot[idx] += ww
+            if with_touch:
+                rj = np.int64(g2[j])
+                touch[np.uint64(ri * nb) + idx] += ww
+                touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+
+
+@numba.njit(parallel=True, cache=True)
+def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tasks,
+              offsets, dims, edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks,
+              lut, nxt, shift, base, scan, max_cell):
+    """Weighted (r_p, |π|) pair counts on a cone (midpoint LOS, observer at origin)."""
+    n_rp = edges2.size - 1
+    nx, ny, nz = dims[0], dims[1], dims[2]
+    inv_dpi = 1.0 / dpi
+    with_touch = n_regions > 0
+    nb = (n_rp + 1) * n_pi
+    tot = np.zeros((n_chunks, nb))
+    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    for c in prange(n_chunks):
+        tot_c = tot[c]
+        touch_c = touch[c]
+        sbuf = np.empty(max_cell)
+        lbuf = np.empty(max_cell)
+        fbuf = np.empty(max_cell)
+        obuf = np.empty(max_cell, dtype=np.int64)
+        jbuf = np.empty(max_cell, dtype=np.int64)
+        for t in range(c, tasks.size, n_chunks):
+            cell = tasks[t]
+            ix = cell // (ny * nz)
+            iy = (cell // nz) % ny
+            iz = cell % nz
+            s1 = start1[cell]
+            e1 = start1[cell + 1]
+            for o in range(offsets.shape[0]):
+                kx = ix + offsets[o, 0]
+                ky = iy + offsets[o, 1]
+                kz = iz + offsets[o, 2]
+                if kx < 0 or kx >= nx or ky < 0 or ky >= ny or kz < 0 or kz >= nz:
+                    continue
+                cell2 = (kx * ny + ky) * nz + kz
+                s2 = start2[cell2]
+                e2 = start2[cell2 + 1]
+                if s2 == e2:
+                    continue
+                same = auto and o == 0
+                _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2,
+                            same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
+                            sbuf, lbuf, fbuf, obuf, jbuf, tot_c, touch_c, with_touch)
+    return _reduce(tot, touch, n_regions, n_rp, n_pi)
+
+
+@numba.njit(parallel=True, cache=True)
+def neighbours_box_kernel(cx, cy, cz, self_idx, x2, y2, z2, w2, idx2, start2, offsets, dims,
+                          box_size, edges2, h, sphere, out):
+    """Per-centre weighted neighbour counts in r_p (or |s|) shells, periodic box.
+
+    ``out[i, b]`` += weight of points with ``edges[b] ≤ r < edges[b+1]``, where r is r_p
+    with |Δz| < h (cylinders, annuli) or |s| (``sphere``); ``self_idx[i]`` (original
+    index of the centre among the points, or −1) is skipped.
+    """
+    n_b = edges2.size - 1
+    nx, ny, nz = dims[0], dims[1], dims[2]
+    lo2 = edges2[0]
+    hi2 = edges2[n_b]
+    zmax = h
+    for i in prange(cx.size):
+        ix = min(int(cx[i] / box_size * nx), nx - 1)
+        iy = min(int(cy[i] / box_size * ny), ny - 1)
+        iz = min(int(cz[i] / box_size * nz), nz - 1)
+        me = self_idx[i]
+        for o in range(offsets.shape[0]):
+            kx, wx = _wrap(ix + offsets[o, 0], nx)
+            ky, wy = _wrap(iy + offsets[o, 1], ny)
+            kz, wz = _wrap(iz + offsets[o, 2], nz)
+            cell2 = (kx * ny + ky) * nz + kz
+            s2 = start2[cell2]
+            e2 = start2[cell2 + 1]
+            if s2 == e2:
+                continue
+            xi = cx[i] - wx * box_size
+            yi = cy[i] - wy * box_size
+            zi = cz[i] - wz * box_size
+            j0 = s2 + np.searchsorted(z2[s2:e2], zi - zmax, side="right")
+            for j in range(j0, e2):
+                dz = z2[j] - zi
+                if dz >= zmax:
+                    break
+                if idx2[j] == me:
+                    continue
+                dx = x2[j] - xi
+                dy = y2[j] - yi
+                r2 = dx * dx + dy * dy
+                if sphere:
+                    r2 += dz * dz
+                if r2 >= hi2 or r2 < lo2:
+                    continue
+                out[i, _rp_bin(r2, edges2, n_b)] += w2[j]
+
+
+@numba.njit(parallel=True, cache=True)
+def neighbours_cone_kernel(cx, cy, cz, self_idx, x2, y2, z2, c2, w2, idx2, start2, offsets,
+                           dims, origin, cell, edges2, h, sphere, out):
+    """Per-centre weighted neighbour counts on a cone (midpoint LOS for cylinders).
+
+    Same meaning as :func:`neighbours_box_kernel`; for ``sphere`` the χ window is |s|.
+    """
+    n_b = edges2.size - 1
+    nx, ny, nz = dims[0], dims[1], dims[2]
+    lo2 = edges2[0]
+    hi2 = edges2[n_b]
+    h2 = h * h
+    smax2 = hi2 if sphere else hi2 + h2
+    cwin = np.sqrt(hi2) if sphere else h
+    for i in prange(cx.size):
+        xi = cx[i]
+        yi = cy[i]
+        zi = cz[i]
+        ci2 = xi * xi + yi * yi + zi * zi
+        ci = np.sqrt(ci2)
+        ix = min(max(int((xi - origin[0]) / cell[0]), 0), nx - 1)
+        iy = min(max(int((yi - origin[1]) / cell[1]), 0), ny - 1)
+        iz = min(max(int((zi - origin[2]) / cell[2]), 0), nz - 1)
+        me = self_idx[i]
+        for o in range(offsets.shape[0]):
+            kx = ix + offsets[o, 0]
+            ky = iy + offsets[o, 1]
+            kz = iz + offsets[o, 2]
+            if kx < 0 or kx >= nx or ky < 0 or ky >= ny or kz < 0 or kz >= nz:
+                continue
+            cell2 = (kx * ny + ky) * nz + kz
+            s2 = start2[cell2]
+            e2 = start2[cell2 + 1]
+            if s2 == e2:
+                continue
+            j0 = s2 + np.searchsorted(c2[s2:e2], ci - cwin, side="right")
+            for j in range(j0, e2):
+                cj = c2[j]
+                if cj - ci >= cwin:
+                    break
+                if idx2[j] == me:
+                    continue
+                dx = x2[j] - xi
+                dy = y2[j] - yi
+                dz = z2[j] - zi
+                s2v = dx * dx + dy * dy + dz * dz
+                if s2v >= smax2:
+                    continue
+                if sphere:
+                    r2 = s2v
+                else:
+                    sl = cj * cj - ci2
+                    l2 = 2.0 * (ci2 + cj * cj) - s2v
+                    if sl * sl >= h2 * l2:
+                        continue
+                    r2 = s2v - sl * sl / l2
+                if r2 >= hi2 or r2 < lo2:
+                    continue
+                out[i, _rp_bin(r2, edges2, n_b)] += w2[j]

@@ -1,0 +1,285 @@
+"""Weighted pair counts in (r_p, |π|) bins with all jackknife delete-one counts in one pass.
+
+Conventions
+-----------
+* **Auto counts** (one point set) count each *unordered* pair once: DD = Σ_{i<j} w_i w_j.
+  Their normalisation (the weighted number of distinct pairs) is
+  ((Σw)² − Σw²) / 2, which is N(N − 1)/2 for unit weights.
+* **Cross counts** (two point sets) count every pair (i from set 1, j from set 2) once:
+  DR = Σ_i Σ_j w_i w_j, normalised by Σw₁ Σw₂.  Passing the same points twice therefore
+  gives ordered pairs *and* self-pairs at zero separation — use an auto count instead.
+* **Jackknife**: with ``n_regions = K`` every pair adds its weight to ``total`` and to
+  ``touch[k]`` for each distinct region k of its two points, so the count with region k
+  deleted is ``total − touch[k]`` (pairs with neither point in k).  The delete-one
+  normalisations are recomputed from per-region Σw and Σw².
+* Separations: periodic box, LOS along one axis, minimum image; cone (observer at the
+  origin), LOS at the pair midpoint: s = r₁ − r₂, l = (r₁ + r₂)/2, π = |s·l|/|l|,
+  r_p² = |s|² − π².
+* Bins are closed below and open above: e_b ≤ r_p < e_{b+1}, pΔπ ≤ |π| < (p+1)Δπ;
+  pairs outside [e_0, e_n) or with |π| ≥ π_max are not counted.
+* Sums are bit-identical for any number of numba threads up to :data:`MIN_CHUNKS` (fixed
+  work split, fixed reduction order).  Memory: the points, plus per-chunk accumulators of
+  (K + 1) × (n_rp + 1) × n_pi numbers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numba
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from ..errors import InputError
+from . import _kernels
+from .binning import RpPiBins, check_box_extent, make_bins, rp2_lookup
+from .grid import box_grid, cone_grid, neighbour_offsets, sort_into_grid
+from .points import Points, check_points, region_sums
+
+#: Number of private accumulators of a pair count (bit-identical sums up to this many threads).
+MIN_CHUNKS = 32
+
+
+@dataclass
+class PairCounts:
+    """Weighted pair counts in (r_p, |π|) bins, with jackknife pieces.
+
+    Attributes
+    ----------
+    total : ndarray, shape (n_rp, n_pi)
+        Σ w_i w_j over the pairs in each bin.
+    touch : ndarray, shape (K, n_rp, n_pi) or None
+        Weight of the pairs with at least one point in region k.
+    rp_edges, pi_edges : ndarray
+        Bin edges [Mpc/h]; the |π| bins start at 0.
+    is_auto : bool
+        Auto count (unordered distinct pairs of one set) or cross count.
+    sum_w1, sum_w2, sum_w1_sq, sum_w2_sq : float
+        Σw and Σw² of each set (set 2 equals set 1 for an auto count).
+    region_sum_w1, region_sum_w2, region_sum_w1_sq, region_sum_w2_sq : ndarray, shape (K,)
+        The same sums per jackknife region.
+    norm : float
+        Weighted number of pairs the counts are normalised by (see the module notes).
+    norm_delete_one : ndarray, shape (K,)
+        ``norm`` recomputed with region k removed.
+    n_subsets : int
+        Number of disjoint subsets summed (1, or M for a split-random RR).
+    """
+
+    total: NDArray[np.float64]
+    touch: NDArray[np.float64] | None
+    rp_edges: NDArray[np.float64]
+    pi_edges: NDArray[np.float64]
+    is_auto: bool
+    sum_w1: float
+    sum_w2: float
+    sum_w1_sq: float
+    sum_w2_sq: float
+    region_sum_w1: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
+    region_sum_w2: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
+    region_sum_w1_sq: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
+    region_sum_w2_sq: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
+    norm: float = 0.0
+    norm_delete_one: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
+    n_subsets: int = 1
+
+    @property
+    def n_regions(self) -> int:
+        return 0 if self.touch is None else int(self.touch.shape[0])
+
+    def delete_one(self, k: int) -> NDArray[np.float64]:
+        """Counts with jackknife region ``k`` removed, shape (n_rp, n_pi)."""
+        if self.touch is None:
+            raise ValueError("these pair counts carry no jackknife regions")
+        return self.total - self.touch[k]
+
+    def delete_one_all(self) -> NDArray[np.float64]:
+        """All delete-one counts, shape (K, n_rp, n_pi)."""
+        if self.touch is None:
+            raise ValueError("these pair counts carry no jackknife regions")
+        return self.total[None] - self.touch
+
+    def normalised(self) -> NDArray[np.float64]:
+        """``total / norm`` (the fraction of weighted pairs in each bin)."""
+        return self.total / self.norm
+
+    def normalised_delete_one(self) -> NDArray[np.float64]:
+        """Delete-one counts over their delete-one normalisations, shape (K, n_rp, n_pi)."""
+        return self.delete_one_all() / self.norm_delete_one[:, None, None]
+
+    def __add__(self, other: PairCounts) -> PairCounts:
+        """Sum of counts over disjoint subsets (as for a split-random RR)."""
+        if (self.is_auto != other.is_auto or self.total.shape != other.total.shape
+                or self.n_regions != other.n_regions
+                or not np.array_equal(self.rp_edges, other.rp_edges)
+                or not np.array_equal(self.pi_edges, other.pi_edges)):
+            raise ValueError("can only add pair counts of the same kind, binning and regions")
+        touch = None if self.touch is None else self.touch + other.touch
+        return PairCounts(
+            total=self.total + other.total, touch=touch, rp_edges=self.rp_edges,
+            pi_edges=self.pi_edges, is_auto=self.is_auto,
+            sum_w1=self.sum_w1 + other.sum_w1, sum_w2=self.sum_w2 + other.sum_w2,
+            sum_w1_sq=self.sum_w1_sq + other.sum_w1_sq,
+            sum_w2_sq=self.sum_w2_sq + other.sum_w2_sq,
+            region_sum_w1=self.region_sum_w1 + other.region_sum_w1,
+            region_sum_w2=self.region_sum_w2 + other.region_sum_w2,
+            region_sum_w1_sq=self.region_sum_w1_sq + other.region_sum_w1_sq,
+            region_sum_w2_sq=self.region_sum_w2_sq + other.region_sum_w2_sq,
+            norm=self.norm + other.norm,
+            norm_delete_one=self.norm_delete_one + other.norm_delete_one,
+            n_subsets=self.n_subsets + other.n_subsets)
+
+
+def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64], bins: RpPiBins,
+              p1: Points, p2: Points | None, n_regions: int) -> PairCounts:
+    auto = p2 is None
+    q = p1 if auto else p2
+    s1, s1q = float(p1.w.sum()), float((p1.w**2).sum())
+    s2, s2q = float(q.w.sum()), float((q.w**2).sum())
+    r1, r1q = region_sums(p1, n_regions)
+    r2, r2q = region_sums(q, n_regions)
+    if auto:
+        norm = 0.5 * (s1 * s1 - s1q)
+        norm_k = 0.5 * ((s1 - r1) ** 2 - (s1q - r1q))
+    else:
+        norm = s1 * s2
+        norm_k = (s1 - r1) * (s2 - r2)
+    return PairCounts(total=total, touch=touch if n_regions > 0 else None,
+                      rp_edges=bins.rp_edges.copy(), pi_edges=bins.pi_edges, is_auto=auto,
+                      sum_w1=s1, sum_w2=s2, sum_w1_sq=s1q, sum_w2_sq=s2q,
+                      region_sum_w1=r1, region_sum_w2=r2, region_sum_w1_sq=r1q,
+                      region_sum_w2_sq=r2q, norm=norm, norm_delete_one=norm_k)
+
+
+def _n_chunks(n_tasks: int) -> int:
+    return max(1, min(max(MIN_CHUNKS, numba.get_num_threads()), n_tasks))
+
+
+def _lookup_args(bins: RpPiBins) -> tuple:
+    lk = rp2_lookup(bins.rp_edges**2)
+    return lk.lut, lk.nxt, lk.shift, lk.base, lk.scan
+
+
+def _max_cell(start: NDArray[np.int64]) -> int:
+    return max(1, int(np.diff(start).max())) if start.size > 1 else 1
+
+
+def _check_axis(los_axis: int) -> int:
+    if los_axis not in (0, 1, 2):
+        raise InputError(f"los_axis: expected 0, 1 or 2 (x, y or z), got {los_axis!r}")
+    return int(los_axis)
+
+
+def to_box_frame(pos: NDArray[np.float64], box_size: float, los_axis: int) -> NDArray[np.float64]:
+    """Wrap into [0, L) and permute the axes so the line of sight is the third one."""
+    axes = [a for a in range(3) if a != los_axis] + [los_axis]
+    p = np.mod(pos[:, axes], box_size)
+    p[p >= box_size] = 0.0  # np.mod of a tiny negative number can round up to L
+    return np.ascontiguousarray(p)
+
+
+def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
+                   pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
+                   reg2: ArrayLike | None = None, *, box_size: float, los_axis: int = 2,
+                   rp_edges: ArrayLike, pi_max: float, dpi: float = 1.0, n_regions: int = 0,
+                   refine: int = 2) -> PairCounts:
+    """Pair counts in (r_p, |π|) bins in a periodic box.
+
+    Parameters
+    ----------
+    pos1 : array_like, shape (N1, 3)
+        Positions [Mpc/h] (redshift space along ``los_axis``); wrapped into [0, L).
+    w1 : array_like, shape (N1,), optional
+        Weights (default 1).
+    reg1 : array_like of int, shape (N1,), optional
+        Jackknife regions in [0, n_regions); needed when ``n_regions > 0``.
+    pos2, w2, reg2 : optional
+        Second point set for a cross count; ``None`` for an auto count.
+    box_size : float
+        Box side L [Mpc/h].
+    los_axis : int
+        Line-of-sight axis (0, 1, 2).
+    rp_edges : array_like
+        r_p bin edges [Mpc/h], increasing; the largest must be < L/2.
+    pi_max : float
+        Largest |π| [Mpc/h] (< L/2), a whole multiple of ``dpi``.
+    dpi : float
+        |π| bin width [Mpc/h].
+    n_regions : int
+        Number of jackknife regions (0: none).
+    refine : int
+        Cells per r_p,max across the LOS (speed only).
+
+    Returns
+    -------
+    PairCounts
+    """
+    bins = make_bins(rp_edges, pi_max, dpi)
+    box_size = float(box_size)
+    check_box_extent(bins.rp_max, box_size, "largest r_p edge")
+    check_box_extent(bins.pi_max, box_size, "pi_max")
+    los_axis = _check_axis(los_axis)
+    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
+    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    grid = box_grid(box_size, bins.rp_max, bins.pi_max, refine=max(1, int(refine)))
+    offsets = neighbour_offsets(grid, bins.rp_max, bins.pi_max, "cylinder", half=p2 is None)
+    a = to_box_frame(p1.pos, box_size, los_axis)
+    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
+    if p2 is None:
+        g2 = g1
+    else:
+        b = to_box_frame(p2.pos, box_size, los_axis)
+        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
+    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    total, touch = _kernels.rppi_box(
+        g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
+        tasks, offsets, grid.dims, box_size, bins.rp_edges**2, bins.pi_max, bins.dpi,
+        bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
+        *_lookup_args(bins), _max_cell(g2.start))
+    return _assemble(total, touch, bins, p1, p2, int(n_regions))
+
+
+def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
+                    pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
+                    reg2: ArrayLike | None = None, *, rp_edges: ArrayLike, pi_max: float,
+                    dpi: float = 1.0, n_regions: int = 0, refine: int = 1) -> PairCounts:
+    """Pair counts in (r_p, |π|) bins on a light cone, line of sight at the pair midpoint.
+
+    Parameters
+    ----------
+    pos1 : array_like, shape (N1, 3)
+        Cartesian positions [Mpc/h] with the observer at the origin (e.g. ``ConeSample.xyz``).
+    w1, reg1, pos2, w2, reg2, rp_edges, pi_max, dpi, n_regions
+        As in :func:`count_rppi_box`.
+    refine : int
+        Cells per r_max = √(r_p,max² + π_max²) (speed only; 1 is fastest in
+        benchmarks/bench_pairs.py since the χ window already prunes along the LOS).
+
+    Returns
+    -------
+    PairCounts
+    """
+    bins = make_bins(rp_edges, pi_max, dpi)
+    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
+    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    n2 = p1.n if p2 is None else p2.n
+    if p1.n == 0 or n2 == 0:
+        shape = (bins.n_rp, bins.n_pi)
+        return _assemble(np.zeros(shape), np.zeros((int(n_regions),) + shape), bins, p1, p2,
+                         int(n_regions))
+    sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
+    grid = cone_grid(sets, bins.r_max, refine=max(1, int(refine)))
+    offsets = neighbour_offsets(grid, bins.r_max, bins.r_max, "sphere", half=p2 is None)
+    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
+    if p2 is None:
+        g2 = g1
+    else:
+        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
+    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    total, touch = _kernels.rppi_cone(
+        g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
+        g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
+        tasks, offsets, grid.dims, bins.rp_edges**2, bins.pi_max, bins.dpi, bins.n_pi,
+        int(n_regions), p2 is None, _n_chunks(tasks.size),
+        *_lookup_args(bins), _max_cell(g2.start))
+    return _assemble(total, touch, bins, p1, p2, int(n_regions))

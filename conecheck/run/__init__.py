@@ -1,0 +1,1 @@
+"""run stage of the conecheck pipeline."""

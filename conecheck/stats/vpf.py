@@ -1,0 +1,151 @@
+"""Void probability function P₀(R): the fraction of random spheres of radius R holding no
+galaxy (design.md §6).
+
+Box: centres uniform in the periodic box.  Cone: centres drawn on the sky with
+``footprint.sample`` (uniform per solid angle, thinned by completeness) and uniform in
+comoving volume between χ_min and χ_max; at each radius only spheres wholly inside the
+survey are used — χ ± R inside the shell and the completeness-weighted footprint fraction
+of the disc of angular radius arcsin(R/χ) at least ``min_inside_fraction``.
+
+Weights: a sphere is empty when it holds no galaxy of positive weight; up-weighting a
+neighbour cannot fill a sphere, so weights enter P₀ only through that test.
+Jackknife: the region of a sphere is the region of its centre; delete-one k drops the
+spheres centred in region k.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..errors import InputError
+from ..pairs import neighbours_box, neighbours_cone
+from ._common import check_filled, want_jackknife
+from .base import BoxSample, ConeGeometry, ConeSample, Measurement
+from .settings import VpfSettings
+
+NAME = "vpf"
+
+
+def _p0(empty: NDArray[np.bool_], use: NDArray[np.bool_], region: NDArray[np.int64] | None,
+        n_regions: int, radii: NDArray[np.float64], extra: dict) -> Measurement:
+    """P₀ per radius from ``empty``/``use`` masks of shape (n_spheres, n_radii)."""
+    n_use = use.sum(axis=0).astype(np.float64)
+    if np.any(n_use == 0):
+        bad = radii[n_use == 0]
+        raise InputError(f"vpf: no sphere of radius {bad.tolist()} Mpc/h fits inside the survey; "
+                         "use smaller radii or more spheres")
+    n_empty = (empty & use).sum(axis=0).astype(np.float64)
+    delete_one = None
+    if n_regions:
+        e_k = np.zeros((n_regions, radii.size))
+        u_k = np.zeros((n_regions, radii.size))
+        np.add.at(e_k, region, (empty & use).astype(np.float64))
+        np.add.at(u_k, region, use.astype(np.float64))
+        left = n_use[None] - u_k
+        if np.any(left == 0):
+            raise InputError("vpf: removing one jackknife region leaves no sphere; use fewer "
+                             "regions or more spheres")
+        delete_one = (n_empty[None] - e_k) / left
+    extra = dict(extra)
+    extra["n_spheres_used"] = n_use.astype(int).tolist()
+    return Measurement(name=NAME, bins=radii.copy(), value=n_empty / n_use,
+                       delete_one=delete_one, bin_label="R [Mpc/h]", value_label="P_0(R)",
+                       extra=extra)
+
+
+def _empty(counts: NDArray[np.float64]) -> NDArray[np.bool_]:
+    return np.cumsum(counts, axis=1) == 0
+
+
+def vpf_box(sample: BoxSample, settings: VpfSettings | None = None,
+            rng: np.random.Generator | None = None, *, jackknife: bool | None = None
+            ) -> Measurement:
+    """P₀(R) of a periodic box sample from ``settings.n_spheres`` random spheres.
+
+    Parameters
+    ----------
+    sample : BoxSample
+    settings : VpfSettings, optional
+    rng : numpy.random.Generator
+        Seeded generator for the sphere centres (required).
+    jackknife : bool, optional
+        Delete-one vectors; needs ``sample.layout`` to place spheres in regions.
+    """
+    s = settings or VpfSettings()
+    if rng is None:
+        raise InputError("vpf: a seeded numpy Generator (rng) is needed for the sphere centres")
+    radii = np.asarray(s.radii)
+    jk = want_jackknife(jackknife, sample.n_regions, "vpf")
+    if jk and sample.layout is None:
+        raise InputError("vpf: the box jackknife needs the sub-volume layout (build the sample "
+                         "with BoxSample.with_regions)")
+    centres = rng.uniform(0.0, sample.box_size, size=(s.n_spheres, 3))
+    occupied = (sample.w > 0).astype(np.float64)
+    counts = neighbours_box(centres, sample.position, occupied, box_size=sample.box_size,
+                            los_axis=sample.los_axis, edges=np.concatenate([[0.0], radii]))
+    region = None
+    if jk:
+        region = sample.layout.region_of(centres)
+        check_filled(region, sample.n_regions, "VPF spheres")
+    use = np.ones((s.n_spheres, radii.size), dtype=bool)
+    return _p0(_empty(counts), use, region, sample.n_regions if jk else 0, radii,
+               {"geometry": "box"})
+
+
+def sphere_centres_cone(geometry: ConeGeometry, n: int, rng: np.random.Generator
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Random centres inside the survey: sky from the footprint, χ uniform in volume.
+
+    Returns ``ra, dec`` [deg] and ``chi`` [Mpc/h].
+    """
+    ra, dec = geometry.footprint.sample(n, rng)
+    u = rng.random(n)
+    c3 = geometry.chi_min**3 + u * (geometry.chi_max**3 - geometry.chi_min**3)
+    return np.asarray(ra, dtype=np.float64), np.asarray(dec, dtype=np.float64), np.cbrt(c3)
+
+
+def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings | None = None,
+             rng: np.random.Generator | None = None, *, jackknife: bool | None = None
+             ) -> Measurement:
+    """P₀(R) of a cone sample from random spheres wholly inside the survey.
+
+    Parameters
+    ----------
+    sample : ConeSample
+    geometry : ConeGeometry
+        Footprint, shell limits and (for the jackknife) the sky regions.
+    settings : VpfSettings, optional
+    rng : numpy.random.Generator
+        Seeded generator for the sphere centres (required).
+    jackknife : bool, optional
+    """
+    s = settings or VpfSettings()
+    if rng is None:
+        raise InputError("vpf: a seeded numpy Generator (rng) is needed for the sphere centres")
+    radii = np.asarray(s.radii)
+    jk = want_jackknife(jackknife, sample.n_regions, "vpf")
+    ra, dec, chi = sphere_centres_cone(geometry, s.n_spheres, rng)
+    centres = ConeSample(ra, dec, chi).xyz
+    occupied = (sample.w > 0).astype(np.float64)
+    counts = neighbours_cone(centres, sample.xyz, occupied,
+                             edges=np.concatenate([[0.0], radii]))
+    use = np.empty((s.n_spheres, radii.size), dtype=bool)
+    for i, r in enumerate(radii):
+        radial = (chi - r >= geometry.chi_min) & (chi + r <= geometry.chi_max)
+        ang = np.degrees(np.arcsin(np.clip(r / chi, 0.0, 1.0)))
+        frac = np.zeros(s.n_spheres)
+        if radial.any():
+            frac[radial] = geometry.footprint.disc_fraction(ra[radial], dec[radial], ang[radial])
+        use[:, i] = radial & (frac >= s.min_inside_fraction)
+    region = None
+    k = 0
+    if jk:
+        k = sample.n_regions
+        if geometry.regions is None:
+            raise InputError("vpf: the cone jackknife needs the geometry's region map")
+        region = np.asarray(geometry.regions.region_of(ra, dec), dtype=np.int64)
+        outside = region < 0
+        use[outside] = False
+        region = np.where(outside, 0, region)
+    return _p0(_empty(counts), use, region, k, radii, {"geometry": "cone"})

@@ -1,0 +1,234 @@
+"""Projected correlation function wp(r_p) = 2 Σ_π ξ(r_p, π) Δπ up to π_max (design.md §6).
+
+Box (periodic): the natural estimator with the analytic random-pair fraction,
+ξ = DD / (N_pairs · V_bin / L³) − 1, where N_pairs = ((Σw)² − Σw²)/2 counts distinct
+pairs (DD counts each unordered pair once) and V_bin = π (r₂² − r₁²) · 2Δπ (a |π| bin
+holds both signs of π).  With analytic randoms DR = RR, so this *is* Landy–Szalay.
+
+Box jackknife: removing sub-volume C (volume V_C = L³/K) leaves a region R that is no
+longer periodic, so the analytic random-pair fraction of a bin becomes exactly
+
+    f_R = (1 / V_R²) ∫_bin d³s [L³ − 2 V_C + V(C ∩ (C − s))],
+
+with V(C ∩ (C − s)) = L (a − |s_x|)(a − |s_y|) for columns of side a along the LOS and
+(a − |s_x|)(a − |s_y|)(a − |s_z|) for cubes (valid while r_p,max, and π_max for cubes,
+are < a).  Integrating over an annulus r₁ ≤ r_p < r₂ gives
+a² π(r₂² − r₁²) − (8a/3)(r₂³ − r₁³) + (r₂⁴ − r₁⁴)/2 (:func:`_overlap_perp`), times
+L · 2Δπ (columns) or 2[aΔπ − (z₂² − z₁²)/2] (cubes) for the |π| slab [z₁, z₂).
+When the layout is unknown (labels given by hand) the remaining-volume approximation
+f_R = V_bin / V_R is used instead.
+
+Cone: Landy–Szalay ξ = (DD − 2DR + RR)/RR with each count divided by its weighted number
+of pairs (DD, RR: ((Σw)² − Σw²)/2; DR: Σw_D Σw_R).  RR depends only on the randoms, so it
+is counted once per sample and cut (:func:`count_rr_cone`) and passed to every cone.  The
+``split`` option counts RR only inside M disjoint random subsets, each ``split_factor``
+times the data size, normalised by Σ_subsets of their pair numbers (Keihänen et al. 2019,
+A&A 631, A73); DR still uses all randoms.  Delete-one counts and normalisations come from
+the one-pass region bookkeeping of :mod:`conecheck.pairs`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..errors import InputError
+from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_cone
+from ._common import check_filled, want_jackknife
+from .base import BoxSample, ConeGeometry, ConeSample, Measurement
+from .settings import WpSettings
+
+NAME = "wp"
+
+
+def _overlap_perp(e: NDArray[np.float64], a: float) -> NDArray[np.float64]:
+    """∫ (a − |s_x|)(a − |s_y|) d²s_perp over each r_p annulus [(Mpc/h)⁴]."""
+    r1, r2 = e[:-1], e[1:]
+    return (a * a * np.pi * (r2**2 - r1**2) - a * 8.0 / 3.0 * (r2**3 - r1**3)
+            + 0.5 * (r2**4 - r1**4))
+
+
+def box_pair_fractions(bins: RpPiBins, box_size: float, layout: object | None,
+                       n_regions: int) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+    """Fraction of random pairs in each (r_p, |π|) bin: full box and with one region removed.
+
+    Returns ``(f_full, f_delete_one)``, each (n_rp, n_pi); ``f_delete_one`` is None without
+    regions.  See the module notes for the formula.
+    """
+    vol = box_size**3
+    vbin = bins.cylinder_volumes()
+    f_full = vbin / vol
+    if n_regions < 2:
+        return f_full, None
+    v_c = vol / n_regions
+    v_r = vol - v_c
+    if layout is None:
+        return f_full, vbin / v_r
+    a = float(layout.side)
+    if bins.rp_max >= a or (layout.layout == "cubes" and bins.pi_max >= a):
+        raise InputError(f"wp jackknife: sub-volumes are {a:g} Mpc/h across, smaller than the "
+                         f"largest separation (r_p,max = {bins.rp_max:g}, pi_max = "
+                         f"{bins.pi_max:g} Mpc/h); use fewer jackknife regions")
+    perp = _overlap_perp(bins.rp_edges, a)
+    z = bins.pi_edges
+    if layout.layout == "columns":
+        los = np.full(bins.n_pi, box_size * 2.0 * bins.dpi)
+    else:
+        los = 2.0 * (a * bins.dpi - 0.5 * (z[1:] ** 2 - z[:-1] ** 2))
+    overlap = np.outer(perp, los)
+    return f_full, ((vol - 2.0 * v_c) * vbin + overlap) / v_r**2
+
+
+def _wp_from_xi(xi: NDArray[np.float64], dpi: float) -> NDArray[np.float64]:
+    return 2.0 * dpi * xi.sum(axis=-1)
+
+
+def _measurement(bins: RpPiBins, value: NDArray[np.float64],
+                 delete_one: NDArray[np.float64] | None, extra: dict) -> Measurement:
+    return Measurement(name=NAME, bins=bins.rp_centres, value=value, delete_one=delete_one,
+                       bin_edges=bins.rp_edges.copy(), bin_label="r_p [Mpc/h]",
+                       value_label="w_p(r_p) [Mpc/h]", extra=extra)
+
+
+def wp_box(sample: BoxSample, settings: WpSettings | None = None, *,
+           jackknife: bool | None = None) -> Measurement:
+    """wp(r_p) [Mpc/h] of a periodic box sample (analytic randoms).
+
+    Parameters
+    ----------
+    sample : BoxSample
+        Positions in redshift space along ``sample.los_axis``.
+    settings : WpSettings, optional
+    jackknife : bool, optional
+        Also compute delete-one vectors (default: when the sample has regions).
+    """
+    settings = settings or WpSettings()
+    bins = settings.bins
+    jk = want_jackknife(jackknife, sample.n_regions, "wp")
+    k = sample.n_regions if jk else 0
+    if jk:
+        check_filled(sample.region, k, "galaxies")
+    dd = count_rppi_box(sample.position, sample.weight, sample.region if jk else None,
+                        box_size=sample.box_size, los_axis=sample.los_axis,
+                        rp_edges=bins.rp_edges, pi_max=bins.pi_max, dpi=bins.dpi, n_regions=k)
+    if dd.norm <= 0:
+        raise InputError("wp: the box sample needs at least two galaxies with positive weight")
+    f_full, f_del = box_pair_fractions(bins, sample.box_size, sample.layout if jk else None, k)
+    xi = dd.total / (dd.norm * f_full) - 1.0
+    delete_one = None
+    if jk:
+        xi_k = dd.delete_one_all() / (dd.norm_delete_one[:, None, None] * f_del[None]) - 1.0
+        delete_one = _wp_from_xi(xi_k, bins.dpi)
+    return _measurement(bins, _wp_from_xi(xi, bins.dpi), delete_one,
+                        {"dd_pairs": dd.total.sum(axis=1).tolist(), "estimator": "analytic RR"})
+
+
+def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
+                  settings: WpSettings | None = None, *, n_data: int | None = None) -> PairCounts:
+    """RR pair counts of the randoms of one sample and cut, shared by every cone.
+
+    Parameters
+    ----------
+    randoms : ConeSample
+        The randoms, with the same region map as the data.
+    geometry : ConeGeometry, optional
+        Unused by the count itself; accepted so every cone-side call looks alike.
+    settings : WpSettings, optional
+        Binning and ``rr_method``.
+    n_data : int, optional
+        Expected data size, needed by ``rr_method = "split"`` to size the subsets.
+    """
+    settings = settings or WpSettings()
+    bins = settings.bins
+    xyz = randoms.xyz
+    if settings.rr_method == "full":
+        return count_rppi_cone(xyz, randoms.weight, randoms.region, rp_edges=bins.rp_edges,
+                               pi_max=bins.pi_max, dpi=bins.dpi, n_regions=randoms.n_regions)
+    if n_data is None or n_data < 1:
+        raise InputError("wp: rr_method = 'split' needs the data size (n_data) to size the "
+                         "random subsets")
+    m = max(1, int(round(len(randoms) / (settings.split_factor * n_data))))
+    w = randoms.w
+    total: PairCounts | None = None
+    for s in range(m):
+        # strided subsets: disjoint, and each spread over the whole survey whatever the
+        # order the randoms come in
+        sel = slice(s, None, m)
+        reg = None if randoms.region is None else randoms.region[sel]
+        part = count_rppi_cone(xyz[sel], w[sel], reg, rp_edges=bins.rp_edges,
+                               pi_max=bins.pi_max, dpi=bins.dpi, n_regions=randoms.n_regions)
+        total = part if total is None else total + part
+    return total
+
+
+def _check_rr(rr: PairCounts, bins: RpPiBins, k: int) -> None:
+    if (not rr.is_auto or rr.total.shape != (bins.n_rp, bins.n_pi)
+            or not np.allclose(rr.rp_edges, bins.rp_edges)
+            or not np.allclose(rr.pi_edges, bins.pi_edges)):
+        raise InputError("wp: the precomputed RR counts do not match the wp binning "
+                         "(recount RR with the same settings)")
+    if k and rr.n_regions != k:
+        raise InputError(f"wp: the precomputed RR carries {rr.n_regions} jackknife regions, "
+                         f"the data {k}")
+
+
+def wp_cone(data: ConeSample, randoms: ConeSample, geometry: ConeGeometry | None = None,
+            settings: WpSettings | None = None, *, rr: PairCounts | None = None,
+            jackknife: bool | None = None) -> Measurement:
+    """wp(r_p) [Mpc/h] of a cone with the Landy–Szalay estimator.
+
+    Parameters
+    ----------
+    data, randoms : ConeSample
+        Galaxies and randoms (same footprint, shell and region map).
+    geometry : ConeGeometry, optional
+        Passed on to :func:`count_rr_cone` when ``rr`` is not given.
+    settings : WpSettings, optional
+    rr : PairCounts, optional
+        Precomputed :func:`count_rr_cone` result (shared by all cones).
+    jackknife : bool, optional
+        Also compute delete-one vectors (default: when the data have regions).
+    """
+    settings = settings or WpSettings()
+    bins = settings.bins
+    if len(data) < 2 or len(randoms) < 2:
+        raise InputError(f"wp: need at least two galaxies and two randoms, got {len(data)} and "
+                         f"{len(randoms)}")
+    jk = want_jackknife(jackknife, data.n_regions, "wp")
+    k = data.n_regions if jk else 0
+    if jk:
+        if randoms.n_regions != k:
+            raise InputError(f"wp: data have {k} jackknife regions, randoms "
+                             f"{randoms.n_regions}; they must share one region map")
+        check_filled(data.region, k, "galaxies")
+        check_filled(randoms.region, k, "randoms")
+    if rr is None:
+        rr = count_rr_cone(randoms, geometry, settings, n_data=len(data))
+    _check_rr(rr, bins, k)
+    empty = np.argwhere(rr.total <= 0)
+    if empty.size:
+        rp_i, pi_i = empty[0]
+        raise InputError(f"wp: no random pairs in bin r_p ∈ [{bins.rp_edges[rp_i]:g}, "
+                         f"{bins.rp_edges[rp_i + 1]:g}) Mpc/h, |π| bin {pi_i}; use more randoms "
+                         "or a larger r_p,min")
+    dxyz, rxyz = data.xyz, randoms.xyz
+    dreg = data.region if jk else None
+    rreg = randoms.region if jk else None
+    kw = {"rp_edges": bins.rp_edges, "pi_max": bins.pi_max, "dpi": bins.dpi, "n_regions": k}
+    dd = count_rppi_cone(dxyz, data.weight, dreg, **kw)
+    dr = count_rppi_cone(dxyz, data.weight, dreg, rxyz, randoms.weight, rreg, **kw)
+    rrn = rr.normalised()
+    xi = (dd.normalised() - 2.0 * dr.normalised() + rrn) / rrn
+    delete_one = None
+    if jk:
+        rrk = rr.normalised_delete_one()
+        if np.any(rrk <= 0):
+            raise InputError("wp: removing one jackknife region leaves a bin without random "
+                             "pairs; use fewer regions or more randoms")
+        xik = (dd.normalised_delete_one() - 2.0 * dr.normalised_delete_one() + rrk) / rrk
+        delete_one = _wp_from_xi(xik, bins.dpi)
+    extra = {"dd_pairs": dd.total.sum(axis=1).tolist(),
+             "dr_pairs": dr.total.sum(axis=1).tolist(),
+             "rr_pairs": rr.total.sum(axis=1).tolist(),
+             "rr_subsets": rr.n_subsets, "estimator": "Landy-Szalay"}
+    return _measurement(bins, _wp_from_xi(xi, bins.dpi), delete_one, extra)

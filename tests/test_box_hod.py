@@ -1,0 +1,247 @@
+"""HOD occupations, assembly-bias decoration, magnitudes and parameter loading."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+from scipy.special import erf
+
+from conecheck.box import (
+    AssemblyBias,
+    HaloCatalog,
+    HODModel,
+    default_hod_model,
+    default_hod_path,
+    load_hod,
+    populate,
+)
+from conecheck.box.hod import DEFAULT_HOD, split_by_secondary
+from conecheck.errors import InputError
+
+BOX = 1000.0
+
+
+def make_halos(mass, rng, secondary=None, **kw):
+    n = len(mass)
+    props = {} if secondary is None else {"secondary": secondary}
+    return HaloCatalog(rng.uniform(0, BOX, (n, 3)), rng.normal(0, 300, (n, 3)),
+                       np.asarray(mass, float), BOX, 0.2, properties=props, **kw)
+
+
+def zheng07(mass, p):
+    """Zheng et al. 2007 (ApJ 667, 760) eqs. 2-3, written out independently of the package."""
+    logm = np.log10(mass)
+    cen = 0.5 * (1 + erf((logm - p["log_mmin"]) / p["sigma_logm"]))
+    m0, m1 = 10 ** p["log_m0"], 10 ** p["log_m1"]
+    sat = np.where(mass > m0, (np.clip(mass - m0, 0, None) / m1) ** p["alpha"], 0.0)
+    return cen, sat
+
+
+def counts_per_halo(box, n_halo, mag, central):
+    sel = (box.abs_mag < mag) & (box.is_central == central)
+    return np.bincount(box.halo_id[sel], minlength=n_halo)
+
+
+def binned_chi2(mass, observed, expected, variance, edges):
+    which = np.digitize(np.log10(mass), edges) - 1
+    chi2, dof = 0.0, 0
+    for b in range(len(edges) - 1):
+        s = which == b
+        if s.sum() < 50 or variance[s].sum() == 0:
+            continue
+        diff = observed[s].sum() - expected[s].sum()
+        chi2 += diff**2 / variance[s].sum()
+        dof += 1
+    return chi2, dof
+
+
+@pytest.fixture(scope="module")
+def populated():
+    rng = np.random.default_rng(11)
+    mass = 10 ** rng.uniform(11.3, 14.8, 150_000)
+    halos = make_halos(mass, rng)
+    return halos, populate(halos, default_hod_model(), rng)
+
+
+def test_mean_occupations_match_zheng07(populated):
+    # Source: Zheng et al. 2007, ApJ 667, 760, eqs. 2-3 (centrals Bernoulli, satellites Poisson)
+    halos, box = populated
+    edges = np.arange(11.3, 14.81, 0.25)
+    p = DEFAULT_HOD["threshold"][0]
+    cen_exp, sat_exp = zheng07(halos.mass, p)
+    n_cen = counts_per_halo(box, len(halos), p["mag_max"], True)
+    n_sat = counts_per_halo(box, len(halos), p["mag_max"], False)
+    for obs, exp, var in ((n_cen, cen_exp, cen_exp * (1 - cen_exp)), (n_sat, sat_exp, sat_exp)):
+        chi2, dof = binned_chi2(halos.mass, obs, exp, var, edges)
+        assert dof >= 8
+        assert stats.chi2.sf(chi2, dof) > 1e-3, (chi2, dof)
+
+
+def test_magnitude_thresholds_reproduce_each_hod(populated):
+    # Each threshold sample abs_mag < mag_max must follow its own Zheng et al. 2007 HOD.
+    halos, box = populated
+    edges = np.arange(11.3, 14.81, 0.25)
+    assert np.all(box.abs_mag < DEFAULT_HOD["threshold"][0]["mag_max"])
+    for p in DEFAULT_HOD["threshold"]:
+        cen_exp, sat_exp = zheng07(halos.mass, p)
+        n_cen = counts_per_halo(box, len(halos), p["mag_max"], True)
+        n_sat = counts_per_halo(box, len(halos), p["mag_max"], False)
+        assert n_cen.max() <= 1
+        for obs, exp, var in ((n_cen, cen_exp, cen_exp * (1 - cen_exp)),
+                              (n_sat, sat_exp, sat_exp)):
+            chi2, dof = binned_chi2(halos.mass, obs, exp, var, edges)
+            assert stats.chi2.sf(chi2, dof) > 1e-3, (p["mag_max"], chi2, dof)
+        # the totals too, with their Poisson/binomial errors
+        total = n_cen.sum() + n_sat.sum()
+        expect = cen_exp.sum() + sat_exp.sum()
+        assert abs(total - expect) < 4 * np.sqrt(expect)
+
+
+def test_centrals_at_halo_centre_and_positions_wrapped(populated):
+    halos, box = populated
+    cen = box.is_central
+    assert np.allclose(box.position[cen], halos.position[box.halo_id[cen]])
+    assert np.allclose(box.velocity[cen], halos.velocity[box.halo_id[cen]])
+    assert box.position.min() >= 0 and box.position.max() < BOX
+    assert np.array_equal(box.halo_mass, halos.mass[box.halo_id])
+
+
+def test_populate_is_reproducible():
+    rng = np.random.default_rng(5)
+    halos = make_halos(10 ** rng.uniform(12, 14, 2000), rng)
+    a = populate(halos, default_hod_model(), np.random.default_rng(9))
+    b = populate(halos, default_hod_model(), np.random.default_rng(9))
+    assert np.array_equal(a.position, b.position) and np.array_equal(a.abs_mag, b.abs_mag)
+
+
+@pytest.mark.parametrize("a_cen,a_sat", [(0.6, -0.8), (-1.0, 1.0)])
+def test_decorated_hod_conserves_mean_and_moves_split(a_cen, a_sat):
+    # Hearin et al. 2016, MNRAS 460, 2552, eqs. for the decorated HOD: at fixed mass the mean
+    # occupation is unchanged; halos above the median secondary property get
+    # <N> + A dN_max, those below <N> - A dN_max (split fraction 1/2), with
+    # dN_max = min(N, 1 - N) for centrals and N for satellites.
+    rng = np.random.default_rng(21)
+    mass = 10 ** rng.uniform(11.6, 14.5, 200_000)
+    secondary = rng.random(mass.size)
+    halos = make_halos(mass, rng, secondary)
+    model = load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": a_cen, "a_sat": a_sat}})
+    box = populate(halos, model, rng)
+    p = DEFAULT_HOD["threshold"][0]
+    cen_exp, sat_exp = zheng07(mass, p)
+    n_cen = counts_per_halo(box, mass.size, p["mag_max"], True)
+    n_sat = counts_per_halo(box, mass.size, p["mag_max"], False)
+    edges = np.arange(11.6, 14.51, 0.25)
+    # conservation: all halos together follow the undecorated HOD
+    for obs, exp in ((n_cen, cen_exp), (n_sat, sat_exp)):
+        var = exp * (1 + abs(max(a_cen, a_sat)))  # generous: decoration changes the variance
+        chi2, dof = binned_chi2(mass, obs, exp, var, edges)
+        assert stats.chi2.sf(chi2, dof) > 1e-3, (chi2, dof)
+    # the split between the halves: the median of the secondary property in 0.1-dex mass bins
+    bins = np.floor(np.log10(mass) / 0.1)
+    upper = np.zeros(mass.size, bool)
+    for b in np.unique(bins):
+        s = bins == b
+        upper[s] = secondary[s] >= np.median(secondary[s])
+    dmax_c = np.minimum(cen_exp, 1 - cen_exp)
+    for half, sign in ((upper, 1.0), (~upper, -1.0)):
+        exp_c = cen_exp + sign * a_cen * dmax_c
+        exp_s = sat_exp * (1 + sign * a_sat)
+        for obs, exp, var in ((n_cen, exp_c, exp_c * (1 - exp_c) + 1e-12), (n_sat, exp_s, exp_s)):
+            if exp[half].sum() == 0:    # |A| = 1 empties one half completely
+                assert obs[half].sum() == 0
+                continue
+            chi2, dof = binned_chi2(mass[half], obs[half], exp[half], var[half], edges)
+            assert stats.chi2.sf(chi2, dof) > 1e-4, (chi2, dof)
+    # and the shift is really there: the upper half has more centrals when A_cen > 0
+    frac_up = n_cen[upper].mean() / n_cen[~upper].mean()
+    assert (frac_up > 1.05) if a_cen > 0 else (frac_up < 0.95)
+
+
+def test_split_by_secondary_halves_each_mass_bin():
+    rng = np.random.default_rng(2)
+    mass = 10 ** rng.uniform(12, 13, 10_001)
+    sec = rng.random(mass.size)
+    upper, p = split_by_secondary(mass, sec, 0.1)
+    bins = np.floor(np.log10(mass) / 0.1)
+    for b in np.unique(bins):
+        s = bins == b
+        assert abs(upper[s].sum() - s.sum() / 2) <= 0.5
+        assert sec[s & upper].min() >= sec[s & ~upper].max()
+        assert np.allclose(p[s], upper[s].mean())
+
+
+def test_assembly_bias_without_secondary_column_is_input_error():
+    rng = np.random.default_rng(1)
+    halos = make_halos(10 ** rng.uniform(12, 14, 100), rng)
+    model = load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": 0.5, "secondary": "age"}})
+    with pytest.raises(InputError, match="age"):
+        populate(halos, model, rng)
+
+
+def test_packaged_toml_matches_builtin_default():
+    assert load_hod(default_hod_path()) == default_hod_model()
+    assert load_hod(default_hod_model().to_dict()) == default_hod_model()
+
+
+def _with(threshold_index, **changes):
+    data = {**DEFAULT_HOD, "threshold": [dict(t) for t in DEFAULT_HOD["threshold"]]}
+    data["threshold"][threshold_index].update(changes)
+    return data
+
+
+@pytest.mark.parametrize("changes,key", [
+    ({"sigma_logm": 0.0}, "sigma_logm"),
+    ({"sigma_logm": -0.2}, "sigma_logm"),
+    ({"alpha": -0.5}, "alpha"),
+    ({"log_mmin": 1.2e12}, "log_mmin"),
+    ({"log_mmin": 11.0}, "not nested"),   # brighter threshold with more centrals
+])
+def test_bad_hod_parameters_raise_input_error(changes, key):
+    with pytest.raises(InputError, match=key):
+        load_hod(_with(1, **changes))
+
+
+def test_bad_hod_file_errors(tmp_path):
+    bad = tmp_path / "hod.toml"
+    bad.write_text("[[threshold]]\nmag_max = -20\nlog_mmin = 12\n")
+    with pytest.raises(InputError, match="missing key"):
+        load_hod(bad)
+    bad.write_text("colour = 3\n")
+    with pytest.raises(InputError, match="unknown key 'colour'"):
+        load_hod(bad)
+    with pytest.raises(InputError, match="a_cen"):
+        load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": 1.5}})
+    with pytest.raises(InputError, match="not found"):
+        load_hod(tmp_path / "missing.toml")
+
+
+def test_hod_with_no_galaxies_is_input_error():
+    rng = np.random.default_rng(3)
+    halos = make_halos(np.full(500, 1e11), rng)
+    with pytest.raises(InputError, match="no galaxy"):
+        populate(halos, default_hod_model(), rng)
+
+
+def test_thresholds_sorted_faintest_first():
+    model = default_hod_model()
+    rev = HODModel(tuple(reversed(model.thresholds)), AssemblyBias())
+    assert list(rev.mag_limits) == [-20.0, -20.5, -21.0]
+
+
+def test_read_halo_catalog_keeps_extra_columns_for_assembly_bias(tmp_path):
+    from conecheck.box import read_halo_catalog
+
+    rng = np.random.default_rng(6)
+    n = 4000
+    path = tmp_path / "halos.npz"
+    np.savez(path, x=rng.uniform(0, 100, n), y=rng.uniform(0, 100, n),
+             z=rng.uniform(0, 100, n), vx=np.zeros(n), vy=np.zeros(n), vz=np.zeros(n),
+             Mvir=10 ** rng.uniform(12, 14, n), age=rng.random(n))
+    halos = read_halo_catalog(path, {"mass": "Mvir"}, box_size=100.0, redshift=0.1)
+    assert np.array_equal(halos.column("age"), np.load(path)["age"])
+    model = load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": 0.5, "secondary": "age"}})
+    box = populate(halos, model, rng)
+    assert box.meta["HODMODEL"] == "zheng07+decorated"
+    with pytest.raises(InputError, match="box size"):
+        read_halo_catalog(path, {"mass": "Mvir"}, redshift=0.1)

@@ -1,0 +1,81 @@
+"""Cosmology against astropy (reference library) and Hogg 1999."""
+
+import numpy as np
+import pytest
+from astropy.cosmology import FlatLambdaCDM, LambdaCDM
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from conecheck.cosmology import Cosmology
+from conecheck.errors import InputError
+
+Z = np.linspace(0.001, 3.0, 200)
+
+
+def test_comoving_distance_matches_astropy():
+    # Reference: astropy.cosmology.FlatLambdaCDM with H0 = 100 gives Mpc/h.
+    ref = FlatLambdaCDM(H0=100, Om0=0.3, Tcmb0=0)
+    c = Cosmology(omega_m=0.3)
+    np.testing.assert_allclose(c.comoving_distance(Z), ref.comoving_distance(Z).value, rtol=1e-6)
+    np.testing.assert_allclose(c.luminosity_distance(Z), ref.luminosity_distance(Z).value,
+                               rtol=1e-6)
+    # distance modulus with D_L in Mpc/h equals astropy's distmod for H0 = 100
+    np.testing.assert_allclose(c.distance_modulus(Z), ref.distmod(Z).value, atol=1e-6)
+
+
+def test_shell_volume_matches_astropy():
+    ref = FlatLambdaCDM(H0=100, Om0=0.3, Tcmb0=0)
+    c = Cosmology(omega_m=0.3)
+    v = c.shell_volume(0.1, 0.5, 41252.96124941928)
+    v_ref = (ref.comoving_volume(0.5) - ref.comoving_volume(0.1)).value
+    assert v == pytest.approx(v_ref, rel=1e-6)
+
+
+def test_curved_matches_astropy():
+    ref = LambdaCDM(H0=100, Om0=0.3, Ode0=0.6, Tcmb0=0)
+    c = Cosmology(omega_m=0.3, omega_k=0.1)
+    np.testing.assert_allclose(c.transverse_comoving_distance(Z),
+                               ref.comoving_transverse_distance(Z).value, rtol=1e-6)
+    v = c.shell_volume(0.2, 1.0, 1000.0)
+    v_ref = (ref.comoving_volume(1.0) - ref.comoving_volume(0.2)).value * 1000.0 / 41252.96124941928
+    assert v == pytest.approx(v_ref, rel=1e-6)
+
+
+def test_hogg_einstein_de_sitter_worked_value():
+    # Hogg 1999 (astro-ph/9905116), eq. for Ω_M = 1: D_C = 2 D_H (1 − 1/sqrt(1+z)).
+    c = Cosmology(omega_m=1.0)
+    z = np.array([0.5, 1.0, 3.0])
+    np.testing.assert_allclose(c.comoving_distance(z),
+                               2 * 2997.92458 * (1 - 1 / np.sqrt(1 + z)), rtol=1e-7)
+
+
+def test_growth_rate_einstein_de_sitter_and_linder():
+    # EdS: f = 1 exactly; ΛCDM: f ≈ Ω_m(z)^0.55 to <1 % (Linder 2005, PRD 72, 043529).
+    assert Cosmology(omega_m=1.0).growth_rate(0.5) == pytest.approx(1.0, rel=1e-6)
+    c = Cosmology(omega_m=0.3)
+    for z in (0.0, 0.5, 1.0):
+        assert c.growth_rate(z) == pytest.approx(c.omega_m_z(z) ** 0.55, rel=1e-2)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.floats(0.0, 3.0))
+def test_redshift_round_trip(z):
+    c = Cosmology(omega_m=0.31)
+    assert float(c.redshift_at(c.comoving_distance(z))) == pytest.approx(z, abs=1e-6)
+
+
+def test_bad_values():
+    with pytest.raises(InputError, match="omega_m"):
+        Cosmology(omega_m=-0.1)
+    with pytest.raises(InputError):
+        Cosmology().comoving_distance(-1.0)
+
+
+def test_ci_runs_readme_test_command_verbatim():
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    readme = (root / "README.md").read_text()
+    blocks = [b.split("```", 1)[0].strip() for b in readme.split("```bash\n")[1:]]
+    test_cmd = [b for b in blocks if "pytest" in b][0]
+    assert test_cmd in (root / ".ci" / "run").read_text().splitlines()
