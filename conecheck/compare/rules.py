@@ -1,0 +1,172 @@
+"""Verdict rules: how an offset between box and cones becomes pass, warn or fail.
+
+The rules below are the documented default; every threshold is a field of
+:class:`VerdictRules` (the ``[verdict]`` table of the configuration, keys = field names).
+:data:`VERDICT_RULES_TEXT` holds the section below as plain text for the README and the
+report.
+
+Verdict rules
+-------------
+For every sample, redshift cut and statistic, the box vector b is compared bin by bin
+with the mean c̄ of the N light cones.
+
+Quantities
+
+* Offset Δ = c̄ − b and fractional offset Δ/b (undefined where b = 0).
+* Total error C_tot = C_box + C_cone: the box's jackknife covariance plus the mean of the
+  cones' own jackknife covariances, i.e. the error budget of one survey-like data set.
+  σ_tot = √diag(C_tot) and z_i = Δ_i / σ_tot,i (the offset in units of that error bar).
+* Bias χ² = Δᵀ Ĉ⁻¹ Δ over the p usable bins, with the inverse de-biased by the Hartlap
+  factor: Ĉ⁻¹ = (n − p − 2)/(n − 1) · C_tot⁻¹ (Hartlap, Simon & Schneider 2007, A&A 464,
+  399); n is the smaller of the box's and the cones' number of jackknife regions (the
+  covariance can be no better known than its noisier part). The p-value comes from the χ²
+  law with p degrees of freedom. A comparison needs n ≥ p + 3 regions and refuses otherwise.
+  For a linear model, √χ² bounds the shift of any fitted parameter in units of its error.
+* σ_Δ, the uncertainty of the offset itself:
+
+  - cones stated independent (``cones_independent = true``, e.g. one box per cone):
+    σ_Δ² = diag(C_box) + diag(S)/N, with S the cone-to-cone sample covariance;
+  - otherwise (the default; cones cut from one box share its structure, so their mean is
+    not N times better known than one cone): σ_Δ² = diag(C_box) + diag(C_cone)/N_eff with
+    N_eff = ``effective_cones`` (default 1, i.e. the cone mean is trusted no more than one
+    cone; never more than N). Because the variance of a mean of correlated variables is at
+    most the mean of their variances, and box and cones fluctuate together when cut from
+    the same galaxies, this is an upper bound on the true σ_Δ.
+
+* Detectable offset = ``detection_threshold`` × σ_Δ (default 2): the smallest offset this
+  run could have told apart from zero. When it exceeds the total error bar, the run cannot
+  resolve offsets that matter for a fit.
+
+Verdict per statistic
+
+* FAIL when some bin has |z_i| > ``z_fail`` (default 1: the offset lies outside the total
+  error bar) and |Δ_i| > ``n_sigma_offset`` × σ_Δ,i (default 3: the offset is real, not
+  noise); or, with ``check_chi2`` (default true), when the bias χ² has p < ``p_fail``
+  (default 0.001).
+* WARN when not failing and the run cannot tell: some bin's offset lies outside the total
+  error bar but is not significant (too noisy: more independent cones, or a larger or
+  second box, would settle it); fewer than ``min_cones`` cones (default 2: no cone-to-cone
+  scatter); or a bin has an offset but zero error.
+* PASS otherwise.
+
+Roll-up: a redshift cut takes the worst verdict of its statistics (a cut with no
+statistics warns), a sample the worst of its cuts, the run the worst of its samples
+(fail > warn > pass). Exit code: 1 when the run fails, 0 otherwise; with
+``warn_is_failure = true`` a warn also exits 1.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping
+from dataclasses import asdict, dataclass, fields
+from typing import Any
+
+from ..errors import InputError
+
+PASS, WARN, FAIL = "pass", "warn", "fail"
+#: Verdicts from best to worst.
+VERDICTS = (PASS, WARN, FAIL)
+_RANK = {v: i for i, v in enumerate(VERDICTS)}
+
+_MARK = "Verdict rules\n-------------\n"
+#: The rules section of this module's docstring, as plain text (README, report legend).
+VERDICT_RULES_TEXT: str = _MARK + (__doc__ or "").split(_MARK, 1)[1].strip() + "\n"
+
+
+@dataclass(frozen=True)
+class VerdictRules:
+    """Thresholds of the verdict rules (see the module notes); all fields simple types.
+
+    Attributes
+    ----------
+    z_fail : float
+        A bin's offset lies outside the total error bar when |z| > z_fail.
+    n_sigma_offset : float
+        An offset is significant when |Δ| > n_sigma_offset × σ_Δ.
+    check_chi2 : bool
+        Also fail on the Hartlap-corrected bias χ².
+    p_fail : float
+        Fail when the bias χ² p-value is below this (0 < p_fail < 1).
+    detection_threshold : float
+        Detectable offset = detection_threshold × σ_Δ.
+    min_cones : int
+        Warn with fewer cones than this (≥ 1).
+    effective_cones : float
+        N_eff of the shared-structure σ_Δ (cones not independent), ≥ 1.
+    warn_is_failure : bool
+        Exit code 1 on an overall warn, too.
+    """
+
+    z_fail: float = 1.0
+    n_sigma_offset: float = 3.0
+    check_chi2: bool = True
+    p_fail: float = 0.001
+    detection_threshold: float = 2.0
+    min_cones: int = 2
+    effective_cones: float = 1.0
+    warn_is_failure: bool = False
+
+    def __post_init__(self) -> None:
+        problems = []
+        for f in fields(self):
+            v = getattr(self, f.name)
+            want = f.type if isinstance(f.type, str) else f.type.__name__
+            if want == "bool":
+                ok = isinstance(v, bool)
+            elif want == "int":
+                ok = isinstance(v, int) and not isinstance(v, bool)
+            else:
+                ok = (isinstance(v, (int, float)) and not isinstance(v, bool)
+                      and math.isfinite(v))
+            if not ok:
+                problems.append(f"verdict.{f.name}: expected {want}, got {v!r}")
+        if problems:
+            raise InputError("; ".join(problems), problems=problems)
+        checks = [("z_fail", self.z_fail > 0, "> 0"),
+                  ("n_sigma_offset", self.n_sigma_offset > 0, "> 0"),
+                  ("p_fail", 0 < self.p_fail < 1, "between 0 and 1 (exclusive)"),
+                  ("detection_threshold", self.detection_threshold > 0, "> 0"),
+                  ("min_cones", self.min_cones >= 1, "≥ 1"),
+                  ("effective_cones", self.effective_cones >= 1, "≥ 1")]
+        problems = [f"verdict.{name}: expected a value {want}, got {getattr(self, name)!r}"
+                    for name, ok, want in checks if not ok]
+        if problems:
+            raise InputError("; ".join(problems), problems=problems)
+
+    @classmethod
+    def from_mapping(cls, table: Mapping[str, Any] | None) -> VerdictRules:
+        """Build from a config table (keys = field names); unknown keys are an InputError."""
+        table = dict(table or {})
+        known = {f.name for f in fields(cls)}
+        unknown = sorted(set(table) - known)
+        if unknown:
+            problems = [f"verdict.{k}: unknown key (expected one of {', '.join(sorted(known))})"
+                        for k in unknown]
+            raise InputError("; ".join(problems), problems=problems)
+        return cls(**table)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain dict of the fields (for results.json)."""
+        return asdict(self)
+
+
+def check_verdict(verdict: str, where: str = "verdict") -> str:
+    """Return ``verdict`` if it is one of :data:`VERDICTS`, else raise InputError."""
+    if verdict not in _RANK:
+        raise InputError(f"{where}: expected one of {', '.join(VERDICTS)}, got {verdict!r}")
+    return verdict
+
+
+def worst_verdict(verdicts: Iterable[str], empty: str = PASS) -> str:
+    """The worst of ``verdicts`` (fail > warn > pass); ``empty`` when there are none."""
+    vs = [check_verdict(v) for v in verdicts]
+    return max(vs, key=_RANK.__getitem__) if vs else empty
+
+
+def exit_code(overall: str, warn_is_failure: bool = False) -> int:
+    """Process exit code of a finished run: 1 on fail (and on warn if asked), else 0."""
+    check_verdict(overall, "overall verdict")
+    if overall == FAIL or (warn_is_failure and overall == WARN):
+        return 1
+    return 0

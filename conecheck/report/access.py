@@ -1,0 +1,147 @@
+"""Reading the results dictionary tolerantly: ordering, display names, number formats."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..compare.jsonsafe import as_float, as_float_array
+
+#: Order in which statistics appear; unknown ones follow alphabetically.
+STAT_ORDER = ("number_density", "wp", "cic", "vpf", "annuli")
+STAT_TITLES = {
+    "number_density": "number density n",
+    "wp": "projected correlation w_p(r_p)",
+    "cic": "counts in cylinders P(N)",
+    "vpf": "void probability P_0(R)",
+    "annuli": "counts in annuli P(N)",
+}
+
+STAT_SHORT = {"number_density": "number density", "wp": "w_p(r_p)", "cic": "cylinders P(N)",
+              "vpf": "voids P_0(R)", "annuli": "annuli P(N)"}
+
+
+def stat_short(name: str) -> str:
+    """Short name of a statistic key (tables)."""
+    return STAT_SHORT.get(name, name.replace("_", " "))
+
+
+def stat_title(name: str) -> str:
+    """Readable name of a statistic key."""
+    return STAT_TITLES.get(name, name.replace("_", " "))
+
+
+def ordered_stats(stats: dict[str, Any]) -> list[str]:
+    """Statistic keys in report order."""
+    known = [s for s in STAT_ORDER if s in stats]
+    return known + sorted(s for s in stats if s not in STAT_ORDER)
+
+
+def samples(results: dict[str, Any]) -> dict[str, Any]:
+    s = results.get("samples")
+    return s if isinstance(s, dict) else {}
+
+
+def cuts(sample: dict[str, Any]) -> dict[str, Any]:
+    c = sample.get("cuts")
+    return c if isinstance(c, dict) else {}
+
+
+def statistics(cut: dict[str, Any]) -> dict[str, Any]:
+    s = cut.get("statistics")
+    return s if isinstance(s, dict) else {}
+
+
+def primary_cut(sample: dict[str, Any]) -> str | None:
+    """Name of the sample's primary cut (the first cut when none is flagged)."""
+    cs = cuts(sample)
+    for name, cut in cs.items():
+        if cut.get("primary"):
+            return name
+    return next(iter(cs), None)
+
+
+def iter_stats(results: dict[str, Any]) -> Iterator[tuple[str, str, str, dict[str, Any]]]:
+    """(sample, cut, statistic, statistic dict) in report order."""
+    for sname, sample in samples(results).items():
+        for cname, cut in cuts(sample).items():
+            stats = statistics(cut)
+            for stat in ordered_stats(stats):
+                yield sname, cname, stat, stats[stat]
+
+
+def arr(d: dict[str, Any], key: str) -> NDArray[np.float64]:
+    """A numeric list from the results as a float array (None → NaN; missing → empty)."""
+    try:
+        return as_float_array(d.get(key))
+    except (TypeError, ValueError):
+        return np.array([], dtype=np.float64)
+
+
+def num(d: dict[str, Any], key: str) -> float:
+    """A number from the results (None/missing → NaN)."""
+    return as_float(d.get(key))
+
+
+def fmt(x: float, digits: int = 3) -> str:
+    """Compact number; "—" for NaN/None."""
+    if x is None or not math.isfinite(x):
+        return "∞" if x is not None and math.isinf(x) else "—"
+    return f"{x:.{digits}g}"
+
+
+def fmt_fixed(x: float, decimals: int = 2) -> str:
+    if x is None or not math.isfinite(x):
+        return "∞" if x is not None and math.isinf(x) else "—"
+    return f"{x:.{decimals}f}"
+
+
+def fmt_p(p: float) -> str:
+    """p-value with sensible precision."""
+    if p is None or not math.isfinite(p):
+        return "—"
+    if p < 1e-4:
+        return f"{p:.1e}"
+    return f"{p:.3f}" if p < 0.1 else f"{p:.2f}"
+
+
+def fmt_pct(x: float) -> str:
+    """Fraction as a percentage."""
+    if x is None or not math.isfinite(x):
+        return "—"
+    v = 100 * x
+    return f"{v:.2g} %" if abs(v) < 10 else f"{v:.0f} %"
+
+
+def max_abs_z(stat: dict[str, Any]) -> float:
+    """max |z| of a statistic; ∞ when a flagged bin's z is null (offset with zero error)."""
+    v = num(stat, "max_abs_z")
+    if math.isnan(v):
+        z = arr(stat, "z")
+        flagged = [i for i in stat.get("noisy_bins") or [] if 0 <= int(i) < z.size]
+        if any(not np.isfinite(z[int(i)]) for i in flagged):
+            return math.inf
+        z = z[np.isfinite(z)]
+        return float(np.abs(z).max()) if z.size else math.nan
+    return v
+
+
+def chi2_per_dof(stat: dict[str, Any]) -> float:
+    chi2, dof = num(stat, "chi2"), num(stat, "dof")
+    return chi2 / dof if dof and math.isfinite(dof) and dof > 0 else math.nan
+
+
+def max_detectable_fraction(stat: dict[str, Any]) -> float:
+    """Largest detectable fractional offset over bins (bins with b = 0 ignored)."""
+    frac = arr(stat, "detectable_fractional_offset")
+    if not frac.size:
+        det, b = arr(stat, "detectable_offset"), arr(stat, "box")
+        if det.size and det.size == b.size:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                frac = np.where(b != 0, det / np.abs(b), np.nan)
+    frac = frac[np.isfinite(frac)]
+    return float(frac.max()) if frac.size else math.nan

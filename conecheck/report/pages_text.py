@@ -1,0 +1,189 @@
+"""Text pages: findings (why each verdict), the verdict rules, and provenance."""
+
+from __future__ import annotations
+
+import re
+from dataclasses import fields
+from typing import Any
+
+from ..compare.rules import VERDICT_RULES_TEXT, VerdictRules
+from . import access as ac
+from . import style as st
+from .layout import FlowLine, Page, draw_flow, flow_lines, paginate_flow
+from .pagespec import PageSpec
+
+_TOP = 1.0  # first line of flowing text [inch from the top]
+
+
+def _flow_pages(title: str, kind: str, blocks: list[tuple[str, ...]]) -> list[PageSpec]:
+    width = st.PAGE_W - 2 * st.MARGIN_X
+    height = st.PAGE_H - st.CONTENT_BOTTOM - _TOP - 0.1
+    lines = flow_lines(blocks, width)
+    pages = paginate_flow(lines, height)
+    specs = []
+    for i, chunk in enumerate(pages):
+        def draw(page: Page, chunk: list[FlowLine] = chunk) -> None:
+            draw_flow(page, chunk, _TOP)
+        specs.append(PageSpec(title if i == 0 else f"{title} (continued)", kind, draw))
+    return specs
+
+
+# --------------------------------------------------------------------------- findings
+def findings_pages(results: dict[str, Any]) -> list[PageSpec]:
+    """Why every statistic got its verdict, with the comparison's notes."""
+    blocks: list[tuple[str, ...]] = [
+        ("muted", "For every sample, redshift cut and statistic: the verdict, the reasons the "
+                  "rules gave, and notes from the comparison (dropped bins, fall-backs).")]
+    last = None
+    for sname, cname, stat, d in ac.iter_stats(results):
+        if (sname, cname) != last:
+            cut = ac.cuts(ac.samples(results)[sname])[cname]
+            zr = ""
+            if cut.get("z_min") is not None and cut.get("z_max") is not None:
+                zr = f" ({ac.fmt(ac.num(cut, 'z_min'))} < z < {ac.fmt(ac.num(cut, 'z_max'))})"
+            blocks.append(("h2", f"{sname} · {cname}{zr}" + (" · primary cut"
+                                                              if cut.get("primary") else "")))
+            method = d.get("sigma_offset_method")
+            if method:
+                blocks.append(("muted", f"{d.get('n_cones', '—')} cones, "
+                                        f"{d.get('n_regions', '—')} jackknife regions; "
+                                        f"σ_Δ = √({method.split(': ', 1)[-1]})"))
+            last = (sname, cname)
+        v = d.get("verdict")
+        blocks.append(("h3", f"{ac.stat_title(stat)}: {str(v or 'no verdict').upper()}",
+                       st.verdict_colour(v)))
+        for r in d.get("reasons") or []:
+            blocks.append(("body", f"• {r}"))
+        for n in d.get("notes") or []:
+            blocks.append(("muted", f"note: {n}"))
+    if last is None:
+        blocks.append(("body", "No statistics in these results."))
+    return _flow_pages("Findings: why each verdict", "findings", blocks)
+
+
+# --------------------------------------------------------------------------- rules
+def _rst_blocks(text: str) -> list[tuple[str, str]]:
+    """Turn the rules text (reST-like, hard-wrapped) into flow blocks."""
+    text = text.replace("``", "")
+    paras = re.split(r"\n\s*\n", text.strip())
+    blocks: list[tuple[str, str]] = []
+    for para in paras:
+        lines = para.split("\n")
+        if len(lines) >= 2 and set(lines[1].strip()) == {"-"}:
+            lines = lines[2:]
+            if not lines:
+                continue
+        items: list[str] = []
+        for line in lines:
+            s = line.strip()
+            if re.match(r"^[*-] ", s):
+                items.append(("• " if s[0] == "*" else "  – ") + s[2:])
+            elif items:
+                items[-1] += " " + s
+            else:
+                items.append(s)
+        for it in items:
+            if len(items) == 1 and len(it) < 40 and not it.startswith(("•", "  –")):
+                blocks.append(("h3", it))
+            else:
+                blocks.append(("body", it))
+    return blocks
+
+
+def rules_pages(results: dict[str, Any]) -> list[PageSpec]:
+    """The verdict rules as configured for this run, and how they work."""
+    rules = results.get("verdict_rules")
+    recorded = isinstance(rules, dict) and bool(rules)
+    rules = rules if recorded else VerdictRules().to_dict()
+    blocks: list[tuple[str, ...]] = [("h2", "Thresholds in force")]
+    if not recorded:
+        blocks.append(("muted", "results.json records no verdict rules; the defaults are "
+                                "shown."))
+    names = [f.name for f in fields(VerdictRules)]
+    for k in names + sorted(set(rules) - set(names)):
+        if k in rules:
+            blocks.append(("mono", f"{k} = {rules[k]}"))
+    blocks.append(("h2", "The rules"))
+    blocks.extend(_rst_blocks(VERDICT_RULES_TEXT))
+    return _flow_pages("How the verdicts are made", "rules", blocks)
+
+
+# --------------------------------------------------------------------------- provenance
+def _kv(d: dict[str, Any], unit: str = "") -> list[tuple[str, str]]:
+    out = []
+    for k, v in d.items():
+        if isinstance(v, float):
+            v = f"{v:.4g}"
+        out.append(("mono", f"{k}: {v}{unit}"))
+    return out
+
+
+def _duration(seconds: Any) -> str:
+    s = ac.as_float(seconds) if not isinstance(seconds, (int, float)) else float(seconds)
+    if s != s:
+        return str(seconds)
+    if s < 120:
+        return f"{s:.1f} s"
+    if s < 7200:
+        return f"{s / 60:.1f} min"
+    return f"{s / 3600:.2f} h"
+
+
+def provenance_pages(results: dict[str, Any]) -> list[PageSpec]:
+    """Configuration, input hashes, versions, seeds, date, cones, timings."""
+    prov = results.get("provenance")
+    blocks: list[tuple[str, ...]] = []
+    if not isinstance(prov, dict) or not prov:
+        blocks.append(("body", "results.json records no provenance section: the "
+                               "configuration, input files, versions and seeds of this run "
+                               "are unknown."))
+        return _flow_pages("Provenance", "provenance", blocks)
+    blocks.append(("h2", "Run"))
+    run = {"date": prov.get("date", "not recorded"),
+           "conecheck version": results.get("conecheck_version", "not recorded"),
+           "configuration hash": results.get("config_hash", "not recorded"),
+           "configuration file": prov.get("config_path", "not recorded"),
+           "light cones": prov.get("n_cones", "not recorded")}
+    reps = prov.get("replicas_per_cone")
+    if isinstance(reps, list) and reps:
+        run["box replicas per cone"] = (", ".join(str(r) for r in reps[:40])
+                                        + (" …" if len(reps) > 40 else ""))
+    run["cones independent"] = ("yes (stated by the user)" if prov.get("cones_independent")
+                                else "no (cut from one box; they share its structure)")
+    blocks.extend(_kv(run))
+    if prov.get("independence_note"):
+        blocks.append(("body", str(prov["independence_note"])))
+    if isinstance(prov.get("box"), dict) and prov["box"]:
+        blocks.append(("h2", "The box"))
+        blocks.extend(_kv(prov["box"]))
+    if isinstance(prov.get("seeds"), dict) and prov["seeds"]:
+        blocks.append(("h2", "Random seeds"))
+        blocks.extend(_kv(prov["seeds"]))
+    timings = prov.get("timings")
+    if isinstance(timings, dict) and timings:
+        blocks.append(("h2", "Stage timings"))
+        blocks.extend(("mono", f"{k}: {_duration(v)}") for k, v in timings.items())
+        try:
+            blocks.append(("mono", f"total: {_duration(sum(float(v) for v in timings.values()))}"))
+        except (TypeError, ValueError):
+            pass
+    files = prov.get("input_files")
+    blocks.append(("h2", "Input files (SHA-256)"))
+    if isinstance(files, dict) and files:
+        for path, digest in files.items():
+            blocks.append(("mono", str(path)))
+            blocks.append(("mono", f"    {digest}"))
+    else:
+        blocks.append(("muted", "none recorded"))
+    versions = prov.get("versions")
+    blocks.append(("h2", "Package versions"))
+    if isinstance(versions, dict) and versions:
+        blocks.append(("mono", " · ".join(f"{k} {v}" for k, v in versions.items())))
+    else:
+        blocks.append(("muted", "none recorded"))
+    blocks.append(("h2", "Configuration"))
+    if prov.get("config_text"):
+        blocks.append(("mono", str(prov["config_text"]).rstrip("\n")))
+    else:
+        blocks.append(("muted", "configuration text not recorded"))
+    return _flow_pages("Provenance", "provenance", blocks)

@@ -1,0 +1,31 @@
+"""What a report page is: a title, a kind, a drawing function and the axes it will hold."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from .layout import Page
+
+
+@dataclass(frozen=True)
+class PageSpec:
+    """One page of the report, drawn later onto a blank page-sized figure.
+
+    Attributes
+    ----------
+    title : str
+        Header title.
+    kind : str
+        ``summary``, ``findings``, ``rules``, ``provenance``, ``footprint``, ``nz``,
+        ``statistics``, ``fibres`` or ``cuts``.
+    draw : callable
+        ``draw(page)`` puts the content on a :class:`~conecheck.report.layout.Page`.
+    axes : tuple of str
+        Labels of the axes the page will carry (for checks).
+    """
+
+    title: str
+    kind: str
+    draw: Callable[[Page], None]
+    axes: tuple[str, ...] = field(default=())

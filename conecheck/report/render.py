@@ -1,0 +1,122 @@
+"""The PDF report, built from the results dictionary alone (design.md §9).
+
+Page order: the verdict summary ("may I fit this?"), findings, how the verdicts are made,
+provenance, footprint with jackknife regions, n(z) of the cones, one page per sample and
+redshift cut with every statistic, fibre collisions, and the comparison of redshift cuts.
+Because only ``results.json`` (plus the mask and region files it names) is read,
+``conecheck report RUN_DIR`` re-renders a report without recomputing anything.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from typing import Any
+
+from matplotlib.backends.backend_pdf import PdfPages
+from matplotlib.figure import Figure
+
+from .. import __version__
+from ..atomic import atomic_path
+from .layout import Page, decorate, new_figure
+from .pages_cuts import cut_pages
+from .pages_fibres import fibre_pages
+from .pages_footprint import footprint_pages
+from .pages_nz import nz_pages
+from .pages_statistics import statistics_pages
+from .pages_summary import summary_pages
+from .pages_text import findings_pages, provenance_pages, rules_pages
+from .pagespec import PageSpec
+from .style import report_style
+
+log = logging.getLogger(__name__)
+
+
+def build_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | None = None
+                ) -> list[PageSpec]:
+    """Plan every page of the report (nothing is drawn yet).
+
+    Parameters
+    ----------
+    results : dict
+        The results dictionary (the content of results.json).
+    run_dir : path, optional
+        Directory that relative mask and region paths are resolved against.
+    """
+    with report_style():
+        return (summary_pages(results) + findings_pages(results) + rules_pages(results)
+                + provenance_pages(results) + footprint_pages(results, run_dir)
+                + nz_pages(results) + statistics_pages(results) + fibre_pages(results)
+                + cut_pages(results))
+
+
+def _run_label(results: dict[str, Any]) -> str:
+    prov = results.get("provenance") if isinstance(results.get("provenance"), dict) else {}
+    bits = [str(prov.get("date", ""))[:19].replace("T", " "),
+            f"config {str(results.get('config_hash', ''))[:10]}" if results.get("config_hash")
+            else ""]
+    return " · ".join(b for b in bits if b) or "conecheck run"
+
+
+def draw_page(results: dict[str, Any], spec: PageSpec, page_no: int, n_pages: int) -> Figure:
+    """Draw one planned page onto a new A4 figure (header and footer included)."""
+    with report_style():
+        fig = new_figure()
+        spec.draw(Page(fig))
+        decorate(fig, spec.title, page_no, n_pages, _run_label(results),
+                 str(results.get("conecheck_version") or __version__))
+    return fig
+
+
+def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
+                  out_pdf: str | os.PathLike[str]) -> int:
+    """Write the PDF report atomically; returns the number of pages.
+
+    Parameters
+    ----------
+    results : dict
+        The results dictionary (as written to results.json).
+    run_dir : path or None
+        Run directory; relative ``footprint.mask_path`` / ``regions_path`` are resolved
+        against it.
+    out_pdf : path
+        Output PDF file.
+    """
+    specs = build_pages(results, run_dir)
+    n = len(specs)
+    with atomic_path(out_pdf) as tmp, PdfPages(tmp, metadata={
+            "Title": "conecheck validation report",
+            "Creator": f"conecheck {results.get('conecheck_version') or __version__}",
+            "Subject": f"overall verdict: {results.get('overall', 'unknown')}"}) as pdf:
+        for i, spec in enumerate(specs, start=1):
+            fig = draw_page(results, spec, i, n)
+            pdf.savefig(fig)
+            fig.clear()
+    log.info("report: wrote %s (%d pages)", out_pdf, n)
+    return n
+
+
+def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | None = None,
+             results_name: str = "results.json") -> tuple[dict[str, Any], int]:
+    """Re-render the report of a finished run from its results file alone.
+
+    Parameters
+    ----------
+    run_dir : path
+        Run directory holding ``results_name`` (and the footprint files it names).
+    out_pdf : path, optional
+        Output PDF (default ``run_dir/report.pdf``).
+
+    Returns
+    -------
+    (results, page count)
+    """
+    from pathlib import Path
+
+    from .results_io import load_results
+
+    run_dir = Path(run_dir)
+    results = load_results(run_dir / results_name)
+    n = render_report(results, run_dir, out_pdf if out_pdf is not None
+                      else run_dir / "report.pdf")
+    return results, n

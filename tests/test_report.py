@@ -1,0 +1,247 @@
+"""Report stage: results.json round trip, ECSV tables, terminal summary and the PDF pages."""
+
+from __future__ import annotations
+
+import copy
+import json
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import matplotlib.text
+import numpy as np
+import pytest
+from astropy.table import Table
+from report_helpers import N_CONES, make_results
+
+from conecheck.compare import jsonable
+from conecheck.errors import InputError
+from conecheck.report import (
+    build_pages,
+    draw_page,
+    load_results,
+    render_report,
+    rerender,
+    results_to_json,
+    summary_table,
+    write_statistic_tables,
+)
+from conecheck.report.layout import text_width, wrap
+
+STATS = ("number_density", "wp", "cic", "vpf", "annuli")
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    run_dir = tmp_path_factory.mktemp("run")
+    return run_dir, make_results(run_dir)
+
+
+@pytest.fixture(scope="module")
+def rendered(run):
+    run_dir, results = run
+    out = run_dir / "report.pdf"
+    return out, render_report(results, run_dir, out)
+
+
+def _pdf_pages(path: Path) -> int:
+    # Page objects in the PDF matplotlib writes ("/Type /Page", not "/Pages").
+    return len(re.findall(rb"/Type\s*/Page\b(?!s)", path.read_bytes()))
+
+
+def _check_figure(fig, expected_axes) -> None:
+    """Expected axes present; no text artist extends beyond the page."""
+    labels = {ax.get_label() for ax in fig.axes}
+    missing = set(expected_axes) - labels
+    assert not missing, f"missing axes {missing}"
+    fig.canvas.draw()  # axis labels and tick labels get their positions at draw time
+    renderer = fig.canvas.get_renderer()
+    w, h = fig.bbox.width, fig.bbox.height
+    for t in fig.findobj(matplotlib.text.Text):
+        if not t.get_visible() or not t.get_text().strip():
+            continue
+        bb = t.get_window_extent(renderer)
+        assert bb.x0 >= -1 and bb.y0 >= -1 and bb.x1 <= w + 1 and bb.y1 <= h + 1, \
+            f"text off the page: {t.get_text()!r} at {bb}"
+        assert t.get_fontsize() >= 8, f"font below 8 pt: {t.get_text()!r}"
+
+
+def test_render_report_pages(run, rendered):
+    run_dir, results = run
+    specs = build_pages(results, run_dir)
+    kinds = [s.kind for s in specs]
+    # 2 samples × 2 cuts → 4 statistics pages; one page each for the rest at this size.
+    expected = {"summary": 1, "rules": 1, "provenance": 1, "footprint": 1, "nz": 1,
+                "statistics": 4, "fibres": 1, "cuts": 1}
+    for kind, n in expected.items():
+        assert kinds.count(kind) == n, kind
+    assert 1 <= kinds.count("findings") <= 3
+    assert kinds[0] == "summary"
+    fp = next(s for s in specs if s.kind == "footprint")
+    assert set(fp.axes) >= {"footprint:completeness", "footprint:regions"}
+    for s in specs:
+        if s.kind == "statistics":
+            assert set(s.axes) == {"number_density:histogram", "number_density:z",
+                                   *(f"{n}:{k}" for n in STATS[1:] for k in ("offset", "z"))}
+    out, n = rendered
+    assert n == len(specs) == _pdf_pages(out)
+
+
+def test_every_page_fits(run):
+    run_dir, results = run
+    specs = build_pages(results, run_dir)
+    for i, spec in enumerate(specs, 1):
+        fig = draw_page(results, spec, i, len(specs))
+        _check_figure(fig, spec.axes)
+        fig.clear()
+
+
+def test_rerender_from_json_reproduces(run, tmp_path):
+    run_dir, results = run
+    path = tmp_path / "results.json"
+    results_to_json(results, path)
+    loaded = load_results(path)
+    assert loaded == json.loads(json.dumps(jsonable(results)))
+    stat = loaded["samples"]["bright"]["cuts"]["z0.10-0.20"]["statistics"]["wp"]
+    orig = results["samples"]["bright"]["cuts"]["z0.10-0.20"]["statistics"]["wp"]
+    assert stat["chi2"] == orig["chi2"] and stat["z"] == orig["z"]
+    assert summary_table(loaded) == summary_table(results)
+    # Copy the footprint files so the re-render only sees the run directory.
+    other = tmp_path / "copy"
+    other.mkdir()
+    for f in ("mask.fits", "regions.npz"):
+        shutil.copy(run_dir / f, other / f)
+    shutil.copy(path, other / "results.json")
+    again, n = rerender(other)
+    assert again == loaded
+    assert n == len(build_pages(results, run_dir)) == _pdf_pages(other / "report.pdf")
+    assert [s.axes for s in build_pages(loaded, other)] == \
+        [s.axes for s in build_pages(results, run_dir)]
+
+
+def test_json_has_null_not_nan(tmp_path):
+    path = tmp_path / "r.json"
+    results_to_json({"conecheck_version": "x", "overall": "pass", "samples": {},
+                     "v": [1.0, float("nan"), float("inf")], "n": np.float64(2.5)}, path)
+    text = path.read_text()
+    assert "NaN" not in text and "Infinity" not in text
+    assert json.loads(text)["v"] == [1.0, None, None]
+
+
+def test_load_results_names_missing_keys(tmp_path, run):
+    _, results = run
+    bad = copy.deepcopy(jsonable(results))
+    del bad["conecheck_version"]
+    del bad["samples"]["faint"]["cuts"]["z0.05-0.12"]["statistics"]["vpf"]["chi2"]
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps(bad))
+    with pytest.raises(InputError) as e:
+        load_results(path)
+    text = " ".join(e.value.problems)
+    assert "conecheck_version" in text
+    assert "faint.cuts.z0.05-0.12.statistics.vpf: missing key(s) chi2" in text
+    path.write_text("{not json")
+    with pytest.raises(InputError, match="not valid JSON"):
+        load_results(path)
+    with pytest.raises(InputError, match="not found"):
+        load_results(tmp_path / "absent.json")
+
+
+def test_statistic_tables(run, tmp_path):
+    _, results = run
+    files = write_statistic_tables(results, tmp_path / "tables")
+    assert len(files) == 2 * 2 * len(STATS)
+    path = tmp_path / "tables" / "bright__z0.10-0.20__wp.ecsv"
+    assert path in files
+    t = Table.read(path, format="ascii.ecsv")
+    stat = results["samples"]["bright"]["cuts"]["z0.10-0.20"]["statistics"]["wp"]
+    head = ["bin", "box", "cone_mean"] + [f"cone_{i:03d}" for i in range(N_CONES)]
+    assert t.colnames[:len(head)] == head
+    for col in ("sigma_box", "sigma_cone", "sigma_total", "z", "fractional_offset",
+                "detectable_offset"):
+        assert np.allclose(t[col], stat[col])
+    assert np.allclose(t["cone_002"], stat["cones"][2])
+    assert t.meta["verdict"] == stat["verdict"] and t.meta["dof"] == stat["dof"]
+    assert t.meta["chi2"] == pytest.approx(stat["chi2"])
+
+
+def test_summary_table_text(run):
+    _, results = run
+    text = summary_table(results)
+    lines = text.splitlines()
+    assert lines[0].split() == ["sample", "cut", "statistic", "verdict", "max|z|", "chi2/dof",
+                                "p"]
+    assert len(lines) == 2 + 20 + 2
+    assert f"overall: {results['overall'].upper()}" in text
+    wp = results["samples"]["bright"]["cuts"]["z0.10-0.20"]["statistics"]["wp"]
+    assert any(ln.startswith("bright") and " wp " in ln and wp["verdict"].upper() in ln
+               for ln in lines)
+
+
+def test_missing_sections_are_stated(tmp_path):
+    results = make_results(tmp_path)
+    del results["provenance"]
+    results["footprint"] = {"mask_path": "nowhere.fits", "regions_path": None}
+    del results["samples"]["faint"]["fibres"]
+    del results["samples"]["faint"]["cuts"]["z0.05-0.12"]["nz"]
+    specs = build_pages(results, tmp_path)
+    assert [s.axes for s in specs if s.kind == "footprint"] == [()]
+    texts = []
+    for i, spec in enumerate(specs, 1):
+        fig = draw_page(results, spec, i, len(specs))
+        _check_figure(fig, spec.axes)
+        texts += [t.get_text() for t in fig.findobj(matplotlib.text.Text)]
+        fig.clear()
+    joined = "\n".join(texts)
+    assert "footprint mask not found" in joined
+    assert "no provenance section" in joined
+    assert "No fibre-collision emulation recorded" in joined
+    assert "no n(z) recorded" in joined
+
+
+def test_long_content_paginates(tmp_path):
+    results = make_results(tmp_path, config_lines=400)
+    # Many samples: the verdict table must continue on further pages.
+    base = results["samples"]["bright"]
+    for i in range(12):
+        results["samples"][f"extra{i:02d}"] = copy.deepcopy(base)
+    specs = build_pages(results, tmp_path)
+    kinds = [s.kind for s in specs]
+    assert kinds.count("summary") >= 2
+    assert kinds.count("provenance") >= 3
+    seen: dict[str, int] = {}
+    for i, spec in enumerate(specs, 1):
+        seen[spec.kind] = seen.get(spec.kind, 0) + 1
+        # First two and the last page of each long kind (drawing every page is slow).
+        last = i == len(specs) or specs[i].kind != spec.kind
+        if spec.kind in ("summary", "provenance", "findings") and (seen[spec.kind] <= 2
+                                                                    or last):
+            fig = draw_page(results, spec, i, len(specs))
+            _check_figure(fig, spec.axes)
+            fig.clear()
+
+
+def test_wrap_respects_width():
+    text = "a fairly long sentence with words " * 8 + "/a/very/long/path/" + "x" * 150
+    for size, mono in ((9, False), (8, True)):
+        lines = wrap(text, 2.5, size, mono=mono)
+        assert len(lines) > 5
+        assert all(text_width(ln, size, mono) <= 2.5 for ln in lines)
+        assert "".join(ln.replace(" ", "") for ln in lines) == text.replace(" ", "")
+
+
+def test_pdf_pages_as_images(rendered, tmp_path):
+    """Rasterise the PDF when poppler's pdftoppm is available (else covered above)."""
+    exe = shutil.which("pdftoppm")
+    if exe is None:
+        pytest.skip("pdftoppm not installed; pages were checked as matplotlib figures")
+    pdf, n = rendered
+    subprocess.run([exe, "-r", "20", "-png", str(pdf), str(tmp_path / "p")], check=True)
+    pngs = sorted(tmp_path.glob("p-*.png"))
+    assert len(pngs) == n
+    import matplotlib.image as mpimg
+
+    for p in pngs:
+        img = mpimg.imread(p)
+        assert img.std() > 0.01  # not blank
