@@ -1,7 +1,9 @@
-"""`conecheck check`: not built yet.
+"""`conecheck check CONFIG`: validate a configuration and the files it names.
 
-The configuration schema and the end-to-end pipeline are still being built; until
-then this command says so plainly and exits with code 2.
+Nothing is computed: the configuration is parsed and validated (every problem is listed with
+its key path), every input file is checked to exist and is opened (mask and vetoes read, the
+box file's columns checked), and the resolved settings — every default filled in — are
+printed as TOML.
 """
 
 from __future__ import annotations
@@ -9,15 +11,44 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ..catalog import read_table
+from ..cone import volume_limit_zmax
+from ..config import config_warnings, load_config, resolved_toml
+from ..errors import InputError
+from ..run.inputs import cosmology_of, input_files, load_footprint
+
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Accept any arguments so the message below is what the user sees."""
-    parser.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    parser.add_argument("config", help="run configuration (TOML)")
 
 
 def main(args: argparse.Namespace) -> int:
-    """Explain that this command is not available yet; exit code 2."""
-    print("conecheck check: not available yet in this version. It will run the whole "
-          "validation (box, light cones, statistics, jackknife, comparison, PDF report). "
-          "Available now: 'conecheck mask', 'conecheck mockbox'.", file=sys.stderr)
-    return 2
+    cfg = load_config(args.config)
+    files = input_files(cfg)
+    fp = load_footprint(cfg)
+    if cfg.box.source in ("file", "halos"):
+        table = read_table(files["box.path"])
+        missing = [f"{k} -> '{v}'" for k, v in cfg.box.columns.items()
+                   if v not in table.colnames]
+        if missing:
+            raise InputError(f"{files['box.path']}: mapped column(s) not found: "
+                             f"{', '.join(missing)}; available: {', '.join(table.colnames)}")
+    print(resolved_toml(cfg))
+    out = sys.stderr
+    print(f"# footprint: {fp.area_deg2:.1f} deg² effective area (N_side {fp.nside})", file=out)
+    for key, path in files.items():
+        print(f"# {key}: {path}", file=out)
+    if cfg.shell.m_lim is not None and cfg.effects.flux_limit:
+        cosmo = cosmology_of(cfg)
+        for s in cfg.samples:
+            if s.mag_max is None:
+                continue
+            zlim = volume_limit_zmax(cfg.shell.m_lim, s.mag_max, cosmo, cfg.shell)
+            for cut in s.cuts:
+                flag = "" if cut.z_max <= zlim + 1e-12 else "  NOT volume limited"
+                print(f"# sample {s.name} cut {cut.label}: z {cut.z_min}–{cut.z_max}, "
+                      f"volume limit z = {zlim:.4f}{flag}", file=out)
+    for w in config_warnings(cfg):
+        print(f"# warning: {w}", file=out)
+    print(f"# {args.config}: configuration OK", file=out)
+    return 0

@@ -1,23 +1,40 @@
-"""`conecheck init`: not built yet.
+"""`conecheck init [PATH]`: write a commented configuration template.
 
-The configuration schema and the end-to-end pipeline are still being built; until
-then this command says so plainly and exits with code 2.
+The template runs unchanged with `conecheck run PATH`: it points at the built-in synthetic
+box and the invented "Kestrel" demo footprint shipped with the package. Edit it to point at
+your box, mask and samples.
 """
 
 from __future__ import annotations
 
 import argparse
-import sys
+from pathlib import Path
+
+from ..atomic import write_text_atomic
+from ..errors import InputError
+
+TEMPLATE_PATH = Path(__file__).resolve().parent.parent / "data" / "template.toml"
+
+
+def template_text() -> str:
+    """The commented configuration template."""
+    return TEMPLATE_PATH.read_text(encoding="utf-8")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Accept any arguments so the message below is what the user sees."""
-    parser.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    parser.add_argument("path", nargs="?", default="conecheck.toml",
+                        help="where to write the template (default: conecheck.toml)")
+    parser.add_argument("--force", action="store_true", help="overwrite an existing file")
 
 
 def main(args: argparse.Namespace) -> int:
-    """Explain that this command is not available yet; exit code 2."""
-    print("conecheck init: not available yet in this version. It will run the whole "
-          "validation (box, light cones, statistics, jackknife, comparison, PDF report). "
-          "Available now: 'conecheck mask', 'conecheck mockbox'.", file=sys.stderr)
-    return 2
+    path = Path(args.path)
+    if path.is_dir():
+        raise InputError(f"{path}: is a directory; give a file name such as {path}/run.toml")
+    if path.exists() and not args.force:
+        raise InputError(f"{path}: already exists; use --force to overwrite it")
+    if not path.parent.exists():
+        raise InputError(f"{path}: directory {path.parent} does not exist")
+    write_text_atomic(path, template_text())
+    print(f"wrote {path}\nnext: conecheck check {path}   then   conecheck run {path}")
+    return 0

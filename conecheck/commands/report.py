@@ -1,23 +1,31 @@
-"""`conecheck report`: not built yet.
+"""`conecheck report RUN_DIR`: re-render validation.pdf from a finished run's results.json.
 
-The configuration schema and the end-to-end pipeline are still being built; until
-then this command says so plainly and exits with code 2.
+Nothing is recomputed: the report is drawn from results.json (and the footprint and region
+files it names), so it can be re-made after an upgrade of the report or on another machine.
 """
 
 from __future__ import annotations
 
 import argparse
-import sys
+from pathlib import Path
+
+from ..errors import InputError
+from ..report import rerender, summary_table
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Accept any arguments so the message below is what the user sees."""
-    parser.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    parser.add_argument("run_dir", help="run directory holding results.json")
+    parser.add_argument("-o", "--output", help="PDF to write (default RUN_DIR/validation.pdf)")
 
 
 def main(args: argparse.Namespace) -> int:
-    """Explain that this command is not available yet; exit code 2."""
-    print("conecheck report: not available yet in this version. It will run the whole "
-          "validation (box, light cones, statistics, jackknife, comparison, PDF report). "
-          "Available now: 'conecheck mask', 'conecheck mockbox'.", file=sys.stderr)
-    return 2
+    run_dir = Path(args.run_dir)
+    if not run_dir.is_dir():
+        raise InputError(f"{run_dir}: not a run directory (expected a directory holding "
+                         f"results.json)")
+    if not (run_dir / "results.json").is_file():
+        raise InputError(f"{run_dir}: no results.json here; run `conecheck run CONFIG` first")
+    results, n = rerender(run_dir, args.output)
+    print(summary_table(results))
+    print(f"\nwrote {args.output or run_dir / 'validation.pdf'} ({n} pages)")
+    return 0

@@ -1,23 +1,39 @@
-"""`conecheck run`: not built yet.
+"""`conecheck run CONFIG`: the whole validation.
 
-The configuration schema and the end-to-end pipeline are still being built; until
-then this command says so plainly and exits with code 2.
+Builds (or reads) the box, builds every light cone with the survey's effects, makes the
+randoms and their pair counts once per sample and cut, measures every statistic on box and
+cones with jackknife errors, compares them, and writes results.json, one table per sample ×
+cut × statistic, validation.pdf, the resolved config and a log into the run directory.
+Finished tasks are cached there, so an interrupted run resumes where it stopped.
+
+Exit code 0: every statistic passes (or only warns); 1: a statistic fails; 2: unusable input.
 """
 
 from __future__ import annotations
 
 import argparse
-import sys
+
+from ..config import load_config
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Accept any arguments so the message below is what the user sees."""
-    parser.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    parser.add_argument("config", help="run configuration (TOML)")
+    parser.add_argument("-o", "--out", help="run directory (default: output.directory)")
+    parser.add_argument("--fresh", action="store_true",
+                        help="ignore cached task results and recompute everything")
+    parser.add_argument("--scheduler",
+                        help="'local', 'local-cluster' or a dask scheduler address "
+                             "tcp://HOST:PORT (overrides compute.scheduler)")
+    parser.add_argument("--workers", type=int, help="workers of a local-cluster")
 
 
 def main(args: argparse.Namespace) -> int:
-    """Explain that this command is not available yet; exit code 2."""
-    print("conecheck run: not available yet in this version. It will run the whole "
-          "validation (box, light cones, statistics, jackknife, comparison, PDF report). "
-          "Available now: 'conecheck mask', 'conecheck mockbox'.", file=sys.stderr)
-    return 2
+    from ..run.validate import output_dir, print_summary, validate
+
+    cfg = load_config(args.config)
+    results, code = validate(cfg, args.out, fresh=args.fresh, scheduler=args.scheduler,
+                             workers=args.workers,
+                             progress=None if args.verbosity >= 0 else False,
+                             config_path=args.config)
+    print_summary(results, output_dir(cfg, args.out))
+    return code

@@ -105,7 +105,7 @@ def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | 
     run_dir : path
         Run directory holding ``results_name`` (and the footprint files it names).
     out_pdf : path, optional
-        Output PDF (default ``run_dir/report.pdf``).
+        Output PDF (default ``run_dir/validation.pdf``).
 
     Returns
     -------
@@ -118,5 +118,5 @@ def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | 
     run_dir = Path(run_dir)
     results = load_results(run_dir / results_name)
     n = render_report(results, run_dir, out_pdf if out_pdf is not None
-                      else run_dir / "report.pdf")
+                      else run_dir / "validation.pdf")
     return results, n

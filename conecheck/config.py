@@ -1,0 +1,771 @@
+"""The run configuration: one TOML file → typed, frozen, validated settings.
+
+The stages own their settings classes (``cone.settings``, ``stats.settings``,
+``compare.rules``); this module only adds the run-level sections (cosmology, box, survey
+files, samples, jackknife, cones, compute, output) and one generic loader that
+
+* rejects unknown keys (naming the key path and the allowed keys),
+* checks every value against the field's type hint (``float`` accepts integers),
+* fills the documented defaults, and
+* collects *every* problem of the file before raising one :class:`InputError`.
+
+Relative paths are resolved against the config file's directory. ``builtin:kestrel`` names
+the invented demo footprint (and ``builtin:kestrel-overlap`` its tile-overlap map) shipped
+with the package.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import re
+import sys
+import types
+import typing
+from collections.abc import Mapping
+from dataclasses import dataclass, field, fields
+from pathlib import Path
+from typing import Any, Literal
+
+from .compare.rules import VerdictRules
+from .cone.settings import (
+    CorrectionSettings,
+    EffectSwitches,
+    FibreSettings,
+    ObserverSettings,
+    RandomSettings,
+    RedshiftErrorSettings,
+    SampleCut,
+    SurveyShell,
+)
+from .errors import InputError
+from .stats.settings import SETTINGS_TYPES
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+BUILTIN_FILES = {"builtin:kestrel": "kestrel_mask.fits",
+                 "builtin:kestrel-overlap": "kestrel_overlap.fits"}
+STATISTIC_NAMES = tuple(SETTINGS_TYPES)
+#: Statistics whose cone estimator needs a random catalogue.
+NEEDS_RANDOMS = ("wp",)
+
+
+# --------------------------------------------------------------------------- sections
+@dataclass(frozen=True)
+class CosmologyConfig:
+    """Fiducial cosmology (flat ΛCDM unless ``omega_k`` is set).
+
+    Attributes
+    ----------
+    omega_m : float
+        Matter density parameter today.
+    omega_k : float
+        Curvature density parameter (0: flat).
+    h : float
+        H0 / (100 km/s/Mpc); used only for magnitudes.
+    """
+
+    omega_m: float = 0.3
+    omega_k: float = 0.0
+    h: float = 0.7
+
+    def __post_init__(self) -> None:
+        problems = []
+        if not 0.01 < self.omega_m < 2:
+            problems.append(f"omega_m = {self.omega_m!r}: expected 0.01 < omega_m < 2")
+        if not -1 < self.omega_k < 1:
+            problems.append(f"omega_k = {self.omega_k!r}: expected -1 < omega_k < 1")
+        if not 0.2 < self.h < 2:
+            problems.append(f"h = {self.h!r}: expected 0.2 < h < 2")
+        if problems:
+            raise InputError("; ".join(problems), problems)
+
+
+@dataclass(frozen=True)
+class BoxConfig:
+    """The periodic galaxy box the model predictions come from.
+
+    Attributes
+    ----------
+    source : {"synthetic", "file", "halos"}
+        ``file``: a galaxy catalogue; ``halos``: a halo catalogue populated with the HOD;
+        ``synthetic``: the built-in lognormal halo box populated with the HOD.
+    path : str or None
+        Galaxy file (``file``) or halo file (``halos``): FITS, HDF5, ECSV, Parquet or .npz.
+    columns : table of str
+        Column mapping, conecheck name → name in the file (x, y, z, vx, vy, vz, abs_mag, …).
+    box_size : float or None
+        Box side L [Mpc/h] (read from the file's metadata when omitted; synthetic: 250).
+    redshift : float or None
+        Snapshot redshift (file metadata when omitted; synthetic: 0.06).
+    los_axis : int
+        Line-of-sight axis of the box estimators (0, 1, 2 for x, y, z).
+    hod : str or None
+        HOD parameter file (TOML) for ``halos`` and ``synthetic``; the shipped default when
+        omitted.
+    sigma8 : float
+        Synthetic box: amplitude of linear fluctuations.
+    n_s : float
+        Synthetic box: primordial spectral index.
+    omega_b : float
+        Synthetic box: baryon density (shape of the Eisenstein & Hu 1998 spectrum).
+    grid : int or None
+        Synthetic box: FFT grid cells per side (default from the box size).
+    rsd : bool
+        Apply plane-parallel redshift-space distortions along ``los_axis`` in the box.
+    redshift_scatter_kms : float
+        Box: Gaussian line-of-sight velocity scatter [km/s] mirroring redshift errors (0: off).
+    """
+
+    source: Literal["synthetic", "file", "halos"] = "synthetic"
+    path: str | None = None
+    columns: dict[str, str] = field(default_factory=dict)
+    box_size: float | None = None
+    redshift: float | None = None
+    los_axis: int = 2
+    hod: str | None = None
+    sigma8: float = 0.8
+    n_s: float = 0.96
+    omega_b: float = 0.048
+    grid: int | None = None
+    rsd: bool = True
+    redshift_scatter_kms: float = 0.0
+
+    def __post_init__(self) -> None:
+        problems = []
+        if self.source not in ("synthetic", "file", "halos"):
+            problems.append(f"source = {self.source!r}: expected 'synthetic', 'file' or "
+                            f"'halos'")
+        if self.source in ("file", "halos") and not self.path:
+            problems.append(f"path: source = '{self.source}' needs the catalogue file")
+        if self.source == "synthetic" and self.path:
+            problems.append("path: a synthetic box reads no file; remove path or set "
+                            "source = 'file' or 'halos'")
+        if self.source == "file" and self.hod:
+            problems.append("hod: a galaxy file is used as it is; the HOD applies to "
+                            "source = 'halos' or 'synthetic'")
+        if self.box_size is not None and not self.box_size > 0:
+            problems.append(f"box_size = {self.box_size!r}: expected > 0 Mpc/h")
+        if self.redshift is not None and not 0 <= self.redshift < 10:
+            problems.append(f"redshift = {self.redshift!r}: expected 0 <= z < 10")
+        if self.los_axis not in (0, 1, 2):
+            problems.append(f"los_axis = {self.los_axis!r}: expected 0, 1 or 2")
+        if not 0.1 < self.sigma8 < 2:
+            problems.append(f"sigma8 = {self.sigma8!r}: expected 0.1 < sigma8 < 2")
+        if self.redshift_scatter_kms < 0:
+            problems.append(f"redshift_scatter_kms = {self.redshift_scatter_kms!r}: "
+                            f"expected >= 0 km/s")
+        if self.grid is not None and self.grid < 8:
+            problems.append(f"grid = {self.grid!r}: expected >= 8 cells per side")
+        if problems:
+            raise InputError("; ".join(problems), problems)
+
+
+@dataclass(frozen=True)
+class SurveyFiles:
+    """Sky files of the survey.
+
+    Attributes
+    ----------
+    name : str
+        Survey name for the report.
+    mask : str
+        HEALPix completeness map (FITS), or ``builtin:kestrel`` for the invented demo survey.
+    vetoes : list of str
+        Veto maps multiplied into the mask.
+    """
+
+    name: str = ""
+    mask: str = ""
+    vetoes: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        if not self.mask:
+            raise InputError("mask: the survey's HEALPix completeness map is required "
+                             "(a FITS path, or 'builtin:kestrel' for the demo footprint)")
+
+
+@dataclass(frozen=True)
+class SampleConfig:
+    """One galaxy sample: a magnitude threshold, a primary redshift cut and alternatives.
+
+    Attributes
+    ----------
+    name : str
+        Sample name (letters, digits, '_' or '-').
+    mag_max : float or None
+        Keep galaxies brighter than this absolute magnitude (M − 5 log10 h).
+    z_min, z_max : float
+        Primary redshift cut.
+    label : str
+        Name of the primary cut.
+    alt_cuts : list of tables
+        Alternative cuts, each with ``label``, ``z_min``, ``z_max``.
+    """
+
+    name: str = ""
+    mag_max: float | None = None
+    z_min: float = 0.0
+    z_max: float = 0.0
+    label: str = "primary"
+    alt_cuts: tuple[SampleCut, ...] = ()
+
+    def __post_init__(self) -> None:
+        if not re.fullmatch(r"[A-Za-z0-9_-]+", self.name or ""):
+            raise InputError(f"name = {self.name!r}: expected letters, digits, '_' or '-'")
+        SampleCut(self.label, self.mag_max, self.z_min, self.z_max)
+        labels = [self.label] + [c.label for c in self.alt_cuts]
+        dup = sorted({x for x in labels if labels.count(x) > 1})
+        if dup:
+            raise InputError(f"alt_cuts: cut labels must differ, {dup} repeat")
+
+    @property
+    def cuts(self) -> tuple[SampleCut, ...]:
+        """Primary cut first, then the alternatives (each with this sample's threshold)."""
+        first = SampleCut(self.label, self.mag_max, self.z_min, self.z_max)
+        return (first,) + tuple(dataclasses.replace(c, mag_max=self.mag_max)
+                                for c in self.alt_cuts)
+
+
+@dataclass(frozen=True)
+class StatisticsConfig:
+    """Which statistics to measure, each with its settings table ``[statistics.<name>]``.
+
+    Attributes
+    ----------
+    measure : list of str
+        Statistic names among number_density, wp, cic, vpf, annuli.
+    """
+
+    measure: tuple[str, ...] = ("number_density", "wp", "cic", "vpf")
+    settings: dict[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        bad = [s for s in self.measure if s not in STATISTIC_NAMES]
+        if bad or not self.measure:
+            raise InputError(f"measure = {list(self.measure)!r}: expected a non-empty list of "
+                             f"{', '.join(STATISTIC_NAMES)}")
+
+    def get(self, name: str) -> Any:
+        """Settings of statistic ``name`` (defaults when not configured)."""
+        return self.settings.get(name) or SETTINGS_TYPES[name]()
+
+
+@dataclass(frozen=True)
+class JackknifeConfig:
+    """Jackknife layouts.
+
+    Attributes
+    ----------
+    sky_regions : int
+        Cone: number K of near-equal-area sky regions (k-means on the footprint).
+    box_n_side : int
+        Box: sub-volumes per side (``columns``: n² columns along the line of sight;
+        ``cubes``: n³ cubes).
+    box_layout : {"columns", "cubes"}
+        Shape of the box sub-volumes.
+    """
+
+    sky_regions: int = 25
+    box_n_side: int = 5
+    box_layout: Literal["columns", "cubes"] = "columns"
+
+    def __post_init__(self) -> None:
+        problems = []
+        if self.sky_regions < 2:
+            problems.append(f"sky_regions = {self.sky_regions!r}: expected >= 2")
+        if self.box_n_side < 2:
+            problems.append(f"box_n_side = {self.box_n_side!r}: expected >= 2")
+        if problems:
+            raise InputError("; ".join(problems), problems)
+
+    @property
+    def box_regions(self) -> int:
+        """Number of box sub-volumes."""
+        return self.box_n_side ** (2 if self.box_layout == "columns" else 3)
+
+
+@dataclass(frozen=True)
+class ConesConfig:
+    """How many cones, and whether they are independent realisations.
+
+    Attributes
+    ----------
+    n_cones : int
+        Number of light cones cut from the box.
+    independent : bool
+        Set true only when the cones share no structure (e.g. one box each); otherwise the
+        error on their mean is not reduced by the number of cones.
+    """
+
+    n_cones: int = 8
+    independent: bool = False
+    observers: ObserverSettings = field(default_factory=ObserverSettings)
+
+    def __post_init__(self) -> None:
+        if self.n_cones < 1:
+            raise InputError(f"n_cones = {self.n_cones!r}: expected >= 1")
+
+
+@dataclass(frozen=True)
+class ComputeConfig:
+    """Where the tasks run.
+
+    Attributes
+    ----------
+    scheduler : str
+        ``local`` (in-process, numba threads), ``local-cluster`` (a dask LocalCluster on
+        loopback) or a dask scheduler address ``tcp://HOST:PORT``.
+    workers : int or None
+        Workers of a ``local-cluster`` (default 2).
+    """
+
+    scheduler: str = "local"
+    workers: int | None = None
+
+    def __post_init__(self) -> None:
+        ok = (self.scheduler in ("local", "local-cluster")
+              or re.fullmatch(r"(tcp|tls|inproc|ucx)://\S+", self.scheduler))
+        problems = []
+        if not ok:
+            problems.append(f"scheduler = {self.scheduler!r}: expected 'local', "
+                            f"'local-cluster' or an address like 'tcp://host:8786'")
+        if self.workers is not None and self.workers < 1:
+            problems.append(f"workers = {self.workers!r}: expected >= 1")
+        if problems:
+            raise InputError("; ".join(problems), problems)
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    """Where results go.
+
+    Attributes
+    ----------
+    directory : str
+        Run directory (results.json, tables, validation.pdf, cache, log).
+    write_cones : bool
+        Also write every cone and the randoms as FITS under ``<directory>/cones``.
+    cache : bool
+        Keep finished tasks on disk so a re-run or an interrupted run resumes.
+    """
+
+    directory: str = "reports/run"
+    write_cones: bool = False
+    cache: bool = True
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """A whole validation run (every section resolved and validated)."""
+
+    seed: int
+    cosmology: CosmologyConfig
+    box: BoxConfig
+    survey: SurveyFiles
+    shell: SurveyShell
+    effects: EffectSwitches
+    fibres: FibreSettings
+    correction: CorrectionSettings
+    redshift_errors: RedshiftErrorSettings
+    samples: tuple[SampleConfig, ...]
+    statistics: StatisticsConfig
+    jackknife: JackknifeConfig
+    cones: ConesConfig
+    randoms: RandomSettings
+    verdict: VerdictRules
+    compute: ComputeConfig
+    output: OutputConfig
+    source: str = "<dict>"
+    base_dir: str = "."
+
+    def resolve_path(self, value: str | None) -> Path | None:
+        """Absolute path of a configured file (``builtin:`` names → shipped data)."""
+        return resolve_path(value, self.base_dir)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The resolved configuration as plain TOML-ready data (None values dropped)."""
+        return _plain(_nested(self))
+
+    @property
+    def config_hash(self) -> str:
+        """SHA-256 of the resolved settings (file contents are hashed separately)."""
+        text = json.dumps(self.to_dict(), sort_keys=True, default=str)
+        return hashlib.sha256(text.encode()).hexdigest()
+
+
+def resolve_path(value: str | None, base_dir: str | Path = ".") -> Path | None:
+    """Absolute path of a configured file; ``builtin:`` names map to the package data."""
+    if value is None or value == "":
+        return None
+    if value in BUILTIN_FILES:
+        return Path(__file__).parent / "data" / BUILTIN_FILES[value]
+    if value.startswith("builtin:"):
+        raise InputError(f"{value!r}: unknown built-in file; expected one of "
+                         f"{', '.join(BUILTIN_FILES)}")
+    p = Path(value).expanduser()
+    return p if p.is_absolute() else (Path(base_dir) / p).resolve()
+
+
+# --------------------------------------------------------------------------- loading
+#: TOML layout: section path → (class, sub-tables handled separately)
+_SURVEY_SUBTABLES = {"shell": SurveyShell, "effects": EffectSwitches, "fibres": FibreSettings,
+                     "correction": CorrectionSettings,
+                     "redshift_errors": RedshiftErrorSettings}
+_TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jackknife",
+             "cones", "randoms", "verdict", "compute", "output")
+
+
+def _type_name(hint: Any) -> str:
+    if hint is type(None):
+        return "nothing"
+    origin = typing.get_origin(hint)
+    if origin is Literal:
+        return "one of " + ", ".join(repr(a) for a in typing.get_args(hint))
+    if origin in (typing.Union, types.UnionType):
+        return " or ".join(_type_name(a) for a in typing.get_args(hint)
+                           if a is not type(None))
+    if origin in (tuple, list):
+        return "a list"
+    if origin is dict:
+        return "a table of strings"
+    return {float: "a number", int: "an integer", bool: "true or false",
+            str: "a string"}.get(hint, getattr(hint, "__name__", str(hint)))
+
+
+def _convert(value: Any, hint: Any, key: str) -> Any:
+    """``value`` checked against ``hint`` (raises ValueError with a message)."""
+    origin = typing.get_origin(hint)
+    args = typing.get_args(hint)
+    if hint is Any:
+        return value
+    if origin in (typing.Union, types.UnionType):
+        if value is None and type(None) in args:
+            return None
+        for a in args:
+            if a is type(None):
+                continue
+            try:
+                return _convert(value, a, key)
+            except ValueError:
+                continue
+        raise ValueError(f"{key} = {value!r}: expected {_type_name(hint)}")
+    if origin is Literal:
+        if value not in args:
+            raise ValueError(f"{key} = {value!r}: expected {_type_name(hint)}")
+        return value
+    if origin is tuple:
+        if not isinstance(value, (list, tuple)):
+            raise ValueError(f"{key} = {value!r}: expected a list")
+        if len(args) == 2 and args[1] is Ellipsis:
+            return tuple(_convert(v, args[0], f"{key}[{i}]") for i, v in enumerate(value))
+        if len(args) != len(value):
+            raise ValueError(f"{key} = {value!r}: expected a list of {len(args)} values")
+        pairs = enumerate(zip(value, args, strict=True))
+        return tuple(_convert(v, a, f"{key}[{i}]") for i, (v, a) in pairs)
+    if origin is dict:
+        if not isinstance(value, Mapping) or not all(isinstance(v, str) for v in value.values()):
+            raise ValueError(f"{key} = {value!r}: expected a table of strings")
+        return dict(value)
+    if hint is float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ValueError(f"{key} = {value!r}: expected a number")
+        if not math.isfinite(value):
+            raise ValueError(f"{key} = {value!r}: expected a finite number")
+        return float(value)
+    if hint is int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ValueError(f"{key} = {value!r}: expected an integer")
+        return value
+    if hint is bool:
+        if not isinstance(value, bool):
+            raise ValueError(f"{key} = {value!r}: expected true or false")
+        return value
+    if hint is str:
+        if not isinstance(value, str):
+            raise ValueError(f"{key} = {value!r}: expected a string")
+        return value
+    return value
+
+
+def _prefix(path: str, problem: str) -> str:
+    return problem if problem.startswith(path.split(".")[0]) else f"{path}.{problem}" \
+        if re.match(r"^[a-z_]+ ?[=:.]", problem) else f"{path}: {problem}"
+
+
+def build_section(cls: type, table: Any, path: str, problems: list[str],
+                  skip: tuple[str, ...] = (), extra: Mapping[str, Any] | None = None) -> Any:
+    """Build dataclass ``cls`` from a TOML table, appending problems (with key paths).
+
+    Returns the instance, or None when a problem prevented building it.
+    """
+    if table is None:
+        table = {}
+    if not isinstance(table, Mapping):
+        problems.append(f"{path}: expected a table, got {table!r}")
+        return None
+    hints = typing.get_type_hints(cls)
+    names = [f.name for f in fields(cls) if f.init and not f.name.startswith("_")]
+    allowed = [n for n in names if n not in (extra or {})] + list(skip)
+    kwargs: dict[str, Any] = dict(extra or {})
+    ok = True
+    for key, value in table.items():
+        if key in skip:
+            continue
+        if key not in allowed:
+            problems.append(f"{path}.{key}: unknown key (allowed: {', '.join(sorted(allowed))})")
+            ok = False
+            continue
+        try:
+            kwargs[key] = _convert(value, hints[key], f"{path}.{key}")
+        except ValueError as exc:
+            problems.append(str(exc))
+            ok = False
+    if not ok:
+        return None
+    try:
+        return cls(**kwargs)
+    except InputError as exc:
+        problems.extend(_prefix(path, p) for p in exc.problems)
+    except (TypeError, ValueError) as exc:
+        problems.append(f"{path}: {exc}")
+    return None
+
+
+def _samples(value: Any, problems: list[str]) -> tuple[SampleConfig, ...]:
+    if not isinstance(value, list) or not value:
+        problems.append("samples: expected at least one [[samples]] table (name, mag_max, "
+                        "z_min, z_max)")
+        return ()
+    out = []
+    for i, table in enumerate(value):
+        path = f"samples[{i}]"
+        if not isinstance(table, Mapping):
+            problems.append(f"{path}: expected a table")
+            continue
+        alts = []
+        raw_alts = table.get("alt_cuts", [])
+        if not isinstance(raw_alts, list):
+            problems.append(f"{path}.alt_cuts: expected a list of tables (label, z_min, z_max)")
+            raw_alts = []
+        n0 = len(problems)
+        for j, alt in enumerate(raw_alts):
+            if isinstance(alt, Mapping) and "mag_max" in alt:
+                problems.append(f"{path}.alt_cuts[{j}].mag_max: an alternative cut shares its "
+                                f"sample's magnitude threshold; set it on the sample")
+                continue
+            cut = build_section(SampleCut, alt, f"{path}.alt_cuts[{j}]", problems)
+            if cut is not None:
+                alts.append(cut)
+        for key in ("name", "z_min", "z_max"):
+            if key not in table:
+                problems.append(f"{path}.{key}: required")
+        if len(problems) > n0:
+            continue
+        s = build_section(SampleConfig, table, path, problems, skip=("alt_cuts",),
+                          extra={"alt_cuts": tuple(alts)})
+        if s is not None:
+            out.append(s)
+    names = [s.name for s in out]
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        problems.append(f"samples: sample names must differ, {dup} repeat")
+    return tuple(out)
+
+
+def _statistics(table: Any, problems: list[str]) -> StatisticsConfig | None:
+    if not isinstance(table, Mapping):
+        problems.append("statistics: expected a table")
+        return None
+    settings: dict[str, Any] = {}
+    for name, sub in table.items():
+        if name == "measure":
+            continue
+        if name not in STATISTIC_NAMES:
+            problems.append(f"statistics.{name}: unknown statistic (expected measure = [...] "
+                            f"and tables among {', '.join(STATISTIC_NAMES)})")
+            continue
+        s = build_section(SETTINGS_TYPES[name], sub, f"statistics.{name}", problems)
+        if s is not None:
+            settings[name] = s
+    measure = table.get("measure", list(StatisticsConfig.measure))
+    return build_section(StatisticsConfig, {"measure": measure}, "statistics", problems,
+                         extra={"settings": settings})
+
+
+def n_bins(name: str, settings: Any) -> int:
+    """Length of statistic ``name``'s data vector with ``settings``."""
+    if name == "number_density":
+        return 1
+    if name == "vpf":
+        return len(settings.radii)
+    return len(settings.edges) - 1
+
+
+def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
+    """Problems that involve several sections; returns warnings."""
+    warnings = []
+    shell = cfg.shell
+    for i, s in enumerate(cfg.samples):
+        for cut in s.cuts:
+            where = (f"samples[{i}]" if cut.label == s.label
+                     else f"samples[{i}].alt_cuts['{cut.label}']")
+            if cut.z_min < shell.z_min - 1e-12 or cut.z_max > shell.z_max + 1e-12:
+                problems.append(f"{where}: cut {cut.z_min}–{cut.z_max} lies outside the survey "
+                                f"shell survey.shell z_min–z_max = {shell.z_min}–{shell.z_max}")
+    if cfg.randoms.multiple <= 0 and any(s in NEEDS_RANDOMS for s in cfg.statistics.measure):
+        problems.append("randoms.multiple: wp needs randoms on the cones; set multiple > 0")
+    for name in cfg.statistics.measure:
+        p = n_bins(name, cfg.statistics.get(name))
+        need = p + 3
+        for label, k, key in (("sky", cfg.jackknife.sky_regions, "jackknife.sky_regions"),
+                              ("box", cfg.jackknife.box_regions, "jackknife.box_n_side")):
+            if k < need:
+                problems.append(
+                    f"{key}: {k} {label} jackknife regions are too few for statistic "
+                    f"'{name}' with {p} bins — the Hartlap factor (n − p − 2)/(n − 1) must be "
+                    f"positive, so at least {need} regions are needed (or use fewer bins)")
+    if cfg.cones.n_cones < cfg.verdict.min_cones:
+        warnings.append(f"cones.n_cones = {cfg.cones.n_cones} is below verdict.min_cones = "
+                        f"{cfg.verdict.min_cones}: every statistic will be 'warn' at best")
+    if cfg.cones.independent and cfg.cones.n_cones < 2:
+        warnings.append("cones.independent = true with one cone: the cone-to-cone scatter is "
+                        "undefined, the offset's error falls back to the shared-structure form")
+    if cfg.effects.fibres and not cfg.effects.footprint:
+        warnings.append("survey.effects: fibres without the footprint collide over the full "
+                        "sky shell")
+    out = Path(cfg.base_dir) / cfg.output.directory
+    if out.exists() and not out.is_dir():
+        problems.append(f"output.directory = {cfg.output.directory!r}: {out} exists and is a "
+                        f"file, not a directory")
+    return warnings
+
+
+def config_from_dict(data: Mapping[str, Any], source: str = "<dict>",
+                     base_dir: str | Path = ".") -> RunConfig:
+    """Validate a parsed TOML document into a :class:`RunConfig`.
+
+    Raises
+    ------
+    InputError
+        Listing every problem found, each naming its key path, value and expectation.
+    """
+    problems: list[str] = []
+    for key in data:
+        if key not in _TOP_KEYS:
+            problems.append(f"{key}: unknown top-level key (allowed: {', '.join(_TOP_KEYS)})")
+    seed = data.get("seed", 12345)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        problems.append(f"seed = {seed!r}: expected an integer >= 0")
+    survey = data.get("survey", {})
+    if not isinstance(survey, Mapping):
+        problems.append("survey: expected a table")
+        survey = {}
+    parts: dict[str, Any] = {
+        "cosmology": build_section(CosmologyConfig, data.get("cosmology"), "cosmology",
+                                   problems),
+        "box": build_section(BoxConfig, data.get("box"), "box", problems),
+        "survey": build_section(SurveyFiles, survey, "survey", problems,
+                                skip=tuple(_SURVEY_SUBTABLES)),
+    }
+    for key, cls in _SURVEY_SUBTABLES.items():
+        parts[key] = build_section(cls, survey.get(key), f"survey.{key}", problems)
+    parts["samples"] = _samples(data.get("samples"), problems)
+    parts["statistics"] = _statistics(data.get("statistics", {}), problems)
+    parts["jackknife"] = build_section(JackknifeConfig, data.get("jackknife"), "jackknife",
+                                       problems)
+    cones = data.get("cones", {})
+    if not isinstance(cones, Mapping):
+        problems.append("cones: expected a table")
+        cones = {}
+    observers = build_section(ObserverSettings, cones.get("observers"), "cones.observers",
+                              problems)
+    parts["cones"] = build_section(ConesConfig, cones, "cones", problems, skip=("observers",),
+                                   extra={"observers": observers or ObserverSettings()})
+    parts["randoms"] = build_section(RandomSettings, data.get("randoms"), "randoms", problems)
+    parts["verdict"] = build_section(VerdictRules, data.get("verdict"), "verdict", problems)
+    parts["compute"] = build_section(ComputeConfig, data.get("compute"), "compute", problems)
+    parts["output"] = build_section(OutputConfig, data.get("output"), "output", problems)
+    if problems or any(v is None for v in parts.values()):
+        raise InputError(_joined(source, problems), problems)
+    cfg = RunConfig(seed=seed, source=source, base_dir=str(base_dir), **parts)
+    warnings = _cross_checks(cfg, problems)
+    if problems:
+        raise InputError(_joined(source, problems), problems)
+    object.__setattr__(cfg, "_warnings", tuple(warnings))
+    return cfg
+
+
+def config_warnings(cfg: RunConfig) -> tuple[str, ...]:
+    """Non-fatal remarks found while validating ``cfg``."""
+    return getattr(cfg, "_warnings", ())
+
+
+def _joined(source: str, problems: list[str]) -> str:
+    n = len(problems)
+    head = f"{source}: {n} problem{'s' if n != 1 else ''} in the configuration"
+    return head + ":\n  - " + "\n  - ".join(problems)
+
+
+def load_config(path: str | Path) -> RunConfig:
+    """Read and validate a TOML run configuration."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: configuration file not found" if not path.exists()
+                         else f"{path}: expected a TOML file, found a directory")
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: not valid TOML ({exc})") from None
+    return config_from_dict(data, str(path), path.parent.resolve())
+
+
+def config_text(path: str | Path) -> str:
+    """The configuration file's text (for provenance)."""
+    return Path(path).read_text(encoding="utf-8")
+
+
+# --------------------------------------------------------------------------- output
+def _nested(obj: Any) -> Any:
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: _nested(getattr(obj, f.name)) for f in fields(obj)
+                if not f.name.startswith("_")}
+    if isinstance(obj, (list, tuple)):
+        return [_nested(v) for v in obj]
+    if isinstance(obj, Mapping):
+        return {k: _nested(v) for k, v in obj.items()}
+    return obj
+
+
+def _plain(obj: Any) -> Any:
+    if isinstance(obj, Mapping):
+        return {k: _plain(v) for k, v in obj.items() if v is not None}
+    if isinstance(obj, list):
+        return [_plain(v) for v in obj]
+    return obj
+
+
+def resolved_toml(cfg: RunConfig) -> str:
+    """The resolved configuration (every default filled in) as TOML text."""
+    import tomli_w
+
+    d = cfg.to_dict()
+    survey = dict(d.pop("survey"))
+    for key in _SURVEY_SUBTABLES:
+        survey[key] = d.pop(key)
+    stats = d.pop("statistics")
+    statistics = {"measure": stats["measure"], **stats.get("settings", {})}
+    samples = d.pop("samples")
+    cones = d.pop("cones")
+    d.pop("source", None)
+    d.pop("base_dir", None)
+    out = {"seed": d.pop("seed"), "cosmology": d.pop("cosmology"), "box": d.pop("box"),
+           "survey": survey, "samples": samples, "statistics": statistics, **d,
+           "cones": cones}
+    return ("# conecheck resolved configuration: every default filled in\n"
+            + tomli_w.dumps(out))

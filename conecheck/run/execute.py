@@ -1,0 +1,422 @@
+"""Running a list of independent tasks, in-process or on a dask.distributed cluster.
+
+Whatever runs the tasks, results come back in task order and are the same numbers:
+every task draws its random numbers from :func:`task_rng` (run seed + the task's own
+key), never from a stream shared with other tasks, so neither the back end, the number
+of workers nor the completion order can change a result.  Each result is written to
+the :class:`~conecheck.run.cache.TaskCache` the moment it arrives, so a run that is
+killed or fails part-way keeps everything already finished and a re-run resumes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import traceback
+import uuid
+import warnings
+from abc import ABC, abstractmethod
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..errors import ConecheckError, InputError
+from .cache import TaskCache
+from .progress import Progress
+
+log = logging.getLogger("conecheck.run")
+
+_MISSING = object()
+
+_SCHEDULER_HELP = ("expected 'local' (in-process), 'local-cluster' (a dask cluster of worker "
+                   "processes on this machine) or a dask scheduler address such as "
+                   "'tcp://host:8786' or 'tls://host:8786'")
+
+
+# --------------------------------------------------------------------------- randomness
+def task_rng(run_seed: int, *key_parts: int | str) -> np.random.Generator:
+    """Random generator of one task, fixed by the run seed and the task's key alone.
+
+    Parameters
+    ----------
+    run_seed : int
+        The run's seed (config), a non-negative integer.
+    *key_parts : int or str
+        What identifies the task's stream, e.g. ``("cone", 3, "bright", "primary")``.
+
+    Notes
+    -----
+    The key parts are encoded as JSON (type-tagged, so ``1`` and ``"1"`` differ) and
+    hashed with SHA-256 — not Python's ``hash()``, which is salted per process — and
+    the digest becomes the ``spawn_key`` of a :class:`numpy.random.SeedSequence` rooted
+    at the run seed.  Streams of different keys are therefore independent in the
+    sense SeedSequence guarantees, and identical in every process.
+    """
+    if isinstance(run_seed, (bool, np.bool_)) or not isinstance(run_seed, (int, np.integer)) \
+            or run_seed < 0:
+        raise InputError(f"seed: expected a non-negative integer, got {run_seed!r}")
+    parts = []
+    for p in key_parts:
+        if isinstance(p, (bool, np.bool_)) or not isinstance(p, (int, np.integer, str)):
+            raise TypeError(f"task_rng key parts must be int or str, got "
+                            f"{type(p).__name__} {p!r}")
+        parts.append(["s", p] if isinstance(p, str) else ["i", str(int(p))])
+    digest = hash(str(parts)).to_bytes(8, "little", signed=True) * 4
+    words = tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 32, 4))
+    return np.random.default_rng(np.random.SeedSequence(int(run_seed), spawn_key=words))
+
+
+# --------------------------------------------------------------------------- tasks
+@dataclass(frozen=True)
+class Task:
+    """One unit of work.
+
+    Attributes
+    ----------
+    key : str
+        Cache key (:func:`~conecheck.run.cache.task_key`); equal keys mean equal results.
+    label : str
+        Human description used in progress, logs and errors, e.g.
+        ``"cone 3 / sample bright / cut primary"``.
+    func : callable
+        A module-level function (so that dask can send it to a worker by reference).
+    args, kwargs
+        Its arguments; may include handles from :meth:`Executor.share`.
+    kind : str
+        Task type (``randoms``, ``cone``, ``box``, …), recorded in the cache entry.
+    """
+
+    key: str
+    label: str
+    func: Callable[..., Any]
+    args: tuple = ()
+    kwargs: dict = field(default_factory=dict)
+    kind: str = ""
+
+
+class TaskFailed(ConecheckError):
+    """A task raised; names the task (the first failure in task order) and the error.
+
+    Attributes
+    ----------
+    task_label : str
+        Label of the first failed task.
+    error : str
+        The original error, ``"<ExceptionType>: <message>"``.
+    n_failed, n_total : int
+        How many tasks of the stage failed, out of how many.
+    details : str
+        Traceback of the original error (for ``-v`` logs).
+    """
+
+    def __init__(self, task_label: str, error: str, n_failed: int = 1, n_total: int = 1,
+                 details: str = "") -> None:
+        self.task_label = task_label
+        self.error = error
+        self.n_failed = int(n_failed)
+        self.n_total = int(n_total)
+        self.details = details
+        msg = f"task '{task_label}' failed: {error}"
+        if self.n_failed > 1:
+            msg += f" ({self.n_failed} of {self.n_total} tasks failed; this is the first)"
+        msg += ". Finished tasks are cached; re-running resumes from them."
+        super().__init__(msg)
+
+    def __reduce__(self):  # keep it intact through pickling (dask, multiprocessing)
+        return (type(self), (self.task_label, self.error, self.n_failed, self.n_total,
+                             self.details))
+
+
+def _error_text(exc: BaseException) -> str:
+    text = str(exc)
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+# --------------------------------------------------------------------------- executors
+class Executor(ABC):
+    """Runs tasks and caches their results; subclasses decide where they run."""
+
+    def share(self, obj: Any) -> Any:
+        """A handle to pass ``obj`` to many tasks without copying it for each one."""
+        return obj
+
+    def describe(self) -> str:
+        """One line naming the back end, for logs and the report."""
+        return type(self).__name__
+
+    def close(self) -> None:  # noqa: B027 - optional hook; in-process has nothing to free
+        """Release the back end's resources."""
+
+    def __enter__(self) -> Executor:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    @abstractmethod
+    def _compute(self, tasks: Sequence[Task],
+                 done: Callable[[int, bool, Any, str], None]) -> None:
+        """Run ``tasks``; call ``done(i, ok, result_or_exception, traceback)`` per task
+        as soon as task ``i`` finishes (in any order)."""
+
+    def run(self, tasks: Sequence[Task], cache: TaskCache | None,
+            progress: Progress | None = None, stage: str = "") -> list[Any]:
+        """Results of ``tasks`` in their order, from the cache or computed.
+
+        Computed results are cached as each task finishes.  When tasks fail the others
+        still run to the end (and are cached); then the first failure in task order is
+        raised: an :class:`~conecheck.errors.InputError` from a task stays one (its
+        message prefixed with the task label), anything else becomes
+        :class:`TaskFailed`.
+        """
+        tasks = list(tasks)
+        stage = stage or "tasks"
+        first_of: dict[str, int] = {}
+        for i, t in enumerate(tasks):
+            first_of.setdefault(t.key, i)
+        unique = sorted(first_of.values())  # equal keys mean equal results: run once
+
+        value: dict[int, Any] = {}
+        if cache is not None:
+            for i in unique:
+                got = cache.get(tasks[i].key, tasks[i].label, default=_MISSING)
+                if got is not _MISSING:
+                    value[i] = got
+        pending = [i for i in unique if i not in value]
+        if value:
+            log.info("%s: %d of %d tasks read from the cache, %d to compute", stage,
+                     len(value), len(unique), len(pending))
+
+        failures: dict[int, tuple[BaseException, str]] = {}
+
+        def done(j: int, ok: bool, result: Any, tb: str) -> None:
+            i = pending[j]
+            t = tasks[i]
+            if ok and cache is not None:
+                try:
+                    cache.put(t.key, result, label=t.label, kind=t.kind)
+                except TypeError as exc:  # a result type the cache cannot hold: a bug
+                    ok, result, tb = False, exc, traceback.format_exc()
+                except OSError as exc:  # disk trouble must not lose a computed result
+                    log.warning("%s: result not cached (%s); it will be recomputed next "
+                                "run", t.label, exc)
+            if ok:
+                value[i] = result
+            else:
+                failures[i] = (result, tb)
+                log.warning("%s failed: %s", t.label, _error_text(result))
+                if tb:
+                    log.debug("%s traceback:\n%s", t.label, tb)
+            if progress is not None:
+                progress.advance(1, note=t.label if ok else f"{t.label} FAILED")
+
+        if progress is not None:
+            progress.start(stage, len(unique))
+            if value:
+                progress.advance(len(value), note="from cache")
+        try:
+            if pending:
+                self._compute([tasks[i] for i in pending], done)
+        finally:
+            if progress is not None:
+                progress.finish()
+
+        if failures:
+            self._raise_first(tasks, failures, len(unique))
+        return [value[first_of[t.key]] for t in tasks]
+
+    @staticmethod
+    def _raise_first(tasks: Sequence[Task], failures: dict[int, tuple[BaseException, str]],
+                     n_total: int) -> None:
+        i = min(failures)
+        exc, tb = failures[i]
+        label = tasks[i].label
+        others = ""
+        if len(failures) > 1:
+            others = (f" ({len(failures)} of {n_total} tasks failed; this is the first; "
+                      f"finished tasks are cached)")
+        if isinstance(exc, InputError):
+            problems = [f"{label}: {p}" for p in exc.problems]
+            if others:
+                problems[-1] += others
+            raise InputError(f"{label}: {exc}{others}", problems) from exc
+        raise TaskFailed(label, _error_text(exc), len(failures), n_total, tb) from exc
+
+
+class LocalExecutor(Executor):
+    """Runs tasks one after another in this process (numba threads parallelise each)."""
+
+    def describe(self) -> str:
+        return "local (in-process)"
+
+    def _compute(self, tasks: Sequence[Task],
+                 done: Callable[[int, bool, Any, str], None]) -> None:
+        for j, t in enumerate(tasks):
+            try:
+                result = t.func(*t.args, **t.kwargs)
+            except Exception as exc:  # reported after the other tasks have run
+                done(j, False, exc, traceback.format_exc())
+            else:
+                done(j, True, result, "")
+
+
+def _limit_numba_threads(n: int) -> None:
+    import numba
+
+    numba.set_num_threads(max(1, min(int(n), numba.config.NUMBA_NUM_THREADS)))
+
+
+def _call_on_worker(func: Callable[..., Any], numba_threads: int | None,
+                    kwargs: dict[str, Any], *args: Any) -> Any:
+    """Runs on a dask worker: bound numba's threads, then call the task function.
+
+    numba starts as many threads as the machine has cores in *every* worker process;
+    several workers on one machine would then oversubscribe the cores.  The limit is
+    per calling thread in numba, so it is set inside the task.
+    """
+    if numba_threads:
+        _limit_numba_threads(numba_threads)
+    return func(*args, **kwargs)
+
+
+class DaskExecutor(Executor):
+    """Runs tasks on a dask.distributed cluster.
+
+    Parameters
+    ----------
+    address : str
+        ``"local-cluster"`` starts a cluster of worker processes on this machine (loopback
+        only, no dashboard) and closes it with the executor; otherwise the address of a
+        running scheduler (``tcp://host:port``, ``tls://…``) to connect to.
+    workers : int or None
+        Worker processes of a local cluster (default 2); ignored for a remote scheduler.
+    threads_per_worker : int
+        Tasks each worker runs at once.
+    retries : int
+        How many times dask re-runs a task that raised before reporting the failure.
+    """
+
+    def __init__(self, address: str, workers: int | None = None, threads_per_worker: int = 1,
+                 retries: int = 2) -> None:
+        try:
+            import distributed
+        except ImportError as exc:  # pragma: no cover - a runtime dependency
+            raise InputError(f"compute.scheduler = {address!r} needs the 'distributed' "
+                             f"package: {exc}") from exc
+        _check_count(workers, "compute.workers (--workers)", allow_none=True)
+        _check_count(threads_per_worker, "threads_per_worker")
+        if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
+            raise InputError(f"retries: expected an integer ≥ 0, got {retries!r}")
+        self.address = address
+        self.retries = retries
+        self._distributed = distributed
+        self._cluster = None
+        self._numba_threads: int | None = None
+        if address == "local-cluster":
+            n = workers or 2
+            self._numba_threads = max(1, (os.cpu_count() or 1) // (n * threads_per_worker))
+            try:
+                with warnings.catch_warnings():
+                    # The scheduler's HTTP endpoint tries port 8787 even without a
+                    # dashboard and warns when another cluster holds it; any port will do.
+                    warnings.filterwarnings("ignore", message="Port .* is already in use")
+                    self._cluster = distributed.LocalCluster(
+                        n_workers=n, threads_per_worker=threads_per_worker, processes=True,
+                        host="127.0.0.1", dashboard_address=None)
+                self.client = distributed.Client(self._cluster)
+            except Exception as exc:
+                self.close()
+                raise InputError(f"compute.scheduler = 'local-cluster': could not start a dask "
+                                 f"cluster on this machine ({_error_text(exc)}); use "
+                                 f"'local' to run in-process") from exc
+            self._workers = n
+        else:
+            try:
+                self.client = distributed.Client(address, timeout="20s")
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise InputError(f"compute.scheduler = {address!r}: cannot connect to a dask "
+                                 f"scheduler there ({_error_text(exc)})") from exc
+            self._workers = len(self.client.scheduler_info().get("workers", {}))
+
+    def describe(self) -> str:
+        if self._cluster is not None:
+            return f"dask local cluster, {self._workers} worker processes"
+        return f"dask scheduler {self.address} ({self._workers} workers at start)"
+
+    def share(self, obj: Any) -> Any:
+        """Send ``obj`` to every worker once; pass the returned future as a task argument."""
+        return self.client.scatter(obj, broadcast=True)
+
+    def close(self) -> None:
+        client = getattr(self, "client", None)
+        if client is not None:
+            client.close()
+            self.client = None
+        if self._cluster is not None:
+            self._cluster.close()
+            self._cluster = None
+
+    def _compute(self, tasks: Sequence[Task],
+                 done: Callable[[int, bool, Any, str], None]) -> None:
+        if self.client is None:
+            raise RuntimeError("DaskExecutor used after close()")
+        run_id = uuid.uuid4().hex[:8]  # fresh keys: no stale state from an earlier run
+        futures = {}
+        try:
+            for j, t in enumerate(tasks):
+                # The key's prefix (before the first '-') groups tasks in dask's displays.
+                key = f"{t.kind or 'task'}-{t.key}-{run_id}-{j}"
+                fut = self.client.submit(_call_on_worker, t.func, self._numba_threads,
+                                         t.kwargs, *t.args, key=key, retries=self.retries,
+                                         pure=False)
+                futures[fut.key] = (j, fut)
+            for fut in self._distributed.as_completed([f for _, f in futures.values()]):
+                j, _ = futures.pop(fut.key)
+                if fut.status == "finished":
+                    try:
+                        result = fut.result()
+                    except Exception as exc:  # lost in transfer
+                        done(j, False, exc, traceback.format_exc())
+                    else:
+                        done(j, True, result, "")
+                else:
+                    try:
+                        exc = fut.exception()
+                        tb = "".join(traceback.format_tb(fut.traceback()))
+                    except Exception as lost:  # cancelled: no exception to fetch
+                        exc, tb = lost, ""
+                    done(j, False, exc, tb)
+                fut.release()
+        finally:
+            if futures:  # interrupted: stop what is still queued on the cluster
+                self.client.cancel([f for _, f in futures.values()])
+
+
+def _check_count(n: Any, what: str, allow_none: bool = False) -> None:
+    if n is None and allow_none:
+        return
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+        raise InputError(f"{what}: expected a positive integer, got {n!r}")
+
+
+def make_executor(scheduler: str | None, workers: int | None = None) -> Executor:
+    """The executor for config key ``compute.scheduler`` (option ``--scheduler``).
+
+    ``None`` or ``"local"`` runs in-process; ``"local-cluster"`` starts a dask cluster of
+    ``workers`` processes here; ``"tcp://…"`` / ``"tls://…"`` connects to a running dask
+    scheduler.
+    """
+    if scheduler is None or scheduler == "local":
+        _check_count(workers, "compute.workers (--workers)", allow_none=True)
+        return LocalExecutor()
+    if not isinstance(scheduler, str):
+        raise InputError(f"compute.scheduler (--scheduler): got {scheduler!r}; "
+                         f"{_SCHEDULER_HELP}")
+    if scheduler == "local-cluster" or scheduler.startswith(("tcp://", "tls://")):
+        return DaskExecutor(scheduler, workers)
+    raise InputError(f"compute.scheduler (--scheduler): unknown value {scheduler!r}; "
+                     f"{_SCHEDULER_HELP}")

@@ -1,0 +1,125 @@
+"""Turn a validated :class:`~conecheck.config.RunConfig` into the run's inputs.
+
+The box catalogue, the footprint, the jackknife sky regions and the survey model are built
+here once per run; everything downstream receives them as arguments.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from pathlib import Path
+from typing import Any
+
+import healpy as hp
+import numpy as np
+
+from ..box import default_hod_model, load_hod, make_synthetic_box, populate, read_halo_catalog
+from ..catalog import GalaxyBox, file_sha256, read_galaxy_box
+from ..cone import SurveyModel
+from ..config import RunConfig
+from ..cosmology import Cosmology
+from ..errors import InputError
+from ..footprint import Footprint, jackknife_regions
+from ..footprint.jackknife import SkyRegions
+from .execute import task_rng
+
+log = logging.getLogger(__name__)
+
+#: Defaults of the synthetic box when the config leaves them out.
+SYNTHETIC_BOX_SIZE = 250.0
+SYNTHETIC_REDSHIFT = 0.06
+#: N_side of the full-sky footprint used when the footprint effect is switched off.
+FULL_SKY_NSIDE = 32
+
+
+def cosmology_of(cfg: RunConfig) -> Cosmology:
+    """The fiducial cosmology of the run."""
+    c = cfg.cosmology
+    return Cosmology(omega_m=c.omega_m, omega_k=c.omega_k, h=c.h)
+
+
+def _existing(cfg: RunConfig, value: str | None, key: str) -> Path | None:
+    path = cfg.resolve_path(value)
+    if path is not None and not path.is_file():
+        raise InputError(f"{cfg.source}: {key} = {value!r}: file {path} not found")
+    return path
+
+
+def input_files(cfg: RunConfig) -> dict[str, Path]:
+    """Every file the configuration names, checked to exist (key path → absolute path)."""
+    files: dict[str, Path | None] = {
+        "survey.mask": _existing(cfg, cfg.survey.mask, "survey.mask"),
+        "box.path": _existing(cfg, cfg.box.path, "box.path"),
+        "box.hod": _existing(cfg, cfg.box.hod, "box.hod"),
+        "survey.fibres.overlap_map": _existing(cfg, cfg.fibres.overlap_map,
+                                               "survey.fibres.overlap_map"),
+    }
+    for i, v in enumerate(cfg.survey.vetoes):
+        files[f"survey.vetoes[{i}]"] = _existing(cfg, v, f"survey.vetoes[{i}]")
+    return {k: v for k, v in files.items() if v is not None}
+
+
+def input_hashes(cfg: RunConfig) -> dict[str, str]:
+    """SHA-256 of every input file's content, keyed by absolute path."""
+    return {str(p): file_sha256(p) for p in input_files(cfg).values()}
+
+
+def needs_magnitudes(cfg: RunConfig) -> bool:
+    """True when a sample threshold or the flux limit needs an abs_mag column."""
+    flux = cfg.effects.flux_limit and cfg.shell.m_lim is not None
+    return flux or any(s.mag_max is not None for s in cfg.samples)
+
+
+def load_box(cfg: RunConfig) -> GalaxyBox:
+    """The real-space galaxy box (positions, velocities, magnitudes) the run starts from."""
+    b = cfg.box
+    cosmo = cosmology_of(cfg)
+    if b.source == "file":
+        box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,
+                              b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg))
+    else:
+        hod_path = _existing(cfg, b.hod, "box.hod")
+        model = load_hod(hod_path) if hod_path else default_hod_model()
+        rng = task_rng(cfg.seed, "box")
+        if b.source == "halos":
+            halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
+                                      b.box_size, b.redshift)
+            box = populate(halos, model, rng, cosmo)
+        else:
+            box = make_synthetic_box(b.box_size or SYNTHETIC_BOX_SIZE,
+                                     SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
+                                     cosmo, b.sigma8, b.n_s, b.omega_b, model, rng, grid=b.grid)
+    if needs_magnitudes(cfg) and box.abs_mag is None:
+        raise InputError("box: the samples' magnitude thresholds or the flux limit need an "
+                         "absolute magnitude column; map one as box.columns.abs_mag")
+    log.info("box: %d galaxies, L = %.1f Mpc/h, z = %.3f (%s)", len(box), box.box_size,
+             box.redshift, b.source)
+    return box
+
+
+def load_footprint(cfg: RunConfig) -> Footprint:
+    """The survey footprint, or the full sky when the footprint effect is off."""
+    if not cfg.effects.footprint:
+        return Footprint.from_map(np.ones(hp.nside2npix(FULL_SKY_NSIDE)), source="full sky")
+    mask = _existing(cfg, cfg.survey.mask, "survey.mask")
+    vetoes = [_existing(cfg, v, f"survey.vetoes[{i}]") for i, v in enumerate(cfg.survey.vetoes)]
+    return Footprint.from_fits(mask, vetoes)
+
+
+def sky_regions(cfg: RunConfig, footprint: Footprint) -> SkyRegions:
+    """K near-equal-area jackknife regions of the footprint (seeded by the run seed)."""
+    return jackknife_regions(footprint, cfg.jackknife.sky_regions, seed=cfg.seed)
+
+
+def survey_model(cfg: RunConfig, footprint: Footprint, effects: Any = None,
+                 correction: Any = None) -> SurveyModel:
+    """The cone builder's survey description (built-in file names resolved)."""
+    fibres = cfg.fibres
+    if fibres.overlap_map:
+        fibres = dataclasses.replace(fibres, overlap_map=str(
+            _existing(cfg, fibres.overlap_map, "survey.fibres.overlap_map")))
+    return SurveyModel(cosmology=cosmology_of(cfg), shell=cfg.shell, footprint=footprint,
+                       effects=effects or cfg.effects, fibres=fibres,
+                       correction=correction or cfg.correction,
+                       redshift_errors=cfg.redshift_errors, observers=cfg.cones.observers)

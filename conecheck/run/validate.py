@@ -1,0 +1,249 @@
+"""`conecheck run`: every stage, the comparison and the outputs of one validation.
+
+Outputs (all written atomically) in the run directory: ``results.json``, one ECSV table per
+sample × cut × statistic under ``tables/``, ``validation.pdf``, ``config.resolved.toml``,
+``jackknife_regions.npz`` (read by the report), ``run.log`` and the task cache under
+``cache/``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import logging
+import platform
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .. import __version__
+from ..atomic import write_text_atomic
+from ..compare import compare_statistic, exit_code, rollup_verdicts
+from ..cone import volume_limit_zmax
+from ..config import RunConfig, config_warnings, resolved_toml
+from ..errors import InputError
+from ..report import render_report, results_to_json, summary_table, write_statistic_tables
+from .cache import TaskCache
+from .execute import make_executor
+from .inputs import cosmology_of
+from .pipeline import (
+    RunInputs,
+    box_stage,
+    cone_stage,
+    nz_expected,
+    prepare_inputs,
+    randoms_stage,
+)
+from .progress import Progress
+
+log = logging.getLogger(__name__)
+
+INDEPENDENCE_NOTE_SHARED = (
+    "All cones are cut from one box, so they share its large-scale structure: their mean is "
+    "not an independent average over N realisations. The offset's own error therefore does "
+    "not shrink with the number of cones (set cones.independent = true only for cones from "
+    "independent boxes).")
+INDEPENDENCE_NOTE_INDEPENDENT = (
+    "The configuration states that the cones are independent realisations; the offset's "
+    "error uses the cone-to-cone scatter divided by the number of cones.")
+
+#: Hooks run after the main comparison (the effect ladder adds itself here).
+Extension = Callable[[RunInputs, dict[str, Any], dict[str, Any]], None]
+
+
+def output_dir(cfg: RunConfig, out: str | Path | None) -> Path:
+    """The run directory (``--out`` wins over ``output.directory``), created if needed."""
+    path = Path(out) if out is not None else Path(cfg.base_dir) / cfg.output.directory
+    if path.exists() and not path.is_dir():
+        raise InputError(f"output directory {path} exists and is a file, not a directory "
+                         f"(output.directory or --out)")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"output directory {path}: cannot create it ({exc.strerror})") from None
+    return path
+
+
+def _versions() -> dict[str, str]:
+    import astropy
+    import healpy
+    import matplotlib
+    import numba
+    import scipy
+
+    return {"conecheck": __version__, "python": platform.python_version(),
+            "numpy": np.__version__, "scipy": scipy.__version__,
+            "astropy": astropy.__version__, "healpy": healpy.__version__,
+            "numba": numba.__version__, "matplotlib": matplotlib.__version__}
+
+
+def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
+                ) -> dict[str, Any]:
+    """results["samples"]: every sample, cut and statistic compared and given a verdict."""
+    cfg = inp.cfg
+    samples: dict[str, Any] = {}
+    cosmo = cosmology_of(cfg)
+    for s in cfg.samples:
+        density = box[s.name]["number_density"]
+        cuts = {}
+        for j, cut in enumerate(s.cuts):
+            stats = {}
+            for name in cfg.statistics.measure:
+                where = f"sample {s.name}, cut {cut.label}, statistic {name}"
+                stats[name] = compare_statistic(
+                    box[s.name]["measurements"][name],
+                    [c["measurements"][s.name][cut.label][name] for c in cones],
+                    cfg.verdict, cfg.cones.independent, where=where)
+            nz = nz_expected(cfg, inp.footprint, cut, density)
+            nz["cones"] = [np.asarray(c["nz"][s.name][cut.label]).tolist() for c in cones]
+            cuts[cut.label] = {"z_min": cut.z_min, "z_max": cut.z_max, "primary": j == 0,
+                               "n_galaxies_cones": [
+                                   float(np.sum(c["nz"][s.name][cut.label])) for c in cones],
+                               "nz": nz, "statistics": stats}
+        vlim = None
+        if cfg.shell.m_lim is not None and s.mag_max is not None and cfg.effects.flux_limit:
+            vlim = float(volume_limit_zmax(cfg.shell.m_lim, s.mag_max, cosmo, cfg.shell))
+        samples[s.name] = {
+            "mag_max": s.mag_max, "volume_limit_zmax": vlim,
+            "box_number_density": density, "box_n_galaxies": box[s.name]["n_galaxies"],
+            "fibres": {"enabled": bool(cfg.effects.fibres),
+                       "collided_fraction": [c["info"].get("collided_fraction", 0.0)
+                                             for c in cones],
+                       "recovered_fraction": [c["info"].get("recovered_fraction", 0.0)
+                                              for c in cones],
+                       "correction": cfg.correction.name},
+            "cuts": cuts}
+    return samples
+
+
+def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = False,
+             scheduler: str | None = None, workers: int | None = None,
+             progress: bool | None = None, config_path: str | Path | None = None,
+             extensions: tuple[Extension, ...] = ()) -> tuple[dict[str, Any], int]:
+    """Run a whole validation and write its outputs.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The validated configuration.
+    out : path, optional
+        Run directory (default: ``output.directory`` relative to the config file).
+    fresh : bool
+        Ignore cached task results (they are still rewritten).
+    scheduler, workers : optional
+        Override ``compute.scheduler`` / ``compute.workers``.
+    progress : bool or None
+        Progress display (None: only on a terminal).
+    config_path : path, optional
+        The configuration file, copied into the provenance.
+    extensions : tuple of callables
+        Extra stages run after the comparison, each given (inputs, box results, results).
+
+    Returns
+    -------
+    (results, exit code)
+        Exit code 0 when every statistic passes (or only warns), 1 when any fails.
+    """
+    t_start = time.perf_counter()
+    run_dir = output_dir(cfg, out)
+    handler = logging.FileHandler(run_dir / "run.log", mode="a", encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    root = logging.getLogger("conecheck")
+    root.addHandler(handler)
+    prev_level = root.level
+    if root.level == logging.NOTSET or root.level > logging.INFO:
+        root.setLevel(logging.INFO)
+    try:
+        for w in config_warnings(cfg):
+            log.warning("config: %s", w)
+        write_text_atomic(run_dir / "config.resolved.toml", resolved_toml(cfg))
+        cache = TaskCache(run_dir / "cache", enabled=not fresh) if cfg.output.cache else None
+        prog = Progress(enabled=progress)
+        executor = make_executor(scheduler or cfg.compute.scheduler,
+                                 workers if workers is not None else cfg.compute.workers)
+        with executor:
+            inp = prepare_inputs(cfg, executor, cache, prog)
+            inp.regions.save(run_dir / "jackknife_regions.npz")
+            box = box_stage(inp)
+            randoms, rkeys = randoms_stage(inp, box)
+            cones = cone_stage(inp, randoms, rkeys)
+            t0 = time.perf_counter()
+            results = _results(inp, run_dir, config_path)
+            results["samples"] = compare_all(inp, box, cones)
+            rollup_verdicts(results)
+            inp.timings["compare"] = time.perf_counter() - t0
+            for ext in extensions:
+                ext(inp, {"box": box, "randoms": randoms, "randoms_keys": rkeys,
+                          "cones": cones}, results)
+            rollup_verdicts(results)
+            results["provenance"]["replicas_per_cone"] = [c["info"].get("n_replicas", 0)
+                                                          for c in cones]
+        t0 = time.perf_counter()
+        results_to_json(results, run_dir / "results.json")
+        write_statistic_tables(results, run_dir / "tables")
+        inp.timings["report"] = time.perf_counter() - t0
+        inp.timings["total"] = time.perf_counter() - t_start
+        results["provenance"]["timings"] = dict(inp.timings)
+        if cache is not None:
+            results["provenance"]["cache"] = dict(cache.stats)
+        results_to_json(results, run_dir / "results.json")
+        n_pages = render_report(results, run_dir, run_dir / "validation.pdf")
+        log.info("wrote %s (%d pages), results.json and %d tables", run_dir / "validation.pdf",
+                 n_pages, sum(len(c["statistics"]) for s in results["samples"].values()
+                              for c in s["cuts"].values()))
+        for stage, sec in inp.timings.items():
+            log.info("timing: %s %.1f s", stage, sec)
+        code = exit_code(results["overall"], cfg.verdict.warn_is_failure)
+        return results, code
+    finally:
+        root.removeHandler(handler)
+        handler.close()
+        root.setLevel(prev_level)
+
+
+def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None) -> dict[str, Any]:
+    cfg = inp.cfg
+    text = Path(config_path).read_text(encoding="utf-8") if config_path else resolved_toml(cfg)
+    mask = cfg.resolve_path(cfg.survey.mask) if cfg.effects.footprint else None
+    return {
+        "conecheck_version": __version__, "config_hash": cfg.config_hash, "overall": "warn",
+        "samples": {},
+        "provenance": {
+            "config_text": text, "config_path": str(config_path or cfg.source),
+            "input_files": inp.hashes, "versions": _versions(),
+            "seeds": {"run": cfg.seed}, "date": _dt.datetime.now().isoformat(timespec="seconds"),
+            "command": " ".join(sys.argv[:1] + sys.argv[1:]) if sys.argv else "",
+            "n_cones": cfg.cones.n_cones, "cones_independent": cfg.cones.independent,
+            "independence_note": (INDEPENDENCE_NOTE_INDEPENDENT if cfg.cones.independent
+                                  else INDEPENDENCE_NOTE_SHARED),
+            "box": {"source": cfg.box.source, "box_size": float(inp.box.box_size),
+                    "redshift": float(inp.box.redshift), "n_galaxies": len(inp.box),
+                    "los_axis": cfg.box.los_axis, "rsd": cfg.box.rsd,
+                    "redshift_scatter_kms": cfg.box.redshift_scatter_kms},
+            "survey": {"name": cfg.survey.name, "effects": dataclasses.asdict(cfg.effects),
+                       "correction": cfg.correction.name,
+                       "shell": dataclasses.asdict(cfg.shell)},
+            "randoms_multiple": cfg.randoms.multiple,
+        },
+        "footprint": {"mask_path": str(mask) if mask is not None else None,
+                      "regions_path": "jackknife_regions.npz",
+                      "area_deg2": float(inp.footprint.area_deg2),
+                      "n_regions": int(inp.regions.k), "nside": int(inp.footprint.nside)},
+        "verdict_rules": cfg.verdict.to_dict(),
+    }
+
+
+def print_summary(results: dict[str, Any], run_dir: Path, stream: Any = None) -> None:
+    """The terminal verdict table and where the outputs are."""
+    stream = stream or sys.stdout
+    print(summary_table(results), file=stream)
+    print(f"\nreport: {run_dir / 'validation.pdf'}\nresults: {run_dir / 'results.json'}",
+          file=stream)
+
+
+__all__ = ["INDEPENDENCE_NOTE_SHARED", "TaskCache", "compare_all", "output_dir",
+           "print_summary", "validate"]
