@@ -33,7 +33,7 @@ SUBCOMMANDS: dict[str, tuple[str, str]] = {
     "mask": ("conecheck.footprint.commands", "build, inspect and plot HEALPix footprint masks"),
     "mockbox": ("conecheck.box.commands",
                 "make a galaxy box: populate halos with an HOD, or a synthetic box"),
-    "cones": ("conecheck.cone.commands", "write light-cone mocks and randoms for a config"),
+    "cones": ("conecheck.commands.cones", "write light-cone mocks and randoms for a config"),
 }
 
 log = logging.getLogger("conecheck")

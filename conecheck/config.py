@@ -395,7 +395,10 @@ class RunConfig:
     @property
     def config_hash(self) -> str:
         """SHA-256 of the resolved settings (file contents are hashed separately)."""
-        text = json.dumps(self.to_dict(), sort_keys=True, default=str)
+        d = self.to_dict()
+        d.pop("source", None)
+        d.pop("base_dir", None)
+        text = json.dumps(d, sort_keys=True, default=str)
         return hashlib.sha256(text.encode()).hexdigest()
 
 

@@ -115,7 +115,7 @@ def test_rerender_from_json_reproduces(run, tmp_path):
     shutil.copy(path, other / "results.json")
     again, n = rerender(other)
     assert again == loaded
-    assert n == len(build_pages(results, run_dir)) == _pdf_pages(other / "report.pdf")
+    assert n == len(build_pages(results, run_dir)) == _pdf_pages(other / "validation.pdf")
     assert [s.axes for s in build_pages(loaded, other)] == \
         [s.axes for s in build_pages(results, run_dir)]
 

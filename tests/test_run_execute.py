@@ -295,7 +295,8 @@ def test_cache_put_get_round_trip_and_layout(tmp_path):
     assert c.stats == {"hits": 2, "misses": 2, "corrupt": 0, "writes": 2}
 
 
-@pytest.mark.parametrize("damage", ["npz_byte", "npz_truncated", "json", "npz_missing"])
+@pytest.mark.parametrize("damage", ["npz_byte", "npz_truncated", "npz_replaced", "json",
+                                    "npz_missing"])
 def test_corrupt_entry_is_reported_removed_and_recomputed(tmp_path, caplog, damage):
     c = TaskCache(tmp_path)
     key = task_key("randoms", {"cut": "primary"})
@@ -309,6 +310,9 @@ def test_corrupt_entry_is_reported_removed_and_recomputed(tmp_path, caplog, dama
         npz.write_bytes(bytes(data))
     elif damage == "npz_truncated":
         npz.write_bytes(npz.read_bytes()[:100])
+    elif damage == "npz_replaced":  # a valid archive, but not the one the entry recorded
+        with open(npz, "wb") as f:
+            np.savez(f, a0=np.linspace(0.0, 90.0, 999))
     elif damage == "json":
         meta.write_text(meta.read_text()[:40])
     else:
@@ -463,12 +467,19 @@ def test_quiet_progress_is_silent_but_times(caplog):
 # --------------------------------------------------------------------------- dask
 @pytest.fixture(scope="module")
 def local_cluster():
+    env = dict(os.environ)
     try:
         ex = DaskExecutor("local-cluster", workers=2)
     except InputError as exc:  # no process spawning or loopback sockets on this machine
         pytest.skip(f"distributed cannot start a local cluster here: {exc}")
+    ex.env_unchanged = dict(os.environ) == env
     with ex:
         yield ex
+
+
+def test_local_cluster_leaves_this_process_environment_alone(local_cluster):
+    assert local_cluster.env_unchanged
+    assert "2 worker processes" in local_cluster.describe()
 
 
 def test_local_cluster_matches_in_process_results(local_cluster, tmp_path):
@@ -503,3 +514,35 @@ def test_local_cluster_reports_failures_like_local(local_cluster, tmp_path):
                       func=input_fails, args=("deep",))]
     with pytest.raises(InputError, match="^randoms / cut deep: footprint"):
         local_cluster.run(bad_input, c)
+
+
+def test_connecting_to_a_running_scheduler(local_cluster):
+    address = local_cluster.client.scheduler.address
+    assert address.startswith("tcp://127.0.0.1:")
+    tasks = make_tasks(fail_if, [4, 5], bad=())
+    with make_executor(address, None) as remote:
+        assert isinstance(remote, DaskExecutor) and address in remote.describe()
+        out = remote.run(tasks, None)
+    assert [r.tolist() for r in out] == [[4.0] * 3, [5.0] * 3]
+    # Closing a client of someone else's scheduler leaves that cluster running.
+    assert local_cluster.run(tasks[:1], None)[0].tolist() == [4.0] * 3
+
+
+def test_unreachable_scheduler_is_an_input_error():
+    import socket
+
+    with socket.socket() as s:  # a port nobody listens on
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    with pytest.raises(InputError, match=f"tcp://127.0.0.1:{port}.*cannot connect"):
+        DaskExecutor(f"tcp://127.0.0.1:{port}", connect_timeout=1.0)
+
+
+def test_task_failed_survives_pickling():
+    import pickle
+
+    err = TaskFailed("cone 3 / sample bright / cut primary", "ValueError: boom", 2, 9, "tb",
+                     cached=False)
+    back = pickle.loads(pickle.dumps(err))
+    assert str(back) == str(err) and back.task_label == err.task_label and not back.cached
+    assert "2 of 9 tasks failed" in str(back) and "cached" not in str(back)

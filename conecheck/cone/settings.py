@@ -219,8 +219,18 @@ class CorrectionSettings:
 class EffectSwitches:
     """Switch every survey effect on its own (all on by default).
 
-    ``footprint = False`` means full sky with completeness 1; ``flux_limit = False``
-    ignores ``SurveyShell.m_lim``; ``fibres = False`` gives every target a fibre.
+    Attributes
+    ----------
+    rsd : bool
+        Redshift-space distortions along the radial line of sight (off: z_obs = z_cos).
+    redshift_errors : bool
+        Add the configured redshift errors.
+    footprint : bool
+        Sample the footprint's completeness (off: full sky with completeness 1).
+    flux_limit : bool
+        Apply the apparent-magnitude limit ``survey.shell.m_lim`` (off: ignore it).
+    fibres : bool
+        Emulate fibre collisions (off: every target gets a fibre).
     """
 
     rsd: bool = True

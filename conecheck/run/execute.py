@@ -10,6 +10,7 @@ killed or fails part-way keeps everything already finished and a re-run resumes.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import logging
@@ -18,7 +19,7 @@ import traceback
 import uuid
 import warnings
 from abc import ABC, abstractmethod
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -65,7 +66,7 @@ def task_rng(run_seed: int, *key_parts: int | str) -> np.random.Generator:
             raise TypeError(f"task_rng key parts must be int or str, got "
                             f"{type(p).__name__} {p!r}")
         parts.append(["s", p] if isinstance(p, str) else ["i", str(int(p))])
-    digest = hash(str(parts)).to_bytes(8, "little", signed=True) * 4
+    digest = hashlib.sha256(json.dumps(parts, separators=(",", ":")).encode()).digest()
     words = tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 32, 4))
     return np.random.default_rng(np.random.SeedSequence(int(run_seed), spawn_key=words))
 
@@ -114,21 +115,23 @@ class TaskFailed(ConecheckError):
     """
 
     def __init__(self, task_label: str, error: str, n_failed: int = 1, n_total: int = 1,
-                 details: str = "") -> None:
+                 details: str = "", cached: bool = True) -> None:
         self.task_label = task_label
         self.error = error
         self.n_failed = int(n_failed)
         self.n_total = int(n_total)
         self.details = details
+        self.cached = bool(cached)
         msg = f"task '{task_label}' failed: {error}"
         if self.n_failed > 1:
             msg += f" ({self.n_failed} of {self.n_total} tasks failed; this is the first)"
-        msg += ". Finished tasks are cached; re-running resumes from them."
+        if self.cached:
+            msg += ". Finished tasks are cached; re-running resumes from them."
         super().__init__(msg)
 
     def __reduce__(self):  # keep it intact through pickling (dask, multiprocessing)
         return (type(self), (self.task_label, self.error, self.n_failed, self.n_total,
-                             self.details))
+                             self.details, self.cached))
 
 
 def _error_text(exc: BaseException) -> str:
@@ -226,25 +229,24 @@ class Executor(ABC):
                 progress.finish()
 
         if failures:
-            self._raise_first(tasks, failures, len(unique))
+            self._raise_first(tasks, failures, len(unique), cache is not None)
         return [value[first_of[t.key]] for t in tasks]
 
     @staticmethod
     def _raise_first(tasks: Sequence[Task], failures: dict[int, tuple[BaseException, str]],
-                     n_total: int) -> None:
+                     n_total: int, cached: bool) -> None:
         i = min(failures)
         exc, tb = failures[i]
         label = tasks[i].label
         others = ""
         if len(failures) > 1:
-            others = (f" ({len(failures)} of {n_total} tasks failed; this is the first; "
-                      f"finished tasks are cached)")
+            others = f" ({len(failures)} of {n_total} tasks failed; this is the first)"
         if isinstance(exc, InputError):
             problems = [f"{label}: {p}" for p in exc.problems]
             if others:
                 problems[-1] += others
             raise InputError(f"{label}: {exc}{others}", problems) from exc
-        raise TaskFailed(label, _error_text(exc), len(failures), n_total, tb) from exc
+        raise TaskFailed(label, _error_text(exc), len(failures), n_total, tb, cached) from exc
 
 
 class LocalExecutor(Executor):
@@ -298,10 +300,12 @@ class DaskExecutor(Executor):
         Tasks each worker runs at once.
     retries : int
         How many times dask re-runs a task that raised before reporting the failure.
+    connect_timeout : float
+        Seconds to wait for a remote scheduler to answer.
     """
 
     def __init__(self, address: str, workers: int | None = None, threads_per_worker: int = 1,
-                 retries: int = 2) -> None:
+                 retries: int = 2, connect_timeout: float = 20.0) -> None:
         try:
             import distributed
         except ImportError as exc:  # pragma: no cover - a runtime dependency
@@ -320,7 +324,7 @@ class DaskExecutor(Executor):
             n = workers or 2
             self._numba_threads = max(1, (os.cpu_count() or 1) // (n * threads_per_worker))
             try:
-                with warnings.catch_warnings():
+                with warnings.catch_warnings(), _environ_kept():
                     # The scheduler's HTTP endpoint tries port 8787 even without a
                     # dashboard and warns when another cluster holds it; any port will do.
                     warnings.filterwarnings("ignore", message="Port .* is already in use")
@@ -336,7 +340,7 @@ class DaskExecutor(Executor):
             self._workers = n
         else:
             try:
-                self.client = distributed.Client(address, timeout="20s")
+                self.client = distributed.Client(address, timeout=f"{connect_timeout}s")
             except (OSError, TimeoutError, ValueError) as exc:
                 raise InputError(f"compute.scheduler = {address!r}: cannot connect to a dask "
                                  f"scheduler there ({_error_text(exc)})") from exc
@@ -394,6 +398,23 @@ class DaskExecutor(Executor):
         finally:
             if futures:  # interrupted: stop what is still queued on the cluster
                 self.client.cancel([f for _, f in futures.values()])
+
+
+@contextlib.contextmanager
+def _environ_kept() -> Iterator[None]:
+    """Undo environment changes made while starting workers.
+
+    dask's nanny sets its worker variables (OMP_NUM_THREADS=1, PYTHONHASHSEED, …) in the
+    *parent* process before spawning; they would leak into this process and anything it
+    starts later.
+    """
+    saved = dict(os.environ)
+    try:
+        yield
+    finally:
+        for k in set(os.environ) - set(saved):
+            del os.environ[k]
+        os.environ.update(saved)
 
 
 def _check_count(n: Any, what: str, allow_none: bool = False) -> None:

@@ -155,6 +155,7 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
             "redshift_errors": asdict(c.redshift_errors), "observers": asdict(c.cones.observers),
             "n_cones": c.cones.n_cones, "tag": tag}
     box_ref = inp.executor.share(inp.box)
+    fp_ref, reg_ref = inp.executor.share(inp.footprint), inp.executor.share(inp.regions)
     pieces: list[dict[tuple[str, str], Any]] = []
     piece_keys: list[dict[tuple[str, str], str]] = []
     tasks, task_cones = [], []
@@ -180,12 +181,12 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
             tkey = task_key("cone", {"pieces": sorted(keys[m] for m in missing)})
             tasks.append(Task(key=tkey, label=f"cone {i}" + (f" ({tag})" if tag else ""),
                               func=cone_task,
-                              args=(sub, box_ref, inp.footprint, inp.regions, i, sub_randoms,
+                              args=(sub, box_ref, fp_ref, reg_ref, i, sub_randoms,
                                     eff, corr, tag), kind="cone"))
             task_cones.append(i)
     if tasks:
         results = _run_stage(inp, stage, tasks)
-        for i, r in zip(task_cones, results, strict=True):
+        for i, task, r in zip(task_cones, tasks, results, strict=True):
             for sname, cuts in r["measurements"].items():
                 for label, meas in cuts.items():
                     piece = {"measurements": meas, "nz": r["nz"][sname][label],
@@ -194,6 +195,10 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
                     if cache is not None:
                         cache.put(piece_keys[i][(sname, label)], piece,
                                   label=f"cone {i} / {sname} / {label}", kind="cone-piece")
+            if cache is not None:
+                # the executor kept the whole task so a run killed before this split can
+                # resume; once split into pieces it is redundant
+                cache.remove(task.key)
     else:
         log.info("%s: all %d cones found in the cache", stage, c.cones.n_cones)
     out = []

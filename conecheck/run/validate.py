@@ -57,7 +57,7 @@ Extension = Callable[[RunInputs, dict[str, Any], dict[str, Any]], None]
 
 def output_dir(cfg: RunConfig, out: str | Path | None) -> Path:
     """The run directory (``--out`` wins over ``output.directory``), created if needed."""
-    path = Path(out) if out is not None else Path(cfg.base_dir) / cfg.output.directory
+    path = (Path(out) if out is not None else Path(cfg.base_dir) / cfg.output.directory).resolve()
     if path.exists() and not path.is_dir():
         raise InputError(f"output directory {path} exists and is a file, not a directory "
                          f"(output.directory or --out)")

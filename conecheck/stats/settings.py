@@ -189,8 +189,21 @@ class CicSettings(_CountSettings):
 class AnnuliSettings(_CountSettings):
     """Counts in annuli: distribution of neighbours with r_inner ≤ r_p < r_outer, |π| < H.
 
-    Attributes are those of :class:`CicSettings` with ``r_inner`` and ``r_outer`` [Mpc/h]
-    instead of ``r_cyl``.
+    Attributes
+    ----------
+    r_inner, r_outer : float
+        Inner and outer radius of the annulus [Mpc/h] (r_inner ≤ r_p < r_outer).
+    half_length : float
+        Half-length H of the annular cylinder [Mpc/h] (|π| < H).
+    max_count : int
+        Unit count bins centred on 0 … max_count (ignored when ``count_edges`` is given).
+    count_edges : tuple of float or None
+        Explicit count bin edges.
+    edge_treatment : {"none", "drop"}
+        Cone only: keep every centre, or drop centres whose annulus lies less than
+        ``min_inside_fraction`` inside the survey.
+    min_inside_fraction : float
+        Threshold of the ``drop`` treatment.
     """
 
     r_inner: float = 2.0

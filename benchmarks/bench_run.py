@@ -1,0 +1,645 @@
+"""End-to-end benchmark: a whole ``conecheck run`` against a per-cone recount baseline.
+
+Run with ``python benchmarks/bench_run.py`` (standard workload, roughly half an hour on two
+cores, most of it in the baseline) or ``--quick`` (a smoke run of a few minutes).
+
+Standard workload: the built-in synthetic box (L = 585 Mpc/h, about 10^6 galaxies) in the
+invented Kestrel footprint, shell 0.02 < z < 0.10, 8 cones, the two demo samples (M < −20;
+M < −21 with one alternative "near" cut), randoms at 20 times the expected galaxy count,
+number density + wp + counts-in-cylinders + VPF, 25 jackknife sky regions (5 x 5 box
+columns).
+
+Both sides run in their own process started by this script (so peak memory is each
+side's own ``ru_maxrss``), after a short warm-up process that fills numba's on-disk
+cache of compiled kernels:
+
+* **conecheck**: :func:`conecheck.run.validate.validate` on the configuration, with every
+  output (cache, tables, PDF report).  Its stage times come from the run's provenance.
+* **baseline**: the same cones, built with :func:`conecheck.run.tasks.cone_table` and cut
+  with :func:`conecheck.cone.select_cut`, so its catalogues are identical.  For every cone
+  and cut it draws a fresh random catalogue (same size and generator as conecheck's,
+  :func:`conecheck.cone.make_randoms`) and counts DD, DR and RR afresh with
+  ``Corrfunc.mocks.DDrppi_mocks`` (all cores) when Corrfunc is importable, otherwise with
+  scipy's cKDTree, then forms wp by Landy–Szalay (Landy & Szalay 1993, ApJ 412, 64).  It
+  computes no jackknife for wp.  Number density, counts-in-cylinders and VPF are measured
+  with conecheck's own functions (with jackknife, as in the run), so those parts cost the
+  same on both sides and the ratio measures the pair-count design: randoms and RR shared
+  across cones, split randoms for RR (Keihänen et al. 2019, A&A 631, A73) and the engine.
+
+Ratios reported: (1) *measurement*: baseline (cone builds + every statistic of every cone)
+over conecheck's randoms + cones stages, which do the same work plus delete-one wp for every
+jackknife region; (2) *whole run*: the same baseline time over conecheck's whole run
+(box generation, box statistics, comparison, tables and PDF included).  The script also
+checks that the two sides agree: on one cone and cut, conecheck's wp with the baseline's
+randoms and a full RR equals the baseline's wp to rounding; the run's own wp (other
+randoms, split RR) agrees within a fraction of its jackknife error; the run's number
+density, counts-in-cylinders and VPF of cone 0 equal the baseline's (identical catalogues).
+
+``--scaling`` times conecheck alone for 2, 4 and 8 cones and for two box sizes.
+``--profile`` runs the conecheck side under cProfile and prints where the time goes.
+Results go to benchmarks/RESULTS.md (a section between the bench_run markers) for the
+standard workload, or with ``--write``; no absolute time is asserted anywhere.
+"""
+
+from __future__ import annotations
+
+import argparse
+import copy
+import cProfile
+import dataclasses
+import datetime as dt
+import io
+import json
+import logging
+import os
+import platform
+import pstats
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from conecheck.atomic import write_text_atomic
+from conecheck.config import RunConfig, config_from_dict
+from conecheck.demo import demo_dict
+
+try:
+    from Corrfunc.mocks import DDrppi_mocks
+except ImportError:  # pragma: no cover - optional reference
+    DDrppi_mocks = None
+
+START, END = "<!-- bench_run:start -->", "<!-- bench_run:end -->"
+SCALING_START, SCALING_END = "<!-- bench_run_scaling:start -->", "<!-- bench_run_scaling:end -->"
+
+#: The standard workload (see the module notes); --quick shrinks it.
+STANDARD = {"box_size": 585.0, "z_max": 0.10, "n_cones": 8, "multiple": 20.0,
+            "sky_regions": 25, "box_n_side": 5}
+QUICK = {"box_size": 250.0, "z_max": 0.07, "n_cones": 2, "multiple": 20.0,
+         "sky_regions": 16, "box_n_side": 4,
+         "wp": {"rp_min": 0.5, "rp_max": 10.0, "n_rp": 5, "pi_max": 20.0}}
+#: Statistics of the workload (number density, wp, counts-in-cylinders, VPF).
+MEASURE = ["number_density", "wp", "cic", "vpf"]
+#: Pair-count pieces of the baseline and the statistics it measures with conecheck's code.
+BASELINE_PARTS = ("build", "randoms", "dd", "dr", "rr", "ls", "number_density", "cic", "vpf")
+STAGES = ("inputs", "box", "randoms", "cones", "compare", "report")
+
+
+# --------------------------------------------------------------------------- workload
+def workload(quick: bool, n_cones: int | None = None, box_size: float | None = None,
+             scheduler: str = "local") -> dict[str, Any]:
+    """The benchmark configuration as a TOML-like dictionary (the demo, resized)."""
+    p = dict(QUICK if quick else STANDARD)
+    if n_cones is not None:
+        p["n_cones"] = n_cones
+    if box_size is not None:
+        p["box_size"] = box_size
+    d = copy.deepcopy(demo_dict(False))
+    d["box"]["box_size"] = float(p["box_size"])
+    d["survey"]["shell"]["z_max"] = p["z_max"]
+    for s in d["samples"]:
+        s["z_max"] = min(s["z_max"], p["z_max"])
+        for alt in s.get("alt_cuts", []):
+            alt["z_max"] = min(alt["z_max"], round(p["z_max"] - 0.02, 3))
+    d["statistics"]["measure"] = list(MEASURE)
+    d["statistics"]["wp"].update(p.get("wp", {}))
+    d["jackknife"]["sky_regions"] = int(p["sky_regions"])
+    d["jackknife"]["box_n_side"] = int(p["box_n_side"])
+    d["cones"]["n_cones"] = int(p["n_cones"])
+    d["randoms"]["multiple"] = float(p["multiple"])
+    d["compute"] = {"scheduler": scheduler}
+    d["output"]["cache"] = True
+    return d
+
+
+def warmup_dict() -> dict[str, Any]:
+    """A small run through every kernel the benchmark uses (fills numba's disk cache)."""
+    d = demo_dict(True)
+    d["cones"]["n_cones"] = 1
+    d["statistics"]["measure"] = list(MEASURE)
+    d["compute"] = {"scheduler": "local"}
+    return d
+
+
+def make_config(d: dict[str, Any], base_dir: str | Path) -> RunConfig:
+    return config_from_dict(d, "bench_run", base_dir)
+
+
+def peak_rss_mib() -> float:
+    """This process's peak resident memory [MiB] (Linux reports ru_maxrss in KiB)."""
+    kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return kib / 1024.0 if sys.platform != "darwin" else kib / 2**20
+
+
+def n_threads() -> int:
+    try:
+        import numba
+
+        return int(numba.get_num_threads())
+    except ImportError:  # pragma: no cover - numba is a dependency
+        return os.cpu_count() or 1
+
+
+# --------------------------------------------------------------------------- conecheck side
+def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, Any]:
+    """Run the whole validation; stage times, wall time, memory and cone-0 values."""
+    from conecheck.run.validate import validate
+
+    cfg = make_config(d, work)
+    out = work / "run"
+    prof = cProfile.Profile() if profile else None
+    t0 = time.perf_counter()
+    if prof is not None:
+        prof.enable()
+    results, code = validate(cfg, out, fresh=True, progress=False)
+    if prof is not None:
+        prof.disable()
+    wall = time.perf_counter() - t0
+    cone0: dict[str, Any] = {}
+    for sname, s in results["samples"].items():
+        for label, cut in s["cuts"].items():
+            stats = cut["statistics"]
+            cone0[f"{sname}/{label}"] = {
+                name: {"value": st["cones"][0], "sigma_cone": st["sigma_cone"]}
+                for name, st in stats.items()}
+    prov = results["provenance"]
+    report = {"timings": prov["timings"], "wall": wall, "exit_code": code,
+              "peak_rss_mib": peak_rss_mib(), "n_box": prov["box"]["n_galaxies"],
+              "box_size": prov["box"]["box_size"], "cone0": cone0,
+              "area_deg2": results["footprint"]["area_deg2"], "threads": n_threads()}
+    if prof is not None:
+        report["profile"] = profile_text(prof)
+    return report
+
+
+def profile_text(prof: cProfile.Profile, top: int = 25) -> str:
+    buf = io.StringIO()
+    st = pstats.Stats(prof, stream=buf)
+    st.sort_stats("cumulative").print_stats(top)
+    st.sort_stats("tottime").print_stats(top)
+    return buf.getvalue()
+
+
+# --------------------------------------------------------------------------- baseline counts
+def _unit_pi_to_bins(counts: np.ndarray, n_rp: int, pi_max: float, dpi: float) -> np.ndarray:
+    """Corrfunc's unit-depth |π| bins summed into bins of width ``dpi``."""
+    per = int(round(dpi))
+    return counts.reshape(n_rp, int(round(pi_max)) // per, per).sum(axis=2)
+
+
+def counts_corrfunc(p1: dict[str, np.ndarray], p2: dict[str, np.ndarray] | None,
+                    rp_edges: np.ndarray, pi_max: float, dpi: float,
+                    threads: int) -> np.ndarray:
+    """Weighted pair counts with Corrfunc.mocks.DDrppi_mocks, shape (n_rp, n_pi).
+
+    Auto counts (``p2`` None) are returned as unordered pairs (Corrfunc counts each twice).
+    Weights are passed only when some differ from 1, as a user of the library would.
+    """
+    kw: dict[str, Any] = {"is_comoving_dist": True}
+    weighted = not np.all(p1["w"] == 1.0) or (p2 is not None and not np.all(p2["w"] == 1.0))
+    if weighted:
+        kw["weight_type"] = "pair_product"
+        kw["weights1"] = p1["w"]
+    if p2 is not None:
+        kw.update(RA2=p2["ra"], DEC2=p2["dec"], CZ2=p2["chi"])
+        if weighted:
+            kw["weights2"] = p2["w"]
+    res = DDrppi_mocks(p2 is None, 2, threads, float(pi_max), np.asarray(rp_edges, float),
+                       p1["ra"], p1["dec"], p1["chi"], **kw)
+    n = res["npairs"].astype(np.float64)
+    if weighted:
+        n = n * res["weightavg"]
+    c = _unit_pi_to_bins(n, len(rp_edges) - 1, pi_max, dpi)
+    return c / 2.0 if p2 is None else c
+
+
+def _xyz(p: dict[str, np.ndarray]) -> np.ndarray:
+    ra, dec = np.radians(p["ra"]), np.radians(p["dec"])
+    cd = np.cos(dec)
+    return np.column_stack([p["chi"] * cd * np.cos(ra), p["chi"] * cd * np.sin(ra),
+                            p["chi"] * np.sin(dec)])
+
+
+def counts_kdtree(p1: dict[str, np.ndarray], p2: dict[str, np.ndarray] | None,
+                  rp_edges: np.ndarray, pi_max: float, dpi: float,
+                  chunk: int = 2000) -> np.ndarray:
+    """The same counts with scipy's cKDTree (every pair within the bins' 3-d reach).
+
+    Pairs come from ``sparse_distance_matrix`` in chunks of query points; r_p and π use
+    the line of sight at the pair midpoint, bins closed below, as conecheck and Corrfunc.
+    """
+    from scipy.spatial import cKDTree
+
+    x1 = _xyz(p1)
+    x2 = x1 if p2 is None else _xyz(p2)
+    w1, w2 = p1["w"], (p1 if p2 is None else p2)["w"]
+    tree = cKDTree(x2)
+    r_max = float(np.hypot(rp_edges[-1], pi_max))
+    pi_edges = np.arange(0.0, pi_max + 0.5 * dpi, dpi)
+    out = np.zeros((len(rp_edges) - 1, len(pi_edges) - 1))
+    for a in range(0, len(x1), chunk):
+        sub = cKDTree(x1[a:a + chunk])
+        m = sub.sparse_distance_matrix(tree, r_max, output_type="coo_matrix")
+        i, j = m.row + a, m.col
+        if p2 is None:
+            keep = j > i       # unordered distinct pairs
+            i, j = i[keep], j[keep]
+        s = x1[i] - x2[j]
+        mid = 0.5 * (x1[i] + x2[j])
+        pi = np.abs(np.einsum("ij,ij->i", s, mid)) / np.linalg.norm(mid, axis=1)
+        rp = np.sqrt(np.maximum(np.einsum("ij,ij->i", s, s) - pi * pi, 0.0))
+        h, _, _ = np.histogram2d(rp, pi, bins=(rp_edges, pi_edges), weights=w1[i] * w2[j])
+        out += h
+    return out
+
+
+def landy_szalay_wp(dd: np.ndarray, dr: np.ndarray, rr: np.ndarray, wd: np.ndarray,
+                    wr: np.ndarray, dpi: float) -> np.ndarray:
+    """wp(r_p) = 2 Δπ Σ_π (DD − 2DR + RR)/RR with each count over its weighted pair number."""
+    nd = (wd.sum() ** 2 - (wd**2).sum()) / 2.0
+    nr = (wr.sum() ** 2 - (wr**2).sum()) / 2.0
+    ndr = wd.sum() * wr.sum()
+    rrn = rr / nr
+    xi = (dd / nd - 2.0 * dr / ndr + rrn) / rrn
+    return 2.0 * dpi * xi.sum(axis=1)
+
+
+# --------------------------------------------------------------------------- baseline side
+def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
+    """Per cone and cut: fresh randoms, DD + DR + RR afresh, Landy–Szalay; the other
+    statistics with conecheck's functions.  Returns times, memory, cone-0 values and the
+    exact-agreement check."""
+    from conecheck.cone import make_randoms, n_randoms
+    from conecheck.run.execute import task_rng
+    from conecheck.run.inputs import cosmology_of, load_box, load_footprint, sky_regions
+    from conecheck.run.tasks import (
+        _cone_sample,  # the pipeline's own table → ConeSample (same points dropped)
+        cone_table,
+        cut_distances,
+        expected_count,
+        sample_mask,
+        select_cut,
+    )
+    from conecheck.stats import STATISTICS, ConeGeometry, ConeSample
+    from conecheck.stats.wp import wp_cone
+
+    cfg = make_config(d, work)
+    wps = cfg.statistics.get("wp")
+    bins = wps.bins
+    if abs(bins.pi_max - round(bins.pi_max)) > 1e-9 or abs(bins.dpi - round(bins.dpi)) > 1e-9:
+        raise SystemExit("the baseline needs whole-Mpc/h pi_max and dpi (Corrfunc's unit bins)")
+    threads = n_threads()
+    use_corrfunc = DDrppi_mocks is not None
+    count = ((lambda a, b: counts_corrfunc(a, b, bins.rp_edges, bins.pi_max, bins.dpi, threads))
+             if use_corrfunc else
+             (lambda a, b: counts_kdtree(a, b, bins.rp_edges, bins.pi_max, bins.dpi)))
+
+    t0 = time.perf_counter()
+    box = load_box(cfg)
+    footprint = load_footprint(cfg)
+    regions = sky_regions(cfg, footprint)
+    t_inputs = time.perf_counter() - t0
+    cosmo = cosmology_of(cfg)
+    density = {s.name: float(sample_mask(box, s).sum()) / box.box_size**3 for s in cfg.samples}
+
+    times = dict.fromkeys(BASELINE_PARTS, 0.0)
+    per_cone: list[float] = []
+    cone0: dict[str, Any] = {}
+    exact: dict[str, Any] = {}
+    n_rand: dict[str, int] = {}
+    for i in range(cfg.cones.n_cones):
+        tc = time.perf_counter()
+        t = time.perf_counter()
+        table, _ = cone_table(cfg, box, footprint, i)
+        times["build"] += time.perf_counter() - t
+        for s in cfg.samples:
+            for cut in s.cuts:
+                key = f"{s.name}/{cut.label}"
+                sel = select_cut(table, cut, cfg.shell, cosmo)
+                data = _cone_sample(sel, regions)
+                lo, hi = cut_distances(cfg, cut)
+                geometry = ConeGeometry(footprint, lo, hi, regions)
+
+                t = time.perf_counter()
+                n_r = n_randoms(expected_count(cfg, footprint, cut, density[s.name]),
+                                cfg.randoms.multiple)
+                rt = make_randoms(footprint, lo, hi, n_r,
+                                  task_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label))
+                rand = {"ra": np.ascontiguousarray(rt["ra"], dtype=np.float64),
+                        "dec": np.ascontiguousarray(rt["dec"], dtype=np.float64),
+                        "chi": np.ascontiguousarray(rt["chi_obs"], dtype=np.float64),
+                        "w": np.ascontiguousarray(rt["weight"], dtype=np.float64)}
+                times["randoms"] += time.perf_counter() - t
+                n_rand[key] = n_r
+                gal = {"ra": data.ra, "dec": data.dec, "chi": data.chi, "w": data.w}
+
+                t = time.perf_counter()
+                dd = count(gal, None)
+                times["dd"] += time.perf_counter() - t
+                t = time.perf_counter()
+                dr = count(gal, rand)
+                times["dr"] += time.perf_counter() - t
+                t = time.perf_counter()
+                rr = count(rand, None)
+                times["rr"] += time.perf_counter() - t
+                t = time.perf_counter()
+                wp = landy_szalay_wp(dd, dr, rr, gal["w"], rand["w"], bins.dpi)
+                times["ls"] += time.perf_counter() - t
+
+                values: dict[str, Any] = {"wp": wp.tolist()}
+                for name in cfg.statistics.measure:
+                    if name == "wp":
+                        continue
+                    t = time.perf_counter()
+                    rng = task_rng(cfg.seed, "cone", i, s.name, cut.label, name, "")
+                    m = STATISTICS[name].measure_cone(data, None, geometry,
+                                                      cfg.statistics.get(name), rng, None,
+                                                      jackknife=True)
+                    times[name] += time.perf_counter() - t
+                    values[name] = np.asarray(m.value).tolist()
+                if i == 0:
+                    cone0[key] = values
+                    cone0[key]["n_data"] = len(data)
+                    if not exact or len(data) < exact["n_data"]:
+                        # conecheck's estimator on the very same randoms, full RR, no
+                        # jackknife: must equal the baseline's wp to rounding
+                        rs = ConeSample(rand["ra"], rand["dec"], rand["chi"], rand["w"])
+                        plain = ConeSample(data.ra, data.dec, data.chi, data.weight)
+                        full = dataclasses.replace(wps, rr_method="full")
+                        mine = wp_cone(plain, rs, geometry, full, jackknife=False).value
+                        exact = {"cut": key, "n_data": len(data), "n_randoms": n_r,
+                                 "conecheck": np.asarray(mine).tolist(), "baseline": wp.tolist(),
+                                 "max_rel_diff": float(np.max(np.abs(mine - wp)
+                                                              / np.abs(wp)))}
+                del rand, rt, dd, dr, rr
+        per_cone.append(time.perf_counter() - tc)
+    return {"times": times, "per_cone": per_cone, "inputs": t_inputs,
+            "total": float(sum(times.values())), "peak_rss_mib": peak_rss_mib(),
+            "cone0": cone0, "exact": exact, "n_randoms": n_rand, "threads": threads,
+            "counter": ("Corrfunc.mocks.DDrppi_mocks" if use_corrfunc
+                        else "scipy cKDTree sparse_distance_matrix")}
+
+
+def part_warmup(work: Path) -> dict[str, Any]:
+    from conecheck.run.validate import validate
+
+    t0 = time.perf_counter()
+    validate(make_config(warmup_dict(), work), work / "warmup", fresh=True, progress=False)
+    return {"wall": time.perf_counter() - t0}
+
+
+# --------------------------------------------------------------------------- processes
+def run_part(part: str, d: dict[str, Any], work: Path, profile: bool = False) -> dict[str, Any]:
+    """Run one side in a fresh process (its own peak memory) and read its JSON report."""
+    tag = f"{part}-{time.time_ns()}"
+    spec, result, log = work / f"{tag}.spec.json", work / f"{tag}.json", work / f"{tag}.log"
+    spec.write_text(json.dumps(d))
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--part", part, "--spec", str(spec),
+           "--result", str(result), "--workdir", str(work)]
+    if profile:
+        cmd.append("--profile")
+    with open(log, "w") as fh:
+        proc = subprocess.run(cmd, stdout=fh, stderr=subprocess.STDOUT, check=False)
+    if proc.returncode != 0:
+        print(log.read_text()[-4000:], file=sys.stderr)
+        raise SystemExit(f"{part} process failed (exit {proc.returncode}); log: {log}")
+    return json.loads(result.read_text())
+
+
+def child(args: argparse.Namespace) -> int:
+    logging.basicConfig(level=logging.WARNING, format="%(name)s: %(message)s")
+    work = Path(args.workdir)
+    d = json.loads(Path(args.spec).read_text())
+    if args.part == "conecheck":
+        out = part_conecheck(d, work / f"conecheck-{os.getpid()}", args.profile)
+    elif args.part == "baseline":
+        out = part_baseline(d, work)
+    else:
+        out = part_warmup(work)
+    write_text_atomic(Path(args.result), json.dumps(out))
+    return 0
+
+
+# --------------------------------------------------------------------------- report
+def conecheck_measure_time(c: dict[str, Any]) -> float:
+    return float(c["timings"].get("randoms", 0.0) + c["timings"].get("cones", 0.0))
+
+
+def describe(d: dict[str, Any]) -> str:
+    cuts = sum(1 + len(s.get("alt_cuts", [])) for s in d["samples"])
+    return (f"synthetic box L = {d['box']['box_size']:g} Mpc/h; Kestrel footprint; shell "
+            f"{d['survey']['shell']['z_min']} < z < {d['survey']['shell']['z_max']}; "
+            f"{d['cones']['n_cones']} cones; {len(d['samples'])} samples, {cuts} cuts; randoms "
+            f"{d['randoms']['multiple']:g}x; {' + '.join(d['statistics']['measure'])}; "
+            f"{d['jackknife']['sky_regions']} sky regions ({d['jackknife']['box_n_side']}^2 box "
+            f"columns); wp r_p {d['statistics']['wp']['rp_min']}-{d['statistics']['wp']['rp_max']}"
+            f" Mpc/h in {d['statistics']['wp']['n_rp']} bins, pi_max "
+            f"{d['statistics']['wp']['pi_max']:g}, RR {d['statistics']['wp']['rr_method']}; "
+            f"scheduler {d['compute']['scheduler']}")
+
+
+def comparison_lines(d: dict[str, Any], c: dict[str, Any], b: dict[str, Any],
+                     command: str) -> list[str]:
+    lines: list[str] = []
+    say = lines.append
+    import numba
+
+    say(f"Date {dt.date.today().isoformat()}; machine {platform.machine()}, {os.cpu_count()} "
+        f"cores, numba threads {c['threads']}; Python {platform.python_version()}, numpy "
+        f"{np.__version__}, numba {numba.__version__}"
+        + (", Corrfunc " + _corrfunc_version() if DDrppi_mocks is not None else ""))
+    say(f"Command: `{command}`")
+    say("")
+    say(f"Workload: {describe(d)}. Box: {c['n_box']:,} galaxies.")
+    say("")
+    say("Galaxies and randoms per cone (cone 0):")
+    say("")
+    say("| sample / cut | galaxies | randoms |")
+    say("|---|---|---|")
+    for key, v in b["cone0"].items():
+        say(f"| {key} | {v['n_data']:,} | {b['n_randoms'][key]:,} |")
+    say("")
+    meas = conecheck_measure_time(c)
+    say("| side | what is timed | time [s] | ratio baseline / this |")
+    say("|---|---|---|---|")
+    say(f"| baseline ({b['counter']}, {b['threads']} threads) | cone builds + fresh randoms "
+        f"+ DD, DR, RR per cone and cut + Landy–Szalay (no wp jackknife) + conecheck's number "
+        f"density, cic, VPF (with jackknife) | {b['total']:.1f} | 1.00 |")
+    say(f"| conecheck | randoms + cones stages (shared randoms and RR, split RR, wp, cic, VPF, "
+        f"density, all with {d['jackknife']['sky_regions']}-region jackknife) | {meas:.1f} | "
+        f"**{b['total'] / meas:.2f}** |")
+    say(f"| conecheck | whole run: inputs (box generation), box statistics, randoms, cones, "
+        f"comparison, tables, PDF | {c['wall']:.1f} | **{b['total'] / c['wall']:.2f}** |")
+    say("")
+    say("Baseline time by part [s]: " + ", ".join(f"{k} {v:.1f}" for k, v in b["times"].items())
+        + f"; per cone {np.mean(b['per_cone']):.1f} (min {min(b['per_cone']):.1f}, max "
+        f"{max(b['per_cone']):.1f}); box + footprint + regions (not in the total) "
+        f"{b['inputs']:.1f}.")
+    pair = sum(b["times"][k] for k in ("randoms", "dd", "dr", "rr", "ls"))
+    same = sum(b["times"][k] for k in ("build", "number_density", "cic", "vpf"))
+    say(f"Of the baseline: wp path (randoms, DD, DR, RR, Landy–Szalay) {pair:.1f} s; parts "
+        f"computed by the same code on both sides (cone builds, density, cic, VPF) {same:.1f} s.")
+    say("")
+    say("conecheck stage times [s]: " + ", ".join(
+        f"{k} {c['timings'].get(k, 0.0):.1f}" for k in STAGES)
+        + f"; PDF report {c['wall'] - c['timings'].get('total', c['wall']):.1f}; "
+        f"whole run {c['wall']:.1f}.")
+    say("")
+    say("| peak memory (ru_maxrss of each process) | MiB |")
+    say("|---|---|")
+    say(f"| conecheck run | {c['peak_rss_mib']:.0f} |")
+    say(f"| baseline | {b['peak_rss_mib']:.0f} |")
+    say(f"| box catalogue (positions, velocities, magnitudes as float64) | "
+        f"{c['n_box'] * 7 * 8 / 2**20:.0f} |")
+    say("")
+    ex = b["exact"]
+    say(f"Agreement, same randoms (cone 0, {ex['cut']}: {ex['n_data']:,} galaxies, "
+        f"{ex['n_randoms']:,} randoms): conecheck wp_cone with rr_method 'full' against the "
+        f"baseline's Landy–Szalay wp, largest relative difference {ex['max_rel_diff']:.1e}.")
+    say("")
+    say("Agreement with the run (cone 0; the run used its own shared randoms and split RR): "
+        "largest |Δwp| in units of the cone's jackknife σ, and whether the run's number "
+        "density, cic and VPF equal the baseline's (same catalogue, same seeds):")
+    say("")
+    say("| sample / cut | max abs(Δwp)/σ | density, cic, VPF identical |")
+    say("|---|---|---|")
+    for key, bv in b["cone0"].items():
+        cv = c["cone0"][key]
+        dwp = np.abs(np.asarray(cv["wp"]["value"]) - np.asarray(bv["wp"]))
+        sig = np.asarray(cv["wp"]["sigma_cone"])
+        ident = all(np.allclose(cv[n]["value"], bv[n], rtol=1e-12, atol=0)
+                    for n in ("number_density", "cic", "vpf") if n in bv)
+        say(f"| {key} | {np.max(dwp / sig):.3f} | {ident} |")
+    say("")
+    return lines
+
+
+def _corrfunc_version() -> str:
+    import Corrfunc
+
+    return str(Corrfunc.__version__)
+
+
+def scaling_lines(rows: list[tuple[str, dict[str, Any], dict[str, Any]]],
+                  command: str) -> list[str]:
+    lines = [f"Date {dt.date.today().isoformat()}; {os.cpu_count()} cores; command: "
+             f"`{command}`. conecheck only (the baseline repeats the same work for every "
+             "cone, so its time is linear in the number of cones by construction).", "",
+             "| run | box galaxies | " + " | ".join(STAGES) + " | whole run [s] | "
+             "randoms + cones per cone [s] | peak MiB |",
+             "|---" * (len(STAGES) + 5) + "|"]
+    for label, d, c in rows:
+        t = c["timings"]
+        lines.append(f"| {label} | {c['n_box']:,} | "
+                     + " | ".join(f"{t.get(k, 0.0):.1f}" for k in STAGES)
+                     + f" | {c['wall']:.1f} | "
+                     f"{conecheck_measure_time(c) / d['cones']['n_cones']:.1f} | "
+                     f"{c['peak_rss_mib']:.0f} |")
+    lines.append("")
+    return lines
+
+
+def write_section(start: str, end: str, title: str, lines: list[str]) -> None:
+    path = Path(__file__).with_name("RESULTS.md")
+    block = "\n".join([start, title, "", *lines, end])
+    old = path.read_text() if path.exists() else "# Benchmark results\n"
+    if start in old and end in old:
+        new = old[:old.index(start)] + block + old[old.index(end) + len(end):]
+    else:
+        new = old.rstrip("\n") + "\n\n" + block + "\n"
+    write_text_atomic(path, new)
+    print(f"wrote {path}")
+
+
+# --------------------------------------------------------------------------- main
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--quick", action="store_true", help="small smoke-run workload")
+    parser.add_argument("--cones", type=int, default=None, help="number of cones")
+    parser.add_argument("--box-size", type=float, default=None, help="box side [Mpc/h]")
+    parser.add_argument("--scheduler", default="local", help="compute.scheduler of the run")
+    parser.add_argument("--scaling", action="store_true",
+                        help="conecheck alone for 2, 4, 8 cones and two box sizes")
+    parser.add_argument("--profile", action="store_true",
+                        help="run the conecheck side under cProfile and print the top")
+    parser.add_argument("--no-baseline", action="store_true", help="time conecheck only")
+    parser.add_argument("--write", action="store_true",
+                        help="write RESULTS.md also for --quick or resized runs")
+    parser.add_argument("--no-write", action="store_true", help="never write RESULTS.md")
+    parser.add_argument("--workdir", default=None, help="scratch directory (default: a "
+                        "temporary one, removed at the end)")
+    parser.add_argument("--part", choices=("conecheck", "baseline", "warmup"),
+                        help=argparse.SUPPRESS)
+    parser.add_argument("--spec", help=argparse.SUPPRESS)
+    parser.add_argument("--result", help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    if args.part:
+        return child(args)
+
+    command = "python benchmarks/bench_run.py " + " ".join(argv if argv is not None
+                                                            else sys.argv[1:])
+    command = command.strip()
+    own_dir = args.workdir is None
+    work = Path(tempfile.mkdtemp(prefix="conecheck-bench-") if own_dir else args.workdir)
+    work.mkdir(parents=True, exist_ok=True)
+    default_run = not args.quick and args.cones is None and args.box_size is None
+    write = (default_run or args.write) and not args.no_write
+    try:
+        t0 = time.perf_counter()
+        run_part("warmup", {}, work)
+        print(f"warm-up (numba disk cache): {time.perf_counter() - t0:.1f} s", flush=True)
+        if args.scaling:
+            base = workload(args.quick, None, args.box_size, args.scheduler)
+            big = base["box"]["box_size"]
+            small = round(big / 2 ** (1 / 3))
+            runs = [(f"{n} cones, L = {big:g}", workload(args.quick, n, big, args.scheduler))
+                    for n in (2, 4, 8)]
+            n_big = 8 if args.cones is None else args.cones
+            runs.append((f"{n_big} cones, L = {small:g}",
+                         workload(args.quick, n_big, small, args.scheduler)))
+            rows = []
+            for label, d in runs:
+                c = run_part("conecheck", d, work)
+                rows.append((label, d, c))
+                print(f"{label}: whole run {c['wall']:.1f} s", flush=True)
+            lines = scaling_lines(rows, command)
+            print("\n".join(lines))
+            if (not args.quick or args.write) and not args.no_write:
+                write_section(SCALING_START, SCALING_END,
+                              "## Whole run: scaling with cones and box size "
+                              "(`python benchmarks/bench_run.py --scaling`)", lines)
+            return 0
+
+        d = workload(args.quick, args.cones, args.box_size, args.scheduler)
+        print(f"workload: {describe(d)}", flush=True)
+        c = run_part("conecheck", d, work, profile=args.profile)
+        print(f"conecheck: whole run {c['wall']:.1f} s, randoms + cones "
+              f"{conecheck_measure_time(c):.1f} s", flush=True)
+        if args.profile:
+            print(c["profile"])
+        if args.no_baseline:
+            print(json.dumps({k: c[k] for k in ("timings", "wall", "peak_rss_mib")}, indent=1))
+            return 0
+        if DDrppi_mocks is None:
+            print("Corrfunc is not importable: the baseline counts with scipy's cKDTree "
+                  "(much slower; see DEVELOPERS.md to install Corrfunc)", flush=True)
+        b = run_part("baseline", d, work)
+        lines = comparison_lines(d, c, b, command)
+        print("\n".join(lines))
+        if write:
+            write_section(START, END, "## Whole run against a per-cone recount "
+                          "(`python benchmarks/bench_run.py`)", lines)
+        return 0
+    finally:
+        if own_dir:
+            shutil.rmtree(work, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

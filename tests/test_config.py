@@ -1,0 +1,150 @@
+"""The run configuration: template, validation messages, README reference, `init`/`check`."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from run_helpers import tiny_dict
+
+from conecheck.cli import main
+from conecheck.commands.init import template_text
+from conecheck.config import config_from_dict, load_config, resolved_toml
+from conecheck.config_docs import README_BEGIN, README_END, missing_docs, reference_markdown
+from conecheck.errors import InputError
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _problems(d, tmp_path=".") -> list[str]:
+    with pytest.raises(InputError) as exc:
+        config_from_dict(d, "test.toml", tmp_path)
+    return exc.value.problems
+
+
+def test_template_validates_and_resolved_toml_round_trips(tmp_path):
+    p = tmp_path / "run.toml"
+    p.write_text(template_text())
+    cfg = load_config(p)
+    assert cfg.cones.n_cones == 4 and cfg.samples[1].cuts[1].label == "near"
+    assert cfg.samples[1].cuts[1].mag_max == -21.0  # alternative cuts share the threshold
+    q = tmp_path / "resolved.toml"
+    q.write_text(resolved_toml(cfg))
+    again = load_config(q)
+    assert again.config_hash == cfg.config_hash
+
+
+def test_every_problem_is_reported_with_its_key_path():
+    d = tiny_dict(**{"cosmology.omega_x": 1.0, "statistics.wp.rp_min": "small",
+                     "statistics.vpf.radii": [3.0, -1.0], "statistics.cic.r_cyl": -2.0,
+                     "jackknife.box_layout": "spheres"})
+    d["samples"][0]["z_min"] = 0.06  # above z_max
+    probs = _problems(d)
+    text = "\n".join(probs)
+    assert len(probs) >= 6, probs
+    for needle in ("cosmology.omega_x: unknown key", "statistics.wp.rp_min = 'small'",
+                   "statistics.cic.r_cyl", "jackknife.box_layout = 'spheres'",
+                   "samples[0]", "statistics.vpf.radii"):
+        assert needle in text, (needle, text)
+
+
+def test_pi_max_must_be_a_multiple_of_dpi():
+    probs = _problems(tiny_dict(**{"statistics.wp.pi_max": 20.5}))
+    assert any("statistics.wp" in p and "pi_max" in p for p in probs), probs
+
+
+def test_too_few_jackknife_regions_names_the_minimum():
+    # 10 cic bins need n > p + 2 (Hartlap, Simon & Schneider 2007, A&A 464, 399)
+    d = tiny_dict(**{"statistics.cic.count_edges": list(range(11)),
+                     "jackknife.sky_regions": 8})
+    probs = _problems(d)
+    assert any("jackknife.sky_regions" in p and "at least 13" in p for p in probs), probs
+
+
+def test_cut_outside_shell_and_missing_sample_keys():
+    d = tiny_dict()
+    d["samples"][0]["z_max"] = 0.2
+    assert "outside the survey shell" in "\n".join(_problems(d))
+    d["samples"].append({"mag_max": -21.0})
+    text = "\n".join(_problems(d))
+    assert "samples[1].name: required" in text and "samples[1].z_min: required" in text
+
+
+def test_randoms_disabled_with_wp_is_refused():
+    probs = _problems(tiny_dict(**{"randoms.multiple": 0.0}))
+    assert any(p.startswith("randoms") and "multiple" in p for p in probs), probs
+
+
+def test_wrong_types_and_values():
+    d = tiny_dict(**{"seed": -3, "cones.n_cones": 2.5, "survey.effects.rsd": "yes",
+                     "compute.scheduler": "cluster"})
+    text = "\n".join(_problems(d))
+    for needle in ("seed = -3", "cones.n_cones = 2.5: expected an integer",
+                   "survey.effects.rsd = 'yes': expected true or false",
+                   "compute.scheduler = 'cluster'"):
+        assert needle in text, (needle, text)
+
+
+def test_output_directory_that_is_a_file(tmp_path):
+    (tmp_path / "out").write_text("not a directory")
+    probs = _problems(tiny_dict(**{"output.directory": "out"}), tmp_path)
+    assert any("output.directory" in p and "is a file" in p for p in probs), probs
+
+
+def test_readme_configuration_reference_is_in_step_with_the_schema():
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    m = re.search(re.escape(README_BEGIN) + r"\n(.*?)" + re.escape(README_END), readme, re.S)
+    assert m, "README.md lacks the generated configuration reference markers"
+    assert m.group(1).strip() == reference_markdown().strip(), (
+        "README configuration reference is stale: regenerate with "
+        "python -m conecheck.config_docs")
+    assert missing_docs() == []
+
+
+def test_init_then_check_cli(tmp_path, capsys):
+    p = tmp_path / "c.toml"
+    assert main(["init", str(p)]) == 0
+    assert main(["init", str(p)]) == 2  # refuses to overwrite
+    assert main(["check", str(p)]) == 0
+    out = capsys.readouterr()
+    assert "[survey.fibres]" in out.out and "configuration OK" in out.err
+
+
+def test_check_reports_bad_config_without_traceback(tmp_path, capsys):
+    p = tmp_path / "bad.toml"
+    p.write_text(template_text().replace("n_cones = 4", "n_cones = -1")
+                 .replace('mask = "builtin:kestrel"', 'mask = "missing.fits"'))
+    assert main(["check", str(p)]) == 2
+    err = capsys.readouterr().err
+    assert "cones.n_cones" in err and "Traceback" not in err
+    p.write_text(template_text().replace('mask = "builtin:kestrel"', 'mask = "missing.fits"'))
+    assert main(["check", str(p)]) == 2
+    err = capsys.readouterr().err
+    assert "survey.mask" in err and "missing.fits" in err
+
+
+def test_check_names_a_missing_box_column(tmp_path, capsys):
+    import numpy as np
+    from astropy.table import Table
+
+    t = Table({n: np.random.default_rng(1).uniform(0, 100, 50) for n in
+               ("X", "Y", "Z", "VX", "VY", "VZ", "MAG")})
+    t.write(tmp_path / "box.fits")
+    text = (template_text().replace('source = "synthetic"', 'source = "file"\npath = "box.fits"')
+            .replace('# columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", vz = "VZ",'
+                     ' abs_mag = "M_r" }',
+                     'columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", vz = "VZ",'
+                     ' abs_mag = "M_r" }'))
+    p = tmp_path / "c.toml"
+    p.write_text(text)
+    assert main(["check", str(p)]) == 2
+    err = capsys.readouterr().err
+    assert "M_r" in err and "box.fits" in err
+
+
+def test_not_toml(tmp_path, capsys):
+    p = tmp_path / "x.toml"
+    p.write_text("seed = = 3")
+    assert main(["check", str(p)]) == 2
+    assert "not valid TOML" in capsys.readouterr().err

@@ -1,0 +1,180 @@
+"""The whole validation end to end on tiny invented set-ups.
+
+Checks (issue: validation end to end; scale and resilience):
+* a geometry-only set-up (nothing in the cones the box lacks) never fails, over seeds;
+* planted systematics the box does not model fail: fibre collisions left uncorrected fail wp
+  and the counts in cylinders; redshift errors in the cones only fail the counts in cylinders;
+* outputs: results.json with the documented schema, tables, PDF; `conecheck report`
+  re-renders the same pages and numbers; exit codes 0 / 1 / 2;
+* the task cache: a re-run computes nothing, changing one cut recomputes only that cut, an
+  interrupted run resumes to the same results; a dask LocalCluster gives identical results.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import pytest
+import tomli_w
+from run_helpers import GEOMETRY_ONLY, tiny_dict, verdicts
+
+from conecheck.cli import main
+from conecheck.config import config_from_dict
+from conecheck.report import REQUIRED_STATISTIC_KEYS, summary_table
+from conecheck.run import pipeline
+from conecheck.run.execute import TaskFailed
+from conecheck.run.validate import validate
+
+
+def _run(d, out, **kw):
+    return validate(config_from_dict(d, "test", out.parent), out, progress=False, **kw)
+
+
+def _numbers(results):
+    """Everything measured (provenance and timings left out)."""
+    return json.dumps(results["samples"], sort_keys=True)
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "run"
+    code = main(["demo", "--quick", "--out", str(out), "-q"])
+    return out, code
+
+
+def test_quick_demo_writes_every_output(demo_run):
+    out, code = demo_run
+    assert code == 0
+    for name in ("results.json", "validation.pdf", "config.resolved.toml", "run.log",
+                 "jackknife_regions.npz"):
+        assert (out / name).is_file(), name
+    res = json.loads((out / "results.json").read_text())
+    assert res["overall"] in ("pass", "warn", "fail")
+    assert set(res["samples"]) == {"M20", "M21"}
+    assert set(res["samples"]["M21"]["cuts"]) == {"primary", "near"}
+    n_stats = 0
+    for sample in res["samples"].values():
+        for cut in sample["cuts"].values():
+            for stat, d in cut["statistics"].items():
+                n_stats += 1
+                missing = [k for k in REQUIRED_STATISTIC_KEYS if k not in d]
+                assert not missing, (stat, missing)
+                assert len(d["cones"]) == 2 and len(d["box"]) == len(d["bins"])
+    assert n_stats == 12
+    assert len(list((out / "tables").glob("*.ecsv"))) == n_stats
+    assert "timing: cones" in (out / "run.log").read_text()
+    assert res["provenance"]["n_cones"] == 2 and len(res["provenance"]["replicas_per_cone"]) == 2
+
+
+def test_report_rerenders_from_results(demo_run, tmp_path, capsys):
+    out, _ = demo_run
+    before = json.loads((out / "results.json").read_text())
+    pdf = tmp_path / "again.pdf"
+    assert main(["report", str(out), "-o", str(pdf)]) == 0
+    text = capsys.readouterr().out
+    assert _pdf_pages(pdf) == _pdf_pages(out / "validation.pdf") > 5
+    assert summary_table(before) in text
+
+
+def _pdf_pages(path: Path) -> int:
+    """Pages of a matplotlib-written PDF (its page objects are uncompressed)."""
+    return len(re.findall(rb"/Type\s*/Page\b", path.read_bytes()))
+
+
+def test_rerun_hits_the_cache_and_reproduces(demo_run, capsys):
+    out, _ = demo_run
+    before = json.loads((out / "results.json").read_text())
+    assert main(["demo", "--quick", "--out", str(out), "-q"]) == 0
+    after = json.loads((out / "results.json").read_text())
+    assert _numbers(after) == _numbers(before)
+    stats = after["provenance"]["cache"]
+    assert stats["writes"] == 0 and stats["hits"] > 0
+
+
+@pytest.mark.parametrize("seed", [11, 12, 13])
+def test_null_setup_never_fails(tmp_path, seed):
+    """Nothing in the cones that the box lacks: no statistic may fail (warns allowed)."""
+    res, code = _run(tiny_dict(seed=seed, **GEOMETRY_ONLY), tmp_path / "run")
+    v = verdicts(res)
+    fails = [k for k, x in v.items() if x == "fail"]
+    print(f"seed {seed}: false-fail fraction {len(fails)}/{len(v)}; verdicts {v}")
+    assert not fails and code == 0
+
+
+def test_uncorrected_fibre_collisions_fail_wp_and_cic(tmp_path):
+    # a wide collision angle (600″) so that the lost pairs reach the first r_p bin of this
+    # tiny set-up; the overlap second pass is switched off and no correction is applied
+    d = tiny_dict(seed=5, **{**GEOMETRY_ONLY, "survey.effects.fibres": True,
+                             "survey.fibres.angle_arcsec": 600.0,
+                             "survey.fibres.overlap_map": None,
+                             "survey.fibres.overlap_fraction": 0.0,
+                             "survey.correction.name": "none"})
+    res, code = _run(d, tmp_path / "run")
+    stats = res["samples"]["M20"]["cuts"]["primary"]["statistics"]
+    assert stats["wp"]["verdict"] == "fail" and stats["cic"]["verdict"] == "fail"
+    assert stats["wp"]["offset"][0] < 0  # pairs are lost at small r_p
+    assert code == 1
+
+
+def test_redshift_errors_missing_from_the_box_fail_cic(tmp_path):
+    # 1500 km/s ≈ 15 Mpc/h along the line of sight, larger than the cylinders' 10 Mpc/h
+    # half-length: neighbours scatter out of the cylinders in the cones but not in the box
+    d = tiny_dict(seed=6, **{**GEOMETRY_ONLY, "survey.effects.redshift_errors": True,
+                             "survey.redshift_errors.sigma_v_kms": 1500.0})
+    cfg_path = tmp_path / "c.toml"
+    d["output"]["directory"] = "run"
+    cfg_path.write_text(tomli_w.dumps(d))
+    assert main(["run", str(cfg_path), "-q"]) == 1
+    res = json.loads((tmp_path / "run" / "results.json").read_text())
+    assert res["samples"]["M20"]["cuts"]["primary"]["statistics"]["cic"]["verdict"] == "fail"
+
+
+def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
+    d = tiny_dict(one_sample=False, seed=3)
+    _run(d, tmp_path / "run")
+    d["samples"][1]["alt_cuts"][0]["z_max"] = 0.04
+    res, _ = _run(d, tmp_path / "run")
+    stats = res["provenance"]["cache"]
+    # read back: the 2 box tasks, the 2 unchanged randoms and 2 cones × 2 unchanged pieces
+    assert stats["hits"] == 2 + 2 + 4, stats
+    # computed: the changed cut's randoms, and per cone its piece plus the transient
+    # whole-task entry that lets a run killed mid-stage resume (removed once split)
+    assert stats["writes"] == 1 + 2 * 2, stats
+
+
+def test_interrupted_run_resumes_to_the_same_results(tmp_path, monkeypatch):
+    d = tiny_dict(seed=4)
+    ref, _ = _run(d, tmp_path / "ref")
+    real = pipeline.cone_task
+
+    def flaky(cfg, box, footprint, regions, index, *args, **kw):
+        if index == 1:
+            raise RuntimeError("worker lost")
+        return real(cfg, box, footprint, regions, index, *args, **kw)
+
+    monkeypatch.setattr(pipeline, "cone_task", flaky)
+    with pytest.raises(TaskFailed, match="cone 1"):
+        _run(d, tmp_path / "run")
+    monkeypatch.setattr(pipeline, "cone_task", real)
+    res, _ = _run(d, tmp_path / "run")
+    # cone 0 finished before the failure: its whole-task entry is read back and split into
+    # its piece (1 write); only cone 1 is computed (its whole-task entry and its piece)
+    stats = res["provenance"]["cache"]
+    assert stats["writes"] == 3 and stats["hits"] >= 3, stats
+    assert _numbers(res) == _numbers(ref)
+
+
+def test_local_cluster_gives_identical_results(tmp_path):
+    pytest.importorskip("distributed")
+    d = tiny_dict(seed=8)
+    local, _ = _run(d, tmp_path / "local")
+    dask, _ = _run(d, tmp_path / "dask", scheduler="local-cluster", workers=2)
+    assert _numbers(dask) == _numbers(local)
+
+
+def test_output_directory_that_is_a_file_exits_2(tmp_path, capsys):
+    (tmp_path / "out").write_text("x")
+    assert main(["demo", "--quick", "--out", str(tmp_path / "out")]) == 2
+    assert "is a file" in capsys.readouterr().err
