@@ -67,14 +67,7 @@ def attribute_docs(cls: type) -> dict[str, str]:
             continue
         lines = m.group(1).splitlines()
         indent = None
-        current: list[str] = []
-        desc: list[str] = []
-
-        def flush() -> None:
-            sentence = " ".join(desc).strip()
-            for n in current:
-                if sentence:
-                    docs[n] = sentence
+        entries: list[tuple[list[str], list[str]]] = []
         for line in lines:
             if not line.strip():
                 continue
@@ -82,12 +75,14 @@ def attribute_docs(cls: type) -> dict[str, str]:
             if indent is None:
                 indent = ind
             if ind == indent and " : " in line:
-                flush()
-                current = [n.strip() for n in line.split(" : ")[0].split(",")]
-                desc = []
-            elif ind > (indent or 0):
-                desc.append(line.strip())
-        flush()
+                entries.append(([n.strip() for n in line.split(" : ")[0].split(",")], []))
+            elif ind > indent and entries:
+                entries[-1][1].append(line.strip())
+        for names, desc in entries:
+            sentence = " ".join(desc).strip()
+            for n in names:
+                if sentence:
+                    docs[n] = sentence
     return docs
 
 

@@ -19,8 +19,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from .config import RunConfig, config_from_dict
 from .commands.init import template_text
+from .config import RunConfig, config_from_dict
 
 if sys.version_info >= (3, 11):
     import tomllib

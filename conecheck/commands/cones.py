@@ -15,8 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..config import load_config
 from ..cone import make_randoms, n_randoms
+from ..config import load_config
 
 log = logging.getLogger(__name__)
 
