@@ -64,15 +64,15 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     if _has_fractions(fib):
         ax = page.axes(x0 + 0.6, top + 0.45, w * 0.62 - 0.85, height - 0.95,
                        f"fibres:{sname}")
-        for vals, colour, marker, label in ((coll, st.CONE, "o", "collided fraction"),
-                                            (rec, st.BOX, "s", "recovered fraction")):
+        for vals, colour, marker, label in ((coll, st.CONE, "o", "collided (of targets)"),
+                                            (rec, st.BOX, "s", "recovered (of collided)")):
             if vals.size:
                 idx = np.arange(vals.size)
                 ax.plot(idx, 100 * vals, marker=marker, ls="none", ms=4, color=colour,
                         label=label)
                 ax.axhline(100 * np.nanmean(vals), color=colour, lw=0.8, ls="--")
         ax.set_xlabel("cone")
-        ax.set_ylabel("fraction of targets [%]")
+        ax.set_ylabel("fraction [%]")
         ax.set_ylim(bottom=0)
         ymax = ax.get_ylim()[1]
         ax.set_ylim(0, ymax * 1.3)
@@ -88,7 +88,8 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
                      f"{ac.fmt_pct(np.nanmin(coll))}–{ac.fmt_pct(np.nanmax(coll))} over "
                      f"{coll.size} cones")
     if rec.size:
-        lines.append(f"recovered: {ac.fmt_pct(np.nanmean(rec))} mean")
+        lines.append(f"recovered in tile overlaps: {ac.fmt_pct(np.nanmean(rec))} of the "
+                     f"collided targets (mean)")
     eff = _effect_lines(fib.get("uncorrected_effect"))
     if eff:
         lines.append("")
