@@ -130,9 +130,10 @@ def make_config(d: dict[str, Any], base_dir: str | Path) -> RunConfig:
     return config_from_dict(d, "bench_run", base_dir)
 
 
-def peak_rss_mib() -> float:
-    """This process's peak resident memory [MiB] (Linux reports ru_maxrss in KiB)."""
-    kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+def peak_rss_mib(who: int = resource.RUSAGE_SELF) -> float:
+    """Peak resident memory [MiB] of this process, or of its largest finished child
+    (``RUSAGE_CHILDREN``: the dask workers of a local cluster).  Linux reports KiB."""
+    kib = resource.getrusage(who).ru_maxrss
     return kib / 1024.0 if sys.platform != "darwin" else kib / 2**20
 
 
@@ -169,7 +170,9 @@ def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, An
                 for name, st in stats.items()}
     prov = results["provenance"]
     report = {"timings": prov["timings"], "wall": wall, "exit_code": code,
-              "peak_rss_mib": peak_rss_mib(), "n_box": prov["box"]["n_galaxies"],
+              "peak_rss_mib": peak_rss_mib(),
+              "peak_rss_worker_mib": peak_rss_mib(resource.RUSAGE_CHILDREN),
+              "n_box": prov["box"]["n_galaxies"],
               "box_size": prov["box"]["box_size"], "cone0": cone0,
               "area_deg2": results["footprint"]["area_deg2"], "threads": n_threads()}
     if prof is not None:
@@ -307,6 +310,10 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     cosmo = cosmology_of(cfg)
     density = {s.name: float(sample_mask(box, s).sum()) / box.box_size**3 for s in cfg.samples}
 
+    # the exact check runs conecheck's full RR: on the cut with the fewest randoms only
+    smallest = min(((s, c) for s in cfg.samples for c in s.cuts),
+                   key=lambda sc: expected_count(cfg, footprint, sc[1], density[sc[0].name]))
+    exact_key = f"{smallest[0].name}/{smallest[1].label}"
     times = dict.fromkeys(BASELINE_PARTS, 0.0)
     per_cone: list[float] = []
     cone0: dict[str, Any] = {}
@@ -365,7 +372,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
                 if i == 0:
                     cone0[key] = values
                     cone0[key]["n_data"] = len(data)
-                    if not exact or len(data) < exact["n_data"]:
+                if i == 0 and key == exact_key:
                         # conecheck's estimator on the very same randoms, full RR, no
                         # jackknife: must equal the baseline's wp to rounding
                         rs = ConeSample(rand["ra"], rand["dec"], rand["chi"], rand["w"])

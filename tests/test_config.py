@@ -148,3 +148,89 @@ def test_not_toml(tmp_path, capsys):
     p.write_text("seed = = 3")
     assert main(["check", str(p)]) == 2
     assert "not valid TOML" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------------ bad box catalogues
+def _box_config(tmp_path, box_name: str, columns: str = "") -> Path:
+    cols = columns or ('columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", '
+                       'vz = "VZ", abs_mag = "MAG" }')
+    text = (template_text()
+            .replace('source = "synthetic"', f'source = "file"\npath = "{box_name}"\n{cols}')
+            .replace("box_size = 250.0", "box_size = 100.0"))
+    p = tmp_path / "c.toml"
+    p.write_text(text)
+    return p
+
+
+def _write_box(path, n=200, seed=1, **overrides):
+    import numpy as np
+    from astropy.table import Table
+
+    rng = np.random.default_rng(seed)
+    cols = {"X": rng.uniform(0, 100, n), "Y": rng.uniform(0, 100, n),
+            "Z": rng.uniform(0, 100, n), "VX": rng.normal(0, 300, n),
+            "VY": rng.normal(0, 300, n), "VZ": rng.normal(0, 300, n),
+            "MAG": rng.uniform(-22, -19, n)}
+    cols.update(overrides)
+    Table(cols).write(path, overwrite=True)
+
+
+@pytest.mark.parametrize("case, needle", [
+    ("good", None),
+    ("missing_file", "not found"),
+    ("garbage", "box.fits"),
+    ("wrong_format", "box.txt"),
+    ("nan", "NaN/inf"),
+    ("outside", "outside"),
+    ("units", "units"),
+])
+def test_bad_box_catalogues_exit_2_with_a_readable_message(tmp_path, capsys, case, needle):
+    import numpy as np
+
+    name = "box.txt" if case == "wrong_format" else "box.fits"
+    if case == "good":
+        _write_box(tmp_path / name)
+    elif case == "garbage":
+        (tmp_path / name).write_bytes(b"this is not a FITS file" * 10)
+    elif case == "wrong_format":
+        (tmp_path / name).write_text("1 2 3\n")
+    elif case == "nan":
+        x = np.random.default_rng(2).uniform(0, 100, 200)
+        x[7] = np.nan
+        _write_box(tmp_path / name, X=x)
+    elif case == "outside":
+        x = np.random.default_rng(2).uniform(0, 100, 200)
+        x[3] = 140.0
+        _write_box(tmp_path / name, X=x)
+    elif case == "units":  # positions in units of the box side, not Mpc/h
+        rng = np.random.default_rng(3)
+        _write_box(tmp_path / name, X=rng.uniform(0, 1, 200), Y=rng.uniform(0, 1, 200),
+                   Z=rng.uniform(0, 1, 200))
+    code = main(["check", str(_box_config(tmp_path, name))])
+    err = capsys.readouterr().err
+    if needle is None:
+        assert code == 0, err
+        return
+    assert code == 2, err
+    assert needle in err and "Traceback" not in err, err
+
+
+def test_every_toml_example_in_the_readme_parses():
+    import sys
+
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover
+        import tomli as tomllib
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"```toml\n(.*?)```", readme, re.S)
+    assert blocks, "README.md has no TOML example"
+    for block in blocks:
+        example = tomllib.loads(block)
+        base = tomllib.loads(template_text())
+        for key, value in example.items():
+            if isinstance(value, dict) and isinstance(base.get(key), dict):
+                base[key].update(value)
+            else:
+                base[key] = value
+        config_from_dict(base, "README example")  # schema only: the files are examples

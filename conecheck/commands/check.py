@@ -11,11 +11,12 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ..box import read_halo_catalog
 from ..catalog import read_table
 from ..cone import volume_limit_zmax
 from ..config import config_warnings, load_config, resolved_toml
 from ..errors import InputError
-from ..run.inputs import cosmology_of, input_files, load_footprint
+from ..run.inputs import cosmology_of, input_files, load_box, load_footprint
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -26,6 +27,7 @@ def main(args: argparse.Namespace) -> int:
     cfg = load_config(args.config)
     files = input_files(cfg)
     fp = load_footprint(cfg)
+    box_note = "synthetic (built at run time)"
     if cfg.box.source in ("file", "halos"):
         table = read_table(files["box.path"])
         missing = [f"{k} -> '{v}'" for k, v in cfg.box.columns.items()
@@ -33,8 +35,17 @@ def main(args: argparse.Namespace) -> int:
         if missing:
             raise InputError(f"{files['box.path']}: mapped column(s) not found: "
                              f"{', '.join(missing)}; available: {', '.join(table.colnames)}")
+        if cfg.box.source == "file":
+            # every check the run makes: dtypes, NaN/inf, positions inside [0, L), units
+            box = load_box(cfg)
+            box_note = f"{len(box)} galaxies, L = {box.box_size:g} Mpc/h, z = {box.redshift:g}"
+        else:
+            halos = read_halo_catalog(files["box.path"], cfg.box.columns or None,
+                                      cfg.box.box_size, cfg.box.redshift)
+            box_note = f"{len(halos)} halos (populated with the HOD at run time)"
     print(resolved_toml(cfg))
     out = sys.stderr
+    print(f"# box: {box_note}", file=out)
     print(f"# footprint: {fp.area_deg2:.1f} deg² effective area (N_side {fp.nside})", file=out)
     for key, path in files.items():
         print(f"# {key}: {path}", file=out)
