@@ -373,16 +373,15 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
                     cone0[key] = values
                     cone0[key]["n_data"] = len(data)
                 if i == 0 and key == exact_key:
-                        # conecheck's estimator on the very same randoms, full RR, no
-                        # jackknife: must equal the baseline's wp to rounding
-                        rs = ConeSample(rand["ra"], rand["dec"], rand["chi"], rand["w"])
-                        plain = ConeSample(data.ra, data.dec, data.chi, data.weight)
-                        full = dataclasses.replace(wps, rr_method="full")
-                        mine = wp_cone(plain, rs, geometry, full, jackknife=False).value
-                        exact = {"cut": key, "n_data": len(data), "n_randoms": n_r,
-                                 "conecheck": np.asarray(mine).tolist(), "baseline": wp.tolist(),
-                                 "max_rel_diff": float(np.max(np.abs(mine - wp)
-                                                              / np.abs(wp)))}
+                    # conecheck's estimator on the very same randoms, full RR, no jackknife:
+                    # must equal the baseline's wp to rounding
+                    rs = ConeSample(rand["ra"], rand["dec"], rand["chi"], rand["w"])
+                    plain = ConeSample(data.ra, data.dec, data.chi, data.weight)
+                    full = dataclasses.replace(wps, rr_method="full")
+                    mine = wp_cone(plain, rs, geometry, full, jackknife=False).value
+                    exact = {"cut": key, "n_data": len(data), "n_randoms": n_r,
+                             "conecheck": np.asarray(mine).tolist(), "baseline": wp.tolist(),
+                             "max_rel_diff": float(np.max(np.abs(mine - wp) / np.abs(wp)))}
                 del rand, rt, dd, dr, rr
         per_cone.append(time.perf_counter() - tc)
     return {"times": times, "per_cone": per_cone, "inputs": t_inputs,
@@ -450,8 +449,10 @@ def describe(d: dict[str, Any]) -> str:
             f"scheduler {d['compute']['scheduler']}")
 
 
-def comparison_lines(d: dict[str, Any], c: dict[str, Any], b: dict[str, Any],
+def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict[str, Any],
                      command: str) -> list[str]:
+    """The markdown report: ``runs`` maps each scheduler to its conecheck report."""
+    c = next(iter(runs.values()))
     lines: list[str] = []
     say = lines.append
     import numba
@@ -471,17 +472,19 @@ def comparison_lines(d: dict[str, Any], c: dict[str, Any], b: dict[str, Any],
     for key, v in b["cone0"].items():
         say(f"| {key} | {v['n_data']:,} | {b['n_randoms'][key]:,} |")
     say("")
-    meas = conecheck_measure_time(c)
     say("| side | what is timed | time [s] | ratio baseline / this |")
     say("|---|---|---|---|")
-    say(f"| baseline ({b['counter']}, {b['threads']} threads) | cone builds + fresh randoms "
-        f"+ DD, DR, RR per cone and cut + Landy–Szalay (no wp jackknife) + conecheck's number "
-        f"density, cic, VPF (with jackknife) | {b['total']:.1f} | 1.00 |")
-    say(f"| conecheck | randoms + cones stages (shared randoms and RR, split RR, wp, cic, VPF, "
-        f"density, all with {d['jackknife']['sky_regions']}-region jackknife) | {meas:.1f} | "
-        f"**{b['total'] / meas:.2f}** |")
-    say(f"| conecheck | whole run: inputs (box generation), box statistics, randoms, cones, "
-        f"comparison, tables, PDF | {c['wall']:.1f} | **{b['total'] / c['wall']:.2f}** |")
+    say(f"| baseline ({b['counter']}, {b['threads']} threads, one process) | cone builds + "
+        f"fresh randoms + DD, DR, RR per cone and cut + Landy–Szalay (no wp jackknife) + "
+        f"conecheck's number density, cic, VPF (with jackknife) | {b['total']:.1f} | 1.00 |")
+    for sched, cr in runs.items():
+        meas = conecheck_measure_time(cr)
+        say(f"| conecheck, scheduler {sched} | randoms + cones stages (shared randoms and RR, "
+            f"split RR, wp, cic, VPF, density, all with {d['jackknife']['sky_regions']}-region "
+            f"jackknife) | {meas:.1f} | **{b['total'] / meas:.2f}** |")
+        say(f"| conecheck, scheduler {sched} | whole run: inputs (box generation), box "
+            f"statistics, randoms, cones, comparison, tables, PDF | {cr['wall']:.1f} | "
+            f"**{b['total'] / cr['wall']:.2f}** |")
     say("")
     say("Baseline time by part [s]: " + ", ".join(f"{k} {v:.1f}" for k, v in b["times"].items())
         + f"; per cone {np.mean(b['per_cone']):.1f} (min {min(b['per_cone']):.1f}, max "
@@ -492,14 +495,19 @@ def comparison_lines(d: dict[str, Any], c: dict[str, Any], b: dict[str, Any],
     say(f"Of the baseline: wp path (randoms, DD, DR, RR, Landy–Szalay) {pair:.1f} s; parts "
         f"computed by the same code on both sides (cone builds, density, cic, VPF) {same:.1f} s.")
     say("")
-    say("conecheck stage times [s]: " + ", ".join(
-        f"{k} {c['timings'].get(k, 0.0):.1f}" for k in STAGES)
-        + f"; PDF report {c['wall'] - c['timings'].get('total', c['wall']):.1f}; "
-        f"whole run {c['wall']:.1f}.")
-    say("")
-    say("| peak memory (ru_maxrss of each process) | MiB |")
+    for sched, cr in runs.items():
+        say(f"conecheck stage times, scheduler {sched} [s]: " + ", ".join(
+            f"{k} {cr['timings'].get(k, 0.0):.1f}" for k in STAGES)
+            + f"; PDF report {cr['wall'] - cr['timings'].get('total', cr['wall']):.1f}; "
+            f"whole run {cr['wall']:.1f}.")
+        say("")
+    say("| peak memory (ru_maxrss) | MiB |")
     say("|---|---|")
-    say(f"| conecheck run | {c['peak_rss_mib']:.0f} |")
+    for sched, cr in runs.items():
+        say(f"| conecheck run, scheduler {sched}: main process | {cr['peak_rss_mib']:.0f} |")
+        if cr.get("peak_rss_worker_mib"):
+            say(f"| conecheck run, scheduler {sched}: largest worker process | "
+                f"{cr['peak_rss_worker_mib']:.0f} |")
     say(f"| baseline | {b['peak_rss_mib']:.0f} |")
     say(f"| box catalogue (positions, velocities, magnitudes as float64) | "
         f"{c['n_box'] * 7 * 8 / 2**20:.0f} |")
@@ -509,7 +517,8 @@ def comparison_lines(d: dict[str, Any], c: dict[str, Any], b: dict[str, Any],
         f"{ex['n_randoms']:,} randoms): conecheck wp_cone with rr_method 'full' against the "
         f"baseline's Landy–Szalay wp, largest relative difference {ex['max_rel_diff']:.1e}.")
     say("")
-    say("Agreement with the run (cone 0; the run used its own shared randoms and split RR): "
+    say(f"Agreement with the run (scheduler {next(iter(runs))}; cone 0; the run used its own "
+        "shared randoms and split RR): "
         "largest |Δwp| in units of the cone's jackknife σ, and whether the run's number "
         "density, cic and VPF equal the baseline's (same catalogue, same seeds):")
     say("")
@@ -570,7 +579,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="small smoke-run workload")
     parser.add_argument("--cones", type=int, default=None, help="number of cones")
     parser.add_argument("--box-size", type=float, default=None, help="box side [Mpc/h]")
-    parser.add_argument("--scheduler", default="local", help="compute.scheduler of the run")
+    parser.add_argument("--scheduler", default="local,local-cluster",
+                        help="compute.scheduler of the conecheck run; a comma-separated list "
+                        "runs it once per scheduler (--scaling uses the first)")
     parser.add_argument("--scaling", action="store_true",
                         help="conecheck alone for 2, 4, 8 cones and two box sizes")
     parser.add_argument("--profile", action="store_true",
@@ -595,6 +606,7 @@ def main(argv: list[str] | None = None) -> int:
     own_dir = args.workdir is None
     work = Path(tempfile.mkdtemp(prefix="conecheck-bench-") if own_dir else args.workdir)
     work.mkdir(parents=True, exist_ok=True)
+    schedulers = [x.strip() for x in args.scheduler.split(",") if x.strip()]
     default_run = not args.quick and args.cones is None and args.box_size is None
     write = (default_run or args.write) and not args.no_write
     try:
@@ -602,14 +614,15 @@ def main(argv: list[str] | None = None) -> int:
         run_part("warmup", {}, work)
         print(f"warm-up (numba disk cache): {time.perf_counter() - t0:.1f} s", flush=True)
         if args.scaling:
-            base = workload(args.quick, None, args.box_size, args.scheduler)
+            sched = schedulers[0]
+            base = workload(args.quick, None, args.box_size, sched)
             big = base["box"]["box_size"]
             small = round(big / 2 ** (1 / 3))
-            runs = [(f"{n} cones, L = {big:g}", workload(args.quick, n, big, args.scheduler))
+            runs = [(f"{n} cones, L = {big:g}", workload(args.quick, n, big, sched))
                     for n in (2, 4, 8)]
             n_big = 8 if args.cones is None else args.cones
             runs.append((f"{n_big} cones, L = {small:g}",
-                         workload(args.quick, n_big, small, args.scheduler)))
+                         workload(args.quick, n_big, small, sched)))
             rows = []
             for label, d in runs:
                 c = run_part("conecheck", d, work)
@@ -623,21 +636,26 @@ def main(argv: list[str] | None = None) -> int:
                               "(`python benchmarks/bench_run.py --scaling`)", lines)
             return 0
 
-        d = workload(args.quick, args.cones, args.box_size, args.scheduler)
-        print(f"workload: {describe(d)}", flush=True)
-        c = run_part("conecheck", d, work, profile=args.profile)
-        print(f"conecheck: whole run {c['wall']:.1f} s, randoms + cones "
-              f"{conecheck_measure_time(c):.1f} s", flush=True)
-        if args.profile:
-            print(c["profile"])
+        runs: dict[str, dict[str, Any]] = {}
+        for sched in schedulers:
+            d = workload(args.quick, args.cones, args.box_size, sched)
+            print(f"workload: {describe(d)}", flush=True)
+            c = run_part("conecheck", d, work, profile=args.profile)
+            runs[sched] = c
+            print(f"conecheck ({sched}): whole run {c['wall']:.1f} s, randoms + cones "
+                  f"{conecheck_measure_time(c):.1f} s", flush=True)
+            if args.profile:
+                print(c["profile"])
         if args.no_baseline:
-            print(json.dumps({k: c[k] for k in ("timings", "wall", "peak_rss_mib")}, indent=1))
+            print(json.dumps({s: {k: c[k] for k in ("timings", "wall", "peak_rss_mib",
+                                                    "peak_rss_worker_mib")}
+                              for s, c in runs.items()}, indent=1))
             return 0
         if DDrppi_mocks is None:
             print("Corrfunc is not importable: the baseline counts with scipy's cKDTree "
                   "(much slower; see DEVELOPERS.md to install Corrfunc)", flush=True)
         b = run_part("baseline", d, work)
-        lines = comparison_lines(d, c, b, command)
+        lines = comparison_lines(d, runs, b, command)
         print("\n".join(lines))
         if write:
             write_section(START, END, "## Whole run against a per-cone recount "

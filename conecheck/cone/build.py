@@ -343,7 +343,7 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     _, counts = np.unique(np.asarray(cone["box_index"]), return_counts=True)
     n_repeated = int((counts > 1).sum())
     if n_repeated:
-        log.info("cone holds %d box galaxies more than once (periodic replicas)", n_repeated)
+        log.debug("cone holds %d box galaxies more than once (periodic replicas)", n_repeated)
     with warnings.catch_warnings():  # gimbal lock (e.g. no rotation) is harmless here
         warnings.simplefilter("ignore", UserWarning)
         euler = Rotation.from_matrix(rot).as_euler("ZYZ", degrees=True).tolist()

@@ -165,6 +165,9 @@ def replica_offsets(observer: ArrayLike, box_size: float, r_in: float,
     return n[keep][order].astype(np.int64)
 
 
+_WARNED_REPLICATION: set[tuple[float, float]] = set()
+
+
 def check_replication(n_replicas: int, r_out: float, box_size: float,
                       settings: ObserverSettings) -> bool:
     """Apply the replication policy; return True when structures may repeat.
@@ -181,12 +184,17 @@ def check_replication(n_replicas: int, r_out: float, box_size: float,
     repeats = 2.0 * r_out > box_size
     if repeats:
         msg = (f"the shell's diameter 2 x {r_out:.1f} Mpc/h exceeds the box side "
-               f"{box_size:g} Mpc/h: the cone may see the same structures more than once "
-               f"({n_replicas} replicas)")
+               f"{box_size:g} Mpc/h: the cone may see the same structures more than once")
         if settings.replication == "refuse":
-            raise InputError(f"observers.replication = 'refuse': {msg}; lower shell.z_max, "
-                             "use a larger box or set replication = 'warn'")
-        log.warning("%s", msg)
+            raise InputError(f"observers.replication = 'refuse': {msg} ({n_replicas} "
+                             "replicas); lower shell.z_max, use a larger box or set "
+                             "replication = 'warn'")
+        # every cone of a run has the same shell and box: say it once per process, not once
+        # per cone (each cone's info still records its replicas and repeats)
+        key = (round(r_out, 3), float(box_size))
+        if key not in _WARNED_REPLICATION:
+            _WARNED_REPLICATION.add(key)
+            log.warning("%s", msg)
     return repeats
 
 

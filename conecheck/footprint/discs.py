@@ -126,15 +126,16 @@ def disc_fraction(fp: Footprint, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_d
             per_disc = 2.0 * np.pi * (1 - np.cos(r_max)) / hp.nside2pixarea(nside_q)
             stop = min(sel.size, start + max(1, int(BATCH_PIXELS / max(per_disc, 1.0))))
             chunk = sel[start:stop]
-            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False, nest=nest)
+            # queried in NESTED order whatever the map's: a parent is then a bit shift away
+            # (converting RING sub-pixels through their vectors costs far more)
+            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False, nest=True)
                      for i in chunk]
             counts = np.array([len(q) for q in lists], dtype=np.int64)
             if counts.sum():
                 sub = np.concatenate(lists).astype(np.int64)
-                if nest:
-                    parent = sub >> (2 * int(level))
-                else:
-                    parent = hp.vec2pix(nside, *hp.pix2vec(nside_q, sub))
+                parent = sub >> (2 * int(level))
+                if not nest:
+                    parent = hp.nest2ring(nside, parent)
                 pv = vals[parent]
                 has = counts > 0
                 offsets = np.concatenate([[0], np.cumsum(counts)[:-1]])

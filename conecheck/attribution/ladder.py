@@ -1,0 +1,253 @@
+"""The effect ladder: which survey effect causes the offset between box and cones.
+
+The same cones are built again with the survey's effects switched on one at a time,
+cumulatively: rung 0 is *geometry only* (every laddered effect off), each later rung adds
+one step, and the last rung is the configured survey itself (so it reuses the main run's
+cones). The default order is
+
+    geometry only → + RSD → + redshift errors → + footprint edges and holes
+    → + fibre collisions, uncorrected → + the configured correction
+
+(``[ladder] order`` changes it). Effects not in the order stay as configured on every rung
+(by default the flux limit, which defines the target list). A step is skipped, with a note,
+when it would change nothing: an effect the survey switches off, zero redshift errors, no
+flux limit, or the correction ``none``. When ``fibres`` is laddered without ``correction``,
+the fibre step applies the configured correction.
+
+Every rung is compared with the same box measurements. Rung 0's *increment* is its offset
+from the box; rung k's increment is the mean over cones of the paired differences
+c_i(k) − c_i(k−1) (:func:`~conecheck.attribution.paired.paired_difference`), so the
+increments add up exactly to the offset of the last rung (the bookkeeping identity,
+checked and recorded). A statistic that fails on the full survey is attributed its
+*first failing rung*: the rung from which it fails on every rung up to the full survey.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..cone.settings import EffectSwitches
+from ..config import RunConfig
+from .paired import INCREMENT_ERROR_TEXT, paired_difference
+from .variants import ConeVariants, Variant, ladder_pieces
+from .verdicts import compare_variant, first_failing, statistic
+
+log = logging.getLogger(__name__)
+
+#: Rung name → (label, short label for tables).
+STEP_LABELS = {
+    "geometry": ("geometry only", "geometry"),
+    "rsd": ("+ radial redshift-space distortions", "+RSD"),
+    "redshift_errors": ("+ redshift errors", "+z errors"),
+    "footprint": ("+ footprint edges and holes", "+footprint"),
+    "flux_limit": ("+ flux limit", "+flux limit"),
+    "fibres": ("+ fibre collisions", "+fibres"),
+    "correction": ("+ correction", "+correction"),
+}
+_EFFECT_FIELDS = ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres")
+
+
+@dataclass(frozen=True)
+class Rung:
+    """One rung of the ladder.
+
+    Attributes
+    ----------
+    name : str
+        ``geometry`` or the step added at this rung.
+    label, short : str
+        Descriptions for the report.
+    variant : Variant
+        Effects and correction of the cones on this rung.
+    """
+
+    name: str
+    label: str
+    short: str
+    variant: Variant
+
+    def describe(self) -> dict[str, Any]:
+        """Plain description for results.json."""
+        return {"name": self.name, "label": self.label, "short": self.short,
+                "effects": dataclasses.asdict(self.variant.effects),
+                "correction": self.variant.correction_applied,
+                "sky": "survey footprint" if self.variant.effects.footprint else "full sky"}
+
+
+def _changes_nothing(cfg: RunConfig, step: str) -> str | None:
+    """Why ``step`` would leave the cones unchanged, or None."""
+    if step in _EFFECT_FIELDS and not getattr(cfg.effects, step):
+        return f"survey.effects.{step} is off in the configuration"
+    if step == "redshift_errors":
+        e = cfg.redshift_errors
+        if (e.sigma_v_kms if e.model == "velocity" else e.sigma_z0) == 0:
+            return "the configured redshift errors are zero"
+    if step == "flux_limit" and cfg.shell.m_lim is None:
+        return "no flux limit (survey.shell.m_lim) is configured"
+    if step == "correction":
+        if not cfg.effects.fibres:
+            return "fibre collisions are off, so there is nothing to correct"
+        if cfg.correction.name == "none":
+            return "the configured correction is 'none' (the same cones as the fibre rung)"
+    return None
+
+
+def plan_ladder(cfg: RunConfig) -> tuple[list[Rung], list[dict[str, str]]]:
+    """The rungs of ``cfg``'s ladder and the steps skipped (with the reason).
+
+    The last rung always builds the configured survey.
+    """
+    skipped = []
+    steps = []
+    for step in cfg.ladder.order:
+        why = _changes_nothing(cfg, step)
+        if why:
+            skipped.append({"step": step, "reason": why})
+        else:
+            steps.append(step)
+    off = {f: False for f in _EFFECT_FIELDS if f in steps}
+    effects: EffectSwitches = dataclasses.replace(cfg.effects, **off)
+    correction = "none" if "correction" in steps else cfg.correction.name
+    label, short = STEP_LABELS["geometry"]
+    rungs = [Rung("geometry", label, short, Variant(effects, correction))]
+    for step in steps:
+        if step == "correction":
+            correction = cfg.correction.name
+            label = f"+ {correction} correction"
+        else:
+            effects = dataclasses.replace(effects, **{step: True})
+            label = STEP_LABELS[step][0]
+            if step == "fibres":
+                label += (", uncorrected" if correction == "none"
+                          else f", {correction} correction")
+        rungs.append(Rung(step, label, STEP_LABELS[step][1], Variant(effects, correction)))
+    return rungs, skipped
+
+
+def _attribution(names: list[str], records: list[dict[str, Any]],
+                 increments: list[dict[str, Any]]) -> dict[str, Any]:
+    """Per statistic: the increments of every rung, the identity check, the verdicts."""
+    total = np.asarray(records[-1]["offset"], dtype=np.float64)
+    inc = np.array([np.asarray(i["increment"], dtype=np.float64) for i in increments])
+    summed = inc.sum(axis=0)
+    scale = np.maximum(np.abs(total), np.max(np.abs(inc), axis=0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = np.where(scale > 0, np.abs(summed - total) / np.where(scale > 0, scale, 1), 0.0)
+    sig_tot = np.asarray(records[-1]["sigma_total"], dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        size = [float(np.nansum(np.where(sig_tot > 0, (i / np.where(sig_tot > 0, sig_tot, 1))
+                                         ** 2, 0.0))) for i in inc]
+    verdicts = [r["verdict"] for r in records]
+    return {
+        "bins": records[-1]["bins"],
+        "bin_label": records[-1].get("bin_label", ""),
+        "value_label": records[-1].get("value_label", ""),
+        "box": records[-1]["box"],
+        "rungs": names,
+        "verdicts": dict(zip(names, verdicts, strict=True)),
+        "max_abs_z": {n: r["max_abs_z"] for n, r in zip(names, records, strict=True)},
+        "chi2_per_dof": {n: r["chi2_per_dof"] for n, r in zip(names, records, strict=True)},
+        "total_offset": total.tolist(),
+        "sigma_total": sig_tot.tolist(),
+        "sum_of_increments": summed.tolist(),
+        "identity_max_relative_error": float(np.max(rel)) if rel.size else 0.0,
+        "first_failing_rung": first_failing(names, verdicts),
+        "failing_rungs": [n for n, v in zip(names, verdicts, strict=True) if v == "fail"],
+        "largest_increment_rung": names[int(np.argmax(size))] if size else None,
+        "increment_size_in_total_sigma": dict(zip(names, [float(np.sqrt(s)) for s in size],
+                                                  strict=True)),
+        "increments": dict(zip(names, increments, strict=True)),
+    }
+
+
+def run_ladder(variants: ConeVariants) -> dict[str, Any]:
+    """Build, measure and compare every rung; the ``ladder`` section of results.json."""
+    cfg = variants.cfg
+    rungs, skipped = plan_ladder(cfg)
+    for s in skipped:
+        log.info("ladder: step '%s' skipped: %s", s["step"], s["reason"])
+    log.info("ladder: %d rungs: %s", len(rungs), " → ".join(r.short for r in rungs))
+    pieces = ladder_pieces(cfg, cfg.ladder.cuts)
+    cones = [variants.measure(r.variant, pieces, stage="ladder") for r in rungs]
+    trees = [compare_variant(cfg, variants.box, c, pieces, what=f"ladder rung {r.name}")
+             for r, c in zip(rungs, cones, strict=True)]
+    names = [r.name for r in rungs]
+    attribution: dict[str, Any] = {}
+    for s, cut in pieces:
+        for stat in cfg.statistics.measure:
+            where = f"ladder, sample {s.name}, cut {cut.label}, statistic {stat}"
+            records = [statistic(t, s.name, cut.label, stat) for t in trees]
+            b = np.asarray(records[0]["box"], dtype=np.float64)
+            incs = [_offset_as_increment(records[0], b)]
+            for k in range(1, len(rungs)):
+                incs.append(paired_difference(
+                    [c["measurements"][s.name][cut.label][stat] for c in cones[k]],
+                    [c["measurements"][s.name][cut.label][stat] for c in cones[k - 1]],
+                    reference=b, sigma_total=records[-1]["sigma_total"],
+                    same_regions=(rungs[k].variant.effects.footprint
+                                  == rungs[k - 1].variant.effects.footprint),
+                    rules=cfg.verdict, cones_independent=cfg.cones.independent,
+                    where=f"{where}, rung {rungs[k].name}"))
+            attribution.setdefault(s.name, {}).setdefault(cut.label, {})[stat] = \
+                _attribution(names, records, incs)
+    return {
+        "order": list(cfg.ladder.order),
+        "rungs": [dict(r.describe(), overall=t["overall"], samples=t["samples"])
+                  for r, t in zip(rungs, trees, strict=True)],
+        "skipped": skipped,
+        "cuts": cfg.ladder.cuts,
+        "increment_error": INCREMENT_ERROR_TEXT,
+        "first_failing_rule": ("first failing rung: the rung from which the statistic fails "
+                               "on every rung up to the full survey"),
+        "attribution": attribution,
+    }
+
+
+def _offset_as_increment(record: dict[str, Any], box: np.ndarray) -> dict[str, Any]:
+    """Rung 0's increment: its offset from the box, with the offset's own error σ_Δ."""
+    off = np.asarray(record["offset"], dtype=np.float64)
+    sig = np.asarray(record["sigma_offset"], dtype=np.float64)
+    tot = np.asarray(record["sigma_total"], dtype=np.float64)
+    cones = np.asarray(record["cones"], dtype=np.float64) - box[None, :]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        signif = np.where(sig > 0, off / np.where(sig > 0, sig, 1), np.nan)
+        frac = np.where(box != 0, off / np.abs(np.where(box != 0, box, 1)), np.nan)
+        zt = np.where(tot > 0, off / np.where(tot > 0, tot, 1), np.nan)
+    fin = np.abs(signif[np.isfinite(signif)])
+    fz = np.abs(zt[np.isfinite(zt)])
+    return {"increment": off.tolist(), "fractional_increment": _nan_none(frac),
+            "cones": cones.tolist(), "sigma_increment": _nan_none(sig),
+            "sigma_increment_jackknife": None, "sigma_increment_scatter": None,
+            "sigma_increment_method": "offset from the box, σ_Δ (" +
+            str(record.get("sigma_offset_method", "")) + ")",
+            "significance": _nan_none(signif),
+            "max_abs_significance": float(fin.max()) if fin.size else None,
+            "consistent_with_zero": record["verdict"] != "fail" and not bool(
+                record.get("failing_bins")),
+            "in_total_sigma": _nan_none(zt),
+            "max_abs_in_total_sigma": float(fz.max()) if fz.size else None,
+            "n_cones": int(record.get("n_cones", len(cones)))}
+
+
+def _nan_none(a: np.ndarray) -> list[float | None]:
+    return [float(x) if np.isfinite(x) else None for x in np.asarray(a, dtype=np.float64)]
+
+
+def annotate_main(results: dict[str, Any], ladder: dict[str, Any]) -> None:
+    """Name the first failing and the largest-increment rung in the main results."""
+    for sname, cuts in ladder["attribution"].items():
+        for label, stats in cuts.items():
+            main = (results.get("samples", {}).get(sname, {}).get("cuts", {}).get(label, {})
+                    .get("statistics", {}))
+            for stat, a in stats.items():
+                if stat in main:
+                    main[stat]["first_failing_rung"] = a["first_failing_rung"]
+                    main[stat]["largest_increment_rung"] = a["largest_increment_rung"]
+
+
+__all__ = ["STEP_LABELS", "Rung", "annotate_main", "plan_ladder", "run_ladder"]

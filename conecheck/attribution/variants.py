@@ -1,0 +1,190 @@
+"""The run's cones measured again under another survey model.
+
+A *variant* is one set of effect switches plus one fibre-collision correction. Every
+variant rebuilds the same cones — cone i keeps its observer, rotation and per-stage random
+streams (:mod:`conecheck.cone.build`) — so two variants differ only by what their effects
+do, including the noise those effects draw themselves. A variant shares whatever it can:
+
+* randoms and their pair counts (RR) with every variant of the same sky geometry (the
+  survey footprint; or the full sky, with full-sky jackknife regions, once the footprint
+  effect is off);
+* the main run's cones when the variant is the configured survey;
+* every piece (cone × sample × cut) already measured in this run, in memory, and every
+  piece in the run's task cache on disk (its keys include effects, correction, cut and
+  randoms), so a re-run recomputes nothing.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass
+from typing import Any
+
+from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
+from ..config import RunConfig, SampleConfig
+from ..run.inputs import load_footprint, sky_regions
+from ..run.pipeline import RunInputs, cone_stage, randoms_stage
+
+log = logging.getLogger(__name__)
+
+#: (sample, cut) measured on every cone.
+Piece = tuple[SampleConfig, SampleCut]
+
+
+@dataclass(frozen=True)
+class Variant:
+    """One way of building the run's cones.
+
+    Attributes
+    ----------
+    effects : EffectSwitches
+        Which survey effects the cones get.
+    correction : str
+        Fibre-collision correction (irrelevant, and normalised to ``none``, without fibres).
+    """
+
+    effects: EffectSwitches
+    correction: str
+
+    @property
+    def correction_applied(self) -> str:
+        """The correction that actually acts on the cones."""
+        return self.correction if self.effects.fibres else "none"
+
+    @property
+    def key(self) -> tuple[Any, ...]:
+        """Equal for variants that build identical cones."""
+        return tuple(sorted(asdict(self.effects).items())) + (self.correction_applied,)
+
+
+def main_variant(cfg: RunConfig) -> Variant:
+    """The configured survey."""
+    return Variant(cfg.effects, cfg.correction.name)
+
+
+def config_for(cfg: RunConfig, pieces: Sequence[Piece]) -> RunConfig:
+    """``cfg`` whose samples hold exactly the cuts in ``pieces`` (first cut = primary)."""
+    order: list[str] = []
+    cuts: dict[str, list[SampleCut]] = {}
+    samples: dict[str, SampleConfig] = {}
+    for s, cut in pieces:
+        if s.name not in cuts:
+            order.append(s.name)
+            cuts[s.name], samples[s.name] = [], s
+        if all(c.label != cut.label for c in cuts[s.name]):
+            cuts[s.name].append(cut)
+    out = []
+    for name in order:
+        first, *rest = cuts[name]
+        out.append(dataclasses.replace(
+            samples[name], label=first.label, z_min=first.z_min, z_max=first.z_max,
+            alt_cuts=tuple(dataclasses.replace(c, mag_max=None) for c in rest)))
+    return dataclasses.replace(cfg, samples=tuple(out))
+
+
+class ConeVariants:
+    """Measure the run's cones under other variants, sharing all that can be shared.
+
+    Parameters
+    ----------
+    inp : RunInputs
+        The run's inputs (configuration, box, footprint, regions, executor, cache).
+    stages : dict
+        The main run's stage results: ``box``, ``randoms``, ``randoms_keys``, ``cones``.
+    """
+
+    def __init__(self, inp: RunInputs, stages: dict[str, Any]) -> None:
+        self.inp = inp
+        self.cfg = inp.cfg
+        self.box = stages["box"]
+        on = self.cfg.effects.footprint
+        self._geometries: dict[bool, RunInputs] = {on: inp}
+        self._randoms: dict[tuple[bool, str, str], tuple[Any, str]] = {}
+        for sname, cuts in stages["randoms"].items():
+            for label, payload in cuts.items():
+                self._randoms[(on, sname, label)] = (payload,
+                                                     stages["randoms_keys"][sname][label])
+        self._cones: dict[tuple[Any, ...], list[dict[str, Any]]] = {}
+        self._merge(main_variant(self.cfg), stages["cones"])
+
+    # ----------------------------------------------------------------- geometry
+    def geometry(self, footprint: bool) -> RunInputs:
+        """Run inputs for the survey footprint (True) or the full sky (False)."""
+        if footprint not in self._geometries:
+            cfg = dataclasses.replace(self.cfg, effects=dataclasses.replace(
+                self.cfg.effects, footprint=footprint))
+            fp = load_footprint(cfg)
+            self._geometries[footprint] = dataclasses.replace(
+                self.inp, footprint=fp, regions=sky_regions(self.cfg, fp))
+            log.info("attribution: %s geometry with %d jackknife regions",
+                     "survey" if footprint else "full-sky", self._geometries[footprint].regions.k)
+        return self._geometries[footprint]
+
+    def _randoms_for(self, geo: RunInputs, variant: Variant, pieces: Sequence[Piece]
+                     ) -> tuple[dict[str, dict[str, Any]], dict[str, dict[str, str]]]:
+        fp = variant.effects.footprint
+        need = [(s, c) for s, c in pieces if (fp, s.name, c.label) not in self._randoms]
+        if need:
+            sub = dataclasses.replace(geo, cfg=config_for(self.cfg, need))
+            rnd, keys = randoms_stage(sub, self.box, effects=variant.effects)
+            for sname, cuts in rnd.items():
+                for label, payload in cuts.items():
+                    self._randoms[(fp, sname, label)] = (payload, keys[sname][label])
+        randoms: dict[str, dict[str, Any]] = {}
+        rkeys: dict[str, dict[str, str]] = {}
+        for s, c in pieces:
+            payload, key = self._randoms[(fp, s.name, c.label)]
+            randoms.setdefault(s.name, {})[c.label] = payload
+            rkeys.setdefault(s.name, {})[c.label] = key
+        return randoms, rkeys
+
+    # ----------------------------------------------------------------- cones
+    def _merge(self, variant: Variant, cones: list[dict[str, Any]]) -> None:
+        store = self._cones.setdefault(variant.key, [
+            {"measurements": {}, "nz": {}, "info": {}} for _ in range(len(cones))])
+        for mine, new in zip(store, cones, strict=True):
+            for sname, cuts in new["measurements"].items():
+                mine["measurements"].setdefault(sname, {}).update(cuts)
+                mine["nz"].setdefault(sname, {}).update(new["nz"][sname])
+            mine["info"] = new["info"] or mine["info"]
+
+    def _has(self, variant: Variant, s: SampleConfig, cut: SampleCut) -> bool:
+        store = self._cones.get(variant.key)
+        return store is not None and cut.label in store[0]["measurements"].get(s.name, {})
+
+    def measure(self, variant: Variant, pieces: Sequence[Piece], stage: str
+                ) -> list[dict[str, Any]]:
+        """Every cone of ``variant`` measured on ``pieces``.
+
+        Returns
+        -------
+        list of dict
+            Per cone, as :func:`conecheck.run.pipeline.cone_stage`: ``measurements``
+            (sample → cut → statistic → Measurement), ``nz`` and ``info``.
+        """
+        missing = [(s, c) for s, c in pieces if not self._has(variant, s, c)]
+        if missing:
+            geo = self.geometry(variant.effects.footprint)
+            randoms, rkeys = self._randoms_for(geo, variant, missing)
+            sub = dataclasses.replace(geo, cfg=config_for(self.cfg, missing))
+            cones = cone_stage(sub, randoms, rkeys, effects=variant.effects,
+                               correction=CorrectionSettings(variant.correction_applied),
+                               stage=stage)
+            self._merge(variant, cones)
+        store = self._cones[variant.key]
+        return [{"measurements": {s.name: {c.label: cone["measurements"][s.name][c.label]
+                                           for s2, c in pieces if s2.name == s.name}
+                                  for s, _ in pieces},
+                 "nz": {s.name: {c.label: cone["nz"][s.name][c.label]
+                                 for s2, c in pieces if s2.name == s.name} for s, _ in pieces},
+                 "info": cone["info"]} for cone in store]
+
+
+def ladder_pieces(cfg: RunConfig, which: str) -> list[Piece]:
+    """The (sample, cut) pieces a section measures: primary cuts only, or every cut."""
+    return [(s, c) for s in cfg.samples for c in (s.cuts if which == "all" else s.cuts[:1])]
+
+
+__all__ = ["ConeVariants", "Piece", "Variant", "config_for", "ladder_pieces", "main_variant"]
