@@ -421,12 +421,15 @@ def child(args: argparse.Namespace) -> int:
     logging.basicConfig(level=logging.WARNING, format="%(name)s: %(message)s")
     work = Path(args.workdir)
     d = json.loads(Path(args.spec).read_text())
+    load0 = os.getloadavg()[0]
     if args.part == "conecheck":
         out = part_conecheck(d, work / f"conecheck-{os.getpid()}", args.profile)
     elif args.part == "baseline":
         out = part_baseline(d, work)
     else:
         out = part_warmup(work)
+    # other processes on the machine distort wall times: record how busy it was
+    out["load_average"] = [load0, os.getloadavg()[0]]
     write_text_atomic(Path(args.result), json.dumps(out))
     return 0
 
@@ -512,6 +515,12 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
     say(f"| box catalogue (positions, velocities, magnitudes as float64) | "
         f"{c['n_box'] * 7 * 8 / 2**20:.0f} |")
     say("")
+    say("Machine load (1-minute load average at the start and end of each process; above 2 "
+        "means other work shared the two cores): " + "; ".join(
+            [f"conecheck {s} {r['load_average'][0]:.1f} → {r['load_average'][1]:.1f}"
+             for s, r in runs.items()]
+            + [f"baseline {b['load_average'][0]:.1f} → {b['load_average'][1]:.1f}"]) + ".")
+    say("")
     ex = b["exact"]
     say(f"Agreement, same randoms (cone 0, {ex['cut']}: {ex['n_data']:,} galaxies, "
         f"{ex['n_randoms']:,} randoms): conecheck wp_cone with rr_method 'full' against the "
@@ -547,15 +556,16 @@ def scaling_lines(rows: list[tuple[str, dict[str, Any], dict[str, Any]]],
              f"`{command}`. conecheck only (the baseline repeats the same work for every "
              "cone, so its time is linear in the number of cones by construction).", "",
              "| run | box galaxies | " + " | ".join(STAGES) + " | whole run [s] | "
-             "randoms + cones per cone [s] | peak MiB |",
-             "|---" * (len(STAGES) + 5) + "|"]
+             "randoms + cones per cone [s] | peak MiB | load average |",
+             "|---" * (len(STAGES) + 6) + "|"]
     for label, d, c in rows:
         t = c["timings"]
         lines.append(f"| {label} | {c['n_box']:,} | "
                      + " | ".join(f"{t.get(k, 0.0):.1f}" for k in STAGES)
                      + f" | {c['wall']:.1f} | "
                      f"{conecheck_measure_time(c) / d['cones']['n_cones']:.1f} | "
-                     f"{c['peak_rss_mib']:.0f} |")
+                     f"{max(c['peak_rss_mib'], c['peak_rss_worker_mib']):.0f} | "
+                     f"{c['load_average'][0]:.1f} → {c['load_average'][1]:.1f} |")
     lines.append("")
     return lines
 

@@ -29,4 +29,8 @@ class TaskError(ConecheckError):
 
     def __init__(self, where: str, message: str):
         self.where = where
+        self.message = message
         super().__init__(f"{where}: {message}")
+
+    def __reduce__(self):  # survive pickling between dask workers and the client
+        return (type(self), (self.where, self.message))

@@ -178,3 +178,16 @@ def test_output_directory_that_is_a_file_exits_2(tmp_path, capsys):
     (tmp_path / "out").write_text("x")
     assert main(["demo", "--quick", "--out", str(tmp_path / "out")]) == 2
     assert "is a file" in capsys.readouterr().err
+
+
+def test_a_failing_measurement_names_cone_sample_and_cut(tmp_path, monkeypatch):
+    from conecheck.run import tasks
+
+    def broken(cfg, table, footprint, regions, sample, cut, *args, **kw):
+        raise FloatingPointError("overflow in the kernel")
+
+    monkeypatch.setattr(tasks, "measure_cone_cut", broken)
+    with pytest.raises(TaskFailed) as exc:
+        _run(tiny_dict(seed=9), tmp_path / "run")
+    text = str(exc.value)
+    assert "cone 0" in text and "sample M20, cut primary" in text and "overflow" in text

@@ -93,12 +93,13 @@ def run_corrections(variants: ConeVariants) -> dict[str, Any]:
                     where=f"correction {name}, sample {s.name}, cut {cut.label}, "
                           f"statistic {stat}")
                 d["verdict_vs_box"] = statistic(tree, s.name, cut.label, stat)["verdict"]
-                (section["against_truth"].setdefault(s.name, {}).setdefault(cut.label, {})
-                 .setdefault(stat, {}))[name] = d
+                entry = (section["against_truth"].setdefault(s.name, {})
+                         .setdefault(cut.label, {}).setdefault(stat, {"corrections": {}}))
+                entry["corrections"][name] = d
     for cuts in section["against_truth"].values():
         for stats in cuts.values():
-            for per in stats.values():
-                per["closest_to_truth"] = closest(per)
+            for entry in stats.values():
+                entry["closest_to_truth"] = closest(entry["corrections"])
     return section
 
 
@@ -106,8 +107,6 @@ def closest(per_correction: dict[str, Any]) -> str | None:
     """The correction with the smallest max |offset from the truth| / σ_tot."""
     best, best_v = None, math.inf
     for name, d in per_correction.items():
-        if not isinstance(d, dict):
-            continue
         v = d.get("max_abs_in_total_sigma")
         v = math.inf if v is None or not np.isfinite(v) else float(v)
         if best is None or v < best_v:

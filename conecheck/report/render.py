@@ -2,7 +2,8 @@
 
 Page order: the verdict summary ("may I fit this?"), findings, how the verdicts are made,
 provenance, footprint with jackknife regions, n(z) of the cones, one page per sample and
-redshift cut with every statistic, fibre collisions, and the comparison of redshift cuts.
+redshift cut with every statistic, fibre collisions, the comparison of redshift cuts, and
+(when the run made them) the effect ladder, the correction comparison and the cut sweep.
 Because only ``results.json`` (plus the mask and region files it names) is read,
 ``conecheck report RUN_DIR`` re-renders a report without recomputing anything.
 """
@@ -19,6 +20,7 @@ from matplotlib.figure import Figure
 from .. import __version__
 from ..atomic import atomic_path
 from .layout import Page, decorate, new_figure
+from .pages_attribution import attribution_pages
 from .pages_cuts import cut_pages
 from .pages_fibres import fibre_pages
 from .pages_footprint import footprint_pages
@@ -47,7 +49,7 @@ def build_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | None 
         return (summary_pages(results) + findings_pages(results) + rules_pages(results)
                 + provenance_pages(results) + footprint_pages(results, run_dir)
                 + nz_pages(results) + statistics_pages(results) + fibre_pages(results)
-                + cut_pages(results))
+                + cut_pages(results) + attribution_pages(results))
 
 
 def _run_label(results: dict[str, Any]) -> str:

@@ -20,7 +20,7 @@ from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms
 from ..cone.build import prepare_box
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig, SampleConfig
-from ..errors import InputError
+from ..errors import InputError, TaskError
 from ..pairs.counts import PairCounts
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
 from .execute import task_rng
@@ -209,8 +209,16 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
     for sample in cfg.samples:
         meas[sample.name], nz[sample.name] = {}, {}
         for cut in sample.cuts:
-            m, h = measure_cone_cut(cfg, table, footprint, regions, sample, cut,
-                                    randoms[sample.name][cut.label], index, tag)
+            where = f"sample {sample.name}, cut {cut.label}"
+            try:
+                m, h = measure_cone_cut(cfg, table, footprint, regions, sample, cut,
+                                        randoms[sample.name][cut.label], index, tag)
+            except InputError as exc:
+                raise InputError(f"{where}: {exc}", [f"{where}: {p}" for p in exc.problems]
+                                 ) from exc
+            except Exception as exc:
+                # name the sample and cut; the executor adds the cone
+                raise TaskError(where, f"{type(exc).__name__}: {exc}") from exc
             meas[sample.name][cut.label] = m
             nz[sample.name][cut.label] = h
     fib = info.get("fibres", {})

@@ -1,0 +1,96 @@
+"""Attribution: which effect causes an offset, which correction removes it, which cut is safe.
+
+Three optional stages run after the main comparison, as extensions of
+:func:`conecheck.run.validate.validate`, and add sections to results.json:
+
+* ``ladder`` (:mod:`.ladder`): the same cones with the survey's effects added one at a
+  time; per statistic and bin the increment each effect adds, with its error, and the
+  first failing rung;
+* ``corrections`` (:mod:`.corrections`): several fibre-collision corrections applied to
+  the same collided cones, compared with the uncollided truth of those cones and with
+  the box;
+* ``cuts`` (:mod:`.sweep`): a sweep of redshift cuts on the same cones, with the widest
+  passing cut.
+
+Every variant of the cones is built and measured through :mod:`.variants`, which shares
+randoms, pair counts, cones and cached pieces between them; the error model of the
+paired differences is in :mod:`.paired`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable
+from typing import Any
+
+from ..config import RunConfig
+from ..run.pipeline import RunInputs, stage_timer
+from .corrections import run_corrections
+from .ladder import annotate_main, plan_ladder, run_ladder
+from .paired import INCREMENT_ERROR_TEXT, paired_difference
+from .summary import attribution_summary
+from .sweep import plan_sweep, run_sweep
+from .tables import write_attribution_tables
+from .variants import ConeVariants, Variant
+
+Extension = Callable[[RunInputs, dict[str, Any], dict[str, Any]], None]
+
+
+def with_attribution(cfg: RunConfig) -> RunConfig:
+    """``cfg`` with the ladder, the correction comparison and the cut sweep switched on."""
+    return dataclasses.replace(
+        cfg, ladder=dataclasses.replace(cfg.ladder, enabled=True),
+        corrections=dataclasses.replace(cfg.corrections, enabled=True),
+        cut_sweep=dataclasses.replace(cfg.cut_sweep, enabled=True))
+
+
+class Attribution:
+    """The three stages as run extensions sharing one store of cone variants."""
+
+    def __init__(self) -> None:
+        self._variants: ConeVariants | None = None
+
+    def variants(self, inp: RunInputs, stages: dict[str, Any]) -> ConeVariants:
+        """The store of cone variants of this run (created on first use)."""
+        if self._variants is None or self._variants.inp is not inp:
+            self._variants = ConeVariants(inp, stages)
+        return self._variants
+
+    def ladder(self, inp: RunInputs, stages: dict[str, Any], results: dict[str, Any]) -> None:
+        """Extension: the effect ladder (``results["ladder"]``)."""
+        stop = stage_timer(inp.timings, "ladder (all)")
+        results["ladder"] = run_ladder(self.variants(inp, stages))
+        annotate_main(results, results["ladder"])
+        stop()
+
+    def corrections(self, inp: RunInputs, stages: dict[str, Any],
+                    results: dict[str, Any]) -> None:
+        """Extension: the correction comparison (``results["corrections"]``)."""
+        stop = stage_timer(inp.timings, "corrections (all)")
+        results["corrections"] = run_corrections(self.variants(inp, stages))
+        stop()
+
+    def cut_sweep(self, inp: RunInputs, stages: dict[str, Any],
+                  results: dict[str, Any]) -> None:
+        """Extension: the redshift-cut sweep (``results["cuts"]``)."""
+        stop = stage_timer(inp.timings, "cut sweep (all)")
+        results["cuts"] = run_sweep(self.variants(inp, stages))
+        stop()
+
+
+def extensions(cfg: RunConfig) -> tuple[Extension, ...]:
+    """The attribution extensions ``cfg`` switches on, in run order."""
+    a = Attribution()
+    out: list[Extension] = []
+    if cfg.ladder.enabled:
+        out.append(a.ladder)
+    if cfg.corrections.enabled:
+        out.append(a.corrections)
+    if cfg.cut_sweep.enabled:
+        out.append(a.cut_sweep)
+    return tuple(out)
+
+
+__all__ = ["INCREMENT_ERROR_TEXT", "Attribution", "ConeVariants", "Variant",
+           "attribution_summary", "extensions", "paired_difference", "plan_ladder",
+           "plan_sweep", "with_attribution", "write_attribution_tables"]
