@@ -163,10 +163,12 @@ def provenance_pages(results: dict[str, Any]) -> list[PageSpec]:
     if isinstance(timings, dict) and timings:
         blocks.append(("h2", "Stage timings"))
         blocks.extend(("mono", f"{k}: {_duration(v)}") for k, v in timings.items())
-        try:
-            blocks.append(("mono", f"total: {_duration(sum(float(v) for v in timings.values()))}"))
-        except (TypeError, ValueError):
-            pass
+        if "total" not in timings:  # a run records its own wall-clock total
+            try:
+                total = sum(float(v) for v in timings.values())
+                blocks.append(("mono", f"total: {_duration(total)}"))
+            except (TypeError, ValueError):
+                pass
     files = prov.get("input_files")
     blocks.append(("h2", "Input files (SHA-256)"))
     if isinstance(files, dict) and files:
