@@ -384,6 +384,9 @@ class LadderConfig:
         redshift_errors, footprint, flux_limit, fibres (collisions, uncorrected when a
         ``correction`` step follows) and correction (the configured one). Effects not
         listed stay as configured on every rung; steps the survey switches off are skipped.
+        Rungs before ``footprint`` are full-sky cones, 1/f_sky times larger than survey
+        cones: they dominate the ladder's cost (put ``footprint`` first, or leave it out,
+        for a cheaper ladder).
     cuts : {"primary", "all"}
         Which redshift cuts of each sample the ladder measures.
     """
@@ -552,7 +555,7 @@ def _attribution_checks(cfg: RunConfig, problems: list[str]) -> None:
     """Cross-section checks of [cut_sweep]: known samples, cuts inside the shell."""
     by_name = {s.name: s for s in cfg.samples}
     shell = cfg.shell
-    for name, sweep in cfg.cut_sweep.samples.items():
+    for name in cfg.cut_sweep.samples:
         if name not in by_name:
             problems.append(f"cut_sweep.samples.{name}: no sample of that name (samples: "
                             f"{', '.join(by_name)})")

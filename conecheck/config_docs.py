@@ -49,6 +49,10 @@ SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("verdict", VerdictRules, ()),
     ("compute", C.ComputeConfig, ()),
     ("output", C.OutputConfig, ()),
+    ("ladder", C.LadderConfig, ()),
+    ("corrections", C.CorrectionsConfig, ()),
+    ("cut_sweep", C.CutSweepConfig, ("samples",)),
+    ("cut_sweep.samples.NAME", C.SweepCuts, ()),
 ]
 
 

@@ -20,10 +20,14 @@ paired differences is in :mod:`.paired`.
 from __future__ import annotations
 
 import dataclasses
+import logging
+import sys
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
 from ..config import RunConfig
+from ..errors import ConecheckError
 from ..run.pipeline import RunInputs, stage_timer
 from .corrections import run_corrections
 from .ladder import annotate_main, plan_ladder, run_ladder
@@ -34,6 +38,7 @@ from .tables import write_attribution_tables
 from .variants import ConeVariants, Variant
 
 Extension = Callable[[RunInputs, dict[str, Any], dict[str, Any]], None]
+log = logging.getLogger(__name__)
 
 
 def with_attribution(cfg: RunConfig) -> RunConfig:
@@ -56,26 +61,45 @@ class Attribution:
             self._variants = ConeVariants(inp, stages)
         return self._variants
 
+    def _run(self, key: str, what: str, func: Callable[[ConeVariants], dict[str, Any]],
+             inp: RunInputs, stages: dict[str, Any], results: dict[str, Any]) -> bool:
+        # A failure here must not cost the user the main run's results, which are written
+        # after the extensions: record it in the section (the report and the summary say
+        # so) and carry on.
+        stop = stage_timer(inp.timings, f"{what} (all)")
+        try:
+            results[key] = func(self.variants(inp, stages))
+            return True
+        except ConecheckError as exc:
+            log.error("%s not completed: %s", what, exc)
+            results[key] = {"error": str(exc)}
+            return False
+        finally:
+            stop()
+
     def ladder(self, inp: RunInputs, stages: dict[str, Any], results: dict[str, Any]) -> None:
         """Extension: the effect ladder (``results["ladder"]``)."""
-        stop = stage_timer(inp.timings, "ladder (all)")
-        results["ladder"] = run_ladder(self.variants(inp, stages))
-        annotate_main(results, results["ladder"])
-        stop()
+        if self._run("ladder", "ladder", run_ladder, inp, stages, results):
+            annotate_main(results, results["ladder"])
 
     def corrections(self, inp: RunInputs, stages: dict[str, Any],
                     results: dict[str, Any]) -> None:
         """Extension: the correction comparison (``results["corrections"]``)."""
-        stop = stage_timer(inp.timings, "corrections (all)")
-        results["corrections"] = run_corrections(self.variants(inp, stages))
-        stop()
+        self._run("corrections", "corrections", run_corrections, inp, stages, results)
 
     def cut_sweep(self, inp: RunInputs, stages: dict[str, Any],
                   results: dict[str, Any]) -> None:
         """Extension: the redshift-cut sweep (``results["cuts"]``)."""
-        stop = stage_timer(inp.timings, "cut sweep (all)")
-        results["cuts"] = run_sweep(self.variants(inp, stages))
-        stop()
+        self._run("cuts", "cut sweep", run_sweep, inp, stages, results)
+
+
+def finish(results: dict[str, Any], run_dir: str | Path, stream: Any = None) -> None:
+    """After a run: write the attribution tables and print their summary (if any ran)."""
+    text = attribution_summary(results)
+    if not text:
+        return
+    write_attribution_tables(results, Path(run_dir) / "tables")
+    print("\n" + text, file=stream or sys.stdout)
 
 
 def extensions(cfg: RunConfig) -> tuple[Extension, ...]:
@@ -92,5 +116,5 @@ def extensions(cfg: RunConfig) -> tuple[Extension, ...]:
 
 
 __all__ = ["INCREMENT_ERROR_TEXT", "Attribution", "ConeVariants", "Variant",
-           "attribution_summary", "extensions", "paired_difference", "plan_ladder",
+           "attribution_summary", "extensions", "finish", "paired_difference", "plan_ladder",
            "plan_sweep", "with_attribution", "write_attribution_tables"]

@@ -14,6 +14,11 @@ when it would change nothing: an effect the survey switches off, zero redshift e
 flux limit, or the correction ``none``. When ``fibres`` is laddered without ``correction``,
 the fibre step applies the configured correction.
 
+Cost: rungs share randoms and RR per sky geometry, the last rung is the main run's cones,
+and every measured piece is cached. Rungs before the footprint step are full-sky cones
+(full-sky randoms and jackknife regions), 1/f_sky times larger than survey cones, so they
+dominate the ladder's cost; ``benchmarks/bench_ladder.py`` measures it.
+
 Every rung is compared with the same box measurements. Rung 0's *increment* is its offset
 from the box; rung k's increment is the mean over cones of the paired differences
 c_i(k) − c_i(k−1) (:func:`~conecheck.attribution.paired.paired_difference`), so the
@@ -26,6 +31,7 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import time
 from dataclasses import dataclass
 from typing import Any
 
@@ -173,7 +179,11 @@ def run_ladder(variants: ConeVariants) -> dict[str, Any]:
         log.info("ladder: step '%s' skipped: %s", s["step"], s["reason"])
     log.info("ladder: %d rungs: %s", len(rungs), " → ".join(r.short for r in rungs))
     pieces = ladder_pieces(cfg, cfg.ladder.cuts)
-    cones = [variants.measure(r.variant, pieces, stage="ladder") for r in rungs]
+    cones, seconds = [], []
+    for r in rungs:
+        t0 = time.perf_counter()
+        cones.append(variants.measure(r.variant, pieces, stage="ladder"))
+        seconds.append(time.perf_counter() - t0)
     trees = [compare_variant(cfg, variants.box, c, pieces, what=f"ladder rung {r.name}")
              for r, c in zip(rungs, cones, strict=True)]
     names = [r.name for r in rungs]
@@ -197,8 +207,8 @@ def run_ladder(variants: ConeVariants) -> dict[str, Any]:
                 _attribution(names, records, incs)
     return {
         "order": list(cfg.ladder.order),
-        "rungs": [dict(r.describe(), overall=t["overall"], samples=t["samples"])
-                  for r, t in zip(rungs, trees, strict=True)],
+        "rungs": [dict(r.describe(), overall=t["overall"], seconds=sec, samples=t["samples"])
+                  for r, t, sec in zip(rungs, trees, seconds, strict=True)],
         "skipped": skipped,
         "cuts": cfg.ladder.cuts,
         "increment_error": INCREMENT_ERROR_TEXT,

@@ -45,7 +45,7 @@ def _cut_lines(section: dict[str, Any]) -> list[str]:
     for sname, s in (section.get("samples") or {}).items():
         cuts = s.get("cuts", {})
 
-        def rng(label: str | None) -> str:
+        def rng(label: str | None, cuts: dict[str, Any] = cuts) -> str:
             c = cuts.get(label or "", {})
             return f"{label} ({ac.fmt(ac.num(c, 'z_min'))}-{ac.fmt(ac.num(c, 'z_max'))})"
         n_pass = sum(c.get("verdict") == "pass" for c in cuts.values())
@@ -63,6 +63,12 @@ def _cut_lines(section: dict[str, Any]) -> list[str]:
 def attribution_summary(results: dict[str, Any]) -> str:
     """The ladder, correction and cut-sweep findings as text ("" when none ran)."""
     out: list[str] = []
+    for key, what in (("ladder", "effect ladder"), ("corrections", "corrections"),
+                      ("cuts", "redshift-cut sweep")):
+        if isinstance(results.get(key), dict) and results[key].get("error"):
+            out.append(f"{what}: not completed ({results[key]['error']})")
+    results = {k: v for k, v in results.items()
+               if not (isinstance(v, dict) and v.get("error"))}
     if isinstance(results.get("ladder"), dict):
         out += _ladder_lines(results["ladder"])
     if isinstance(results.get("corrections"), dict):

@@ -20,15 +20,25 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quick", action="store_true",
                         help="a reduced demo (small box, thin shell, 2 cones) for a quick look")
     parser.add_argument("--fresh", action="store_true", help="ignore cached task results")
+    parser.add_argument("--ladder", action="store_true",
+                        help="also run the effect ladder, the fibre-collision correction "
+                             "comparison and the redshift-cut sweep. Runs at the --quick "
+                             "scale (a few minutes): the ladder's first rungs are full-sky "
+                             "cones, which at the full demo's scale take about half an hour")
 
 
 def main(args: argparse.Namespace) -> int:
+    from .. import attribution
     from ..demo import demo_config
     from ..run.validate import output_dir, print_summary, validate
 
-    cfg = demo_config(args.quick)
+    cfg = demo_config(args.quick or args.ladder)
+    if args.ladder:
+        cfg = attribution.with_attribution(cfg)
     results, code = validate(cfg, args.out, fresh=args.fresh,
-                             progress=None if args.verbosity >= 0 else False)
+                             progress=None if args.verbosity >= 0 else False,
+                             extensions=attribution.extensions(cfg))
     print_summary(results, output_dir(cfg, args.out))
+    attribution.finish(results, output_dir(cfg, args.out))
     print(f"(demo: `conecheck run` would exit with code {code} for this verdict)")
     return 0

@@ -25,15 +25,25 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="'local', 'local-cluster' or a dask scheduler address "
                              "tcp://HOST:PORT (overrides compute.scheduler)")
     parser.add_argument("--workers", type=int, help="workers of a local-cluster")
+    parser.add_argument("--ladder", action="store_true",
+                        help="also attribute the offsets: the effect ladder, the fibre-"
+                             "collision correction comparison and the redshift-cut sweep "
+                             "(the [ladder], [corrections] and [cut_sweep] sections, with "
+                             "their defaults when absent)")
 
 
 def main(args: argparse.Namespace) -> int:
+    from .. import attribution
     from ..run.validate import output_dir, print_summary, validate
 
     cfg = load_config(args.config)
+    if args.ladder:
+        cfg = attribution.with_attribution(cfg)
     results, code = validate(cfg, args.out, fresh=args.fresh, scheduler=args.scheduler,
                              workers=args.workers,
                              progress=None if args.verbosity >= 0 else False,
-                             config_path=args.config)
+                             config_path=args.config,
+                             extensions=attribution.extensions(cfg))
     print_summary(results, output_dir(cfg, args.out))
+    attribution.finish(results, output_dir(cfg, args.out))
     return code

@@ -22,10 +22,21 @@ from typing import Any
 
 import numpy as np
 from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
+from matplotlib.ticker import MaxNLocator
 
 from . import access as ac
 from . import style as st
-from .layout import Cell, Column, Page, draw_table, fit_columns, rows_that_fit, shorten, wrap
+from .layout import (
+    Cell,
+    Column,
+    Page,
+    draw_table,
+    fit_columns,
+    rows_that_fit,
+    shorten,
+    text_width,
+    wrap,
+)
 from .pagespec import PageSpec
 
 PER_PAGE = 5
@@ -44,6 +55,15 @@ def _cell(page: Page, i: int) -> tuple[float, float, float, float]:
     cw = (page.content_width - _GAP) / 2
     ch = (page.h - st.CONTENT_BOTTOM - _TOP) / 3
     return st.MARGIN_X + (i % 2) * (cw + _GAP), _TOP + (i // 2) * ch, cw, ch
+
+
+def _title(page: Page, x: float, y: float, w: float, title: str, tag: str,
+           colour: str) -> None:
+    """Cell title on the left, a bold tag on the right; the title yields room to the tag."""
+    tag = shorten(tag, w * 0.6, st.SMALL, bold=True)
+    page.text(x + w, y, tag, st.SMALL, bold=True, colour=colour, ha="right")
+    room = w - text_width(tag, st.SMALL, bold=True) - 0.15
+    page.text(x, y, shorten(title, room, st.BODY + 1, bold=True), st.BODY + 1, bold=True)
 
 
 def _rung_colours(n: int) -> list[Any]:
@@ -96,8 +116,11 @@ def _overview_rows(results: dict[str, Any], ladder: dict[str, Any]) -> list[list
 
 def _overview_text(ladder: dict[str, Any]) -> list[str]:
     rungs = _rung_meta(ladder)
-    steps = "; ".join(f"{i}. {r.get('label', r['name'])} ({r.get('sky', '')}"
-                      f"{', correction ' + r['correction'] if r.get('correction') not in (None, 'none') else ''})"
+    def corr(r: dict[str, Any]) -> str:
+        c = r.get("correction")
+        return f", correction {c}" if c not in (None, "none") else ""
+
+    steps = "; ".join(f"#{i} {r.get('label', r['name'])} ({r.get('sky', '')}{corr(r)})"
                       for i, r in enumerate(rungs))
     out = [f"The same cones are rebuilt with the survey's effects switched on one at a time, "
            f"cumulatively, and every rung is compared with the same box measurements. Rungs: "
@@ -107,8 +130,8 @@ def _overview_text(ladder: dict[str, Any]) -> list[str]:
     out.append("Columns: verdict of the full survey; first failing rung — the rung from which "
                "the statistic fails on every rung up to the full survey (— when it does not "
                "fail); largest increment — the rung whose increment is largest in units of "
-               "the total error bar; then each rung's max |z| against the box, coloured by "
-               "that rung's verdict.")
+               "the total error bar; #0 … #{n}: each rung's max |z| against the box, coloured "
+               "by that rung's verdict.".replace("{n}", str(max(len(rungs) - 1, 0))))
     return out
 
 
@@ -116,10 +139,11 @@ def _ladder_overview(results: dict[str, Any], ladder: dict[str, Any]) -> list[Pa
     rungs = _rung_meta(ladder)
     short = _short(ladder)
     w = st.PAGE_W - 2 * st.MARGIN_X
-    cols = [Column("sample", 0.8), Column("cut", 0.75), Column("statistic", 1.05),
-            Column("verdict", 0.6, "center"), Column("first failing", 0.85, "center"),
-            Column("largest Δ", 0.8, "center")]
-    cols += [Column(short[r["name"]], 0.62, "right") for r in rungs]
+    del short
+    cols = [Column("sample", 0.75), Column("cut", 0.7), Column("statistic", 1.05),
+            Column("verdict", 0.62, "center"), Column("first failing", 0.92, "center"),
+            Column("largest Δ", 0.9, "center")]
+    cols += [Column(f"#{i}", 0.45, "right") for i in range(len(rungs))]
     cols = fit_columns(cols, w)
     rows = _overview_rows(results, ladder)
     lines = []
@@ -160,10 +184,7 @@ def _ladder_cell(page: Page, i: int, stat: str, a: dict[str, Any], short: dict[s
     first = a.get("first_failing_rung")
     v = (a.get("verdicts") or {}).get((a.get("rungs") or [""])[-1])
     tag = str(v or "—").upper() + (f" from {short.get(first, first)}" if first else "")
-    page.text(x0 + cw, y0 + 0.2, shorten(tag, cw * 0.5, st.SMALL, bold=True), st.SMALL,
-              bold=True, colour=st.verdict_colour(v), ha="right")
-    page.text(x0, y0 + 0.2, shorten(ac.stat_title(stat), cw * 0.5, st.BODY + 1, bold=True),
-              st.BODY + 1, bold=True)
+    _title(page, x0, y0 + 0.2, cw, ac.stat_title(stat), tag, st.verdict_colour(v))
     x = ac.arr(a, "bins")
     b = ac.arr(a, "box")
     names = [n for n in (a.get("rungs") or []) if n in (a.get("increments") or {})]
@@ -264,18 +285,15 @@ def _ladder_pages(results: dict[str, Any], ladder: dict[str, Any]) -> list[PageS
 
 
 # --------------------------------------------------------------------------- corrections
-_CORR_COLOURS = (st.CONE, "#3f7f98", "#7fa672", "#9d7fba", "#c9b458", "#5d6573")
+_CORR_COLOURS = (st.CONE, "#7fa672", "#9d7fba", "#c9b458", "#6aa3a0", "#c46a5a")
 
 
 def _corrections_cell(page: Page, i: int, stat: str, entry: dict[str, Any],
                       truth: dict[str, Any], names: list[str]) -> list[str]:
     x0, y0, cw, ch = _cell(page, i)
-    page.text(x0, y0 + 0.2, shorten(ac.stat_title(stat), cw * 0.62, st.BODY + 1, bold=True),
-              st.BODY + 1, bold=True)
     best = entry.get("closest_to_truth")
-    if best:
-        page.text(x0 + cw, y0 + 0.2, shorten(f"closest: {best}", cw * 0.38, st.SMALL),
-                  st.SMALL, colour=st.MUTED, ha="right")
+    _title(page, x0, y0 + 0.2, cw, ac.stat_title(stat), f"closest: {best}" if best else "",
+           st.MUTED)
     x = ac.arr(truth, "bins")
     t = ac.arr(truth, "cone_mean")
     b = ac.arr(truth, "box")
@@ -289,7 +307,8 @@ def _corrections_cell(page: Page, i: int, stat: str, entry: dict[str, Any],
         abst = np.where(t != 0, np.abs(t), np.nan)
         ax.axhline(0, color=st.INK, lw=0.8, label="uncollided truth")
         if b.size == x.size:
-            ax.plot(pos, (b - t) / abst, color=st.BOX, lw=1.2, ls="--", label="box")
+            ax.plot(pos, (b - t) / abst, color=st.BOX, lw=1.2, ls="--", label="box",
+                    marker="x" if x.size == 1 else None)
         vals = []
         for n, c in zip(names, _CORR_COLOURS * 3, strict=False):
             d = entry.get("corrections", {}).get(n, {})
@@ -311,7 +330,6 @@ def _corrections_cell(page: Page, i: int, stat: str, entry: dict[str, Any],
     ax.set_xlim(-0.5, x.size - 0.5)
     ax.set_xlabel(truth.get("bin_label") or "bin")
     ax.grid(True, axis="y")
-    ax.legend(loc="best", fontsize=st.SMALL, ncol=2, handlelength=1.2)
     return [f"{stat}:corrections"]
 
 
@@ -331,6 +349,15 @@ def _corrections_table(page: Page, i: int, section: dict[str, Any], stats: dict[
                             d.get("verdict_vs_box")))
         rows.append(row)
     y = draw_table(page, x0, y0 + 0.32, cols, rows, size=st.SMALL, row_h=0.2)
+    key = [(st.INK, "-", "uncollided truth"), (st.BOX, "--", "box")]
+    key += [(c, "-", n) for n, c in zip(names, _CORR_COLOURS * 3, strict=False)]
+    for j, (colour, ls, text) in enumerate(key):
+        kx = x0 + (j % 2) * cw / 2
+        ky = y + 0.2 + (j // 2) * 0.17
+        for a, b in ((0.0, 0.12), (0.18, 0.3)) if ls == "--" else ((0.0, 0.3),):
+            page.hline(kx + a, kx + b, ky - 0.04, colour, 1.4)
+        page.text(kx + 0.38, ky, shorten(text, cw / 2 - 0.45, st.SMALL), st.SMALL)
+    y += 0.2 + 0.17 * ((len(key) + 1) // 2)
     cf = ac.arr(section.get("variants", {}).get(names[0] if names else "", {}),
                 "collided_fraction")
     text = ("Cells: largest offset from the uncollided truth of the same cones, in units of "
@@ -372,7 +399,7 @@ def _correction_pages(section: dict[str, Any]) -> list[PageSpec]:
                         _corrections_cell(page, i, n, stats[n], tstats.get(n, {}), names)
                     _corrections_table(page, 5, section, stats, order)
 
-                title = f"{sname} · {cname}: fibre-collision corrections compared"
+                title = f"{sname} · {cname}: fibre-collision corrections"
                 if len(chunks) > 1:
                     title += f" ({k + 1}/{len(chunks)})"
                 specs.append(PageSpec(title, "corrections", draw, axes))
@@ -432,14 +459,15 @@ def _sweep_sample(page: Page, top: float, height: float, sname: str, s: dict[str
     axz.set_ylim(0, max(2 * z_fail, 1.15 * axz.get_ylim()[1]))
     axz.grid(True, axis="y")
     axz.tick_params(labelbottom=False)
-    axz.legend(loc="upper left", fontsize=st.SMALL, ncol=2, handlelength=1.0)
     axc.set_ylabel("χ²/dof")
     axc.set_ylim(bottom=0)
     axc.grid(True, axis="y")
+    axc.xaxis.set_major_locator(MaxNLocator(6))
     vlim = ac.num(s, "volume_limit_zmax")
     if numeric:
         axc.set_xlabel(f"z_max (z_min = {ac.fmt(next(iter(zmin)))})")
-        if math.isfinite(vlim):
+        span = float(xs.max() - xs.min()) if xs.size > 1 else 0.01
+        if math.isfinite(vlim) and xs.min() - 0.1 * span <= vlim <= xs.max() + 0.1 * span:
             for ax in (axz, axc):
                 ax.axvline(vlim, color=st.MUTED, lw=0.8, ls=":")
             axz.text(vlim, axz.get_ylim()[1] * 0.97, " volume limit", fontsize=st.SMALL,
@@ -458,6 +486,12 @@ def _sweep_sample(page: Page, top: float, height: float, sname: str, s: dict[str
             for c in labels]
     cap = rows_that_fit(height - 0.9, 0.2)
     y = draw_table(page, tx, top + 0.4, cols, rows[:cap], size=st.SMALL, row_h=0.2)
+    for k, name in enumerate(stats):
+        y += 0.18
+        colour = st.REGION_CYCLE[k % len(st.REGION_CYCLE)]
+        page.hline(tx, tx + 0.3, y - 0.04, colour, 1.2)
+        page.text(tx + 0.38, y, shorten(ac.stat_short(name), tw - 0.4, st.SMALL), st.SMALL)
+    y += 0.05
     note = ("Filled markers: the statistic passes at that cut; shaded: the cut passes (every "
             "statistic passes); dashed: z_fail; ★ primary cut.")
     _flow(page, tx, y + 0.02, tw, note, max_lines=max(0, int((top + height - y) / 0.15) - 1))
@@ -488,9 +522,26 @@ def _sweep_pages(results: dict[str, Any], section: dict[str, Any]) -> list[PageS
 
 
 # --------------------------------------------------------------------------- entry point
+def _error_page(title: str, key: str, message: str) -> PageSpec:
+    kind = {"cuts": "cut_sweep"}.get(key, key)
+
+    def draw(page: Page) -> None:
+        page.text(st.MARGIN_X, 1.3, "This part of the run stopped with an error; the rest of "
+                  "the report is complete:", st.BODY, bold=True)
+        _flow(page, st.MARGIN_X, 1.35, page.content_width, message, st.BODY, st.INK, 0.17)
+    return PageSpec(title, kind, draw)
+
+
 def attribution_pages(results: dict[str, Any]) -> list[PageSpec]:
     """Ladder, correction and cut-sweep pages for whichever sections the results hold."""
     specs: list[PageSpec] = []
+    for key, title in (("ladder", "Effect ladder"), ("corrections",
+                       "Fibre-collision corrections compared"), ("cuts", "Cut sweep")):
+        section = results.get(key)
+        if isinstance(section, dict) and section.get("error"):
+            specs.append(_error_page(f"{title}: not completed", key, str(section["error"])))
+    results = {k: v for k, v in results.items()
+               if not (isinstance(v, dict) and v.get("error"))}
     if isinstance(results.get("ladder"), dict):
         specs += _ladder_pages(results, results["ladder"])
     if isinstance(results.get("corrections"), dict):

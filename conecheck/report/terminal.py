@@ -9,7 +9,10 @@ from . import access as ac
 
 def summary_table(results: dict[str, Any]) -> str:
     """Columns sample, cut, statistic, verdict, max|z|, χ²/dof, p; then the overall verdict."""
-    head = ("sample", "cut", "statistic", "verdict", "max|z|", "chi2/dof", "p")
+    # an effect ladder names, for each failing statistic, the rung it fails from
+    ladder = any("first_failing_rung" in d for *_, d in ac.iter_stats(results))
+    head = ("sample", "cut", "statistic", "verdict", "max|z|", "chi2/dof", "p") + (
+        ("fails from",) if ladder else ())
     rows = []
     for sname, cname, stat, d in ac.iter_stats(results):
         cut = ac.cuts(ac.samples(results)[sname])[cname]
@@ -17,7 +20,8 @@ def summary_table(results: dict[str, Any]) -> str:
                      str(d.get("verdict") or "-").upper(),
                      ac.fmt_fixed(ac.max_abs_z(d)).replace("—", "-"),
                      ac.fmt_fixed(ac.chi2_per_dof(d)).replace("—", "-"),
-                     ac.fmt_p(ac.num(d, "p_value")).replace("—", "-")))
+                     ac.fmt_p(ac.num(d, "p_value")).replace("—", "-"))
+                    + ((str(d.get("first_failing_rung") or "-"),) if ladder else ()))
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
               for i, h in enumerate(head)]
     right = {4, 5, 6}
