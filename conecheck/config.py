@@ -384,16 +384,20 @@ class LadderConfig:
         redshift_errors, footprint, flux_limit, fibres (collisions, uncorrected when a
         ``correction`` step follows) and correction (the configured one). Effects not
         listed stay as configured on every rung; steps the survey switches off are skipped.
-        Rungs before ``footprint`` are full-sky cones, 1/f_sky times larger than survey
-        cones: they dominate the ladder's cost (put ``footprint`` first, or leave it out,
-        for a cheaper ladder).
+        Rungs before ``footprint`` see the sky chosen by ``sky``.
     cuts : {"primary", "all"}
         Which redshift cuts of each sample the ladder measures.
+    sky : {"cap", "full_sky"}
+        Sky of the rungs before the footprint step: ``cap``, a round cap with the
+        footprint's effective area centred on it (completeness 1: the survey's solid angle
+        without its edges, holes and completeness; as cheap as survey cones); ``full_sky``,
+        the whole sky (1/f_sky times larger cones).
     """
 
     enabled: bool = False
     order: tuple[str, ...] = DEFAULT_LADDER_ORDER
     cuts: Literal["primary", "all"] = "primary"
+    sky: Literal["cap", "full_sky"] = "cap"
 
     def __post_init__(self) -> None:
         problems = [f"order = {list(self.order)!r}: item {i} {s!r} is not a step; expected "
@@ -410,6 +414,8 @@ class LadderConfig:
                             f"collisions, so it must come after 'fibres'")
         if self.cuts not in ("primary", "all"):
             problems.append(f"cuts = {self.cuts!r}: expected 'primary' or 'all'")
+        if self.sky not in ("cap", "full_sky"):
+            problems.append(f"sky = {self.sky!r}: expected 'cap' or 'full_sky'")
         if problems:
             raise InputError("; ".join(problems), problems)
 

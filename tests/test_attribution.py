@@ -75,7 +75,7 @@ def _planted() -> dict:
                        "wp": {"rp_min": 0.5, "rp_max": 8.0, "n_rp": 5, "pi_max": 3.0}}
     d["jackknife"]["sky_regions"] = 8
     d["verdict"] = {"z_fail": 0.5, "n_sigma_offset": 1.5}
-    d["ladder"] = {}
+    d["ladder"] = {"sky": "full_sky"}
     d["corrections"] = {"names": ["none", "nearest_redshift", "nearest_upweight"]}
     d["cut_sweep"] = {"z_max": [0.03, 0.035]}
     return d
@@ -521,3 +521,39 @@ def test_a_failing_section_is_reported_and_spares_the_main_results(monkeypatch, 
     err = [s for s in specs if s.kind == "cut_sweep"]
     assert len(err) == 1 and "not completed" in err[0].title
     _check_page(draw_page(results, err[0], 1, 1), ())
+
+
+def test_equal_area_cap_of_the_footprint():
+    """The cap sky of the early rungs: spherical-cap area Ω = 2π(1 − cos θ) (elementary
+    geometry), matched to the footprint's effective area within HEALPix pixelisation."""
+    import numpy as np
+
+    from conecheck.footprint import Footprint
+    from conecheck.footprint.demo import demo_mask_path
+    from conecheck.run.inputs import cap_footprint
+
+    fp = Footprint.from_fits(demo_mask_path())
+    cap = cap_footprint(fp)
+    assert abs(cap.area_deg2 / fp.area_deg2 - 1) < 0.01
+    assert set(np.unique(cap.values)) == {0.0, 1.0}
+    # the cap sits on the footprint: most of it has completeness there
+    ra, dec = cap.sample(5000, np.random.default_rng(1))
+    assert np.mean(fp.completeness(ra, dec) > 0) > 0.5
+
+
+def test_default_ladder_uses_the_cap_and_stays_consistent(tmp_path):
+    from conecheck.attribution import extensions, with_attribution
+    from conecheck.config import config_from_dict
+    from conecheck.run.validate import validate
+
+    d = _small()
+    d["statistics"] = {"measure": ["number_density", "wp"],
+                       "wp": {"rp_min": 0.5, "rp_max": 8.0, "n_rp": 4, "pi_max": 10.0}}
+    d["jackknife"]["sky_regions"] = 8
+    cfg = config_from_dict(d, "cap test", tmp_path)
+    cfg = with_attribution(cfg)
+    res, _ = validate(cfg, tmp_path / "run", progress=False, extensions=extensions(cfg))
+    rungs = res["ladder"]["rungs"]
+    skies = [r["sky"] for r in rungs]
+    assert skies[0] == "equal-area cap" and skies[-1] == "survey footprint"
+    assert "error" not in res["ladder"]

@@ -15,9 +15,10 @@ flux limit, or the correction ``none``. When ``fibres`` is laddered without ``co
 the fibre step applies the configured correction.
 
 Cost: rungs share randoms and RR per sky geometry, the last rung is the main run's cones,
-and every measured piece is cached. Rungs before the footprint step are full-sky cones
-(full-sky randoms and jackknife regions), 1/f_sky times larger than survey cones, so they
-dominate the ladder's cost; ``benchmarks/bench_ladder.py`` measures it.
+and every measured piece is cached. Rungs before the footprint step see a round cap of the
+footprint's effective area (``ladder.sky = "cap"``, default: cones as large as the survey's)
+or the full sky (``"full_sky"``: 1/f_sky times larger cones that dominate the ladder's cost);
+``benchmarks/bench_ladder.py`` measures it.
 
 Every rung is compared with the same box measurements. Rung 0's *increment* is its offset
 from the box; rung k's increment is the mean over cones of the paired differences
@@ -77,12 +78,13 @@ class Rung:
     short: str
     variant: Variant
 
-    def describe(self) -> dict[str, Any]:
-        """Plain description for results.json."""
+    def describe(self, sky: str | None = None) -> dict[str, Any]:
+        """Plain description for results.json (``sky``: how the variant's sky is named)."""
         return {"name": self.name, "label": self.label, "short": self.short,
                 "effects": dataclasses.asdict(self.variant.effects),
                 "correction": self.variant.correction_applied,
-                "sky": "survey footprint" if self.variant.effects.footprint else "full sky"}
+                "sky": sky or ("survey footprint" if self.variant.effects.footprint
+                               else "full sky")}
 
 
 def _changes_nothing(cfg: RunConfig, step: str) -> str | None:
@@ -207,7 +209,8 @@ def run_ladder(variants: ConeVariants) -> dict[str, Any]:
                 _attribution(names, records, incs)
     return {
         "order": list(cfg.ladder.order),
-        "rungs": [dict(r.describe(), overall=t["overall"], seconds=sec, samples=t["samples"])
+        "rungs": [dict(r.describe(variants.sky_name(r.variant.effects.footprint)),
+                       overall=t["overall"], seconds=sec, samples=t["samples"])
                   for r, t, sec in zip(rungs, trees, seconds, strict=True)],
         "skipped": skipped,
         "cuts": cfg.ladder.cuts,

@@ -16,7 +16,7 @@ The increment d̄ = mean_i d_i gets the larger of two error estimates, bin by bi
   diagonal is averaged over cones and divided by N_eff, the rule the offset's own error
   σ_Δ uses: N for independent cones, else ``verdict.effective_cones`` (default 1, i.e.
   the mean of cones cut from one box is trusted no more than one cone). When the two
-  variants use different sky regions (full sky against the survey footprint) there is
+  variants use different sky regions (cap or full sky against the survey footprint) there is
   no common jackknife; the two variances are then added, which over-states the error
   when the variants are positively correlated, as they are here;
 * scatter of the paired differences over cones: var_i(d_i)/N (undefined with one cone).

@@ -6,8 +6,9 @@ streams (:mod:`conecheck.cone.build`) — so two variants differ only by what th
 do, including the noise those effects draw themselves. A variant shares whatever it can:
 
 * randoms and their pair counts (RR) with every variant of the same sky geometry (the
-  survey footprint; or the full sky, with full-sky jackknife regions, once the footprint
-  effect is off);
+  survey footprint; or, once the footprint effect is off, a round cap of the footprint's
+  effective area (``ladder.sky = "cap"``, the default) or the full sky, each with its own
+  jackknife regions);
 * the main run's cones when the variant is the configured survey;
 * every piece (cone × sample × cut) already measured in this run, in memory, and every
   piece in the run's task cache on disk (its keys include effects, correction, cut and
@@ -24,7 +25,7 @@ from typing import Any
 
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig, SampleConfig
-from ..run.inputs import load_footprint, sky_regions
+from ..run.inputs import cap_footprint, load_footprint, sky_regions
 from ..run.pipeline import RunInputs, cone_stage, randoms_stage
 
 log = logging.getLogger(__name__)
@@ -110,17 +111,38 @@ class ConeVariants:
         self._merge(main_variant(self.cfg), stages["cones"])
 
     # ----------------------------------------------------------------- geometry
+    @property
+    def uses_cap(self) -> bool:
+        """True when footprint-less variants see an equal-area cap instead of the full sky."""
+        return self.cfg.ladder.sky == "cap" and self.cfg.effects.footprint
+
+    def sky_name(self, footprint: bool) -> str:
+        """How the sky of a variant is described in results.json."""
+        if footprint:
+            return "survey footprint"
+        return "equal-area cap" if self.uses_cap else "full sky"
+
     def geometry(self, footprint: bool) -> RunInputs:
-        """Run inputs for the survey footprint (True) or the full sky (False)."""
+        """Run inputs for the survey footprint (True), or else the cap or the full sky."""
         if footprint not in self._geometries:
-            cfg = dataclasses.replace(self.cfg, effects=dataclasses.replace(
-                self.cfg.effects, footprint=footprint))
-            fp = load_footprint(cfg)
+            if self.uses_cap and not footprint:
+                fp = cap_footprint(self._geometries[True].footprint)
+            else:
+                cfg = dataclasses.replace(self.cfg, effects=dataclasses.replace(
+                    self.cfg.effects, footprint=footprint))
+                fp = load_footprint(cfg)
             self._geometries[footprint] = dataclasses.replace(
                 self.inp, footprint=fp, regions=sky_regions(self.cfg, fp))
-            log.info("attribution: %s geometry with %d jackknife regions",
-                     "survey" if footprint else "full-sky", self._geometries[footprint].regions.k)
+            log.info("attribution: %s geometry (%.0f deg2) with %d jackknife regions",
+                     self.sky_name(footprint), fp.area_deg2,
+                     self._geometries[footprint].regions.k)
         return self._geometries[footprint]
+
+    def build_effects(self, variant: Variant) -> EffectSwitches:
+        """The switches the cone builder gets: a cap is applied as a footprint."""
+        if self.uses_cap and not variant.effects.footprint:
+            return dataclasses.replace(variant.effects, footprint=True)
+        return variant.effects
 
     def _randoms_for(self, geo: RunInputs, variant: Variant, pieces: Sequence[Piece]
                      ) -> tuple[dict[str, dict[str, Any]], dict[str, dict[str, str]]]:
@@ -128,7 +150,7 @@ class ConeVariants:
         need = [(s, c) for s, c in pieces if (fp, s.name, c.label) not in self._randoms]
         if need:
             sub = dataclasses.replace(geo, cfg=config_for(self.cfg, need))
-            rnd, keys = randoms_stage(sub, self.box, effects=variant.effects)
+            rnd, keys = randoms_stage(sub, self.box, effects=self.build_effects(variant))
             for sname, cuts in rnd.items():
                 for label, payload in cuts.items():
                     self._randoms[(fp, sname, label)] = (payload, keys[sname][label])
@@ -169,7 +191,7 @@ class ConeVariants:
             geo = self.geometry(variant.effects.footprint)
             randoms, rkeys = self._randoms_for(geo, variant, missing)
             sub = dataclasses.replace(geo, cfg=config_for(self.cfg, missing))
-            cones = cone_stage(sub, randoms, rkeys, effects=variant.effects,
+            cones = cone_stage(sub, randoms, rkeys, effects=self.build_effects(variant),
                                correction=CorrectionSettings(variant.correction_applied),
                                stage=stage)
             self._merge(variant, cones)

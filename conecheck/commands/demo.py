@@ -23,8 +23,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--ladder", action="store_true",
                         help="also run the effect ladder, the fibre-collision correction "
                              "comparison and the redshift-cut sweep. Runs at the --quick "
-                             "scale (a few minutes): the ladder's first rungs are full-sky "
-                             "cones, which at the full demo's scale take about half an hour")
+                             "scale, so it finishes in about a minute (the full scale costs "
+                             "about three full demos)")
 
 
 def main(args: argparse.Namespace) -> int:

@@ -107,6 +107,31 @@ def load_footprint(cfg: RunConfig) -> Footprint:
     return Footprint.from_fits(mask, vetoes)
 
 
+def cap_footprint(footprint: Footprint) -> Footprint:
+    """A round cap of ``footprint``'s effective area around its centre, completeness 1.
+
+    The survey's solid angle without its edges, holes and completeness variations: the sky
+    of the effect ladder's rungs before the footprint step. Centre: the completeness-
+    weighted mean direction of the footprint's pixels; opening angle θ from
+    Ω = 2π (1 − cos θ) (area of a spherical cap), at the footprint's N_side.
+    """
+    vec = footprint.occupied_vectors()
+    w = footprint.values[footprint.occupied]
+    centre = (vec * w[:, None]).sum(axis=0)
+    norm = float(np.linalg.norm(centre))
+    if norm < 1e-6:  # a footprint spread evenly over the sky: no meaningful centre
+        centre, norm = np.array([0.0, 0.0, 1.0]), 1.0
+    centre = centre / norm
+    cos_theta = max(1.0 - footprint.area_sr / (2.0 * np.pi), -1.0)
+    values = np.zeros(hp.nside2npix(footprint.nside))
+    values[hp.query_disc(footprint.nside, centre, float(np.arccos(cos_theta)),
+                         nest=footprint.nest)] = 1.0
+    ra, dec = hp.vec2ang(centre, lonlat=True)
+    return Footprint(values, nest=footprint.nest,
+                     source=(f"cap of {footprint.area_deg2:.1f} deg2 around RA {ra[0]:.2f}, "
+                             f"Dec {dec[0]:.2f} (from {footprint.source})"))
+
+
 def sky_regions(cfg: RunConfig, footprint: Footprint) -> SkyRegions:
     """K near-equal-area jackknife regions of the footprint (seeded by the run seed)."""
     return jackknife_regions(footprint, cfg.jackknife.sky_regions, seed=cfg.seed)

@@ -153,7 +153,7 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
     base = {**inp.identity(), "survey": asdict(c.survey), "shell": asdict(c.shell),
             "effects": asdict(eff), "fibres": asdict(c.fibres), "correction": asdict(corr),
             "redshift_errors": asdict(c.redshift_errors), "observers": asdict(c.cones.observers),
-            "n_cones": c.cones.n_cones, "tag": tag}
+            "n_cones": c.cones.n_cones, "tag": tag, "footprint": _footprint_key(inp, eff)}
     box_ref = inp.executor.share(inp.box)
     fp_ref, reg_ref = inp.executor.share(inp.footprint), inp.executor.share(inp.regions)
     pieces: list[dict[tuple[str, str], Any]] = []
@@ -237,11 +237,15 @@ def _stat_settings(cfg: RunConfig) -> dict[str, Any]:
 
 
 def _footprint_key(inp: RunInputs, effects: EffectSwitches | None) -> Any:
+    """What the sky of a stage depends on: the footprint in use, not only its switch."""
     eff = effects or inp.cfg.effects
+    fp = inp.footprint
+    ident = {"source": str(fp.source), "nside": int(fp.nside),
+             "area_deg2": float(fp.area_deg2)}
     if not eff.footprint:
-        return "full sky"
+        return {"full sky": True, **ident}
     return {"mask": inp.cfg.survey.mask, "vetoes": list(inp.cfg.survey.vetoes),
-            "files": sorted(inp.hashes.values())}
+            "files": sorted(inp.hashes.values()), **ident}
 
 
 # --------------------------------------------------------------------------- helpers
