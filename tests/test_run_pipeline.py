@@ -191,3 +191,21 @@ def test_a_failing_measurement_names_cone_sample_and_cut(tmp_path, monkeypatch):
         _run(tiny_dict(seed=9), tmp_path / "run")
     text = str(exc.value)
     assert "cone 0" in text and "sample M20, cut primary" in text and "overflow" in text
+
+
+def test_fresh_ignores_and_a_corrupt_entry_is_recomputed(tmp_path, caplog):
+    d = tiny_dict(seed=10)
+    ref, _ = _run(d, tmp_path / "run")
+    res, _ = _run(d, tmp_path / "run", fresh=True)
+    assert res["provenance"]["cache"]["hits"] == 0 and _numbers(res) == _numbers(ref)
+    # damage one cached entry: it is detected by its checksum, noted and recomputed
+    npz = sorted((tmp_path / "run" / "cache").rglob("*.npz"))[0]
+    data = bytearray(npz.read_bytes())
+    data[len(data) // 2] ^= 0xFF
+    npz.write_bytes(bytes(data))
+    with caplog.at_level("WARNING", logger="conecheck"):
+        res, _ = _run(d, tmp_path / "run")
+    assert res["provenance"]["cache"]["corrupt"] == 1
+    assert any("corrupt" in r.getMessage().lower() or "checksum" in r.getMessage().lower()
+               for r in caplog.records)
+    assert _numbers(res) == _numbers(ref)
