@@ -1,7 +1,9 @@
 """End-to-end benchmark: a whole ``conecheck run`` against a per-cone recount baseline.
 
-Run with ``python benchmarks/bench_run.py`` (standard workload, roughly half an hour on two
-cores, most of it in the baseline) or ``--quick`` (a smoke run of a few minutes).
+Run with ``python benchmarks/bench_run.py`` (standard workload, about 20-25 minutes on two
+idle cores, half of it in the baseline) or ``--quick`` (a smoke run of about two minutes).
+The conecheck side runs once per scheduler of ``--scheduler`` (default: ``local`` and
+``local-cluster``).
 
 Standard workload: the built-in synthetic box (L = 585 Mpc/h, about 10^6 galaxies) in the
 invented Kestrel footprint, shell 0.02 < z < 0.10, 8 cones, the two demo samples (M < −20;
@@ -147,12 +149,50 @@ def n_threads() -> int:
 
 
 # --------------------------------------------------------------------------- conecheck side
+class _TimedStatistic:
+    """Wraps a registry entry to add up the time of each call (in-process runs only).
+
+    The pipeline reaches every statistic through :data:`conecheck.stats.STATISTICS`, so
+    replacing the entries there times box measurements, the shared per-cut work (wp's RR)
+    and per-cone measurements without touching conecheck.
+    """
+
+    def __init__(self, inner: Any, times: dict[str, float]) -> None:
+        self._inner = inner
+        self._times = times
+
+    def __getattr__(self, attr: str) -> Any:
+        return getattr(self._inner, attr)
+
+    def _timed(self, what: str, method: str, *args: Any, **kwargs: Any) -> Any:
+        t0 = time.perf_counter()
+        try:
+            return getattr(self._inner, method)(*args, **kwargs)
+        finally:
+            key = f"{self._inner.name} {what}"
+            self._times[key] = self._times.get(key, 0.0) + time.perf_counter() - t0
+
+    def measure_box(self, *args: Any, **kwargs: Any) -> Any:
+        return self._timed("box", "measure_box", *args, **kwargs)
+
+    def prepare_cone(self, *args: Any, **kwargs: Any) -> Any:
+        return self._timed("shared", "prepare_cone", *args, **kwargs)
+
+    def measure_cone(self, *args: Any, **kwargs: Any) -> Any:
+        return self._timed("cone", "measure_cone", *args, **kwargs)
+
+
 def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, Any]:
     """Run the whole validation; stage times, wall time, memory and cone-0 values."""
     from conecheck.run.validate import validate
+    from conecheck.stats import STATISTICS
 
     cfg = make_config(d, work)
     out = work / "run"
+    stat_times: dict[str, float] = {}
+    if cfg.compute.scheduler == "local":
+        for name in list(STATISTICS):
+            STATISTICS[name] = _TimedStatistic(STATISTICS[name], stat_times)
     prof = cProfile.Profile() if profile else None
     t0 = time.perf_counter()
     if prof is not None:
@@ -174,7 +214,8 @@ def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, An
               "peak_rss_worker_mib": peak_rss_mib(resource.RUSAGE_CHILDREN),
               "n_box": prov["box"]["n_galaxies"],
               "box_size": prov["box"]["box_size"], "cone0": cone0,
-              "area_deg2": results["footprint"]["area_deg2"], "threads": n_threads()}
+              "area_deg2": results["footprint"]["area_deg2"], "threads": n_threads(),
+              "statistic_times": stat_times}
     if prof is not None:
         report["profile"] = profile_text(prof)
     return report
@@ -448,12 +489,39 @@ def describe(d: dict[str, Any]) -> str:
             f"{d['jackknife']['sky_regions']} sky regions ({d['jackknife']['box_n_side']}^2 box "
             f"columns); wp r_p {d['statistics']['wp']['rp_min']}-{d['statistics']['wp']['rp_max']}"
             f" Mpc/h in {d['statistics']['wp']['n_rp']} bins, pi_max "
-            f"{d['statistics']['wp']['pi_max']:g}, RR {d['statistics']['wp']['rr_method']}; "
-            f"scheduler {d['compute']['scheduler']}")
+            f"{d['statistics']['wp']['pi_max']:g}, RR {d['statistics']['wp']['rr_method']}")
+
+
+def git_commit() -> str:
+    """The checked-out commit, marked when the work tree differs from it."""
+    repo = Path(__file__).resolve().parent.parent
+    try:
+        head = subprocess.run(["git", "-C", str(repo), "rev-parse", "--short", "HEAD"],
+                              capture_output=True, text=True, check=True).stdout.strip()
+        dirty = subprocess.run(["git", "-C", str(repo), "status", "--porcelain",
+                                "--untracked-files=no"], capture_output=True, text=True,
+                               check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+    return head + (" with uncommitted changes" if dirty else "")
+
+
+#: What the comparison measures, written beside the numbers.
+BASELINE_NOTE = (
+    "The baseline is what an analysis without conecheck's design would do for the same "
+    "cones: per cone and cut a fresh random catalogue (same size and generator as "
+    "conecheck's) and DD, DR and RR counted afresh, then Landy–Szalay; it computes no "
+    "jackknife for wp, while conecheck also produces every delete-one wp. Cone builds, "
+    "number density, counts-in-cylinders and VPF run the same conecheck code on both sides "
+    "(same catalogues and seeds), so they add the same time to both and dilute the ratio; "
+    "the wp path alone is compared on the line below the table. The baseline runs in one "
+    "process with the pair counter on every core; conecheck runs as configured "
+    "(``local``: one process, numba threads on every core; ``local-cluster``: two dask "
+    "worker processes of one numba thread each).")
 
 
 def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict[str, Any],
-                     command: str) -> list[str]:
+                     command: str, commit: str = "unknown") -> list[str]:
     """The markdown report: ``runs`` maps each scheduler to its conecheck report."""
     c = next(iter(runs.values()))
     lines: list[str] = []
@@ -463,10 +531,13 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
     say(f"Date {dt.date.today().isoformat()}; machine {platform.machine()}, {os.cpu_count()} "
         f"cores, numba threads {c['threads']}; Python {platform.python_version()}, numpy "
         f"{np.__version__}, numba {numba.__version__}"
-        + (", Corrfunc " + _corrfunc_version() if DDrppi_mocks is not None else ""))
-    say(f"Command: `{command}`")
+        + (", Corrfunc " + _corrfunc_version() if DDrppi_mocks is not None else "") + ".")
+    say("")
+    say(f"Command: `{command}`; conecheck commit {commit}.")
     say("")
     say(f"Workload: {describe(d)}. Box: {c['n_box']:,} galaxies.")
+    say("")
+    say(BASELINE_NOTE)
     say("")
     say("Galaxies and randoms per cone (cone 0):")
     say("")
@@ -497,6 +568,20 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
     same = sum(b["times"][k] for k in ("build", "number_density", "cic", "vpf"))
     say(f"Of the baseline: wp path (randoms, DD, DR, RR, Landy–Szalay) {pair:.1f} s; parts "
         f"computed by the same code on both sides (cone builds, density, cic, VPF) {same:.1f} s.")
+    for sched, cr in runs.items():
+        st = cr.get("statistic_times") or {}
+        if not st:
+            continue
+        wp_path = cr["timings"].get("randoms", 0.0) + st.get("wp cone", 0.0)
+        say(f"wp path alone (scheduler {sched}): conecheck's randoms stage (randoms and RR of "
+            f"every cut) + wp on every cone (DD, DR, delete-one wp) {wp_path:.1f} s against the "
+            f"baseline's {pair:.1f} s: ratio **{pair / wp_path:.2f}**.")
+        outside = cr["timings"].get("cones", 0.0) - sum(v for k, v in st.items()
+                                                         if k.endswith(" cone"))
+        say(f"conecheck time by statistic, scheduler {sched} [s]: " + ", ".join(
+            f"{k} {v:.1f}" for k, v in sorted(st.items()) if v >= 0.05)
+            + "; cone stage outside the "
+            f"statistics (builds, cuts, bookkeeping) {outside:.1f}.")
     say("")
     for sched, cr in runs.items():
         say(f"conecheck stage times, scheduler {sched} [s]: " + ", ".join(
@@ -551,9 +636,11 @@ def _corrfunc_version() -> str:
 
 
 def scaling_lines(rows: list[tuple[str, dict[str, Any], dict[str, Any]]],
-                  command: str) -> list[str]:
+                  command: str, commit: str = "unknown") -> list[str]:
     lines = [f"Date {dt.date.today().isoformat()}; {os.cpu_count()} cores; command: "
-             f"`{command}`. conecheck only (the baseline repeats the same work for every "
+             f"`{command}`; conecheck commit {commit}; scheduler "
+             f"{rows[0][1]['compute']['scheduler']}; workload as above but for the number of "
+             "cones and the box side. conecheck only (the baseline repeats the same work for every "
              "cone, so its time is linear in the number of cones by construction).", "",
              "| run | box galaxies | " + " | ".join(STAGES) + " | whole run [s] | "
              "randoms + cones per cone [s] | peak MiB | load average |",
@@ -613,6 +700,7 @@ def main(argv: list[str] | None = None) -> int:
     command = "python benchmarks/bench_run.py " + " ".join(argv if argv is not None
                                                             else sys.argv[1:])
     command = command.strip()
+    commit = git_commit()
     own_dir = args.workdir is None
     work = Path(tempfile.mkdtemp(prefix="conecheck-bench-") if own_dir else args.workdir)
     work.mkdir(parents=True, exist_ok=True)
@@ -638,7 +726,7 @@ def main(argv: list[str] | None = None) -> int:
                 c = run_part("conecheck", d, work)
                 rows.append((label, d, c))
                 print(f"{label}: whole run {c['wall']:.1f} s", flush=True)
-            lines = scaling_lines(rows, command)
+            lines = scaling_lines(rows, command, commit)
             print("\n".join(lines))
             if (not args.quick or args.write) and not args.no_write:
                 write_section(SCALING_START, SCALING_END,
@@ -649,7 +737,7 @@ def main(argv: list[str] | None = None) -> int:
         runs: dict[str, dict[str, Any]] = {}
         for sched in schedulers:
             d = workload(args.quick, args.cones, args.box_size, sched)
-            print(f"workload: {describe(d)}", flush=True)
+            print(f"workload: {describe(d)}; scheduler {sched}", flush=True)
             c = run_part("conecheck", d, work, profile=args.profile)
             runs[sched] = c
             print(f"conecheck ({sched}): whole run {c['wall']:.1f} s, randoms + cones "
@@ -665,7 +753,7 @@ def main(argv: list[str] | None = None) -> int:
             print("Corrfunc is not importable: the baseline counts with scipy's cKDTree "
                   "(much slower; see DEVELOPERS.md to install Corrfunc)", flush=True)
         b = run_part("baseline", d, work)
-        lines = comparison_lines(d, runs, b, command)
+        lines = comparison_lines(d, runs, b, command, commit)
         print("\n".join(lines))
         if write:
             write_section(START, END, "## Whole run against a per-cone recount "

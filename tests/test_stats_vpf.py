@@ -67,3 +67,22 @@ def test_vpf_needs_rng_and_layout():
                 rng)
     with pytest.raises(InputError, match="radii"):
         VpfSettings(radii=(4.0, 2.0))
+
+
+def test_shared_sphere_centres_give_the_same_vpf_as_drawing_them_per_cone():
+    """Centres drawn once per cut (pipeline) and per call are the same computation."""
+    from conecheck.stats.vpf import vpf_cone_centres
+
+    rng = np.random.default_rng(4)
+    L, n = 200.0, 3e-3
+    geo = sh.geometry(sh.patch(32, ra=(0, 60), dec=(-20, 20)), 40.0, 100.0, 6)
+    data = sh.shell_from_box(sh.poisson(rng, n, L), L, 40.0, 100.0, geo)
+    s = VpfSettings(radii=RADII, n_spheres=5000)
+    per_call = vpf_cone(data, geo, s, np.random.default_rng(9))
+    shared = vpf_cone_centres(geo, s, np.random.default_rng(9))
+    reused = vpf_cone(data, geo, s, None, centres=shared)
+    np.testing.assert_array_equal(per_call.value, reused.value)
+    np.testing.assert_array_equal(per_call.delete_one, reused.delete_one)
+    with pytest.raises(InputError, match="radii"):
+        vpf_cone(data, geo, VpfSettings(radii=RADII[:2], n_spheres=5000), None,
+                 centres=shared)

@@ -130,7 +130,7 @@ def test_wp_cone_poisson_zero_and_rr_reuse():
     np.testing.assert_array_equal(m.delete_one, m2.delete_one)
 
 
-def test_split_random_rr_agrees_with_full():
+def test_split_random_rr_agrees_with_full(monkeypatch):
     # Split-random RR (Keihänen et al. 2019, A&A 631, A73): pairs only within M disjoint
     # random subsets the size of the data.  Basis of the tolerances: both normalised RRs are
     # unbiased and, for uniform randoms, Poisson-distributed to leading order, so they differ
@@ -138,6 +138,10 @@ def test_split_random_rr_agrees_with_full():
     # Δwp ≈ 2Δπ Σ_π (1 + ξ) δRR/RR, bounded the same way.  (From memory, the paper finds
     # the extra variance negligible at this subset size when the data are not much more
     # clustered than the randoms' noise; the strongly clustered case here is the hard one.)
+    import conecheck.stats.wp as wp_module
+
+    # subsets the size of these small test catalogues (the pipeline keeps them ≥ 50,000)
+    monkeypatch.setattr(wp_module, "MIN_SPLIT_SUBSET", 1)
     rng, geo, data, rand = _cone_setup(5, n_randoms=20)
     kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}
     rr_full = count_rr_cone(rand, geo, WpSettings(**kw))
@@ -192,3 +196,16 @@ def test_wp_bad_input():
         wp_cone(data, holes, geo, WpSettings(rp_edges=EDGES, pi_max=20.0, dpi=2.0))
     with pytest.raises(InputError, match="n_data"):
         count_rr_cone(rand, geo, WpSettings(rr_method="split"))
+
+
+def test_split_rr_keeps_subsets_large_enough():
+    """Small catalogues fall back to fewer (here: one) subsets rather than sparse RR bins."""
+    from conecheck.stats.wp import MIN_SPLIT_SUBSET
+
+    _, geo, data, rand = _cone_setup(5, n_randoms=20)
+    assert len(rand) < MIN_SPLIT_SUBSET
+    kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}
+    rr = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split"), n_data=len(data))
+    assert rr.n_subsets == 1
+    full = count_rr_cone(rand, geo, WpSettings(**kw))
+    np.testing.assert_allclose(rr.normalised(), full.normalised(), rtol=1e-12)

@@ -34,7 +34,7 @@ from .serialize import pack, unpack
 log = logging.getLogger("conecheck.run")
 
 #: Bump when the meaning of cached results changes without a version change.
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2
 
 _KEY_CHARS = 24
 _CHUNK = 1 << 20

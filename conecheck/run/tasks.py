@@ -105,7 +105,8 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
     -------
     dict
         ``ra``, ``dec`` [deg], ``chi`` [Mpc/h], ``weight``, ``region`` arrays and ``shared``
-        (statistic → plain dict of its shared counts, or absent).
+        (statistic → ``{"pair_counts": …}`` for wp's RR or ``{"arrays": …}`` for the VPF's
+        sphere centres).
     """
     del effects  # part of the cache key only: the geometry follows the footprint passed in
     sample = _sample(cfg, sample_name)
@@ -119,10 +120,13 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
     geometry = ConeGeometry(footprint, lo, hi, regions)
     shared = {}
     for name in cfg.statistics.measure:
-        s = STATISTICS[name].prepare_cone(rand, geometry, cfg.statistics.get(name),
-                                          n_data=max(int(round(n_expected)), 1))
+        s = STATISTICS[name].prepare_cone(
+            rand, geometry, cfg.statistics.get(name), n_data=max(int(round(n_expected)), 1),
+            rng=task_rng(cfg.seed, "shared", sample.name, cut.label, name))
         if isinstance(s, PairCounts):
-            shared[name] = _pair_counts_to_dict(s)
+            shared[name] = {"pair_counts": _pair_counts_to_dict(s)}
+        elif isinstance(s, dict):
+            shared[name] = {"arrays": s}
     return {"ra": rand.ra, "dec": rand.dec, "chi": rand.chi, "weight": rand.w,
             "region": rand.region, "shared": shared}
 
@@ -133,9 +137,12 @@ def randoms_sample(payload: dict[str, Any], regions: Any) -> ConeSample:
                       payload["region"], regions.k)
 
 
-def shared_counts(payload: dict[str, Any]) -> dict[str, PairCounts]:
-    """The shared pair counts of a randoms task result."""
-    return {k: PairCounts(**v) for k, v in payload.get("shared", {}).items()}
+def shared_counts(payload: dict[str, Any]) -> dict[str, Any]:
+    """What every cone of a cut shares, per statistic (pair counts, sphere centres)."""
+    out: dict[str, Any] = {}
+    for k, v in payload.get("shared", {}).items():
+        out[k] = PairCounts(**v["pair_counts"]) if "pair_counts" in v else v["arrays"]
+    return out
 
 
 # --------------------------------------------------------------------------- cones

@@ -4,8 +4,9 @@ Each entry of :data:`STATISTICS` has
 
 * ``name`` and ``settings_type`` (the frozen settings dataclass of ``[statistics.<name>]``);
 * ``measure_box(sample, settings, rng, *, jackknife=None) -> Measurement``;
-* ``prepare_cone(randoms, geometry, settings, *, n_data=None)`` → the work shared by every
-  cone of one sample and cut (wp: the RR counts; others: ``None``);
+* ``prepare_cone(randoms, geometry, settings, *, n_data=None, rng=None)`` → the work shared
+  by every cone of one sample and cut (wp: the RR counts; VPF: the sphere centres and their
+  inside-the-survey test, drawn with ``rng``; others: ``None``);
 * ``measure_cone(sample, randoms, geometry, settings, rng, shared=None, *, jackknife=None)``.
 """
 
@@ -27,7 +28,7 @@ from .settings import (
     VpfSettings,
     WpSettings,
 )
-from .vpf import vpf_box, vpf_cone
+from .vpf import vpf_box, vpf_cone, vpf_cone_centres
 from .wp import count_rr_cone, wp_box, wp_cone
 
 
@@ -42,7 +43,8 @@ class Statistic:
         return self.settings_type() if settings is None else settings
 
     def prepare_cone(self, randoms: ConeSample, geometry: ConeGeometry, settings: Any = None,
-                     *, n_data: int | None = None) -> Any:
+                     *, n_data: int | None = None, rng: np.random.Generator | None = None
+                     ) -> Any:
         """Work shared by all cones of one sample and cut (none by default)."""
         return None
 
@@ -68,7 +70,7 @@ class _NumberDensity(Statistic):
 
 
 class _Wp(Statistic):
-    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None):
+    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
         return count_rr_cone(randoms, geometry, self.settings_or_default(settings),
                              n_data=n_data)
 
@@ -90,12 +92,18 @@ class _Cic(Statistic):
 
 
 class _Vpf(Statistic):
+    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
+        # sphere centres and their inside-the-survey test depend on the geometry only
+        if rng is None:
+            return None
+        return vpf_cone_centres(geometry, self.settings_or_default(settings), rng)
+
     def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return vpf_box(sample, settings, rng, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
                      jackknife=None):
-        return vpf_cone(sample, geometry, settings, rng, jackknife=jackknife)
+        return vpf_cone(sample, geometry, settings, rng, jackknife=jackknife, centres=shared)
 
 
 class _Annuli(Statistic):

@@ -15,6 +15,8 @@ spheres centred in region k.
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from numpy.typing import NDArray
 
@@ -105,9 +107,40 @@ def sphere_centres_cone(geometry: ConeGeometry, n: int, rng: np.random.Generator
     return np.asarray(ra, dtype=np.float64), np.asarray(dec, dtype=np.float64), np.cbrt(c3)
 
 
+def vpf_cone_centres(geometry: ConeGeometry, settings: VpfSettings | None,
+                     rng: np.random.Generator) -> dict[str, NDArray[Any]]:
+    """Random sphere centres of one survey geometry and which of them lie inside it.
+
+    Depends only on the footprint, the radial limits and the radii, never on the galaxies:
+    the pipeline draws them once per sample and cut and shares them with every cone (like
+    the randoms), which removes the footprint look-ups from every cone's measurement.
+
+    Returns
+    -------
+    dict
+        ``ra``, ``dec`` [deg], ``chi`` [Mpc/h] of the centres, ``use`` (n_spheres × n_radii:
+        sphere wholly inside the survey, the geometric test of :func:`vpf_cone`) and
+        ``region`` (sky jackknife region of each centre, −1 outside every region).
+    """
+    s = settings or VpfSettings()
+    radii = np.asarray(s.radii)
+    ra, dec, chi = sphere_centres_cone(geometry, s.n_spheres, rng)
+    use = np.empty((s.n_spheres, radii.size), dtype=bool)
+    for i, r in enumerate(radii):
+        radial = (chi - r >= geometry.chi_min) & (chi + r <= geometry.chi_max)
+        ang = np.degrees(np.arcsin(np.clip(r / chi, 0.0, 1.0)))
+        frac = np.zeros(s.n_spheres)
+        if radial.any():
+            frac[radial] = geometry.footprint.disc_fraction(ra[radial], dec[radial], ang[radial])
+        use[:, i] = radial & (frac >= s.min_inside_fraction)
+    region = (np.full(ra.size, -1, dtype=np.int64) if geometry.regions is None else
+              np.asarray(geometry.regions.region_of(ra, dec), dtype=np.int64))
+    return {"ra": ra, "dec": dec, "chi": chi, "use": use, "region": region}
+
+
 def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings | None = None,
-             rng: np.random.Generator | None = None, *, jackknife: bool | None = None
-             ) -> Measurement:
+             rng: np.random.Generator | None = None, *, jackknife: bool | None = None,
+             centres: dict[str, NDArray[Any]] | None = None) -> Measurement:
     """P₀(R) of a cone sample from random spheres wholly inside the survey.
 
     Parameters
@@ -117,34 +150,34 @@ def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings |
         Footprint, shell limits and (for the jackknife) the sky regions.
     settings : VpfSettings, optional
     rng : numpy.random.Generator
-        Seeded generator for the sphere centres (required).
+        Seeded generator for the sphere centres (required unless ``centres`` is given).
     jackknife : bool, optional
+    centres : dict, optional
+        Centres shared by every cone of one sample and cut (:func:`vpf_cone_centres`).
     """
     s = settings or VpfSettings()
-    if rng is None:
-        raise InputError("vpf: a seeded numpy Generator (rng) is needed for the sphere centres")
     radii = np.asarray(s.radii)
     jk = want_jackknife(jackknife, sample.n_regions, "vpf")
-    ra, dec, chi = sphere_centres_cone(geometry, s.n_spheres, rng)
-    centres = ConeSample(ra, dec, chi).xyz
+    if centres is None:
+        if rng is None:
+            raise InputError("vpf: a seeded numpy Generator (rng) is needed for the sphere "
+                             "centres")
+        centres = vpf_cone_centres(geometry, s, rng)
+    ra, dec, chi = centres["ra"], centres["dec"], centres["chi"]
+    if centres["use"].shape != (ra.size, radii.size):
+        raise InputError(f"vpf: shared sphere centres were made for {centres['use'].shape[1]} "
+                         f"radii, the settings have {radii.size}")
+    use = np.array(centres["use"], dtype=bool)
     occupied = (sample.w > 0).astype(np.float64)
-    counts = neighbours_cone(centres, sample.xyz, occupied,
+    counts = neighbours_cone(ConeSample(ra, dec, chi).xyz, sample.xyz, occupied,
                              edges=np.concatenate([[0.0], radii]))
-    use = np.empty((s.n_spheres, radii.size), dtype=bool)
-    for i, r in enumerate(radii):
-        radial = (chi - r >= geometry.chi_min) & (chi + r <= geometry.chi_max)
-        ang = np.degrees(np.arcsin(np.clip(r / chi, 0.0, 1.0)))
-        frac = np.zeros(s.n_spheres)
-        if radial.any():
-            frac[radial] = geometry.footprint.disc_fraction(ra[radial], dec[radial], ang[radial])
-        use[:, i] = radial & (frac >= s.min_inside_fraction)
     region = None
     k = 0
     if jk:
         k = sample.n_regions
         if geometry.regions is None:
             raise InputError("vpf: the cone jackknife needs the geometry's region map")
-        region = np.asarray(geometry.regions.region_of(ra, dec), dtype=np.int64)
+        region = np.asarray(centres["region"], dtype=np.int64)
         outside = region < 0
         use[outside] = False
         region = np.where(outside, 0, region)

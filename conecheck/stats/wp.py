@@ -41,6 +41,10 @@ from .settings import WpSettings
 NAME = "wp"
 
 
+
+#: Smallest random subset of the split RR method (fewer subsets are used below it).
+MIN_SPLIT_SUBSET = 50_000
+
 def _overlap_perp(e: NDArray[np.float64], a: float) -> NDArray[np.float64]:
     """∫ (a − |s_x|)(a − |s_y|) d²s_perp over each r_p annulus [(Mpc/h)⁴]."""
     r1, r2 = e[:-1], e[1:]
@@ -148,6 +152,9 @@ def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
         raise InputError("wp: rr_method = 'split' needs the data size (n_data) to size the "
                          "random subsets")
     m = max(1, int(round(len(randoms) / (settings.split_factor * n_data))))
+    # Tiny subsets leave the smallest (r_p, π) bins with a handful of random pairs, and a
+    # delete-one region can then empty a bin: keep every subset at least this large.
+    m = max(1, min(m, len(randoms) // MIN_SPLIT_SUBSET))
     w = randoms.w
     total: PairCounts | None = None
     for s in range(m):
