@@ -140,7 +140,7 @@ def test_split_random_rr_agrees_with_full(monkeypatch):
     # clustered than the randoms' noise; the strongly clustered case here is the hard one.)
     import conecheck.stats.wp as wp_module
 
-    # subsets the size of these small test catalogues (the pipeline keeps them ≥ 50,000)
+    # subsets the size of these small test catalogues (the pipeline keeps them ≥ MIN_SPLIT_SUBSET)
     monkeypatch.setattr(wp_module, "MIN_SPLIT_SUBSET", 1)
     rng, geo, data, rand = _cone_setup(5, n_randoms=20)
     kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}

@@ -43,7 +43,7 @@ NAME = "wp"
 
 
 #: Smallest random subset of the split RR method (fewer subsets are used below it).
-MIN_SPLIT_SUBSET = 50_000
+MIN_SPLIT_SUBSET = 20_000
 
 def _overlap_perp(e: NDArray[np.float64], a: float) -> NDArray[np.float64]:
     """∫ (a − |s_x|)(a − |s_y|) d²s_perp over each r_p annulus [(Mpc/h)⁴]."""
