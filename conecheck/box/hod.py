@@ -400,8 +400,8 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
                          [f"{where}: {p}" for p in exc.problems]) from None
 
 
-#: Illustrative nested parameters (invented, chosen to resemble the shapes of published
-#: SDSS luminosity-threshold fits without being any of them).  Number densities come out
+#: Illustrative nested parameters (invented: plausible Zheng et al. 2007 shapes for
+#: luminosity thresholds, not a published fit).  Number densities come out
 #: near 5e-3, 2.5e-3 and 1e-3 (h/Mpc)³ at z ≈ 0.2.
 DEFAULT_HOD: dict[str, Any] = {
     "concentration": "duffy08",
