@@ -10,6 +10,7 @@ from __future__ import annotations
 import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 from matplotlib.figure import Figure
@@ -327,6 +328,16 @@ class Cell:
 
 
 ROW_H = 0.22  # inch
+
+
+def split_rows(rows: Sequence[Any], first_cap: int, cont_cap: int) -> list[Sequence[Any]]:
+    """Table rows split into pages: ``first_cap`` rows on the first, ``cont_cap`` after."""
+    chunks = [rows[:first_cap]]
+    rest = rows[first_cap:]
+    while rest:
+        chunks.append(rest[:max(1, cont_cap)])
+        rest = rest[max(1, cont_cap):]
+    return chunks
 
 
 def rows_that_fit(height: float, row_h: float = ROW_H) -> int:

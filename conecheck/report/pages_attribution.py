@@ -34,6 +34,7 @@ from .layout import (
     fit_columns,
     rows_that_fit,
     shorten,
+    split_rows,
     text_width,
     wrap,
 )
@@ -152,11 +153,7 @@ def _ladder_overview(results: dict[str, Any], ladder: dict[str, Any]) -> list[Pa
     text_h = 0.15 * len(lines) + 0.2
     first_cap = max(1, rows_that_fit(st.PAGE_H - st.CONTENT_BOTTOM - 1.2 - text_h - 0.3))
     cont_cap = rows_that_fit(st.PAGE_H - st.CONTENT_BOTTOM - 1.3)
-    chunks = [rows[:first_cap]]
-    rest = rows[first_cap:]
-    while rest:
-        chunks.append(rest[:cont_cap])
-        rest = rest[cont_cap:]
+    chunks = split_rows(rows, first_cap, cont_cap)
 
     def first(page: Page, chunk=chunks[0]) -> None:
         page.text(st.MARGIN_X, 1.2, "Which effect causes the offset?", st.H2, bold=True)

@@ -6,7 +6,7 @@ from typing import Any
 
 from . import access as ac
 from . import style as st
-from .layout import Cell, Column, Page, draw_table, fit_columns, rows_that_fit, wrap
+from .layout import Cell, Column, Page, draw_table, fit_columns, rows_that_fit, split_rows, wrap
 from .pagespec import PageSpec
 
 PRIMARY_MARK = " ★"
@@ -117,11 +117,7 @@ def summary_pages(results: dict[str, Any]) -> list[PageSpec]:
     cols = fit_columns(_COLUMNS, width)
     first_cap = rows_that_fit(st.PAGE_H - st.CONTENT_BOTTOM - _LEGEND_H - 0.15 - _TABLE_TOP)
     cont_cap = rows_that_fit(st.PAGE_H - st.CONTENT_BOTTOM - 0.1 - _CONT_TOP)
-    chunks = [rows[:first_cap]]
-    rest = rows[first_cap:]
-    while rest:
-        chunks.append(rest[:cont_cap])
-        rest = rest[cont_cap:]
+    chunks = split_rows(rows, first_cap, cont_cap)
 
     def first(page: Page, chunk=chunks[0]) -> None:
         _draw_head(page, results)
