@@ -38,3 +38,19 @@ def test_cones_command_refuses_a_file_as_output(tmp_path, capsys):
     (tmp_path / "out").write_text("x")
     assert main(["cones", str(cfg), "-o", str(tmp_path / "out")]) == 2
     assert "is a file" in capsys.readouterr().err
+
+
+def test_shuffled_randoms_take_their_distances_from_cone_0(tmp_path):
+    d = tiny_dict(**{"randoms.radial": "shuffle"})
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(tomli_w.dumps(d))
+    assert main(["cones", str(cfg), "-o", str(tmp_path / "cones"), "-q"]) == 0
+    cone = Table.read(tmp_path / "cones" / "cone_000.fits")
+    sample = d["samples"][0]
+    z = np.asarray(cone["z_obs"])
+    sel = ((np.asarray(cone["abs_mag"]) < sample["mag_max"]) & (z >= sample["z_min"])
+           & (z < sample["z_max"]))
+    rnd = Table.read(tmp_path / "cones" / "randoms_M20__primary.fits")
+    assert np.all(np.isin(np.asarray(rnd["chi_obs"]), np.asarray(cone["chi_obs"])[sel]))
+    man = json.loads((tmp_path / "cones" / "manifest.json").read_text())
+    assert man["randoms_radial"] == "shuffle"

@@ -13,9 +13,6 @@ import dataclasses
 import logging
 from pathlib import Path
 
-import numpy as np
-
-from ..cone import make_randoms, n_randoms
 from ..config import load_config
 
 log = logging.getLogger(__name__)
@@ -29,9 +26,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def main(args: argparse.Namespace) -> int:
     from ..cone import write_cones_directory
-    from ..run.execute import task_rng
-    from ..run.inputs import cosmology_of, load_box, load_footprint, sky_regions
-    from ..run.tasks import cone_table, cut_distances, expected_count, sample_mask
+    from ..run.inputs import load_box, load_footprint, sky_regions
+    from ..run.tasks import (
+        cone_table,
+        cut_randoms,
+        expected_count,
+        sample_density,
+        shuffle_distances,
+    )
 
     cfg = load_config(args.config)
     out = Path(args.out)
@@ -53,22 +55,21 @@ def main(args: argparse.Namespace) -> int:
         cones.append((table, info))
         log.info("cone %d/%d: %d galaxies", i + 1, n, len(table))
     randoms = {}
+    shuffle = cfg.randoms.radial == "shuffle"
     for s in cfg.samples:
-        density = float(np.count_nonzero(sample_mask(box, s))) / box.box_size ** 3
+        density = sample_density(box, s)
         for cut in s.cuts:
-            lo, hi = cut_distances(cfg, cut)
-            n_r = n_randoms(expected_count(cfg, footprint, cut, density), cfg.randoms.multiple)
-            rng = task_rng(cfg.seed, "randoms", s.name, cut.label)
-            randoms[f"{s.name}__{cut.label}"] = make_randoms(
-                footprint, lo, hi, n_r, rng, "volume", None,
-                cosmology_of(cfg))
+            # the same catalogue `conecheck run` builds for this sample and cut
+            data_chi = shuffle_distances(cfg, cones[0][0], s, cut) if shuffle else None
+            randoms[f"{s.name}__{cut.label}"] = cut_randoms(
+                cfg, footprint, s, cut, expected_count(cfg, footprint, cut, density), data_chi)
     manifest = {"config": str(Path(args.config).resolve()), "seed": cfg.seed,
                 "config_hash": cfg.config_hash,
                 "effects": dataclasses.asdict(cfg.effects),
                 "correction": cfg.correction.name,
                 "samples": {s.name: [dataclasses.asdict(c) for c in s.cuts]
                             for s in cfg.samples},
-                "randoms_radial": "volume (uniform in comoving volume)",
+                "randoms_radial": cfg.randoms.radial,
                 "note": "randoms multiple " + str(cfg.randoms.multiple)
                         + " of the box-expected count of each sample and cut"}
     path = write_cones_directory(out, cones, randoms, manifest, regions)

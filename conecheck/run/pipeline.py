@@ -25,7 +25,6 @@ import numpy as np
 from .. import __version__
 from ..cone.settings import CorrectionSettings, EffectSwitches
 from ..config import RunConfig
-from ..errors import InputError
 from .cache import TaskCache, task_key
 from .execute import Executor, Task
 from .inputs import (
@@ -44,7 +43,7 @@ from .tasks import (
     cut_distances,
     expected_count,
     randoms_task,
-    select_cut,
+    shuffle_distances,
 )
 
 log = logging.getLogger(__name__)
@@ -100,10 +99,13 @@ def randoms_stage(inp: RunInputs, box: dict[str, dict[str, Any]],
     """Randoms (and shared RR) of every sample and cut, with their cache keys."""
     c = inp.cfg
     tasks, where = [], []
+    # radial = "shuffle" draws distances from cone 0 of the same effects: built once here
+    cone0 = (cone_table(c, inp.box, inp.footprint, 0, effects)[0]
+             if c.randoms.radial == "shuffle" else None)
     for s in c.samples:
         for cut in s.cuts:
             n_exp = expected_count(c, inp.footprint, cut, box[s.name]["number_density"])
-            data_chi = _shuffle_source(inp, s, cut) if c.randoms.radial == "shuffle" else None
+            data_chi = None if cone0 is None else shuffle_distances(c, cone0, s, cut)
             key = task_key("randoms", {
                 "seed": c.seed, "cosmology": asdict(c.cosmology), "cut": asdict(cut),
                 "footprint": _footprint_key(inp, effects), "randoms": asdict(c.randoms),
@@ -122,16 +124,6 @@ def randoms_stage(inp: RunInputs, box: dict[str, dict[str, Any]],
         out.setdefault(sname, {})[label] = r
         keys.setdefault(sname, {})[label] = task.key
     return out, keys
-
-
-def _shuffle_source(inp: RunInputs, sample: Any, cut: Any) -> np.ndarray:
-    """Observed distances of cone 0's galaxies in a cut: the ``shuffle`` radial source."""
-    table, _ = cone_table(inp.cfg, inp.box, inp.footprint, 0)
-    sel = select_cut(table, cut, inp.cfg.shell, cosmology_of(inp.cfg))
-    if len(sel) == 0:
-        raise InputError(f"randoms.radial = 'shuffle': cone 0 has no galaxies in sample "
-                         f"'{sample.name}', cut '{cut.label}' to draw distances from")
-    return np.asarray(sel["chi_obs"], dtype=np.float64)
 
 
 def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],

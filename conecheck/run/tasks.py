@@ -73,9 +73,8 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
         rng = task_rng(cfg.seed, "box", sample.name, name)
         out[name] = STATISTICS[name].measure_box(bs, cfg.statistics.get(name), rng,
                                                  jackknife=True)
-    n = int(keep.sum())
-    return {"measurements": out, "n_galaxies": n,
-            "number_density": n / float(box.box_size) ** 3}
+    return {"measurements": out, "n_galaxies": int(keep.sum()),
+            "number_density": sample_density(box, sample)}
 
 
 # --------------------------------------------------------------------------- randoms
@@ -96,9 +95,38 @@ def _pair_counts_to_dict(pc: PairCounts) -> dict[str, Any]:
     return {f.name: getattr(pc, f.name) for f in dataclasses.fields(pc)}
 
 
+def sample_density(box: GalaxyBox, sample: SampleConfig) -> float:
+    """Number density [(h/Mpc)³] of ``sample`` in the box (real-space counts over L³)."""
+    return float(np.count_nonzero(sample_mask(box, sample))) / float(box.box_size) ** 3
+
+
+def shuffle_distances(cfg: RunConfig, table: Any, sample: SampleConfig,
+                      cut: SampleCut) -> np.ndarray:
+    """Observed distances [Mpc/h] of a cone's galaxies in a cut: the ``shuffle`` source."""
+    sel = select_cut(table, cut, cfg.shell, cosmology_of(cfg))
+    if len(sel) == 0:
+        raise InputError(f"randoms.radial = 'shuffle': cone 0 has no galaxies in sample "
+                         f"'{sample.name}', cut '{cut.label}' to draw distances from")
+    return np.asarray(sel["chi_obs"], dtype=np.float64)
+
+
+def cut_randoms(cfg: RunConfig, footprint: Any, sample: SampleConfig, cut: SampleCut,
+                n_expected: float, data_chi: np.ndarray | None) -> Any:
+    """The random catalogue of one sample and cut (seeded by the run seed, sample and cut).
+
+    ``n_expected`` galaxies × ``randoms.multiple`` points inside the footprint between the
+    cut's distances; ``data_chi`` [Mpc/h] is the radial source of ``radial = "shuffle"``.
+    """
+    lo, hi = cut_distances(cfg, cut)
+    n = n_randoms(n_expected, cfg.randoms.multiple)
+    rng = task_rng(cfg.seed, "randoms", sample.name, cut.label)
+    return make_randoms(footprint, lo, hi, n, rng, cfg.randoms.radial, data_chi,
+                        cosmology_of(cfg))
+
+
 def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
-                 cut_label: str, n_expected: float, data_chi: np.ndarray | None,
-                 effects: EffectSwitches | None = None) -> dict[str, Any]:
+                 cut_label: str, n_expected: float, data_chi: np.ndarray | None
+                 ) -> dict[str, Any]:
     """The randoms of one sample and cut with everything every cone shares (wp's RR).
 
     Returns
@@ -108,15 +136,11 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
         (statistic → ``{"pair_counts": …}`` for wp's RR or ``{"arrays": …}`` for the VPF's
         sphere centres).
     """
-    del effects  # part of the cache key only: the geometry follows the footprint passed in
     sample = _sample(cfg, sample_name)
     cut = _cut(sample, cut_label)
     lo, hi = cut_distances(cfg, cut)
-    n = n_randoms(n_expected, cfg.randoms.multiple)
-    rng = task_rng(cfg.seed, "randoms", sample.name, cut.label)
-    table = make_randoms(footprint, lo, hi, n, rng, cfg.randoms.radial, data_chi,
-                         cosmology_of(cfg))
-    rand = _cone_sample(table, regions)
+    rand = _cone_sample(cut_randoms(cfg, footprint, sample, cut, n_expected, data_chi),
+                        regions)
     geometry = ConeGeometry(footprint, lo, hi, regions)
     shared = {}
     for name in cfg.statistics.measure:
