@@ -729,8 +729,12 @@ def _convert(value: Any, hint: Any, key: str) -> Any:
 
 
 def _prefix(path: str, problem: str) -> str:
-    return problem if problem.startswith(path.split(".")[0]) else f"{path}.{problem}" \
-        if re.match(r"^[a-z_]+ ?[=:.]", problem) else f"{path}: {problem}"
+    """``problem`` (from a settings class) with the section's key path in front."""
+    if problem.startswith(path.split(".")[0]):  # already carries its key path
+        return problem
+    if re.match(r"^[a-z_]+ ?[=:.]", problem):  # starts with a key: "rp_min = -1: ..."
+        return f"{path}.{problem}"
+    return f"{path}: {problem}"
 
 
 def build_section(cls: type, table: Any, path: str, problems: list[str],
