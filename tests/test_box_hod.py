@@ -29,7 +29,7 @@ def make_halos(mass, rng, secondary=None, **kw):
                        np.asarray(mass, float), BOX, 0.2, properties=props, **kw)
 
 
-def zheng07(mass, p):
+def threshold_occupation(mass, p):
     """Zheng et al. 2007 (ApJ 667, 760) eqs. 2-3, written out independently of the package."""
     logm = np.log10(mass)
     cen = 0.5 * (1 + erf((logm - p["log_mmin"]) / p["sigma_logm"]))
@@ -64,12 +64,12 @@ def populated():
     return halos, populate(halos, default_hod_model(), rng)
 
 
-def test_mean_occupations_match_zheng07(populated):
+def test_mean_occupations_match_the_threshold_formulae(populated):
     # Source: Zheng et al. 2007, ApJ 667, 760, eqs. 2-3 (centrals Bernoulli, satellites Poisson)
     halos, box = populated
     edges = np.arange(11.3, 14.81, 0.25)
     p = DEFAULT_HOD["threshold"][0]
-    cen_exp, sat_exp = zheng07(halos.mass, p)
+    cen_exp, sat_exp = threshold_occupation(halos.mass, p)
     n_cen = counts_per_halo(box, len(halos), p["mag_max"], True)
     n_sat = counts_per_halo(box, len(halos), p["mag_max"], False)
     for obs, exp, var in ((n_cen, cen_exp, cen_exp * (1 - cen_exp)), (n_sat, sat_exp, sat_exp)):
@@ -84,7 +84,7 @@ def test_magnitude_thresholds_reproduce_each_hod(populated):
     edges = np.arange(11.3, 14.81, 0.25)
     assert np.all(box.abs_mag < DEFAULT_HOD["threshold"][0]["mag_max"])
     for p in DEFAULT_HOD["threshold"]:
-        cen_exp, sat_exp = zheng07(halos.mass, p)
+        cen_exp, sat_exp = threshold_occupation(halos.mass, p)
         n_cen = counts_per_halo(box, len(halos), p["mag_max"], True)
         n_sat = counts_per_halo(box, len(halos), p["mag_max"], False)
         assert n_cen.max() <= 1
@@ -128,7 +128,7 @@ def test_decorated_hod_conserves_mean_and_moves_split(a_cen, a_sat):
     model = load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": a_cen, "a_sat": a_sat}})
     box = populate(halos, model, rng)
     p = DEFAULT_HOD["threshold"][0]
-    cen_exp, sat_exp = zheng07(mass, p)
+    cen_exp, sat_exp = threshold_occupation(mass, p)
     n_cen = counts_per_halo(box, mass.size, p["mag_max"], True)
     n_sat = counts_per_halo(box, mass.size, p["mag_max"], False)
     edges = np.arange(11.6, 14.51, 0.25)
@@ -242,6 +242,6 @@ def test_read_halo_catalog_keeps_extra_columns_for_assembly_bias(tmp_path):
     assert np.array_equal(halos.column("age"), np.load(path)["age"])
     model = load_hod({**DEFAULT_HOD, "assembly_bias": {"a_cen": 0.5, "secondary": "age"}})
     box = populate(halos, model, rng)
-    assert box.meta["HODMODEL"] == "zheng07+decorated"
+    assert box.meta["HODMODEL"] == "erf_central_powerlaw_satellite+assembly_bias"
     with pytest.raises(InputError, match="box size"):
         read_halo_catalog(path, {"mass": "Mvir"}, redshift=0.1)

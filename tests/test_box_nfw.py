@@ -12,7 +12,7 @@ from scipy.optimize import brentq
 
 from conecheck.box import HaloCatalog, default_hod_model, populate
 from conecheck.box.nfw import (
-    concentration_duffy08,
+    concentration_power_law,
     nfw_inverse_mass,
     nfw_mass_profile,
     sample_nfw_radii,
@@ -91,8 +91,8 @@ def test_virial_radius_against_astropy_mean_density():
     assert np.allclose(virial_radius(m, om), r_ref, rtol=1e-3)
 
 
-def test_duffy08_concentration_values():
+def test_power_law_concentration_values():
     # Duffy et al. 2008, MNRAS 390, L64, Table 1 (NFW, full sample, Delta = 200 mean):
     # A = 10.14, B = -0.081, C = -1.01, pivot 2e12 Msun/h -> c(2e12, z=0) = 10.14
-    assert concentration_duffy08(2e12, 0.0) == pytest.approx(10.14)
-    assert concentration_duffy08(2e14, 1.0) == pytest.approx(10.14 * 100**-0.081 * 2**-1.01)
+    assert concentration_power_law(2e12, 0.0) == pytest.approx(10.14)
+    assert concentration_power_law(2e14, 1.0) == pytest.approx(10.14 * 100**-0.081 * 2**-1.01)

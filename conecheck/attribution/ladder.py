@@ -227,8 +227,9 @@ def _offset_as_increment(record: dict[str, Any], box: np.ndarray) -> dict[str, A
     sig = np.asarray(record["sigma_offset"], dtype=np.float64)
     tot = np.asarray(record["sigma_total"], dtype=np.float64)
     cones = np.asarray(record["cones"], dtype=np.float64) - box[None, :]
+    # the record's significance is already the Gaussian equivalent of Δ/σ_Δ (t law)
+    signif = np.array([np.nan if x is None else x for x in record["significance"]], float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        signif = np.where(sig > 0, off / np.where(sig > 0, sig, 1), np.nan)
         frac = np.where(box != 0, off / np.abs(np.where(box != 0, box, 1)), np.nan)
         zt = np.where(tot > 0, off / np.where(tot > 0, tot, 1), np.nan)
     fin = np.abs(signif[np.isfinite(signif)])

@@ -8,35 +8,29 @@ by cone.
 
 Increment errors
 ----------------
-The increment d̄ = mean_i d_i gets the larger of two error estimates, bin by bin:
-
-* jackknife of the difference: when both variants use the same sky regions, region k is
-  removed from both at once, and the delete-one vectors of d_i give its jackknife
-  covariance (the same delete-one formula as every other covariance of the run). The
-  diagonal is averaged over cones and divided by N_eff, the rule the offset's own error
-  σ_Δ uses: N for independent cones, else ``verdict.effective_cones`` (default 1, i.e.
-  the mean of cones cut from one box is trusted no more than one cone). When the two
-  variants use different sky regions (cap or full sky against the survey footprint) there is
-  no common jackknife; the two variances are then added, which over-states the error
-  when the variants are positively correlated, as they are here;
-* scatter of the paired differences over cones: var_i(d_i)/N (undefined with one cone).
-
-The jackknife form measures how the effect varies across the sky within a cone; the
-scatter measures how it varies from cone to cone (e.g. different fibre assignments). Taking
-the larger guards against either being small by chance (few regions, few cones).
-Significance = d̄/σ; an increment is consistent with zero when |d̄| ≤ n σ with
-n = ``verdict.n_sigma_offset``.
+Given the box, the N cones are independent draws (own observer, rotation and random
+numbers), and so are their paired differences d_i. The increment d̄ = mean_i d_i therefore
+has the error σ = √(var_i(d_i)/N), with N − 1 degrees of freedom: its significance d̄/σ
+follows Student's t law and is quoted as the Gaussian equivalent (same two-sided tail
+probability), as for the offset's own error σ_Δ. With one cone there is no scatter; the
+error is then the jackknife of the difference (region k removed from both variants at once
+when they share sky regions, else the two variances added, which over-states it) divided by
+``verdict.effective_cones``, and the significance is Gaussian. An increment is consistent with
+zero when no bin's significance exceeds n = ``verdict.n_sigma_offset``. The jackknife of the
+difference is also reported beside the scatter: it measures how the effect varies across
+the sky within one cone.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from ..compare import VerdictRules, jsonable
+from ..compare import VerdictRules, gaussian_equivalent, jsonable
 from ..errors import InputError
 from ..jackknife import jackknife_covariance
 from ..stats.base import Measurement
@@ -46,9 +40,10 @@ _MARK = "Increment errors\n----------------\n"
 INCREMENT_ERROR_TEXT: str = " ".join(
     (__doc__ or "").split(_MARK, 1)[1].split())
 
-METHOD_SAME_REGIONS = "max(jackknife of the paired difference / N_eff, scatter over cones / N)"
-METHOD_OTHER_REGIONS = ("max((jackknife variance of each variant, added) / N_eff, scatter "
-                        "over cones / N): the variants use different sky regions")
+METHOD_SCATTER = "scatter of the paired differences over cones / N, Student t with N−1 dof"
+METHOD_SAME_REGIONS = "one cone: jackknife of the paired difference / N_eff"
+METHOD_OTHER_REGIONS = ("one cone: (jackknife variance of each variant, added) / N_eff; the "
+                        "variants use different sky regions")
 
 
 def _matrix(ms: Sequence[Measurement], what: str, where: str) -> NDArray[np.float64]:
@@ -87,7 +82,7 @@ def paired_difference(upper: Sequence[Measurement], lower: Sequence[Measurement]
     same_regions : bool
         True when both variants use the same jackknife sky regions.
     rules : VerdictRules, optional
-        Supplies ``effective_cones`` and ``n_sigma_offset``.
+        Supplies ``effective_cones`` (one cone only) and ``n_sigma_offset``.
     cones_independent : bool
         As in :func:`conecheck.compare.compare_statistic`.
     where : str
@@ -99,9 +94,11 @@ def paired_difference(upper: Sequence[Measurement], lower: Sequence[Measurement]
         JSON-safe: ``increment`` (d̄), ``fractional_increment`` (d̄/|reference|),
         ``cones`` (N × p paired differences), ``sigma_increment``,
         ``sigma_increment_jackknife``, ``sigma_increment_scatter`` (None with one cone),
-        ``sigma_increment_method``, ``significance``, ``max_abs_significance``,
-        ``consistent_with_zero`` (every bin within n σ), ``in_total_sigma`` (d̄/σ_tot)
-        and ``max_abs_in_total_sigma`` when ``sigma_total`` is given, ``n_cones``.
+        ``sigma_increment_method``, ``sigma_increment_dof`` (N − 1; None with one cone),
+        ``increment_t`` (d̄/σ), ``significance`` (its Gaussian equivalent),
+        ``max_abs_significance``, ``consistent_with_zero`` (every bin within n),
+        ``in_total_sigma`` (d̄/σ_tot) and ``max_abs_in_total_sigma`` when ``sigma_total``
+        is given, ``n_cones``.
     """
     rules = rules or VerdictRules()
     upper, lower = list(upper), list(lower)
@@ -125,20 +122,24 @@ def paired_difference(upper: Sequence[Measurement], lower: Sequence[Measurement]
         var_jk = np.mean([np.diag(np.atleast_2d(jackknife_covariance(
             np.asarray(u.delete_one) - np.asarray(lo.delete_one))))
             for u, lo in zip(upper, lower, strict=True)], axis=0)
-        method = METHOD_SAME_REGIONS
+        one_cone_method = METHOD_SAME_REGIONS
     else:
         var_jk = np.mean([_jackknife_var(u) + _jackknife_var(lo)
                           for u, lo in zip(upper, lower, strict=True)], axis=0)
-        method = METHOD_OTHER_REGIONS
-    n_eff = float(n) if cones_independent else float(min(rules.effective_cones, n))
-    var_jk = np.clip(var_jk, 0, None) / n_eff
+        one_cone_method = METHOD_OTHER_REGIONS
+    var_jk = np.clip(var_jk, 0, None) / float(n if cones_independent
+                                               else min(rules.effective_cones, n))
     var_sc = d.var(axis=0, ddof=1) / n if n >= 2 else None
-    var = var_jk if var_sc is None else np.fmax(var_jk, var_sc)
+    if var_sc is None:
+        var, dof, method, n_eff = var_jk, math.inf, one_cone_method, 1.0
+    else:
+        var, dof, method, n_eff = var_sc, float(n - 1), METHOD_SCATTER, float(n)
     sig = np.sqrt(var)
     with np.errstate(divide="ignore", invalid="ignore"):
-        signif = np.where(sig > 0, inc / np.where(sig > 0, sig, 1.0),
-                          np.where(inc == 0, 0.0, np.sign(inc) * np.inf))
+        t = np.where(sig > 0, inc / np.where(sig > 0, sig, 1.0),
+                     np.where(inc == 0, 0.0, np.sign(inc) * np.inf))
         frac = np.where(ref != 0, inc / np.abs(np.where(ref != 0, ref, 1.0)), np.nan)
+    signif = gaussian_equivalent(t, dof)
     finite = np.abs(signif[np.isfinite(signif)])
     max_sig = np.inf if np.isinf(signif).any() else (float(finite.max()) if finite.size
                                                      else np.nan)
@@ -153,7 +154,9 @@ def paired_difference(upper: Sequence[Measurement], lower: Sequence[Measurement]
         "n_eff_cones": n_eff,
         "significance": signif,
         "max_abs_significance": max_sig,
-        "consistent_with_zero": bool(np.all(np.abs(inc) <= rules.n_sigma_offset * sig)),
+        "consistent_with_zero": bool(np.all(np.abs(signif) <= rules.n_sigma_offset)),
+        "increment_t": t,
+        "sigma_increment_dof": dof if math.isfinite(dof) else None,
         "n_cones": n,
     }
     if sigma_total is not None:
@@ -167,5 +170,5 @@ def paired_difference(upper: Sequence[Measurement], lower: Sequence[Measurement]
     return jsonable(out)
 
 
-__all__ = ["INCREMENT_ERROR_TEXT", "METHOD_OTHER_REGIONS", "METHOD_SAME_REGIONS",
+__all__ = ["INCREMENT_ERROR_TEXT", "METHOD_OTHER_REGIONS", "METHOD_SAME_REGIONS", "METHOD_SCATTER",
            "paired_difference"]

@@ -7,7 +7,7 @@ Occupation per luminosity threshold (Zheng et al. 2007, ApJ 667, 760, eqs. 2–3
 
 Convention: as in Zheng et al. 2007, <N_sat> is **not** multiplied by <N_cen> (so a halo may
 host satellites without a central above the threshold).  Setting
-``modulate_satellites = true`` multiplies it by <N_cen>, the variant used by several later
+``satellites_need_central = true`` multiplies it by <N_cen>, the variant used by several later
 papers.  Centrals are Bernoulli and satellites Poisson draws (see :mod:`.populate`).
 
 A model holds one parameter set per luminosity threshold M_r − 5 log10 h < ``mag_max``; the
@@ -29,8 +29,8 @@ occupation is a non-decreasing function of N for |A| ≤ 1, so nested thresholds
 
 TOML schema (a file, or the same keys as a dict)::
 
-    concentration = "duffy08"        # c(M) relation when the halos carry none
-    modulate_satellites = false      # multiply <N_sat> by <N_cen>?
+    concentration = "mass_power_law"  # c(M) relation when the halos carry none
+    satellites_need_central = false  # multiply <N_sat> by <N_cen>?
     bright_tail_mag = 0.5            # e-folding width [mag] of the brightest magnitude bin
 
     [[threshold]]                    # one table per luminosity threshold
@@ -70,7 +70,7 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 #: Concentration–mass relations known by name.
-CONCENTRATION_RELATIONS = ("duffy08",)
+CONCENTRATION_RELATIONS = ("mass_power_law",)
 #: Log-mass grid [log10 Msun/h] on which nesting is checked and the minimum mass is found.
 _LOG_M_CHECK = np.arange(9.0, 16.5 + 1e-9, 0.01)
 #: Tolerance of the nesting check, in occupation number.
@@ -164,8 +164,8 @@ class HODModel:
 
     thresholds: tuple[HODThreshold, ...]
     assembly_bias: AssemblyBias = field(default_factory=AssemblyBias)
-    concentration: str = "duffy08"
-    modulate_satellites: bool = False
+    concentration: str = "mass_power_law"
+    satellites_need_central: bool = False
     bright_tail_mag: float = 0.5
 
     def __post_init__(self) -> None:
@@ -199,7 +199,7 @@ class HODModel:
         mass = np.asarray(mass, dtype=float)
         cen = np.stack([t.params.mean_central(mass) for t in self.thresholds])
         sat = np.stack([t.params.mean_satellite(mass) for t in self.thresholds])
-        if self.modulate_satellites:
+        if self.satellites_need_central:
             sat = sat * cen
         return cen, sat
 
@@ -247,7 +247,7 @@ class HODModel:
         """The TOML-schema dict of this model (round-trips through :func:`load_hod`)."""
         out: dict[str, Any] = {
             "concentration": self.concentration,
-            "modulate_satellites": self.modulate_satellites,
+            "satellites_need_central": self.satellites_need_central,
             "bright_tail_mag": self.bright_tail_mag,
             "threshold": [{"mag_max": t.mag_max, **asdict(t.params)} for t in self.thresholds],
         }
@@ -322,7 +322,7 @@ def decorate(n_mean: NDArray[np.float64], upper: NDArray[np.bool_], p_upper: NDA
 
 
 # ------------------------------------------------------------------- loading
-_TOP_KEYS = {"concentration", "modulate_satellites", "bright_tail_mag", "threshold",
+_TOP_KEYS = {"concentration", "satellites_need_central", "bright_tail_mag", "threshold",
              "assembly_bias"}
 _THRESHOLD_KEYS = {"mag_max", "log_mmin", "sigma_logm", "log_m0", "log_m1", "alpha"}
 _AB_KEYS = {"a_cen", "a_sat", "secondary", "mass_bin_dex"}
@@ -391,7 +391,7 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
             problems += [f"{where}: [assembly_bias] {p}" for p in exc.problems]
     if problems:
         raise InputError("; ".join(problems), problems)
-    kwargs = {k: data[k] for k in ("concentration", "modulate_satellites", "bright_tail_mag")
+    kwargs = {k: data[k] for k in ("concentration", "satellites_need_central", "bright_tail_mag")
               if k in data}
     try:
         return HODModel(tuple(thresholds), ab, **kwargs)
@@ -404,8 +404,8 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
 #: luminosity thresholds, not a published fit).  Number densities come out
 #: near 5e-3, 2.5e-3 and 1e-3 (h/Mpc)³ at z ≈ 0.2.
 DEFAULT_HOD: dict[str, Any] = {
-    "concentration": "duffy08",
-    "modulate_satellites": False,
+    "concentration": "mass_power_law",
+    "satellites_need_central": False,
     "bright_tail_mag": 0.5,
     "threshold": [
         {"mag_max": -20.0, "log_mmin": 12.10, "sigma_logm": 0.25, "log_m0": 11.80,

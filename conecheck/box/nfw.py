@@ -24,8 +24,8 @@ from scipy.special import lambertw
 from .units import DELTA_HALO, G_NEWTON, mean_matter_density
 
 #: Duffy et al. 2008 Table 1, NFW full sample, Δ = 200 × mean: (A, B, C) and pivot mass.
-DUFFY08_200M = (10.14, -0.081, -1.01)
-DUFFY08_PIVOT = 2.0e12
+DUFFY2008_200M = (10.14, -0.081, -1.01)
+DUFFY2008_PIVOT = 2.0e12
 
 
 def nfw_mass_profile(x: ArrayLike) -> NDArray[np.float64]:
@@ -45,10 +45,13 @@ def nfw_inverse_mass(y: ArrayLike) -> NDArray[np.float64]:
     return np.where(small, s + 2.0 * s**2 / 3.0, -1.0 / np.where(small, -0.5, w) - 1.0)
 
 
-def concentration_duffy08(mass: ArrayLike, redshift: float) -> NDArray[np.float64]:
-    """Duffy et al. 2008 c(M, z) for Δ = 200m; mass in Msun/h."""
-    a, b, c = DUFFY08_200M
-    return a * (np.asarray(mass, dtype=float) / DUFFY08_PIVOT) ** b * (1.0 + redshift) ** c
+def concentration_power_law(mass: ArrayLike, redshift: float) -> NDArray[np.float64]:
+    """c(M, z) = A (M/M_pivot)^B (1+z)^C for Δ = 200m; M in Msun/h.
+
+    Parameters from Duffy et al. 2008, MNRAS 390, L64 (their full-sample Δ = 200m fit).
+    """
+    a, b, c = DUFFY2008_200M
+    return a * (np.asarray(mass, dtype=float) / DUFFY2008_PIVOT) ** b * (1.0 + redshift) ** c
 
 
 def virial_radius(mass: ArrayLike, omega_m: float) -> NDArray[np.float64]:

@@ -38,7 +38,7 @@ from ..errors import InputError
 from .halos import HaloCatalog
 from .hod import HODModel, decorate, split_by_secondary
 from .nfw import (
-    concentration_duffy08,
+    concentration_power_law,
     isotropic_directions,
     sample_nfw_radii,
     virial_dispersion,
@@ -136,7 +136,7 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
     rvir = (halos.rvir[host] if halos.rvir is not None
             else virial_radius(mass_s, (cosmology or Cosmology()).omega_m))
     conc = (halos.concentration[host] if halos.concentration is not None
-            else concentration_duffy08(mass_s, halos.redshift))
+            else concentration_power_law(mass_s, halos.redshift))
     radius = sample_nfw_radii(conc, rng) * rvir
     offset = radius[:, None] * isotropic_directions(host.size, rng)
     pos_s = np.mod(halos.position[host] + offset, halos.box_size)
@@ -149,7 +149,10 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
     owner = np.concatenate([cen_idx, host])
     meta: dict[str, Any] = dict(halos.meta)
     # short keys: they become FITS header keywords
-    meta.update({"HODMODEL": "zheng07" + ("+decorated" if model.assembly_bias.active else ""),
+    model_name = "erf_central_powerlaw_satellite"
+    if model.assembly_bias.active:
+        model_name += "+assembly_bias"
+    meta.update({"HODMODEL": model_name,
                  "NCEN": int(cen_idx.size), "NSAT": int(host.size)})
     return GalaxyBox(
         position=np.concatenate([halos.position[cen_idx], pos_s]),

@@ -65,7 +65,7 @@ from .lognormal import (
     white_noise_k,
 )
 from .massfunction import LOG_M_RANGE, HaloMassFunction
-from .nfw import concentration_duffy08, virial_radius
+from .nfw import concentration_power_law, virial_radius
 from .populate import populate
 from .power import LinearPower
 
@@ -209,7 +209,7 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
 
     scatter = (secondary_corr * env
                + np.sqrt(1.0 - secondary_corr**2) * rng.standard_normal(n_halo))
-    conc = concentration_duffy08(mass, redshift) * 10.0 ** (conc_scatter_dex * scatter)
+    conc = concentration_power_law(mass, redshift) * 10.0 ** (conc_scatter_dex * scatter)
     conc = np.maximum(conc, 1.5)
     meta: dict[str, Any] = {
         "BOXMADE": "synthetic lognormal halos (conecheck)", "SIGMA8": float(sigma8),

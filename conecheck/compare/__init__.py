@@ -7,6 +7,16 @@ rules are documented in :mod:`conecheck.compare.rules` (:data:`VERDICT_RULES_TEX
 
 from .chi2 import MAX_CONDITION, Chi2Result, bias_chi2, hartlap_factor, min_regions_needed
 from .jsonsafe import as_float, as_float_array, jsonable
+from .offset_error import (
+    SIGMA_OFFSET_INDEPENDENT,
+    SIGMA_OFFSET_SCATTER,
+    SIGMA_OFFSET_SHARED,
+    OffsetError,
+    cones_needed,
+    critical_t,
+    gaussian_equivalent,
+    offset_error,
+)
 from .rollup import rollup_verdicts
 from .rules import (
     FAIL,
@@ -19,10 +29,12 @@ from .rules import (
     exit_code,
     worst_verdict,
 )
-from .statistic import SIGMA_OFFSET_INDEPENDENT, SIGMA_OFFSET_SHARED, compare_statistic
+from .statistic import compare_statistic
 
 __all__ = [
-    "FAIL", "MAX_CONDITION", "PASS", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SHARED",
+    "FAIL", "MAX_CONDITION", "PASS", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SCATTER",
+    "SIGMA_OFFSET_SHARED", "OffsetError", "cones_needed", "critical_t", "gaussian_equivalent",
+    "offset_error",
     "VERDICTS", "VERDICT_RULES_TEXT", "WARN", "Chi2Result", "VerdictRules", "as_float",
     "as_float_array", "bias_chi2", "check_verdict", "compare_statistic", "exit_code",
     "hartlap_factor", "jsonable", "min_regions_needed", "rollup_verdicts", "worst_verdict",

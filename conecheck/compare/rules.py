@@ -8,7 +8,9 @@ report.
 Verdict rules
 -------------
 For every sample, redshift cut and statistic, the box vector b is compared bin by bin
-with the mean c̄ of the N light cones.
+with the mean c̄ of the N light cones. Two questions decide the verdict: does the offset
+*matter* for a fit (is it outside the error bar the fit will use?), and is it *real* (larger
+than this run's own uncertainty of the offset?).
 
 Quantities
 
@@ -16,38 +18,43 @@ Quantities
 * Total error C_tot = C_box + C_cone: the box's jackknife covariance plus the mean of the
   cones' own jackknife covariances, i.e. the error budget of one survey-like data set.
   σ_tot = √diag(C_tot) and z_i = Δ_i / σ_tot,i (the offset in units of that error bar).
+* σ_Δ, the uncertainty of the offset itself. Given the box, the cones are independent draws
+  (each has its own observer, rotation and random numbers), so the cone mean scatters by
+  S/N about what an average over every possible cone would give, S being the cone-to-cone
+  sample covariance: σ_Δ² = diag(S)/N. With ``cones_independent = true`` (one box per
+  cone) the box is one more independent realisation: σ_Δ² = diag(C_box) + diag(S)/N. S has
+  N − 1 degrees of freedom, so t = Δ/σ_Δ follows Student's t law; the significance used
+  below is its Gaussian equivalent (same two-sided tail probability). With one cone there is
+  no scatter: σ_Δ² = diag(C_box) + diag(C_cone)/``effective_cones``, an upper bound, and the
+  statistic can at best warn. The neglected box term (the box's own fluctuation that the
+  average over cones does not share, such as one fixed line of sight in the box against
+  radial ones in the cones) is measured on null set-ups over independent boxes:
+  benchmarks/RESULTS.md gives the calibration.
 * Bias χ² = Δᵀ Ĉ⁻¹ Δ over the p usable bins, with the inverse de-biased by the Hartlap
   factor: Ĉ⁻¹ = (n − p − 2)/(n − 1) · C_tot⁻¹ (Hartlap, Simon & Schneider 2007, A&A 464,
-  399); n is the smaller of the box's and the cones' number of jackknife regions (the
-  covariance can be no better known than its noisier part). The p-value comes from the χ²
-  law with p degrees of freedom. A comparison needs n ≥ p + 3 regions and refuses otherwise.
-  For a linear model, √χ² bounds the shift of any fitted parameter in units of its error.
-* σ_Δ, the uncertainty of the offset itself:
-
-  - cones stated independent (``cones_independent = true``, e.g. one box per cone):
-    σ_Δ² = diag(C_box) + diag(S)/N, with S the cone-to-cone sample covariance;
-  - otherwise (the default; cones cut from one box share its structure, so their mean is
-    not N times better known than one cone): σ_Δ² = diag(C_box) + diag(C_cone)/N_eff with
-    N_eff = ``effective_cones`` (default 1, i.e. the cone mean is trusted no more than one
-    cone; never more than N). Because the variance of a mean of correlated variables is at
-    most the mean of their variances, and box and cones fluctuate together when cut from
-    the same galaxies, this is an upper bound on the true σ_Δ.
-
-* Detectable offset = ``detection_threshold`` × σ_Δ (default 2): the smallest offset this
-  run could have told apart from zero. When it exceeds the total error bar, the run cannot
-  resolve offsets that matter for a fit.
+  399); n is the smaller of the box's and the cones' number of jackknife regions. Its
+  p-value comes from Hotelling's T² law for a covariance estimated with n − 1 degrees of
+  freedom (Hotelling 1931, Ann. Math. Stat. 2, 360; cf. Sellentin & Heavens 2016, MNRAS
+  456, L132), not the χ² law, whose tail is too light. With a pseudo-inverse, p is its
+  rank. A comparison needs n ≥ p + 3 regions and refuses otherwise. For a linear model,
+  √χ² bounds the shift of any fitted parameter in units of its error.
+* Detectable offset, per bin: the smallest |Δ| that would fail, the larger of
+  ``z_fail`` × σ_tot and the offset that reaches ``n_sigma_offset`` under the t law. Per
+  statistic, the smallest fractional bias common to every bin that would fail (the minimum
+  over bins of the detectable fraction).
 
 Verdict per statistic
 
-* FAIL when some bin has |z_i| > ``z_fail`` (default 1: the offset lies outside the total
-  error bar) and |Δ_i| > ``n_sigma_offset`` × σ_Δ,i (default 3: the offset is real, not
-  noise); or, with ``check_chi2`` (default true), when the bias χ² has p < ``p_fail``
-  (default 0.001).
+* FAIL when some bin's offset matters, |z_i| > ``z_fail`` (default 1: outside the total
+  error bar), and is real, significance > ``n_sigma_offset`` (default 3, Gaussian
+  equivalent); or, with ``check_chi2`` (default true), when the bias χ² has p < ``p_fail``
+  (default 0.001): the offset is significant against the data's own error bar.
 * WARN when not failing and the run cannot tell: some bin's offset lies outside the total
-  error bar but is not significant (too noisy: more independent cones, or a larger or
-  second box, would settle it); fewer than ``min_cones`` cones (default 2: no cone-to-cone
-  scatter); or a bin has an offset but zero error.
-* PASS otherwise.
+  error bar but is not significant (the reason says how many cones would settle it if the
+  offset stays as measured); fewer than ``min_cones`` cones (default 3: two cones give σ_Δ
+  one degree of freedom); or a bin has an offset but zero error.
+* PASS otherwise. Offsets that are real but inside the error bar are named in the reasons:
+  they are too small to bias a fit at the survey's precision.
 
 Roll-up: a redshift cut takes the worst verdict of its statistics (a cut with no
 statistics warns), a sample the worst of its cuts, the run the worst of its samples
@@ -81,19 +88,18 @@ class VerdictRules:
     Attributes
     ----------
     z_fail : float
-        A bin's offset lies outside the total error bar when |z| > z_fail.
+        A bin's offset matters (lies outside the total error bar) when |z| > z_fail.
     n_sigma_offset : float
-        An offset is significant when |Δ| > n_sigma_offset × σ_Δ.
+        An offset is real when its significance Δ/σ_Δ, converted from Student's t law with
+        N − 1 degrees of freedom to its Gaussian equivalent, exceeds this.
     check_chi2 : bool
-        Also fail on the Hartlap-corrected bias χ².
+        Also fail on the bias χ² (Hotelling's law for the estimated covariance).
     p_fail : float
         Fail when the bias χ² p-value is below this (0 < p_fail < 1).
-    detection_threshold : float
-        Detectable offset = detection_threshold × σ_Δ.
     min_cones : int
-        Warn with fewer cones than this (≥ 1).
+        Warn with fewer cones than this (≥ 1); N cones give σ_Δ N − 1 degrees of freedom.
     effective_cones : float
-        N_eff of the shared-structure σ_Δ (cones not independent), ≥ 1.
+        N_eff of the one-cone upper bound on σ_Δ (used only when there is one cone), ≥ 1.
     warn_is_failure : bool
         Exit code 1 on an overall warn, too.
     """
@@ -102,8 +108,7 @@ class VerdictRules:
     n_sigma_offset: float = 3.0
     check_chi2: bool = True
     p_fail: float = 0.001
-    detection_threshold: float = 2.0
-    min_cones: int = 2
+    min_cones: int = 3
     effective_cones: float = 1.0
     warn_is_failure: bool = False
 
@@ -126,7 +131,6 @@ class VerdictRules:
         checks = [("z_fail", self.z_fail > 0, "> 0"),
                   ("n_sigma_offset", self.n_sigma_offset > 0, "> 0"),
                   ("p_fail", 0 < self.p_fail < 1, "between 0 and 1 (exclusive)"),
-                  ("detection_threshold", self.detection_threshold > 0, "> 0"),
                   ("min_cones", self.min_cones >= 1, "≥ 1"),
                   ("effective_cones", self.effective_cones >= 1, "≥ 1")]
         problems = [f"verdict.{name}: expected a value {want}, got {getattr(self, name)!r}"

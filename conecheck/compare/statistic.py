@@ -16,18 +16,16 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..stats.base import Measurement
+from ..stats.base import SAMPLING_VARIANCE, Measurement
 from .chi2 import bias_chi2
 from .jsonsafe import jsonable
+from .offset_error import OffsetError, cones_needed, offset_error
 from .rules import FAIL, PASS, WARN, VerdictRules
 
 log = logging.getLogger(__name__)
 
 #: Relative size below which a standard deviation or an offset counts as zero.
 _ZERO = 1e-10
-
-SIGMA_OFFSET_INDEPENDENT = "independent cones: diag(C_box) + diag(S_cones)/N_cones"
-SIGMA_OFFSET_SHARED = "shared structure: diag(C_box) + diag(C_cone)/N_eff"
 
 
 def _values(m: Measurement, what: str, where: str, p: int | None) -> NDArray[np.float64]:
@@ -89,9 +87,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     rules : VerdictRules, optional
         Thresholds (defaults when omitted).
     cones_independent : bool
-        True only when the cones are independent realisations (e.g. one box each). Then the
-        offset's own error uses the cone-to-cone scatter over N; otherwise the conservative
-        shared-structure form diag(C_box) + diag(C_cone)/N_eff (``rules.effective_cones``).
+        True only when the cones are independent realisations (one box each): σ_Δ then
+        includes the box's own variance (see :mod:`conecheck.compare.offset_error`).
     where : str
         Context for messages, e.g. ``"sample bright, cut z0.10-0.20"``.
 
@@ -103,17 +100,21 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         ``cone_mean``, ``cones`` (N × p), ``offset`` (Δ = c̄ − b), ``fractional_offset``
         (Δ/b), ``sigma_box`` (√diag C_box), ``sigma_cone`` (√diag C_cone, the mean single-
         cone jackknife), ``sigma_total`` (√diag C_tot), ``cone_scatter`` (√diag S, None with
-        one cone), ``cone_scatter_ratio`` (diag S / diag C_cone: 1 for independent full
-        realisations, below 1 when cones share structure), ``z``, ``max_abs_z``,
-        ``chi2``, ``dof``, ``chi2_per_dof``, ``p_value``, ``hartlap_factor``,
-        ``n_regions`` (n of the Hartlap factor: min of box and cone regions),
-        ``n_regions_box``, ``n_regions_cone``, ``chi2_bins`` (bins in the χ²),
-        ``condition_number``, ``pseudo_inverse``, ``sigma_offset`` (σ_Δ used by the
-        verdict), ``sigma_offset_method`` (formula used), ``sigma_offset_independent``
-        (diag(C_box) + diag(S)/N, for reference; None with one cone), ``n_eff_cones``,
-        ``significance`` (Δ/σ_Δ), ``detectable_offset`` (detection_threshold × σ_Δ),
-        ``detectable_fractional_offset`` (its ratio to |b|), ``detection_threshold``,
-        ``failing_bins``, ``noisy_bins``, ``n_cones``, ``cones_independent``.
+        one cone), ``cone_scatter_ratio`` (diag S / diag C_cone), ``z`` (Δ/σ_tot),
+        ``max_abs_z``, ``chi2`` (Hartlap-corrected), ``dof``, ``chi2_per_dof``, ``p_value``
+        (Hotelling's law), ``hartlap_factor``, ``n_regions``, ``n_regions_box``,
+        ``n_regions_cone``, ``chi2_bins``, ``condition_number``, ``pseudo_inverse``,
+        ``sigma_offset`` (σ_Δ), ``sigma_offset_method``, ``sigma_offset_dof`` (N − 1, None
+        for the one-cone bound), ``sigma_offset_independent`` (diag(C_box) + diag(S)/N, for
+        reference), ``n_eff_cones``, ``offset_t`` (Δ/σ_Δ), ``significance`` (its Gaussian
+        equivalent, what the rules threshold), ``detectable_offset`` (per bin, the smallest
+        |Δ| that would fail: the larger of z_fail σ_tot and the significance threshold),
+        ``detectable_fractional_offset`` (its ratio to |b|),
+        ``detectable_uniform_fraction`` (the smallest fractional bias common to every bin
+        that would fail), ``failing_bins``, ``noisy_bins`` (outside the error bar, not
+        significant), ``real_small_bins`` (significant, inside the error bar),
+        ``cones_needed`` (cones that would settle the noisy bins, None when none would),
+        ``n_cones``, ``cones_independent``.
 
     Raises
     ------
@@ -140,7 +141,6 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     cmat = np.array(cvals)
     n_cones = len(cones)
     notes: list[str] = []
-    reasons: list[str] = []
 
     cbar = cmat.mean(axis=0)
     ccone = np.mean(ccovs, axis=0)
@@ -150,8 +150,7 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         frac = np.where(b != 0, delta / np.where(b != 0, b, 1.0), np.nan)
     sig_box = np.sqrt(np.clip(np.diag(cbox), 0, None))
     sig_cone = np.sqrt(np.clip(np.diag(ccone), 0, None))
-    var_tot = np.clip(np.diag(ctot), 0, None)
-    sig_tot = np.sqrt(var_tot)
+    sig_tot = np.sqrt(np.clip(np.diag(ctot), 0, None))
     scatter = (np.atleast_2d(np.cov(cmat, rowvar=False, ddof=1)) if n_cones >= 2 else None)
     if scatter is None:
         notes.append("one cone only: the cone-to-cone scatter is undefined")
@@ -174,84 +173,41 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         notes.append(msg)
         log.warning("%s: %s", where, msg)
 
-    # The offset's own error (see the module notes of .rules for the two forms).
+    err = offset_error(np.diag(cbox), cmat, np.diag(ccone),
+                       cones_independent=cones_independent,
+                       effective_cones=rules.effective_cones,
+                       box_sampling_var=_sampling_variance(box, p, where))
+    if cones_independent and n_cones < 2:
+        msg = ("cones stated independent but there is only one cone: σ_Δ falls back to "
+               "the one-cone upper bound")
+        notes.append(msg)
+        log.warning("%s: %s", where, msg)
+    t_off, signif = err.significance(delta)
     s_indep = None if scatter is None else np.diag(cbox) + np.diag(scatter) / n_cones
-    scatter_missing = False
-    if cones_independent and s_indep is not None:
-        var_off, method, n_eff = s_indep, SIGMA_OFFSET_INDEPENDENT, float(n_cones)
-    else:
-        n_eff = float(min(rules.effective_cones, n_cones))
-        var_off, method = np.diag(cbox) + np.diag(ccone) / n_eff, SIGMA_OFFSET_SHARED
-        if cones_independent:
-            scatter_missing = True
-            msg = ("cones stated independent but there is only one cone: σ_Δ falls back to "
-                   "the shared-structure form with N_eff = 1")
-            notes.append(msg)
-            log.warning("%s: %s", where, msg)
-    sig_off = np.sqrt(np.clip(var_off, 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
-        signif = np.where(sig_off > 0, delta / np.where(sig_off > 0, sig_off, 1.0),
-                          np.sign(delta) * np.inf * ~zero_off)
         ratio = (None if scatter is None else
                  np.where(np.diag(ccone) > 0, np.diag(scatter) / np.diag(ccone), np.nan))
-    detect = rules.detection_threshold * sig_off
+    detect = np.fmax(rules.z_fail * sig_tot, err.smallest_significant(rules.n_sigma_offset))
     with np.errstate(divide="ignore", invalid="ignore"):
         detect_frac = np.where(b != 0, detect / np.abs(np.where(b != 0, b, 1.0)), np.nan)
+    fin_det = detect_frac[np.isfinite(detect_frac) & ~dead]
+    uniform = float(fin_det.min()) if fin_det.size else np.nan
 
     n_regions = int(min([k_box, *k_cones]))
     chi = bias_chi2(delta, ctot, n_regions, use=~zero_var, where=where)
     notes.extend(chi.notes)
 
-    # Verdict.
     finite_z = np.isfinite(z)
     outside = (np.abs(np.where(finite_z, z, 0.0)) > rules.z_fail) | hard
-    significant = np.abs(delta) > rules.n_sigma_offset * sig_off
+    significant = np.abs(signif) > rules.n_sigma_offset
     fail_bins = np.flatnonzero(outside & significant & ~hard)
-    noisy_bins = np.flatnonzero(outside & ~significant)
-    label = box.bin_label
-    if fail_bins.size:
-        w = fail_bins[np.argmax(np.abs(z[fail_bins]))]
-        reasons.append(f"{_bins_text(fail_bins, bins, label)} outside the total error bar "
-                       f"(|z| > {rules.z_fail:g}) with a significant offset "
-                       f"(> {rules.n_sigma_offset:g} σ_Δ); largest at "
-                       f"{_describe(w, bins, label)}: {_pct(frac[w])}, {abs(z[w]):.2f} σ_tot, "
-                       f"{abs(signif[w]):.1f} σ_Δ")
+    noisy_bins = np.flatnonzero(outside & ~significant & ~hard)
+    small_bins = np.flatnonzero(~outside & significant & ~dead)
     chi2_fail = bool(rules.check_chi2 and np.isfinite(chi.p_value) and chi.p_value < rules.p_fail)
-    if chi2_fail:
-        reasons.append(f"bias χ² = {chi.chi2:.2f} for {chi.dof} bins, p = {chi.p_value:.2g} "
-                       f"< {rules.p_fail:g}")
-    warn_reasons = []
-    if hard.any():
-        warn_reasons.append(f"{_bins_text(np.flatnonzero(hard), bins, label)}: an offset with "
-                            f"zero error in box and cones")
-    soft = np.array([i for i in noisy_bins if not hard[i]], dtype=np.int64)
-    if soft.size:
-        w = soft[np.argmax(np.abs(z[soft]))]
-        warn_reasons.append(f"{_bins_text(soft, bins, label)} outside the total error bar "
-                            f"(|z| > {rules.z_fail:g}) but not significant "
-                            f"(< {rules.n_sigma_offset:g} σ_Δ); largest at "
-                            f"{_describe(w, bins, label)}: {_pct(frac[w])}, "
-                            f"{abs(z[w]):.2f} σ_tot, {abs(signif[w]):.1f} σ_Δ. The run is too "
-                            f"noisy to tell: more independent cones or a larger or second box "
-                            f"would settle it")
-    if n_cones < rules.min_cones:
-        warn_reasons.append(f"Only {n_cones} cone(s), fewer than min_cones = {rules.min_cones}: "
-                            f"cone-to-cone scatter "
-                            f"{'undefined' if n_cones < 2 else 'poorly known'}")
-    if scatter_missing:
-        warn_reasons.append("cones stated independent, but one cone gives no scatter")
-    if fail_bins.size or chi2_fail:
-        verdict = FAIL
-        reasons.extend(warn_reasons)
-    elif warn_reasons:
-        verdict = WARN
-        reasons.extend(warn_reasons)
-    else:
-        verdict = PASS
-        mz = np.nanmax(np.abs(z)) if finite_z.any() else np.nan
-        reasons.append(f"every bin within {rules.z_fail:g} σ_tot (max |z| = {mz:.2f})"
-                       + (f"; bias χ² p = {chi.p_value:.2g}" if np.isfinite(chi.p_value)
-                          else ""))
+    needed = _cones_needed(delta, err, noisy_bins, rules, n_cones)
+    verdict, reasons = _verdict(
+        rules, box.bin_label, bins, frac, z, signif, err, n_cones, chi, chi2_fail,
+        fail_bins, noisy_bins, small_bins, hard, needed)
 
     abs_z = np.abs(z[finite_z])
     out = {
@@ -287,21 +243,107 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         "chi2_bins": chi.used,
         "condition_number": chi.condition,
         "pseudo_inverse": chi.pseudo_inverse,
-        "sigma_offset": sig_off,
-        "sigma_offset_method": method,
+        "sigma_offset": err.sigma,
+        "sigma_offset_method": err.method,
+        "sigma_offset_dof": err.dof if np.isfinite(err.dof) else None,
         "sigma_offset_independent": None if s_indep is None
         else np.sqrt(np.clip(s_indep, 0, None)),
-        "n_eff_cones": n_eff,
+        "n_eff_cones": float(n_cones) if n_cones >= 2 else float(min(rules.effective_cones,
+                                                                       n_cones)),
+        "offset_t": t_off,
         "significance": signif,
         "detectable_offset": detect,
         "detectable_fractional_offset": detect_frac,
-        "detection_threshold": rules.detection_threshold,
+        "detectable_uniform_fraction": uniform,
         "failing_bins": fail_bins,
         "noisy_bins": noisy_bins,
+        "real_small_bins": small_bins,
+        "cones_needed": needed,
         "n_cones": n_cones,
         "cones_independent": bool(cones_independent),
     }
     return jsonable(out)
+
+
+def _sampling_variance(box: Measurement, p: int, where: str) -> NDArray[np.float64] | None:
+    raw = (box.extra or {}).get(SAMPLING_VARIANCE)
+    if raw is None:
+        return None
+    v = np.asarray(raw, dtype=np.float64).ravel()
+    if v.size != p or not np.all(np.isfinite(v)) or np.any(v < 0):
+        raise InputError(f"{where}: the box's {SAMPLING_VARIANCE} must be {p} finite, "
+                         f"non-negative numbers")
+    return v
+
+
+def _cones_needed(delta: NDArray[np.float64], err: OffsetError, noisy: NDArray[np.int64],
+                  rules: VerdictRules, n_cones: int) -> int | None:
+    """Cones that would make every noisy bin's offset significant (if it stays as measured)."""
+    if noisy.size == 0 or err.scatter_sd is None:
+        return None
+    counts = [cones_needed(float(delta[i]), float(err.scatter_sd[i]), rules.n_sigma_offset,
+                           n_cones, float(err.box_var[i])) for i in noisy]
+    known = [c for c in counts if c is not None]
+    # the cheapest bin to settle decides: one significant bin outside the error bar fails
+    return min(known) if known else None
+
+
+def _verdict(rules: VerdictRules, label: str, bins: NDArray[np.float64],
+             frac: NDArray[np.float64], z: NDArray[np.float64], signif: NDArray[np.float64],
+             err: OffsetError, n_cones: int, chi: Any, chi2_fail: bool,
+             fail_bins: NDArray[np.int64], noisy_bins: NDArray[np.int64],
+             small_bins: NDArray[np.int64], hard: NDArray[np.bool_],
+             needed: int | None) -> tuple[str, list[str]]:
+    """The verdict and its reasons in words (see the rules in :mod:`.rules`)."""
+    reasons: list[str] = []
+    if fail_bins.size:
+        w = fail_bins[np.argmax(np.abs(z[fail_bins]))]
+        reasons.append(f"{_bins_text(fail_bins, bins, label)} outside the total error bar "
+                       f"(|z| > {rules.z_fail:g}) with a real offset "
+                       f"(> {rules.n_sigma_offset:g} σ_Δ); largest at "
+                       f"{_describe(w, bins, label)}: {_pct(frac[w])}, {abs(z[w]):.2f} σ_tot, "
+                       f"{abs(signif[w]):.1f} σ_Δ")
+    if chi2_fail:
+        reasons.append(f"bias χ² = {chi.chi2:.2f} for {chi.dof} bins, p = {chi.p_value:.2g} "
+                       f"< {rules.p_fail:g} (Hotelling's law for the estimated covariance)")
+    warn_reasons = []
+    if hard.any():
+        warn_reasons.append(f"{_bins_text(np.flatnonzero(hard), bins, label)}: an offset with "
+                            f"zero error in box and cones")
+    if noisy_bins.size:
+        w = noisy_bins[np.argmax(np.abs(z[noisy_bins]))]
+        if err.scatter_sd is None:
+            advice = "run at least 3 cones so that the offset's own error can be measured"
+        elif needed is not None:
+            advice = (f"about {needed} cones in all (this run has {n_cones}) would tell it "
+                      f"apart from noise if the offset stays as measured")
+        else:
+            advice = ("more cones would not settle it at this offset; it is consistent "
+                      "with zero")
+        warn_reasons.append(f"{_bins_text(noisy_bins, bins, label)} outside the total error "
+                            f"bar (|z| > {rules.z_fail:g}) but not significant "
+                            f"(< {rules.n_sigma_offset:g} σ_Δ); largest at "
+                            f"{_describe(w, bins, label)}: {_pct(frac[w])}, "
+                            f"{abs(z[w]):.2f} σ_tot, {abs(signif[w]):.1f} σ_Δ. "
+                            f"The run cannot tell: {advice}")
+    if n_cones < rules.min_cones:
+        warn_reasons.append(f"Only {n_cones} cone(s), fewer than min_cones = {rules.min_cones}: "
+                            f"the offset's own error rests on "
+                            f"{'no' if n_cones < 2 else n_cones - 1} degree(s) of freedom")
+    if fail_bins.size or chi2_fail:
+        return FAIL, reasons + warn_reasons
+    if warn_reasons:
+        return WARN, warn_reasons
+    finite = np.isfinite(z)
+    mz = np.nanmax(np.abs(z)) if finite.any() else np.nan
+    reasons.append(f"every bin within {rules.z_fail:g} σ_tot (max |z| = {mz:.2f})"
+                   + (f"; bias χ² p = {chi.p_value:.2g}" if np.isfinite(chi.p_value) else ""))
+    if small_bins.size:
+        w = small_bins[np.argmax(np.abs(z[small_bins]))]
+        reasons.append(f"{_bins_text(small_bins, bins, label)} show a real offset that is too "
+                       f"small to matter for a fit: largest at {_describe(w, bins, label)}, "
+                       f"{_pct(frac[w])}, {abs(z[w]):.2f} σ_tot, {abs(signif[w]):.1f} σ_Δ")
+    return PASS, reasons
 
 
 def _bins_text(idx: NDArray[np.int64], bins: NDArray[np.float64], label: str) -> str:

@@ -135,8 +135,15 @@ def chi2_per_dof(stat: dict[str, Any]) -> float:
     return chi2 / dof if dof and math.isfinite(dof) and dof > 0 else math.nan
 
 
-def max_detectable_fraction(stat: dict[str, Any]) -> float:
-    """Largest detectable fractional offset over bins (bins with b = 0 ignored)."""
+def detectable_fraction(stat: dict[str, Any]) -> float:
+    """Smallest fractional bias common to every bin that would fail (bins with b = 0 ignored).
+
+    Read from ``detectable_uniform_fraction``; older results without it use the minimum of
+    the per-bin detectable fractions.
+    """
+    v = num(stat, "detectable_uniform_fraction")
+    if math.isfinite(v):
+        return v
     frac = arr(stat, "detectable_fractional_offset")
     if not frac.size:
         det, b = arr(stat, "detectable_offset"), arr(stat, "box")
@@ -144,4 +151,4 @@ def max_detectable_fraction(stat: dict[str, Any]) -> float:
             with np.errstate(divide="ignore", invalid="ignore"):
                 frac = np.where(b != 0, det / np.abs(b), np.nan)
     frac = frac[np.isfinite(frac)]
-    return float(frac.max()) if frac.size else math.nan
+    return float(frac.min()) if frac.size else math.nan

@@ -33,7 +33,7 @@ def _rows(results: dict[str, Any]) -> list[list[Cell]]:
                      Cell(ac.fmt_fixed(ac.max_abs_z(d))),
                      Cell(ac.fmt_fixed(ac.chi2_per_dof(d))),
                      Cell(ac.fmt_p(ac.num(d, "p_value"))),
-                     Cell(ac.fmt_pct(ac.max_detectable_fraction(d)))])
+                     Cell(ac.fmt_pct(ac.detectable_fraction(d)))])
     return rows
 
 
@@ -60,16 +60,17 @@ def _answer(results: dict[str, Any]) -> str:
 
 def _legend(results: dict[str, Any]) -> str:
     rules = results.get("verdict_rules") or {}
-    thr = rules.get("detection_threshold", 2.0)
+    n_sig, z_fail = rules.get("n_sigma_offset", 3.0), rules.get("z_fail", 1.0)
     return (
         f"Each row compares one statistic measured in the periodic box with the mean over the "
         f"light cones, for one sample and redshift cut ({PRIMARY_MARK.strip()} marks the "
         f"primary cut). max |z|: the largest offset over bins in units of the total error bar "
         f"σ_tot = √(σ_box² + σ_cone²). χ²/dof and p: the bias χ² over all bins with the "
-        f"Hartlap-corrected inverse covariance; a small p means the pattern of offsets is "
-        f"unlikely to be noise. detectable: the smallest fractional offset this run could tell "
-        f"from zero ({thr:g} σ_Δ), largest over bins — when it exceeds the offsets that matter "
-        f"for your fit, the run needs more independent cones or a larger box. The rules behind "
+        f"Hartlap-corrected inverse covariance, p from Hotelling's law; a small p means the "
+        f"offsets are significant even against the data's own error. detectable: the smallest "
+        f"fractional bias, common to every bin, that this run would fail (outside {z_fail:g} "
+        f"σ_tot and beyond {n_sig:g} σ_Δ in some bin) — when it exceeds the biases that matter "
+        f"for your fit, the run needs more cones. The rules behind "
         f"the verdicts are on the page \"How the verdicts are made\".")
 
 

@@ -13,6 +13,11 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+#: Key of ``Measurement.extra`` holding, per bin, the variance of a box value that comes from
+#: the box estimator's own random sampling (e.g. random sphere centres), which the cones do
+#: not share. The comparison adds it to the offset's own error.
+SAMPLING_VARIANCE = "sampling_variance"
+
 
 @dataclass
 class Measurement:

@@ -23,7 +23,7 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import neighbours_box, neighbours_cone
 from ._common import check_filled, want_jackknife
-from .base import BoxSample, ConeGeometry, ConeSample, Measurement
+from .base import SAMPLING_VARIANCE, BoxSample, ConeGeometry, ConeSample, Measurement
 from .settings import VpfSettings
 
 NAME = "vpf"
@@ -91,8 +91,13 @@ def vpf_box(sample: BoxSample, settings: VpfSettings | None = None,
         region = sample.layout.region_of(centres)
         check_filled(region, sample.n_regions, "VPF spheres")
     use = np.ones((s.n_spheres, radii.size), dtype=bool)
-    return _p0(_empty(counts), use, region, sample.n_regions if jk else 0, radii,
-               {"geometry": "box"})
+    m = _p0(_empty(counts), use, region, sample.n_regions if jk else 0, radii,
+            {"geometry": "box"})
+    # Given the galaxies, each random sphere is empty independently with probability P₀, so
+    # the box value carries a binomial sampling variance P₀(1 − P₀)/n that the cones (with
+    # their own spheres) do not share: it belongs in the offset's own error.
+    m.extra[SAMPLING_VARIANCE] = (m.value * (1.0 - m.value) / s.n_spheres).tolist()
+    return m
 
 
 def sphere_centres_cone(geometry: ConeGeometry, n: int, rng: np.random.Generator

@@ -1,0 +1,208 @@
+"""The error of the cone–box offset itself, and significance under the right law.
+
+Why the cone-to-cone scatter
+----------------------------
+Every cone is cut from the same box with its own observer, rotation and random draws
+(``SeedSequence([seed, i, …])``), so *given the box* the N cones are independent, identically
+distributed draws. Their mean c̄ therefore scatters about its conditional expectation
+μ(box) with covariance S/N, where S is the cone-to-cone sample covariance (N − 1 degrees of
+freedom). The offset Δ = c̄ − b then has
+
+    Var(Δ) = S/N + Var(μ(box) − b),
+
+and the second term — the part of the box's own fluctuation that the average over observers
+does not share, e.g. a line of sight fixed along one axis in the box against radial lines of
+sight in the cones — is small for statistics that weight the box's galaxies alike on both
+sides. Its one exactly known part is the box estimator's own sampling noise (the VPF's random
+spheres: P₀(1 − P₀)/n_spheres), which a statistic reports and which is added. conecheck uses
+σ_Δ² = diag(S)/N + that sampling variance, and measures how well that is calibrated on null
+set-ups over independent boxes (README, "Verdict rules"; benchmarks/RESULTS.md).
+
+With σ_Δ estimated from N − 1 degrees of freedom, t = Δ/σ_Δ follows Student's t law with
+N − 1 degrees of freedom (for Gaussian cone-to-cone scatter), not a Gaussian: with four cones
+|t| > 3 happens 5.8 % of the time instead of 0.27 %. The significance quoted and thresholded
+is therefore the Gaussian-equivalent one, g = Φ⁻¹(F_t(t; N − 1)), which has the same two-sided
+tail probability (Student 1908, Biometrika 6, 1).
+
+When the cones are stated independent (one box each), the box is one more independent
+realisation and σ_Δ² = diag(C_box) + diag(S)/N. With one cone there is no scatter; σ_Δ then
+falls back to the conservative diag(C_box) + diag(C_cone)/N_eff and the verdict can only warn.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import stats
+
+SIGMA_OFFSET_SCATTER = ("cones cut from one box: diag(S_cones)/N_cones (+ the box estimator's "
+                        "own sampling variance), Student t with N−1 dof")
+SIGMA_OFFSET_INDEPENDENT = ("independent cones: diag(C_box) + diag(S_cones)/N_cones, "
+                            "Student t with N−1 dof")
+SIGMA_OFFSET_SHARED = "one cone, no scatter: diag(C_box) + diag(C_cone)/N_eff (an upper bound)"
+
+#: Largest number of cones :func:`cones_needed` searches.
+MAX_CONES_ADVICE = 10_000
+
+
+def gaussian_equivalent(t: ArrayLike, dof: float) -> NDArray[np.float64]:
+    """Gaussian-equivalent significance of Student-t values: same two-sided tail probability.
+
+    Parameters
+    ----------
+    t : array_like
+        Student-t statistics (±inf allowed).
+    dof : float
+        Degrees of freedom (> 0); ``inf`` returns ``t`` unchanged.
+
+    Returns
+    -------
+    ndarray
+        g with P(|Z| > |g|) = P(|T_dof| > |t|) and the sign of t. Computed from the survival
+        function so that very small tail probabilities keep their precision.
+    """
+    t = np.asarray(t, dtype=np.float64)
+    if not np.isfinite(dof):
+        return t.copy()
+    if dof <= 0:
+        raise ValueError(f"degrees of freedom must be > 0, got {dof}")
+    with np.errstate(invalid="ignore"):
+        sf = stats.t.sf(np.abs(t), dof)
+        g = -stats.norm.ppf(sf)
+    return np.where(np.isnan(t), np.nan, np.sign(t) * np.where(np.isinf(t), np.inf, g))
+
+
+def critical_t(n_sigma: float, dof: float) -> float:
+    """|t| with N − 1 = ``dof`` degrees of freedom that is as rare as |Z| = ``n_sigma``."""
+    if not np.isfinite(dof):
+        return float(n_sigma)
+    return float(stats.t.isf(stats.norm.sf(n_sigma), dof))
+
+
+def cones_needed(offset: float, scatter_sd: float, n_sigma: float,
+                 n_now: int, box_var: float = 0.0) -> int | None:
+    """Fewest cones for which ``offset`` would be ``n_sigma`` significant (None: never).
+
+    Parameters
+    ----------
+    offset : float
+        The offset Δ of one bin (units of the statistic).
+    scatter_sd : float
+        Cone-to-cone standard deviation of the statistic in that bin (√diag S).
+    n_sigma : float
+        Gaussian-equivalent significance wanted.
+    n_now : int
+        Cones in this run (the answer is at least ``n_now + 1``).
+    box_var : float
+        Part of σ_Δ² that more cones do not reduce (diag(C_box) for independent cones).
+
+    Notes
+    -----
+    Assumes the offset and the scatter stay as measured, and asks for the t threshold of the
+    larger N, so it is an estimate, not a promise.
+    """
+    if not (np.isfinite(offset) and np.isfinite(scatter_sd)) or offset == 0:
+        return None
+    if scatter_sd <= 0:
+        return max(n_now + 1, 2)
+    for n in _candidate_counts(n_now):
+        sig = math.sqrt(box_var + scatter_sd ** 2 / n)
+        if abs(offset) > critical_t(n_sigma, n - 1) * sig:
+            return n
+    return None
+
+
+def _candidate_counts(n_now: int) -> list[int]:
+    small = list(range(max(n_now + 1, 3), 64))
+    large = np.unique(np.geomspace(64, MAX_CONES_ADVICE, 60).astype(int)).tolist()
+    return small + large
+
+
+@dataclass(frozen=True)
+class OffsetError:
+    """σ_Δ of each bin with the law its significance follows.
+
+    Attributes
+    ----------
+    sigma : ndarray
+        σ_Δ per bin (units of the statistic).
+    dof : float
+        Degrees of freedom of σ_Δ (N − 1, or ``inf`` for the one-cone upper bound).
+    method : str
+        The formula used (one of the ``SIGMA_OFFSET_*`` texts).
+    box_var : ndarray
+        The part of σ_Δ² that more cones would not reduce.
+    scatter_sd : ndarray or None
+        Cone-to-cone standard deviation √diag S (None with one cone).
+    """
+
+    sigma: NDArray[np.float64]
+    dof: float
+    method: str
+    box_var: NDArray[np.float64]
+    scatter_sd: NDArray[np.float64] | None
+
+    def significance(self, offset: ArrayLike) -> tuple[NDArray[np.float64],
+                                                         NDArray[np.float64]]:
+        """(t, g): Δ/σ_Δ and its Gaussian equivalent; ±inf where σ_Δ = 0 and Δ ≠ 0."""
+        d = np.asarray(offset, dtype=np.float64)
+        s = self.sigma
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.where(s > 0, d / np.where(s > 0, s, 1.0),
+                         np.where(d == 0, 0.0, np.sign(d) * np.inf))
+        return t, gaussian_equivalent(t, self.dof)
+
+    def smallest_significant(self, n_sigma: float) -> NDArray[np.float64]:
+        """Smallest |Δ| per bin that would be ``n_sigma`` significant (Gaussian-equivalent)."""
+        return critical_t(n_sigma, self.dof) * self.sigma
+
+
+def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike, *,
+                 cones_independent: bool, effective_cones: float,
+                 box_sampling_var: ArrayLike | None = None) -> OffsetError:
+    """σ_Δ per bin from the box and cone measurements.
+
+    Parameters
+    ----------
+    box_var : array_like, shape (p,)
+        diag(C_box), the box's jackknife variance per bin.
+    cone_values : array_like, shape (N, p)
+        The statistic on each cone.
+    cone_var : array_like, shape (p,)
+        diag(C_cone), the mean single-cone jackknife variance (used with one cone only).
+    cones_independent : bool
+        True when each cone comes from an independent box.
+    effective_cones : float
+        N_eff of the one-cone upper bound.
+    box_sampling_var : array_like, shape (p,), optional
+        Variance of the box value from the box estimator's own random sampling (random
+        sphere centres of the VPF), which no cone shares; added to σ_Δ² when the cones are
+        cut from the box (it is already inside diag(C_box) otherwise).
+    """
+    cv = np.atleast_2d(np.asarray(cone_values, dtype=np.float64))
+    bvar = np.clip(np.asarray(box_var, dtype=np.float64), 0, None)
+    n = cv.shape[0]
+    if n < 2:
+        n_eff = float(min(effective_cones, n))
+        var = bvar + np.clip(np.asarray(cone_var, dtype=np.float64), 0, None) / n_eff
+        return OffsetError(np.sqrt(var), math.inf, SIGMA_OFFSET_SHARED, bvar, None)
+    scatter_var = cv.var(axis=0, ddof=1)
+    if cones_independent:
+        fixed = bvar
+    elif box_sampling_var is not None:
+        fixed = np.clip(np.asarray(box_sampling_var, dtype=np.float64), 0, None)
+    else:
+        fixed = np.zeros_like(bvar)
+    var = fixed + scatter_var / n
+    method = SIGMA_OFFSET_INDEPENDENT if cones_independent else SIGMA_OFFSET_SCATTER
+    # With a box term the Welch–Satterthwaite degrees of freedom would exceed N − 1; keeping
+    # N − 1 errs on the side of fewer false fails.
+    return OffsetError(np.sqrt(var), float(n - 1), method, fixed, np.sqrt(scatter_var))
+
+
+__all__ = ["MAX_CONES_ADVICE", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SCATTER",
+           "SIGMA_OFFSET_SHARED", "OffsetError", "cones_needed", "critical_t",
+           "gaussian_equivalent", "offset_error"]
