@@ -136,7 +136,7 @@ class _CountSettings:
     half_length: float = 10.0
     max_count: int = 30
     count_edges: tuple[float, ...] | None = None
-    edge_treatment: str = "none"
+    edge_treatment: str = "drop"
     min_inside_fraction: float = 0.9
 
     _key = "statistics"
@@ -171,8 +171,9 @@ class CicSettings(_CountSettings):
     count_edges : tuple of float or None
         Explicit count bin edges.
     edge_treatment : {"none", "drop"}
-        Cone only: keep every centre, or drop centres whose cylinder lies less than
-        ``min_inside_fraction`` inside the survey.
+        Cone only: drop centres whose cylinder lies less than ``min_inside_fraction`` inside
+        the survey (default: a cylinder cut by an edge holds fewer neighbours than in the
+        box, which biases P(N) low), or keep every centre.
     min_inside_fraction : float
         Threshold of the ``drop`` treatment.
     """
@@ -200,8 +201,8 @@ class AnnuliSettings(_CountSettings):
     count_edges : tuple of float or None
         Explicit count bin edges.
     edge_treatment : {"none", "drop"}
-        Cone only: keep every centre, or drop centres whose annulus lies less than
-        ``min_inside_fraction`` inside the survey.
+        Cone only: drop centres whose annulus lies less than ``min_inside_fraction`` inside
+        the survey (default, as for the cylinders), or keep every centre.
     min_inside_fraction : float
         Threshold of the ``drop`` treatment.
     """
