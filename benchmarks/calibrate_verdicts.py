@@ -124,9 +124,9 @@ def main(argv: list[str] | None = None) -> int:
         for seed in range(a.seeds):
             d = tiny_dict(seed=1000 + seed, **{"cones.n_cones": a.cones, **changes})
             runs.append(run(d, a.out / tag / f"seed{seed}"))
-        lines += summarise(name, runs, null=name.startswith("null"))
-        print("\n".join(lines[-len(runs[0]["samples"]["M20"]["cuts"]["primary"]
-                                   ["statistics"]):]), flush=True)
+        new = summarise(name, runs, null=name.startswith("null"))
+        lines += new
+        print("\n".join(new), flush=True)
     # wp bias in the first bin of 2 σ_tot, injected into the RSD null's cones
     runs = []
     for seed in range(a.seeds):

@@ -1,10 +1,10 @@
 """The invented scenario `conecheck demo` runs.
 
-The fictional "Kestrel" survey: its made-up footprint (6207 deg², with holes and a
-completeness gradient, shipped in ``conecheck/data`` and ``masks/``), a flux limit
-m < 17.6, 30 km/s redshift errors, 55″ fibre collisions with tile overlaps, and two
-luminosity-threshold samples (M < −20 and M < −21), the brighter one with an alternative
-"near" redshift cut. The box is the built-in synthetic lognormal halo box populated with
+The fictional "Kestrel" survey: its made-up southern footprint (1953 deg², with holes and
+patches of lower completeness, shipped in ``conecheck/data`` and ``masks/``), a shell
+0.015 < z < 0.085 with a flux limit m < 16.9, 35 km/s redshift errors, 40″ fibre collisions
+with tile overlaps, and two luminosity-threshold samples, "broad" (M < −20, cut at its volume
+limit z = 0.075) and "luminous" (M < −21), the latter with an alternative "near" cut. The box is the built-in synthetic lognormal halo box populated with
 the shipped illustrative HOD. Every number here is invented for the demo.
 
 The full demo is the configuration template of ``conecheck init`` unchanged; ``quick``

@@ -55,7 +55,7 @@ def _small(**changes) -> dict:
     """One sample in a thin shell of a 100 Mpc/h box: a few seconds per run."""
     d = tiny_dict(**{"box.box_size": 100.0, "survey.shell.z_max": 0.04,
                      "survey.fibres.overlap_map": None, **changes})
-    d["samples"] = [{"name": "M20", "mag_max": -20.0, "z_min": 0.02, "z_max": 0.04}]
+    d["samples"] = [{"name": "broad", "mag_max": -20.0, "z_min": 0.02, "z_max": 0.04}]
     d["jackknife"] = {"sky_regions": 9, "box_n_side": 3}
     d["cones"]["n_cones"] = 3
     d["randoms"]["multiple"] = 3.0
@@ -163,13 +163,13 @@ def test_sections_are_off_by_default_and_on_when_present():
     ({"cut_sweep": {"z_max": ["far"]}}, "cut_sweep.z_max[0] = 'far': expected a number"),
     ({"cut_sweep": {"samples": {"nobody": {"z_max": [0.05]}}}},
      "cut_sweep.samples.nobody: no sample"),
-    ({"cut_sweep": {"samples": {"M20": {"cuts": [{"label": "a", "z_min": 0.0,
+    ({"cut_sweep": {"samples": {"broad": {"cuts": [{"label": "a", "z_min": 0.0,
                                                    "z_max": 0.05}]}}}},
-     "cut_sweep.samples.M20.cuts[0]: cut 0.0–0.05 lies outside"),
-    ({"cut_sweep": {"samples": {"M20": {"cuts": [{"label": "b", "z_max": 0.05,
+     "cut_sweep.samples.broad.cuts[0]: cut 0.0–0.05 lies outside"),
+    ({"cut_sweep": {"samples": {"broad": {"cuts": [{"label": "b", "z_max": 0.05,
                                                    "mag_max": -21}]}}}},
-     "cut_sweep.samples.M20.cuts[0].mag_max"),
-    ({"cut_sweep": {"samples": {"M20": {"cuts": [{"label": "primary", "z_min": 0.03,
+     "cut_sweep.samples.broad.cuts[0].mag_max"),
+    ({"cut_sweep": {"samples": {"broad": {"cuts": [{"label": "primary", "z_min": 0.03,
                                                    "z_max": 0.05}]}}}},
      "already has a cut of that name"),
     ({"cut_sweep": {"n_grid": 0}}, "cut_sweep.n_grid"),
@@ -191,7 +191,7 @@ def test_template_examples_are_valid_and_off():
     cfg = config_from_dict(data)
     assert cfg.ladder.enabled and cfg.corrections.enabled and cfg.cut_sweep.enabled
     assert cfg.corrections.names == ("none", "nearest_redshift", "nearest_upweight")
-    assert cfg.cut_sweep.samples["M21"].cuts[0].label == "mid"
+    assert cfg.cut_sweep.samples["luminous"].cuts[0].label == "mid"
 
 
 # --------------------------------------------------------------------------- plans
@@ -253,16 +253,16 @@ def test_sweep_plan_reuses_existing_cuts_and_adds_the_volume_limit():
         assert sum(c.source == "primary" for c in cuts) == 1
         assert all(c.cut.mag_max == s.mag_max for c in cuts)
     d = tiny_dict(cut_sweep={"z_max": [0.03, 0.055]})
-    plan = plan_sweep(config_from_dict(d))["M20"]
+    plan = plan_sweep(config_from_dict(d))["broad"]
     assert [c.cut.label for c in plan] == [grid_label(0.02, 0.03), "primary"]
-    # A flux limit that makes M20 volume limited at z ≈ 0.045 puts that z_max in the grid
+    # A flux limit that makes broad volume limited at z ≈ 0.045 puts that z_max in the grid
     # (m = M + DM: DM(0.045) ≈ 35.9 for h = 0.7, so m_lim = 15.9 for M = -20; from memory).
     cfg = config_from_dict(tiny_dict(**{"survey.shell.m_lim": 15.9}, cut_sweep={}))
     from conecheck.attribution.sweep import volume_limit
 
     z = volume_limit(cfg, cfg.samples[0])
     assert 0.04 < z < 0.05
-    assert round(z, 4) in [c.cut.z_max for c in plan_sweep(cfg)["M20"]]
+    assert round(z, 4) in [c.cut.z_max for c in plan_sweep(cfg)["broad"]]
 
 
 # --------------------------------------------------------------------------- paired errors
@@ -336,7 +336,7 @@ def test_identical_variants_give_zero_and_mismatches_are_refused():
 
 # --------------------------------------------------------------------------- planted effect
 def _attr(results, stat):
-    return results["ladder"]["attribution"]["M20"]["primary"][stat]
+    return results["ladder"]["attribution"]["broad"]["primary"][stat]
 
 
 def test_planted_rsd_is_attributed_to_the_rsd_rung(planted):
@@ -368,7 +368,7 @@ def test_planted_rsd_is_attributed_to_the_rsd_rung(planted):
     # named as failing from the RSD rung, in the ladder and in the main results
     assert a["verdicts"]["geometry"] != "fail"
     assert a["first_failing_rung"] == "rsd"
-    main = results["samples"]["M20"]["cuts"]["primary"]["statistics"]["wp"]
+    main = results["samples"]["broad"]["cuts"]["primary"]["statistics"]["wp"]
     assert main["verdict"] == "fail" and main["first_failing_rung"] == "rsd"
     assert code == 1
     # number density: nothing planted, nothing fails
@@ -386,9 +386,9 @@ def test_variants_share_cones_and_randoms(planted):
     assert calls["cones"][5][1] == "nearest_upweight"
     # randoms: once for the full sky (shared by three rungs), once for the swept cuts
     assert len(calls["randoms"]) == 2 and calls["randoms"][0] > 4e4
-    main = dict(results["samples"]["M20"]["cuts"]["primary"]["statistics"]["wp"])
+    main = dict(results["samples"]["broad"]["cuts"]["primary"]["statistics"]["wp"])
     assert main.pop("first_failing_rung") == main.pop("largest_increment_rung") == "rsd"
-    assert rungs[-1]["samples"]["M20"]["cuts"]["primary"]["statistics"]["wp"] == main
+    assert rungs[-1]["samples"]["broad"]["cuts"]["primary"]["statistics"]["wp"] == main
 
 
 def test_sections_have_the_main_per_statistic_fields(planted):
@@ -402,7 +402,7 @@ def test_sections_have_the_main_per_statistic_fields(planted):
                 assert cut["verdict"] in ("pass", "warn", "fail")
                 for rec in cut["statistics"].values():
                     assert set(REQUIRED_STATISTIC_KEYS) <= set(rec)
-    cuts = results["cuts"]["samples"]["M20"]
+    cuts = results["cuts"]["samples"]["broad"]
     assert cuts["order"] == [grid_label(0.02, 0.03), grid_label(0.02, 0.035), "primary"]
     passing = [c for c, v in cuts["cuts"].items() if v["verdict"] == "pass"]
     vol = {c: v["volume_per_sr"] for c, v in cuts["cuts"].items()}
@@ -414,16 +414,16 @@ def test_sections_have_the_main_per_statistic_fields(planted):
 def test_outputs_tables_pages_and_summary(planted):
     run_dir, results, _, _ = planted
     t = Table.read(run_dir / "tables" / "ladder" / "increments" / "M20__primary__wp.ecsv")
-    summed = sum(t[f"increment_{n}"] for n in results["ladder"]["attribution"]["M20"][
+    summed = sum(t[f"increment_{n}"] for n in results["ladder"]["attribution"]["broad"][
         "primary"]["wp"]["rungs"])
     np.testing.assert_allclose(summed, t["total_offset"], rtol=1e-9)
     assert t.meta["first_failing_rung"] == "rsd"
     assert (run_dir / "tables" / "ladder" / "geometry" / "M20__primary__wp.ecsv").exists()
     assert (run_dir / "tables" / "corrections" / "vs_truth" / "M20__primary__wp.ecsv").exists()
     s = Table.read(run_dir / "tables" / "cuts" / "M20__summary.ecsv")
-    assert list(s["label"]) == results["cuts"]["samples"]["M20"]["order"]
+    assert list(s["label"]) == results["cuts"]["samples"]["broad"]["order"]
     text = attribution.attribution_summary(results)
-    assert "M20 primary wp: fails from +RSD" in text and "redshift-cut sweep" in text
+    assert "broad primary wp: fails from +RSD" in text and "redshift-cut sweep" in text
     # pages: present, fitting the page, re-rendered from results.json alone
     specs = build_pages(results, run_dir)
     kinds = [s.kind for s in specs]
@@ -466,13 +466,13 @@ def test_fibre_collisions_and_nearest_neighbour_correction(fibres):
     run_dir, results = fibres
     c = results["corrections"]
     assert min(c["variants"]["none"]["collided_fraction"]) > 0.05
-    truth = c["variants"]["uncollided"]["samples"]["M20"]["cuts"]["primary"]["statistics"]
+    truth = c["variants"]["uncollided"]["samples"]["broad"]["cuts"]["primary"]["statistics"]
     rp = np.array(truth["wp"]["bins"])
     edges = np.array(truth["wp"]["bin_edges"])
     chi_max = 118.5  # comoving distance to z = 0.04 for Ω_m = 0.3 [Mpc/h] (from memory)
     theta = math.radians(WIDE_FIBRE_ARCSEC / 3600.0)
     collision = theta * chi_max
-    e = c["against_truth"]["M20"]["primary"]["wp"]["corrections"]
+    e = c["against_truth"]["broad"]["primary"]["wp"]["corrections"]
     ratio = {n: 1.0 + np.array(d["fractional_increment"]) for n, d in e.items()}
     below = edges[1:] <= collision
     well_above = rp >= 4.0 * collision
@@ -484,7 +484,7 @@ def test_fibre_collisions_and_nearest_neighbour_correction(fibres):
         ratio["nearest_redshift"]
     # ... where the uncorrected cones are still off by more than that (the test can fail)
     assert np.all(np.abs(ratio["none"][well_above] - 1.0) > 0.05), ratio["none"]
-    assert c["against_truth"]["M20"]["primary"]["wp"]["closest_to_truth"] != "none"
+    assert c["against_truth"]["broad"]["primary"]["wp"]["closest_to_truth"] != "none"
 
 
 def test_corrections_section_is_skipped_without_fibres(tmp_path):

@@ -52,8 +52,8 @@ def test_quick_demo_writes_every_output(demo_run):
         assert (out / name).is_file(), name
     res = json.loads((out / "results.json").read_text())
     assert res["overall"] in ("pass", "warn", "fail")
-    assert set(res["samples"]) == {"M20", "M21"}
-    assert set(res["samples"]["M21"]["cuts"]) == {"primary", "near"}
+    assert set(res["samples"]) == {"broad", "luminous"}
+    assert set(res["samples"]["luminous"]["cuts"]) == {"primary", "near"}
     n_stats = 0
     for sample in res["samples"].values():
         for cut in sample["cuts"].values():
@@ -112,7 +112,7 @@ def test_uncorrected_fibre_collisions_fail_wp_and_cic(tmp_path):
                              "survey.fibres.overlap_fraction": 0.0,
                              "survey.correction.name": "none"})
     res, code = _run(d, tmp_path / "run")
-    stats = res["samples"]["M20"]["cuts"]["primary"]["statistics"]
+    stats = res["samples"]["broad"]["cuts"]["primary"]["statistics"]
     assert stats["wp"]["verdict"] == "fail" and stats["cic"]["verdict"] == "fail"
     assert stats["wp"]["offset"][0] < 0  # pairs are lost at small r_p
     assert code == 1
@@ -128,7 +128,7 @@ def test_redshift_errors_missing_from_the_box_fail_cic(tmp_path):
     cfg_path.write_text(tomli_w.dumps(d))
     assert main(["run", str(cfg_path), "-q"]) == 1
     res = json.loads((tmp_path / "run" / "results.json").read_text())
-    assert res["samples"]["M20"]["cuts"]["primary"]["statistics"]["cic"]["verdict"] == "fail"
+    assert res["samples"]["broad"]["cuts"]["primary"]["statistics"]["cic"]["verdict"] == "fail"
 
 
 def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
@@ -190,7 +190,7 @@ def test_a_failing_measurement_names_cone_sample_and_cut(tmp_path, monkeypatch):
     with pytest.raises(TaskFailed) as exc:
         _run(tiny_dict(seed=9), tmp_path / "run")
     text = str(exc.value)
-    assert "cone 0" in text and "sample M20, cut primary" in text and "overflow" in text
+    assert "cone 0" in text and "sample broad, cut primary" in text and "overflow" in text
 
 
 def test_fresh_ignores_and_a_corrupt_entry_is_recomputed(tmp_path, caplog):

@@ -1,6 +1,6 @@
 """The invented Kestrel Redshift Survey footprint shipped for the demo.
 
-The Kestrel Redshift Survey (KRS) does not exist: it is a made-up northern-sky
+The Kestrel Redshift Survey (KRS) does not exist: it is a made-up southern-sky
 fibre survey whose footprint (``masks/kestrel_regions.toml``) exercises every
 region shape.  The built maps ship as package data, so the demo finds them with
 :func:`demo_mask_path` whatever the installation.

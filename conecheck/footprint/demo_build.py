@@ -24,15 +24,15 @@ from .overlap import hex_tile_centres, tile_overlap_map
 from .regions import build_mask
 
 #: Invented fibre-tile field radius and hexagonal tile spacing [deg].
-TILE_RADIUS_DEG = 1.5
-TILE_SPACING_DEG = 2.5
+TILE_RADIUS_DEG = 1.1
+TILE_SPACING_DEG = 1.8
 #: A tile is placed when at least this fraction of its field is in the footprint.
 TILE_MIN_FRACTION = 0.2
 
 
 def demo_tiles(footprint: Footprint) -> tuple[np.ndarray, np.ndarray]:
     """The invented KRS tiling: a hexagonal pattern kept where it covers the footprint."""
-    ra, dec = hex_tile_centres(0.0, 360.0, -6.0, 70.0, TILE_SPACING_DEG)
+    ra, dec = hex_tile_centres(0.0, 360.0, -62.0, -18.0, TILE_SPACING_DEG)
     keep = footprint.disc_fraction(ra, dec, TILE_RADIUS_DEG, samples_per_radius=6) \
         >= TILE_MIN_FRACTION
     return ra[keep], dec[keep]
