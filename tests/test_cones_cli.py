@@ -27,7 +27,7 @@ def test_cones_command_writes_cones_randoms_and_manifest(tmp_path):
     # up-weighting conserves the targets' total weight inside the shell to within the few
     # collided galaxies whose fibred neighbour falls outside it
     assert np.all(np.asarray(cone["weight"]) >= 1.0)
-    rnd = Table.read(tmp_path / "cones" / "randoms_M20__primary.fits")
+    rnd = Table.read(tmp_path / "cones" / "randoms_broad__primary.fits")
     assert len(rnd) > 3 * len(cone[np.asarray(cone["abs_mag"]) < -20.0])
     assert np.all(np.asarray(rnd["region"]) >= 0)
 
@@ -50,7 +50,7 @@ def test_shuffled_randoms_take_their_distances_from_cone_0(tmp_path):
     z = np.asarray(cone["z_obs"])
     sel = ((np.asarray(cone["abs_mag"]) < sample["mag_max"]) & (z >= sample["z_min"])
            & (z < sample["z_max"]))
-    rnd = Table.read(tmp_path / "cones" / "randoms_M20__primary.fits")
+    rnd = Table.read(tmp_path / "cones" / "randoms_broad__primary.fits")
     assert np.all(np.isin(np.asarray(rnd["chi_obs"]), np.asarray(cone["chi_obs"])[sel]))
     man = json.loads((tmp_path / "cones" / "manifest.json").read_text())
     assert man["randoms_radial"] == "shuffle"

@@ -113,7 +113,8 @@ def test_cone_edge_treatment():
     data = sh.shell_from_box(sh.poisson(rng, n, L), L, 40.0, 110.0, geo)
     lam = n * np.pi * 2.0**2 * 2 * 20.0
     kw = {"r_cyl": 2.0, "half_length": 20.0, "max_count": 12}
-    none = cic_cone(data, geo, CicSettings(**kw))
+    none = cic_cone(data, geo, CicSettings(**kw, edge_treatment="none"))
+    assert CicSettings().edge_treatment == "drop"  # the default
     drop = cic_cone(data, geo, CicSettings(**kw, edge_treatment="drop",
                                            min_inside_fraction=0.99))
     # var(mean count) = 2λ/N_centres for Poisson points (each pair serves two centres)
