@@ -4,8 +4,9 @@ The fictional "Kestrel" survey: its made-up southern footprint (1953 deg², with
 patches of lower completeness, shipped in ``conecheck/data`` and ``masks/``), a shell
 0.015 < z < 0.085 with a flux limit m < 16.9, 35 km/s redshift errors, 40″ fibre collisions
 with tile overlaps, and two luminosity-threshold samples, "broad" (M < −20, cut at its volume
-limit z = 0.075) and "luminous" (M < −21), the latter with an alternative "near" cut. The box is the built-in synthetic lognormal halo box populated with
-the shipped illustrative HOD. Every number here is invented for the demo.
+limit z = 0.075) and "luminous" (M < −21), the latter with an alternative "near" cut. The box
+is the built-in synthetic lognormal halo box populated with the shipped illustrative HOD.
+Every number here is invented for the demo.
 
 The full demo is the configuration template of ``conecheck init`` unchanged; ``quick``
 shrinks the box, the shell, the binning and the number of cones so the whole pipeline
