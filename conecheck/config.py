@@ -360,6 +360,38 @@ class OutputConfig:
     cache: bool = True
 
 
+@dataclass(frozen=True)
+class ParameterShiftsConfig:
+    """The offset in units of the HOD parameters (boxes built from halos + HOD).
+
+    Attributes
+    ----------
+    enabled : bool
+        Differentiate every box statistic with respect to the sample's HOD parameters
+        (central differences on the box) and report, per cut and combination of statistics,
+        how far the cone–box offset would move each parameter in units of its error.
+    combinations : list of str
+        Statistics fitted together, each written "a+b" (e.g. "number_density+wp"); empty:
+        number density + wp, + counts in cylinders, and every measured statistic.
+    """
+
+    enabled: bool = True
+    combinations: tuple[str, ...] = ()
+
+    def resolved(self, measured: tuple[str, ...]) -> tuple[tuple[str, ...], ...]:
+        """The combinations to report, each restricted to what is measured, without repeats."""
+        if self.combinations:
+            combos = [tuple(c.split("+")) for c in self.combinations]
+        else:
+            combos = [("number_density", "wp"), ("number_density", "wp", "cic"), measured]
+        out: list[tuple[str, ...]] = []
+        for c in combos:
+            kept = tuple(s for s in measured if s in c)
+            if kept and kept not in out:
+                out.append(kept)
+        return tuple(out)
+
+
 # --------------------------------------------------------------------------- attribution
 # Optional sections of conecheck.attribution: [ladder], [corrections], [cut_sweep].
 # A section present in the file is switched on unless it says ``enabled = false``;
@@ -611,6 +643,7 @@ class RunConfig:
     source: str = "<dict>"
     base_dir: str = "."
     # optional attribution sections (conecheck.attribution)
+    parameter_shifts: ParameterShiftsConfig = field(default_factory=ParameterShiftsConfig)
     ladder: LadderConfig = field(default_factory=LadderConfig)
     corrections: CorrectionsConfig = field(default_factory=CorrectionsConfig)
     cut_sweep: CutSweepConfig = field(default_factory=CutSweepConfig)
@@ -652,7 +685,7 @@ _SURVEY_SUBTABLES = {"shell": SurveyShell, "effects": EffectSwitches, "fibres": 
                      "correction": CorrectionSettings,
                      "redshift_errors": RedshiftErrorSettings}
 _TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jackknife",
-             "cones", "randoms", "verdict", "compute", "output",
+             "cones", "randoms", "verdict", "compute", "output", "parameter_shifts",
              "ladder", "corrections", "cut_sweep")
 
 
@@ -857,6 +890,12 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
             if cut.z_min < shell.z_min - 1e-12 or cut.z_max > shell.z_max + 1e-12:
                 problems.append(f"{where}: cut {cut.z_min}–{cut.z_max} lies outside the survey "
                                 f"shell survey.shell z_min–z_max = {shell.z_min}–{shell.z_max}")
+    for i, combo in enumerate(cfg.parameter_shifts.combinations):
+        bad = [s for s in combo.split("+") if s not in cfg.statistics.measure]
+        if bad:
+            problems.append(f"parameter_shifts.combinations[{i}] = {combo!r}: "
+                            f"{', '.join(bad)} not in statistics.measure "
+                            f"({', '.join(cfg.statistics.measure)}); join measured names with +")
     if cfg.randoms.multiple <= 0 and any(s in NEEDS_RANDOMS for s in cfg.statistics.measure):
         problems.append("randoms.multiple: wp needs randoms on the cones; set multiple > 0")
     for name in cfg.statistics.measure:
@@ -930,6 +969,9 @@ def config_from_dict(data: Mapping[str, Any], source: str = "<dict>",
     parts["verdict"] = build_section(VerdictRules, data.get("verdict"), "verdict", problems)
     parts["compute"] = build_section(ComputeConfig, data.get("compute"), "compute", problems)
     parts["output"] = build_section(OutputConfig, data.get("output"), "output", problems)
+    parts["parameter_shifts"] = build_section(ParameterShiftsConfig,
+                                              data.get("parameter_shifts"),
+                                              "parameter_shifts", problems)
     parts["ladder"] = build_section(LadderConfig, _switched_on(data.get("ladder")), "ladder",
                                     problems)
     parts["corrections"] = build_section(CorrectionsConfig, _switched_on(

@@ -49,6 +49,7 @@ SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("verdict", VerdictRules, ()),
     ("compute", C.ComputeConfig, ()),
     ("output", C.OutputConfig, ()),
+    ("parameter_shifts", C.ParameterShiftsConfig, ()),
     ("ladder", C.LadderConfig, ()),
     ("corrections", C.CorrectionsConfig, ()),
     ("cut_sweep", C.CutSweepConfig, ("samples",)),

@@ -416,3 +416,22 @@ def test_rollup_and_exit_codes():
     assert exit_code("warn", warn_is_failure=True) == 1
     with pytest.raises(InputError):
         exit_code("maybe")
+
+
+def test_bins_where_every_cone_agrees_fall_back_to_the_upper_bound():
+    # The tail of a count distribution: every cone finds no galaxy with N ≥ 20, the box a few.
+    # Zero scatter from discrete values says nothing about the mean: σ_Δ falls back to
+    # √(C_box + C_cone/N_eff) there, and the offset (1.5 σ_box) is not called real.
+    rng = np.random.default_rng(30)
+    cov = np.diag([1e-2, 1e-6])
+    box = exact_measurement([0.5, 0.0015], cov, 20, rng)
+    cones = []
+    for v in (0.45, 0.52, 0.48, 0.55):
+        c = exact_measurement([v, 0.0], np.diag([1e-2, 1e-12]), 20, rng)
+        c.delete_one[:, 1] = 0.0  # empty in every region
+        cones.append(c)
+    r = compare_statistic(box, cones)
+    assert r["verdict"] == "warn" and r["noisy_bins"] == [1]
+    assert r["sigma_offset"][1] == pytest.approx(math.sqrt(1e-6))
+    assert abs(r["significance"][1]) == pytest.approx(1.5)  # Gaussian, not Student t
+    assert any("every cone gives the same value" in n for n in r["notes"])

@@ -221,21 +221,39 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
                        properties={"secondary": conc.copy()}, meta=meta)
 
 
+def synthetic_halos_for(box_size: float, redshift: float, cosmology: Cosmology,
+                        sigma8: float, n_s: float, omega_b: float, hod_model: HODModel,
+                        rng: np.random.Generator, grid: int | None = None,
+                        m_min: float | None = None, **halo_options: Any) -> HaloCatalog:
+    """The synthetic halos :func:`make_synthetic_box` populates, down to the HOD's mass floor.
+
+    ``m_min`` [Msun/h] defaults to :meth:`HODModel.minimum_mass` (where the faintest
+    threshold's mean occupation falls below 10⁻³). Further keyword arguments go to
+    :func:`make_synthetic_halos`; box_size [Mpc/h].
+    """
+    if m_min is None:
+        m_min = max(hod_model.minimum_mass(1e-3), M_FLOOR)
+    return make_synthetic_halos(box_size, redshift, cosmology, sigma8, n_s, omega_b, rng,
+                                grid, m_min, **halo_options)
+
+
 def make_synthetic_box(box_size: float, redshift: float, cosmology: Cosmology, sigma8: float,
                        n_s: float, omega_b: float, hod_model: HODModel,
                        rng: np.random.Generator, grid: int | None = None,
                        m_min: float | None = None, **halo_options: Any) -> GalaxyBox:
-    """Synthetic halos (:func:`make_synthetic_halos`) populated with ``hod_model``.
+    """Synthetic halos (:func:`synthetic_halos_for`) populated with ``hod_model``.
 
-    ``m_min`` [Msun/h] defaults to :meth:`HODModel.minimum_mass` (where the faintest
-    threshold's mean occupation falls below 10⁻³).  Further keyword arguments go to
-    :func:`make_synthetic_halos`.  The returned box's ``meta`` records the recipe; the
-    caller adds the seed.
+    box_size [Mpc/h]. The returned box's ``meta`` records the recipe; the caller adds the
+    seed.
     """
-    if m_min is None:
-        m_min = max(hod_model.minimum_mass(1e-3), M_FLOOR)
-    halos = make_synthetic_halos(box_size, redshift, cosmology, sigma8, n_s, omega_b, rng,
-                                 grid, m_min, **halo_options)
+    halos = synthetic_halos_for(box_size, redshift, cosmology, sigma8, n_s, omega_b,
+                                hod_model, rng, grid, m_min, **halo_options)
+    return populate_synthetic(halos, hod_model, rng, cosmology)
+
+
+def populate_synthetic(halos: HaloCatalog, hod_model: HODModel, rng: np.random.Generator,
+                       cosmology: Cosmology) -> GalaxyBox:
+    """:func:`~.populate.populate` for synthetic halos, with the recipe in the box's ``meta``."""
     box = populate(halos, hod_model, rng, cosmology)
     box.meta.update(halos.meta)
     box.meta["BOXMADE"] = "synthetic lognormal halos + HOD (conecheck)"

@@ -27,6 +27,9 @@ tail probability (Student 1908, Biometrika 6, 1).
 When the cones are stated independent (one box each), the box is one more independent
 realisation and σ_Δ² = diag(C_box) + diag(S)/N. With one cone there is no scatter; σ_Δ then
 falls back to the conservative diag(C_box) + diag(C_cone)/N_eff and the verdict can only warn.
+The same fallback serves a bin in which every cone gives exactly the same value (all cones
+empty in the tail of a count distribution, say): a scatter of zero from discrete values says
+nothing about how well the mean is known, and the t law does not hold there.
 """
 
 from __future__ import annotations
@@ -137,6 +140,9 @@ class OffsetError:
         The part of σ_Δ² that more cones would not reduce.
     scatter_sd : ndarray or None
         Cone-to-cone standard deviation √diag S (None with one cone).
+    fallback : ndarray of bool
+        Bins whose cones all agree exactly: σ_Δ is the one-cone upper bound there and the
+        significance is Gaussian.
     """
 
     sigma: NDArray[np.float64]
@@ -144,6 +150,7 @@ class OffsetError:
     method: str
     box_var: NDArray[np.float64]
     scatter_sd: NDArray[np.float64] | None
+    fallback: NDArray[np.bool_]
 
     def significance(self, offset: ArrayLike) -> tuple[NDArray[np.float64],
                                                          NDArray[np.float64]]:
@@ -153,11 +160,11 @@ class OffsetError:
         with np.errstate(divide="ignore", invalid="ignore"):
             t = np.where(s > 0, d / np.where(s > 0, s, 1.0),
                          np.where(d == 0, 0.0, np.sign(d) * np.inf))
-        return t, gaussian_equivalent(t, self.dof)
+        return t, np.where(self.fallback, t, gaussian_equivalent(t, self.dof))
 
     def smallest_significant(self, n_sigma: float) -> NDArray[np.float64]:
         """Smallest |Δ| per bin that would be ``n_sigma`` significant (Gaussian-equivalent)."""
-        return critical_t(n_sigma, self.dof) * self.sigma
+        return np.where(self.fallback, n_sigma, critical_t(n_sigma, self.dof)) * self.sigma
 
 
 def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike, *,
@@ -185,11 +192,13 @@ def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike
     cv = np.atleast_2d(np.asarray(cone_values, dtype=np.float64))
     bvar = np.clip(np.asarray(box_var, dtype=np.float64), 0, None)
     n = cv.shape[0]
+    bound = bvar + np.clip(np.asarray(cone_var, dtype=np.float64), 0, None) / float(
+        min(effective_cones, n))
     if n < 2:
-        n_eff = float(min(effective_cones, n))
-        var = bvar + np.clip(np.asarray(cone_var, dtype=np.float64), 0, None) / n_eff
-        return OffsetError(np.sqrt(var), math.inf, SIGMA_OFFSET_SHARED, bvar, None)
+        return OffsetError(np.sqrt(bound), math.inf, SIGMA_OFFSET_SHARED, bvar, None,
+                           np.ones(bvar.size, dtype=bool))
     scatter_var = cv.var(axis=0, ddof=1)
+    same = np.all(cv == cv[0], axis=0)
     if cones_independent:
         fixed = bvar
     elif box_sampling_var is not None:
@@ -197,10 +206,11 @@ def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike
     else:
         fixed = np.zeros_like(bvar)
     var = fixed + scatter_var / n
+    var = np.where(same, bound, var)
     method = SIGMA_OFFSET_INDEPENDENT if cones_independent else SIGMA_OFFSET_SCATTER
     # With a box term the Welch–Satterthwaite degrees of freedom would exceed N − 1; keeping
     # N − 1 errs on the side of fewer false fails.
-    return OffsetError(np.sqrt(var), float(n - 1), method, fixed, np.sqrt(scatter_var))
+    return OffsetError(np.sqrt(var), float(n - 1), method, fixed, np.sqrt(scatter_var), same)
 
 
 __all__ = ["MAX_CONES_ADVICE", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SCATTER",

@@ -25,6 +25,10 @@ def rollup_verdicts(results: dict[str, Any]) -> str:
             stats = cut.get("statistics") or {}
             vs = [check_verdict(s.get("verdict"), f"results: {sname}/{cname}/{st} verdict")
                   for st, s in stats.items()]
+            shifts = cut.get("parameter_shifts") or {}
+            if vs and shifts.get("verdict"):
+                vs.append(check_verdict(shifts["verdict"],
+                                        f"results: {sname}/{cname}/parameter_shifts verdict"))
             cut["verdict"] = worst_verdict(vs, empty=WARN)
             cut_verdicts.append(cut["verdict"])
         sample["verdict"] = worst_verdict(cut_verdicts, empty=WARN)

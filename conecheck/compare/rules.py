@@ -56,9 +56,17 @@ Verdict per statistic
 * PASS otherwise. Offsets that are real but inside the error bar are named in the reasons:
   they are too small to bias a fit at the survey's precision.
 
-Roll-up: a redshift cut takes the worst verdict of its statistics (a cut with no
-statistics warns), a sample the worst of its cuts, the run the worst of its samples
-(fail > warn > pass). Exit code: 1 when the run fails, 0 otherwise; with
+Parameter shifts (boxes built from halos + HOD): the derivatives D of every statistic with
+respect to the sample's HOD parameters are taken on the box by central differences with
+common random numbers; with the joint data-like covariance C_tot of a combination of
+statistics, the offset moves the fitted parameters by δθ = F⁻¹ Dᵀ Ĉ⁻¹ Δ, F = Dᵀ Ĉ⁻¹ D,
+reported in units of each parameter's forecast error √(F⁻¹)_jj. With
+``max_parameter_shift`` > 0 a cut fails when some |δθ_j|/σ_j exceeds it. A box read from a
+file has no HOD: only the bound √χ² on any parameter's shift is reported.
+
+Roll-up: a redshift cut takes the worst verdict of its statistics and of its parameter-shift
+rule (a cut with no statistics warns), a sample the worst of its cuts, the run the worst of
+its samples (fail > warn > pass). Exit code: 1 when the run fails, 0 otherwise; with
 ``warn_is_failure = true`` a warn also exits 1.
 """
 
@@ -100,6 +108,10 @@ class VerdictRules:
         Warn with fewer cones than this (≥ 1); N cones give σ_Δ N − 1 degrees of freedom.
     effective_cones : float
         N_eff of the one-cone upper bound on σ_Δ (used only when there is one cone), ≥ 1.
+    max_parameter_shift : float
+        When > 0 and the box was built from an HOD: a cut fails when the offset of a
+        combination of its statistics would move some HOD parameter by more than this many
+        forecast standard deviations (0: off, the shifts are only reported).
     warn_is_failure : bool
         Exit code 1 on an overall warn, too.
     """
@@ -110,6 +122,7 @@ class VerdictRules:
     p_fail: float = 0.001
     min_cones: int = 3
     effective_cones: float = 1.0
+    max_parameter_shift: float = 0.0
     warn_is_failure: bool = False
 
     def __post_init__(self) -> None:
@@ -132,7 +145,8 @@ class VerdictRules:
                   ("n_sigma_offset", self.n_sigma_offset > 0, "> 0"),
                   ("p_fail", 0 < self.p_fail < 1, "between 0 and 1 (exclusive)"),
                   ("min_cones", self.min_cones >= 1, "≥ 1"),
-                  ("effective_cones", self.effective_cones >= 1, "≥ 1")]
+                  ("effective_cones", self.effective_cones >= 1, "≥ 1"),
+                  ("max_parameter_shift", self.max_parameter_shift >= 0, "≥ 0 (0: off)")]
         problems = [f"verdict.{name}: expected a value {want}, got {getattr(self, name)!r}"
                     for name, ok, want in checks if not ok]
         if problems:

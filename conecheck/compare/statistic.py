@@ -183,6 +183,10 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         notes.append(msg)
         log.warning("%s: %s", where, msg)
     t_off, signif = err.significance(delta)
+    if n_cones >= 2 and err.fallback.any():
+        notes.append(f"bins {np.flatnonzero(err.fallback).tolist()}: every cone gives the same "
+                     f"value, so their scatter says nothing; σ_Δ there is the one-cone upper "
+                     f"bound √(C_box + C_cone/N_eff)")
     s_indep = None if scatter is None else np.diag(cbox) + np.diag(scatter) / n_cones
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = (None if scatter is None else
@@ -282,7 +286,8 @@ def _cones_needed(delta: NDArray[np.float64], err: OffsetError, noisy: NDArray[n
     if noisy.size == 0 or err.scatter_sd is None:
         return None
     counts = [cones_needed(float(delta[i]), float(err.scatter_sd[i]), rules.n_sigma_offset,
-                           n_cones, float(err.box_var[i])) for i in noisy]
+                           n_cones, float(err.box_var[i])) for i in noisy
+              if not err.fallback[i]]
     known = [c for c in counts if c is not None]
     # the cheapest bin to settle decides: one significant bin outside the error bar fails
     return min(known) if known else None

@@ -108,6 +108,13 @@ def _curve_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float)
                         color=st.CONE_FAINT, lw=0.6)
     ax.fill_between(x, -band, band, color=st.TOTAL_BAND, lw=0, label="±σ_tot/|b|")
     ax.axhline(0, color=st.INK, lw=0.6)
+    sig_off = ac.arr(d, "sigma_offset")
+    if sig_off.size == x.size:
+        # the offset's own error: how well this run knows the mean (beside the data's error)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            off_band = np.where(nz, sig_off / np.abs(np.where(nz, b, 1)), np.nan)
+        ax.errorbar(x, frac_mean, yerr=off_band, fmt="none", ecolor=st.CONE, elinewidth=0.9,
+                    capsize=2, label="±σ_Δ/|b| (offset's own error)")
     ax.plot(x, frac_mean, color=st.CONE, lw=1.8, label="mean of cones")
     ax.plot([], [], color=st.CONE_FAINT, lw=1.0, label="single cones")
     # The mean is always in view (up to ±500 %); the band only robustly (tails where b → 0

@@ -25,6 +25,7 @@ from .pages_cuts import cut_pages
 from .pages_fibres import fibre_pages
 from .pages_footprint import footprint_pages
 from .pages_nz import nz_pages
+from .pages_shifts import shift_pages
 from .pages_statistics import statistics_pages
 from .pages_summary import summary_pages
 from .pages_text import findings_pages, provenance_pages, rules_pages
@@ -48,7 +49,8 @@ def build_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | None 
     with report_style():
         return (summary_pages(results) + findings_pages(results) + rules_pages(results)
                 + provenance_pages(results) + footprint_pages(results, run_dir)
-                + nz_pages(results) + statistics_pages(results) + fibre_pages(results)
+                + nz_pages(results) + statistics_pages(results) + shift_pages(results)
+                + fibre_pages(results)
                 + cut_pages(results) + attribution_pages(results))
 
 

@@ -14,7 +14,10 @@ from typing import Any
 import healpy as hp
 import numpy as np
 
-from ..box import default_hod_model, load_hod, make_synthetic_box, populate, read_halo_catalog
+from ..box import default_hod_model, load_hod, populate, read_halo_catalog
+from ..box.halos import HaloCatalog
+from ..box.hod import HODModel
+from ..box.synthetic import populate_synthetic, synthetic_halos_for
 from ..catalog import GalaxyBox, file_sha256, read_galaxy_box
 from ..cone import SurveyModel
 from ..config import RunConfig
@@ -71,6 +74,34 @@ def needs_magnitudes(cfg: RunConfig) -> bool:
     return flux or any(s.mag_max is not None for s in cfg.samples)
 
 
+def hod_model_of(cfg: RunConfig) -> HODModel:
+    """The HOD of a ``halos`` or ``synthetic`` box (``box.hod``, else the shipped one)."""
+    hod_path = _existing(cfg, cfg.box.hod, "box.hod")
+    return load_hod(hod_path) if hod_path else default_hod_model()
+
+
+def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generator]:
+    """Halos, HOD and the generator that populates them, for a ``halos``/``synthetic`` box.
+
+    The generator has drawn exactly what the halos needed, so ``populate(halos, model, rng)``
+    reproduces the run's box; callers that vary the HOD use their own generators.
+    """
+    b = cfg.box
+    if b.source == "file":
+        raise InputError("box.source = 'file': a galaxy catalogue carries no halos or HOD")
+    model = hod_model_of(cfg)
+    rng = task_rng(cfg.seed, "box")
+    if b.source == "halos":
+        halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
+                                  b.box_size, b.redshift)
+    else:
+        halos = synthetic_halos_for(b.box_size or SYNTHETIC_BOX_SIZE,
+                                    SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
+                                    cosmology_of(cfg), b.sigma8, b.n_s, b.omega_b, model, rng,
+                                    grid=b.grid)
+    return halos, model, rng
+
+
 def load_box(cfg: RunConfig) -> GalaxyBox:
     """The real-space galaxy box (positions, velocities, magnitudes) the run starts from."""
     b = cfg.box
@@ -79,17 +110,9 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
         box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,
                               b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg))
     else:
-        hod_path = _existing(cfg, b.hod, "box.hod")
-        model = load_hod(hod_path) if hod_path else default_hod_model()
-        rng = task_rng(cfg.seed, "box")
-        if b.source == "halos":
-            halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
-                                      b.box_size, b.redshift)
-            box = populate(halos, model, rng, cosmo)
-        else:
-            box = make_synthetic_box(b.box_size or SYNTHETIC_BOX_SIZE,
-                                     SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
-                                     cosmo, b.sigma8, b.n_s, b.omega_b, model, rng, grid=b.grid)
+        halos, model, rng = box_halos(cfg)
+        fill = populate_synthetic if b.source == "synthetic" else populate
+        box = fill(halos, model, rng, cosmo)
     if needs_magnitudes(cfg) and box.abs_mag is None:
         raise InputError("box: the samples' magnitude thresholds or the flux limit need an "
                          "absolute magnitude column; map one as box.columns.abs_mag")

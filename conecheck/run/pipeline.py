@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from .. import __version__
+from ..box.sensitivity import DEFAULT_STEPS
 from ..cone.settings import CorrectionSettings, EffectSwitches
 from ..config import RunConfig
 from .cache import TaskCache, task_key
@@ -35,6 +36,7 @@ from .inputs import (
     sky_regions,
 )
 from .progress import Progress
+from .sensitivity import hod_derivatives_task
 from .tasks import (
     NZ_BINS,
     box_task,
@@ -90,6 +92,26 @@ def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
         tasks.append(Task(key=key, label=f"box / sample {s.name}", func=box_task,
                           args=(c, box_ref, s.name), kind="box"))
     results = _run_stage(inp, "box", tasks)
+    return {s.name: r for s, r in zip(c.samples, results, strict=True)}
+
+
+def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
+    """HOD-parameter derivatives of every sample's box statistics (sample → task result).
+
+    Only for boxes built from an HOD with ``parameter_shifts.enabled``; samples that are not
+    one of the HOD's thresholds get an empty result with a note.
+    """
+    c = inp.cfg
+    if not c.parameter_shifts.enabled or c.box.source == "file":
+        return {}
+    tasks = []
+    for s in c.samples:
+        key = task_key("hod-derivatives", {**inp.identity(), "mag_max": s.mag_max,
+                                           "statistics": _stat_settings(c),
+                                           "steps": dict(DEFAULT_STEPS)})
+        tasks.append(Task(key=key, label=f"HOD derivatives / sample {s.name}",
+                          func=hod_derivatives_task, args=(c, s.name), kind="box"))
+    results = _run_stage(inp, "HOD derivatives", tasks)
     return {s.name: r for s, r in zip(c.samples, results, strict=True)}
 
 

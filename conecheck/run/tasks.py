@@ -60,11 +60,23 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
         [(h/Mpc)³].
     """
     sample = _sample(cfg, sample_name)
-    pos = box_redshift_space(cfg, box)
     keep = sample_mask(box, sample)
+    return {"measurements": measure_box_sample(cfg, box, sample, keep, jackknife=True),
+            "n_galaxies": int(keep.sum()), "number_density": sample_density(box, sample)}
+
+
+def measure_box_sample(cfg: RunConfig, box: GalaxyBox, sample: SampleConfig,
+                       keep: np.ndarray, *, jackknife: bool) -> dict[str, Measurement]:
+    """Every configured statistic of the galaxies ``keep`` of ``box`` (statistic → value).
+
+    The box effects of the run are applied; each statistic draws from the generator of the
+    run's box task for that sample, so boxes measured here with the same galaxies get the
+    same random spheres (common random numbers for the HOD derivatives).
+    """
     if keep.sum() < 2:
         raise InputError(f"sample '{sample.name}': {int(keep.sum())} box galaxies brighter "
                          f"than mag_max = {sample.mag_max}; check the threshold and the box")
+    pos = box_redshift_space(cfg, box)
     bs = BoxSample.with_regions(pos[keep], box.box_size, cfg.box.los_axis,
                                 n_side=cfg.jackknife.box_n_side,
                                 layout=cfg.jackknife.box_layout)
@@ -72,9 +84,8 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
     for name in cfg.statistics.measure:
         rng = task_rng(cfg.seed, "box", sample.name, name)
         out[name] = STATISTICS[name].measure_box(bs, cfg.statistics.get(name), rng,
-                                                 jackknife=True)
-    return {"measurements": out, "n_galaxies": int(keep.sum()),
-            "number_density": sample_density(box, sample)}
+                                                 jackknife=jackknife)
+    return out
 
 
 # --------------------------------------------------------------------------- randoms

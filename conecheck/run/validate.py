@@ -23,6 +23,7 @@ import numpy as np
 from .. import __version__
 from ..atomic import write_text_atomic
 from ..compare import compare_statistic, exit_code, rollup_verdicts
+from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
 from ..config import RunConfig, config_warnings, resolved_toml
 from ..errors import InputError
@@ -37,16 +38,18 @@ from .pipeline import (
     nz_expected,
     prepare_inputs,
     randoms_stage,
+    sensitivity_stage,
 )
 from .progress import Progress
 
 log = logging.getLogger(__name__)
 
 INDEPENDENCE_NOTE_SHARED = (
-    "All cones are cut from one box, so they share its large-scale structure: their mean is "
-    "not an independent average over N realisations. The offset's own error therefore does "
-    "not shrink with the number of cones (set cones.independent = true only for cones from "
-    "independent boxes).")
+    "All cones are cut from one box. Given the box, each cone is an independent draw (its "
+    "own observer, rotation and random numbers), so the offset's own error is the "
+    "cone-to-cone scatter over √N and shrinks as cones are added; the box's own fluctuation "
+    "is common to the box and every cone and cancels in the offset (set cones.independent = "
+    "true only for cones from independent boxes).")
 INDEPENDENCE_NOTE_INDEPENDENT = (
     "The configuration states that the cones are independent realisations; the offset's "
     "error uses the cone-to-cone scatter divided by the number of cones.")
@@ -81,9 +84,14 @@ def _versions() -> dict[str, str]:
             "numba": numba.__version__, "matplotlib": matplotlib.__version__}
 
 
-def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
-                ) -> dict[str, Any]:
-    """results["samples"]: every sample, cut and statistic compared and given a verdict."""
+def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]],
+                derivatives: dict[str, dict[str, Any]] | None = None) -> dict[str, Any]:
+    """results["samples"]: every sample, cut and statistic compared and given a verdict.
+
+    ``derivatives`` (sample → :func:`~conecheck.run.sensitivity.hod_derivatives_task`
+    result) adds each cut's parameter shifts; without it, with parameter shifts enabled,
+    only the bound √χ² is given.
+    """
     cfg = inp.cfg
     samples: dict[str, Any] = {}
     cosmo = cosmology_of(cfg)
@@ -98,12 +106,18 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
                     box[s.name]["measurements"][name],
                     [c["measurements"][s.name][cut.label][name] for c in cones],
                     cfg.verdict, cfg.cones.independent, where=where)
+            shifts = _shifts(cfg, box[s.name]["measurements"],
+                             [c["measurements"][s.name][cut.label] for c in cones],
+                             (derivatives or {}).get(s.name),
+                             f"sample {s.name}, cut {cut.label}")
             nz = nz_expected(cfg, inp.footprint, cut, density)
             nz["cones"] = [np.asarray(c["nz"][s.name][cut.label]).tolist() for c in cones]
             cuts[cut.label] = {"z_min": cut.z_min, "z_max": cut.z_max, "primary": j == 0,
                                "n_galaxies_cones": [
                                    float(np.sum(c["nz"][s.name][cut.label])) for c in cones],
                                "nz": nz, "statistics": stats}
+            if shifts is not None:
+                cuts[cut.label]["parameter_shifts"] = shifts
         vlim = None
         if cfg.shell.m_lim is not None and s.mag_max is not None and cfg.effects.flux_limit:
             vlim = float(volume_limit_zmax(cfg.shell.m_lim, s.mag_max, cosmo, cfg.shell))
@@ -169,11 +183,12 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             inp = prepare_inputs(cfg, executor, cache, prog)
             inp.regions.save(run_dir / "jackknife_regions.npz")
             box = box_stage(inp)
+            derivatives = sensitivity_stage(inp)
             randoms, rkeys = randoms_stage(inp, box)
             cones = cone_stage(inp, randoms, rkeys)
             t0 = time.perf_counter()
             results = _results(inp, run_dir, config_path)
-            results["samples"] = compare_all(inp, box, cones)
+            results["samples"] = compare_all(inp, box, cones, derivatives)
             rollup_verdicts(results)
             inp.timings["compare"] = time.perf_counter() - t0
             for ext in extensions:
@@ -208,6 +223,23 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         root.removeHandler(handler)
         handler.close()
         root.setLevel(prev_level)
+
+
+def _shifts(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, Any]],
+            deriv: dict[str, Any] | None, where: str) -> dict[str, Any] | None:
+    if not cfg.parameter_shifts.enabled:
+        return None
+    combos = cfg.parameter_shifts.resolved(cfg.statistics.measure)
+    if deriv is not None and deriv["parameters"]:
+        out = shifts_for_cut(box, cones, combos, cfg.verdict, deriv["derivatives"],
+                             deriv["parameters"], where)
+        out["values"] = list(deriv["values"])
+        out["steps"] = list(deriv["steps"])
+        out["notes"] = list(deriv["notes"])
+        return out
+    out = shifts_for_cut(box, cones, combos, cfg.verdict, None, (), where)
+    out["notes"] = list(deriv["notes"]) if deriv is not None else []
+    return out
 
 
 def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None) -> dict[str, Any]:

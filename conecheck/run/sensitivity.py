@@ -1,0 +1,97 @@
+"""Derivatives of every box statistic with respect to the HOD parameters of each sample.
+
+One task per sample: the run's halos are populated again with each parameter of the sample's
+threshold moved by ± its step (:mod:`conecheck.box.sensitivity`), every time from the same
+generator (common random numbers), and every configured statistic is measured on the box as
+the box task measures it. The central differences feed the parameter-shift forecast of the
+comparison (:mod:`conecheck.compare.fisher`).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from ..box import populate
+from ..box.sensitivity import (
+    DECORATION_PARAMETERS,
+    DEFAULT_STEPS,
+    parameter_values,
+    sample_threshold,
+    step_values,
+    varied_model,
+)
+from ..config import RunConfig
+from ..errors import InputError
+from .execute import task_rng
+from .inputs import box_halos, cosmology_of, hod_model_of
+from .tasks import _sample, measure_box_sample
+
+
+def hod_parameters(cfg: RunConfig, sample_name: str) -> tuple[str, ...] | None:
+    """Parameters a sample's statistics are differentiated by (None: the box has no HOD)."""
+    if cfg.box.source == "file":
+        return None
+    model = hod_model_of(cfg)
+    threshold = sample_threshold(model, _sample(cfg, sample_name).mag_max)
+    if threshold is None:
+        return None
+    return tuple(parameter_values(model, threshold, with_decoration=True))
+
+
+def _has_column(halos: Any, name: str) -> bool:
+    try:
+        halos.column(name)
+    except InputError:
+        return False
+    return True
+
+
+def hod_derivatives_task(cfg: RunConfig, sample_name: str) -> dict[str, Any]:
+    """∂(statistic)/∂(parameter) for one sample, by central differences on the box.
+
+    Returns
+    -------
+    dict
+        ``parameters`` (names), ``values`` (fiducial), ``steps`` (the actual half-separation
+        of each difference), ``derivatives`` (statistic → array (p, k), units of the
+        statistic per unit of the parameter), ``notes``. Empty ``parameters`` with a note
+        when the sample is not one of the HOD's thresholds.
+    """
+    sample = _sample(cfg, sample_name)
+    halos, model, _ = box_halos(cfg)
+    threshold = sample_threshold(model, sample.mag_max)
+    notes: list[str] = []
+    if threshold is None:
+        return {"parameters": [], "values": [], "steps": [], "derivatives": {},
+                "notes": [f"sample '{sample.name}' (mag_max = {sample.mag_max}) is not a "
+                          f"threshold of the HOD; no parameter derivatives"]}
+    names = list(parameter_values(model, threshold, with_decoration=True))
+    if not _has_column(halos, model.assembly_bias.secondary):
+        names = [n for n in names if n not in DECORATION_PARAMETERS]
+        notes.append(f"the halos carry no '{model.assembly_bias.secondary}' column: the "
+                     f"decoration strengths are left out")
+    cosmo = cosmology_of(cfg)
+    fid = parameter_values(model, threshold, with_decoration=True)
+    per_stat: dict[str, list[np.ndarray]] = {s: [] for s in cfg.statistics.measure}
+    steps = []
+    for name in names:
+        lo, hi = step_values(model, threshold, name, DEFAULT_STEPS[name])
+        values = {}
+        for side, v in (("lo", lo), ("hi", hi)):
+            rng = task_rng(cfg.seed, "hod-derivative", sample.name)  # the same draws each time
+            box = populate(halos, varied_model(model, threshold, name, v), rng, cosmo)
+            keep = np.ones(len(box), dtype=bool)
+            values[side] = measure_box_sample(cfg, box, sample, keep, jackknife=False)
+        for stat in per_stat:
+            per_stat[stat].append((np.asarray(values["hi"][stat].value, dtype=np.float64)
+                                   - np.asarray(values["lo"][stat].value, dtype=np.float64))
+                                  / (hi - lo))
+        steps.append(0.5 * (hi - lo))
+    return {"parameters": names, "values": [fid[n] for n in names], "steps": steps,
+            "derivatives": {s: np.column_stack(v) for s, v in per_stat.items()},
+            "notes": notes}
+
+
+__all__ = ["hod_derivatives_task", "hod_parameters"]
