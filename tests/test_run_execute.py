@@ -245,12 +245,16 @@ def test_task_key_and_task_rng_do_not_depend_on_the_process():
 def test_task_key_changes_with_code_version(monkeypatch):
     inputs = {"seed": 1}
     k = task_key("box", inputs)
-    monkeypatch.setattr(conecheck, "__version__", conecheck.__version__ + ".post1")
+    monkeypatch.setattr(cache_mod, "__version__", conecheck.__version__ + ".post1")
     k_version = task_key("box", inputs)
     monkeypatch.undo()
     monkeypatch.setattr(cache_mod, "CACHE_FORMAT", cache_mod.CACHE_FORMAT + 1)
     k_format = task_key("box", inputs)
-    assert len({k, k_version, k_format}) == 3
+    monkeypatch.undo()
+    # the same version with different source code (an editable install being edited)
+    monkeypatch.setattr(cache_mod, "_source_digest", lambda: "0" * 64)
+    k_source = task_key("box", inputs)
+    assert len({k, k_version, k_format, k_source}) == 4
 
 
 # --------------------------------------------------------------------------- task_rng

@@ -29,7 +29,10 @@ realisation and σ_Δ² = diag(C_box) + diag(S)/N. With one cone there is no sca
 falls back to the conservative diag(C_box) + diag(C_cone)/N_eff and the verdict can only warn.
 The same fallback serves a bin in which every cone gives exactly the same value (all cones
 empty in the tail of a count distribution, say): a scatter of zero from discrete values says
-nothing about how well the mean is known, and the t law does not hold there.
+nothing about how well the mean is known, and the t law does not hold there. For statistics
+that are fractions of trials (count distributions, the VPF) the bound there also carries the
+binomial noise of N cones' trials at the box's probabilities, f(1 − f)/(n N), which a cone's
+own jackknife cannot show when the bin is empty everywhere.
 """
 
 from __future__ import annotations
@@ -169,7 +172,8 @@ class OffsetError:
 
 def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike, *,
                  cones_independent: bool, effective_cones: float,
-                 box_sampling_var: ArrayLike | None = None) -> OffsetError:
+                 box_sampling_var: ArrayLike | None = None,
+                 cone_floor_var: ArrayLike | None = None) -> OffsetError:
     """σ_Δ per bin from the box and cone measurements.
 
     Parameters
@@ -188,6 +192,10 @@ def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike
         Variance of the box value from the box estimator's own random sampling (random
         sphere centres of the VPF), which no cone shares; added to σ_Δ² when the cones are
         cut from the box (it is already inside diag(C_box) otherwise).
+    cone_floor_var : array_like, shape (p,), optional
+        Variance one cone's value would have from its own trials at the box's probabilities
+        (binomial); used, over N, in bins where every cone gives the same value, whose
+        jackknife can be zero (no centre or sphere in the bin anywhere).
     """
     cv = np.atleast_2d(np.asarray(cone_values, dtype=np.float64))
     bvar = np.clip(np.asarray(box_var, dtype=np.float64), 0, None)
@@ -206,6 +214,8 @@ def offset_error(box_var: ArrayLike, cone_values: ArrayLike, cone_var: ArrayLike
     else:
         fixed = np.zeros_like(bvar)
     var = fixed + scatter_var / n
+    if cone_floor_var is not None:
+        bound = bound + np.clip(np.asarray(cone_floor_var, dtype=np.float64), 0, None) / n
     var = np.where(same, bound, var)
     method = SIGMA_OFFSET_INDEPENDENT if cones_independent else SIGMA_OFFSET_SCATTER
     # With a box term the Welch–Satterthwaite degrees of freedom would exceed N − 1; keeping

@@ -16,7 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..stats.base import SAMPLING_VARIANCE, Measurement
+from ..stats.base import SAMPLING_TRIALS, SAMPLING_VARIANCE, Measurement
 from .chi2 import bias_chi2
 from .jsonsafe import jsonable
 from .offset_error import OffsetError, cones_needed, offset_error
@@ -176,7 +176,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     err = offset_error(np.diag(cbox), cmat, np.diag(ccone),
                        cones_independent=cones_independent,
                        effective_cones=rules.effective_cones,
-                       box_sampling_var=_sampling_variance(box, p, where))
+                       box_sampling_var=_sampling_variance(box, p, where),
+                       cone_floor_var=_binomial_floor(b, cones, p))
     if cones_independent and n_cones < 2:
         msg = ("cones stated independent but there is only one cone: σ_Δ falls back to "
                "the one-cone upper bound")
@@ -278,6 +279,20 @@ def _sampling_variance(box: Measurement, p: int, where: str) -> NDArray[np.float
         raise InputError(f"{where}: the box's {SAMPLING_VARIANCE} must be {p} finite, "
                          f"non-negative numbers")
     return v
+
+
+def _binomial_floor(b: NDArray[np.float64], cones: Sequence[Measurement],
+                    p: int) -> NDArray[np.float64] | None:
+    """Variance of one cone's value if its trials were binomial at the box's probabilities."""
+    trials = [(c.extra or {}).get(SAMPLING_TRIALS) for c in cones]
+    if any(t is None for t in trials):
+        return None
+    n = np.mean([np.asarray(t["n"], dtype=np.float64) for t in trials], axis=0)
+    width = np.asarray(trials[0]["width"], dtype=np.float64)
+    if n.size != p or width.size != p or np.any(n <= 0) or np.any(width <= 0):
+        return None
+    f = np.clip(b * width, 0.0, 1.0)
+    return f * (1.0 - f) / n / width ** 2
 
 
 def _cones_needed(delta: NDArray[np.float64], err: OffsetError, noisy: NDArray[np.int64],

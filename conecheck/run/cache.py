@@ -17,6 +17,7 @@ whose ``.json`` exists is complete; a run killed mid-write leaves at most an orp
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import logging
@@ -28,6 +29,7 @@ from typing import Any
 
 import numpy as np
 
+from .. import __version__
 from ..atomic import atomic_path, write_text_atomic
 from .serialize import pack, unpack
 
@@ -41,10 +43,24 @@ _CHUNK = 1 << 20
 
 
 def code_version() -> str:
-    """The code identity folded into every key: package version and cache format."""
-    import conecheck
+    """The code identity folded into every key: version, cache format and source content.
 
-    return f"{conecheck.__version__}+cache{CACHE_FORMAT}"
+    The content hash covers every ``.py`` file of the installed package, so an editable or
+    development install never serves results computed by different code under the same
+    version number.
+    """
+    return f"{__version__}+cache{CACHE_FORMAT}+src{_source_digest()[:16]}"
+
+
+@functools.lru_cache(maxsize=1)
+def _source_digest() -> str:
+    package = Path(__file__).resolve().parents[1]
+    h = hashlib.sha256()
+    for path in sorted(package.rglob("*.py")):
+        h.update(path.relative_to(package).as_posix().encode())
+        h.update(b"\0")
+        h.update(path.read_bytes())
+    return h.hexdigest()
 
 
 # --------------------------------------------------------------------------- keys

@@ -25,7 +25,7 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import neighbours_box, neighbours_cone
 from ._common import check_filled, want_jackknife, weighted_histograms
-from .base import BoxSample, ConeGeometry, ConeSample, Measurement
+from .base import SAMPLING_TRIALS, BoxSample, ConeGeometry, ConeSample, Measurement
 
 
 def _distribution(name: str, counts: NDArray[np.float64], w: NDArray[np.float64],
@@ -42,6 +42,7 @@ def _distribution(name: str, counts: NDArray[np.float64], w: NDArray[np.float64]
         delete_one = (hist[None] - reg_hist) / ((wsum - w_k)[:, None] * width[None])
     inside = (counts >= edges[0]) & (counts < edges[-1])
     extra = dict(extra)
+    extra[SAMPLING_TRIALS] = {"n": [int(counts.size)] * width.size, "width": width.tolist()}
     extra.update({"n_centres": int(counts.size), "sum_w_centres": float(wsum),
                   "mean_count": float(np.sum(w * counts) / wsum),
                   "overflow_fraction": float(w[~inside].sum() / wsum)})

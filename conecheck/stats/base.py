@@ -17,6 +17,12 @@ from numpy.typing import ArrayLike, NDArray
 #: the box estimator's own random sampling (e.g. random sphere centres), which the cones do
 #: not share. The comparison adds it to the offset's own error.
 SAMPLING_VARIANCE = "sampling_variance"
+#: Key of ``Measurement.extra`` for statistics that are fractions of independent trials (a
+#: count distribution over its centres, the VPF over its spheres): ``{"n": trials per bin,
+#: "width": per-bin divisor}``, the value being (fraction of trials) / width. The comparison
+#: uses it for the binomial noise the box's probabilities imply where the cones cannot show
+#: any (every cone empty in a bin).
+SAMPLING_TRIALS = "sampling_trials"
 
 
 @dataclass

@@ -23,7 +23,14 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import neighbours_box, neighbours_cone
 from ._common import check_filled, want_jackknife
-from .base import SAMPLING_VARIANCE, BoxSample, ConeGeometry, ConeSample, Measurement
+from .base import (
+    SAMPLING_TRIALS,
+    SAMPLING_VARIANCE,
+    BoxSample,
+    ConeGeometry,
+    ConeSample,
+    Measurement,
+)
 from .settings import VpfSettings
 
 NAME = "vpf"
@@ -51,6 +58,7 @@ def _p0(empty: NDArray[np.bool_], use: NDArray[np.bool_], region: NDArray[np.int
         delete_one = (n_empty[None] - e_k) / left
     extra = dict(extra)
     extra["n_spheres_used"] = n_use.astype(int).tolist()
+    extra[SAMPLING_TRIALS] = {"n": n_use.astype(int).tolist(), "width": [1.0] * radii.size}
     return Measurement(name=NAME, bins=radii.copy(), value=n_empty / n_use,
                        delete_one=delete_one, bin_label="R [Mpc/h]", value_label="P_0(R)",
                        extra=extra)
