@@ -11,10 +11,11 @@ from .layout import Cell, Column, Page, draw_table, fit_columns, rows_that_fit, 
 from .pagespec import PageSpec
 
 _TOP = 1.15
+_SIZE = st.TABLE - 1.0  # eleven columns: one point smaller than the other tables
 _NOTE_H = 1.35
 #: Short column headers for the HOD parameters (the full names are in the legend).
-_SHORT = {"log_mmin": "log M_min", "sigma_logm": "σ_logM", "log_m0": "log M_0",
-          "log_m1": "log M_1", "alpha": "α", "a_cen": "A_cen", "a_sat": "A_sat"}
+_SHORT = {"log_mmin": "M_min", "sigma_logm": "σ_logM", "log_m0": "M_0",
+          "log_m1": "M_1", "alpha": "α", "a_cen": "A_cen", "a_sat": "A_sat"}
 
 
 def _fmt(x: Any) -> str:
@@ -76,10 +77,10 @@ def shift_pages(results: dict[str, Any]) -> list[PageSpec]:
     rows = _rows(results, params)
     if not rows:
         return []
-    cols = [Column("sample", 0.9), Column("cut", 0.8), Column("fitted together", 1.3),
-            Column("fit", 0.45)]
-    cols += [Column(_SHORT.get(p, p), 0.55, "right") for p in params]
-    cols += [Column("√χ² bound", 0.7, "right"), Column("rule", 0.6, "center")]
+    cols = [Column("sample", 0.7), Column("cut", 0.62), Column("fitted together", 0.92),
+            Column("fit", 0.48)]
+    cols += [Column(_SHORT.get(p, p), 0.5, "right") for p in params]
+    cols += [Column("√χ²", 0.42, "right"), Column("rule", 0.5, "center")]
     width = st.PAGE_W - 2 * st.MARGIN_X
     cols = fit_columns(cols, width)
     cap = rows_that_fit(st.PAGE_H - st.CONTENT_BOTTOM - _NOTE_H - _TOP - 0.2)
@@ -87,7 +88,10 @@ def shift_pages(results: dict[str, Any]) -> list[PageSpec]:
     legend = (
         "Each entry is δθ/σ: how far fitting the box prediction to survey data with this "
         "offset would move the parameter, in units of its forecast error (Fisher matrix of "
-        "the combination with the data-like covariance C_box + C_cone). 'joint': all "
+        "the combination with the data-like covariance C_box + C_cone). Parameters: log10 "
+        "M_min, σ_logM, log10 M_0, log10 M_1 and α of the sample's threshold (Zheng et al. "
+        "2007), decoration strengths A_cen, A_sat (Hearin et al. 2016); n = number density. "
+        "'joint': all "
         "parameters fitted together; 'alone': the bins cannot constrain them all together, "
         "so each is fitted with the others held fixed. √χ² bounds the shift of any "
         "parameter combination. Method: " + method)
@@ -95,12 +99,16 @@ def shift_pages(results: dict[str, Any]) -> list[PageSpec]:
     pages = []
     for i, chunk in enumerate(chunks):
         def draw(page: Page, chunk=chunk, first=(i == 0)) -> None:
-            y = draw_table(page, st.MARGIN_X, _TOP, cols, chunk)
+            y = draw_table(page, st.MARGIN_X, _TOP, cols, chunk, size=_SIZE)
             if first:
                 y += 0.3
-                for line in (wrap(legend, page.content_width, st.SMALL)
-                             + [ln for n in notes[:4]
-                                for ln in wrap(n, page.content_width, st.SMALL)])[:9]:
+                room = int((page.h - st.CONTENT_BOTTOM - y) // 0.14)
+                lines = wrap(legend, page.content_width, st.SMALL) + [""]
+                lines += [ln for n in notes for ln in wrap(n, page.content_width, st.SMALL)]
+                if len(lines) > room:
+                    lines = lines[:room - 1] + ["… more notes in results.json "
+                                                "(parameter_shifts)"]
+                for line in lines:
                     page.text(st.MARGIN_X, y, line, st.SMALL, colour=st.MUTED)
                     y += 0.14
         title = "Offsets in units of the HOD parameters" + ("" if i == 0 else " (continued)")

@@ -220,6 +220,7 @@ def _glance_cell(page: Page, i: int, results: dict[str, Any], sname: str, cname:
     y += 0.15
     for colour, lw, text in ((st.CONE_FAINT, 1.0, "single cones (c_i − b)/b"),
                              (st.CONE, 2.0, "mean over cones (c̄ − b)/b"),
+                             (st.CONE, 0.9, "bars: the offset's own error ±σ_Δ/|b|"),
                              (st.TOTAL_BAND, 7.0, "total error ±σ_tot/|b|"),
                              (st.BAND, 7.0, "z within ±z_fail")):
         y += 0.17
