@@ -279,7 +279,7 @@ def test_sigma_offset_forms():
     assert r["sigma_offset_method"].startswith("independent")
     r = compare_statistic(box, cones)
     assert r["sigma_offset"] == pytest.approx(np.sqrt(np.diag(s) / 5))
-    assert r["sigma_offset_dof"] == 4
+    assert r["sigma_offset_dof"] == [4.0, 4.0, 4.0]
     assert r["sigma_offset_independent"] == pytest.approx(
         np.sqrt(np.diag(cbox) + np.diag(s) / 5))
     tot = np.sqrt(np.diag(cbox + ccone))
@@ -288,10 +288,20 @@ def test_sigma_offset_forms():
     assert r["detectable_uniform_fraction"] == pytest.approx(
         min(np.array(r["detectable_offset"]) / np.abs(box.value)))
     assert r["cone_scatter"] == pytest.approx(np.sqrt(np.diag(s)))
-    # the box estimator's own sampling variance is added (VPF spheres)
+    # the box estimator's own sampling variance is added (VPF spheres), as a known term
     box.extra["sampling_variance"] = [0.01, 0.02, 0.03]
     r = compare_statistic(box, cones)
     assert r["sigma_offset"] == pytest.approx(np.sqrt([0.01, 0.02, 0.03] + np.diag(s) / 5))
+    # the line-of-sight spread over the box's three axes is added with 2 degrees of freedom:
+    # Welch–Satterthwaite ν = (a + b)² / (a²/4 + b²/2) for a = S/N (4 dof) and b = τ² (2 dof)
+    del box.extra["sampling_variance"]
+    tau2 = np.array([0.002, 0.0, 0.001])
+    box.extra["los_variance"] = tau2.tolist()
+    r = compare_statistic(box, cones)
+    a_ = np.diag(s) / 5
+    assert r["sigma_offset"] == pytest.approx(np.sqrt(a_ + tau2))
+    assert r["sigma_offset_dof"] == pytest.approx((a_ + tau2) ** 2 / (a_ ** 2 / 4 + tau2 ** 2 / 2))
+    assert r["sigma_offset_dof"][1] == pytest.approx(4.0)
 
 
 def test_single_cone_warns_and_falls_back():

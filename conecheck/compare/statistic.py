@@ -16,7 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..stats.base import SAMPLING_TRIALS, SAMPLING_VARIANCE, Measurement
+from ..stats.base import LOS_VARIANCE, SAMPLING_TRIALS, SAMPLING_VARIANCE, Measurement
 from .chi2 import bias_chi2
 from .jsonsafe import jsonable
 from .offset_error import OffsetError, cones_needed, offset_error
@@ -104,11 +104,13 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         ``max_abs_z``, ``chi2`` (Hartlap-corrected), ``dof``, ``chi2_per_dof``, ``p_value``
         (Hotelling's law), ``hartlap_factor``, ``n_regions``, ``n_regions_box``,
         ``n_regions_cone``, ``chi2_bins``, ``condition_number``, ``pseudo_inverse``,
-        ``sigma_offset`` (σ_Δ), ``sigma_offset_method``, ``sigma_offset_dof`` (N − 1, None
-        for the one-cone bound), ``sigma_offset_independent`` (diag(C_box) + diag(S)/N, for
-        reference), ``n_eff_cones``, ``offset_t`` (Δ/σ_Δ), ``significance`` (its Gaussian
-        equivalent, what the rules threshold), ``detectable_offset`` (per bin, the smallest
-        |Δ| that would fail: the larger of z_fail σ_tot and the significance threshold),
+        ``sigma_offset`` (σ_Δ), ``sigma_offset_method``, ``sigma_offset_dof`` (per bin: N − 1,
+        fewer where the box's line-of-sight spread weighs in, None for the one-cone bound),
+        ``sigma_offset_los`` (that spread's part of σ_Δ), ``sigma_offset_independent``
+        (diag(C_box) + diag(S)/N, for reference), ``n_eff_cones``, ``offset_t`` (Δ/σ_Δ),
+        ``significance`` (its Gaussian equivalent, what the rules threshold),
+        ``detectable_offset`` (per bin, the smallest |Δ| that would fail: the larger of
+        z_fail σ_tot and the significance threshold),
         ``detectable_fractional_offset`` (its ratio to |b|),
         ``detectable_uniform_fraction`` (the smallest fractional bias common to every bin
         that would fail), ``failing_bins``, ``noisy_bins`` (outside the error bar, not
@@ -176,7 +178,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     err = offset_error(np.diag(cbox), cmat, np.diag(ccone),
                        cones_independent=cones_independent,
                        effective_cones=rules.effective_cones,
-                       box_sampling_var=_sampling_variance(box, p, where),
+                       box_sampling_var=_extra_variance(box, SAMPLING_VARIANCE, p, where),
+                       box_los_var=_extra_variance(box, LOS_VARIANCE, p, where),
                        cone_floor_var=_binomial_floor(b, cones, p))
     if cones_independent and n_cones < 2:
         msg = ("cones stated independent but there is only one cone: σ_Δ falls back to "
@@ -250,7 +253,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         "pseudo_inverse": chi.pseudo_inverse,
         "sigma_offset": err.sigma,
         "sigma_offset_method": err.method,
-        "sigma_offset_dof": err.dof if np.isfinite(err.dof) else None,
+        "sigma_offset_dof": err.dof,
+        "sigma_offset_los": np.sqrt(err.los_var),
         "sigma_offset_independent": None if s_indep is None
         else np.sqrt(np.clip(s_indep, 0, None)),
         "n_eff_cones": float(n_cones) if n_cones >= 2 else float(min(rules.effective_cones,
@@ -270,14 +274,14 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     return jsonable(out)
 
 
-def _sampling_variance(box: Measurement, p: int, where: str) -> NDArray[np.float64] | None:
-    raw = (box.extra or {}).get(SAMPLING_VARIANCE)
+def _extra_variance(box: Measurement, key: str, p: int, where: str
+                    ) -> NDArray[np.float64] | None:
+    raw = (box.extra or {}).get(key)
     if raw is None:
         return None
     v = np.asarray(raw, dtype=np.float64).ravel()
     if v.size != p or not np.all(np.isfinite(v)) or np.any(v < 0):
-        raise InputError(f"{where}: the box's {SAMPLING_VARIANCE} must be {p} finite, "
-                         f"non-negative numbers")
+        raise InputError(f"{where}: the box's {key} must be {p} finite, non-negative numbers")
     return v
 
 
@@ -301,7 +305,8 @@ def _cones_needed(delta: NDArray[np.float64], err: OffsetError, noisy: NDArray[n
     if noisy.size == 0 or err.scatter_sd is None:
         return None
     counts = [cones_needed(float(delta[i]), float(err.scatter_sd[i]), rules.n_sigma_offset,
-                           n_cones, float(err.box_var[i])) for i in noisy
+                           n_cones, float(err.box_var[i]), float(err.los_var[i]))
+              for i in noisy
               if not err.fallback[i]]
     known = [c for c in counts if c is not None]
     # the cheapest bin to settle decides: one significant bin outside the error bar fails

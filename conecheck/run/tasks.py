@@ -23,18 +23,21 @@ from ..config import RunConfig, SampleConfig
 from ..errors import InputError, TaskError
 from ..pairs.counts import PairCounts
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
+from ..stats.base import LOS_VARIANCE
 from .execute import task_rng
 from .inputs import cosmology_of, survey_model
 
 #: Number of redshift bins of the n(z) diagnostic per cut.
 NZ_BINS = 12
+#: Statistics whose box estimator depends on the line-of-sight axis (number density does not).
+LOS_DEPENDENT = ("wp", "cic", "vpf", "annuli")
 
 
 # --------------------------------------------------------------------------- box
-def box_redshift_space(cfg: RunConfig, box: GalaxyBox) -> np.ndarray:
-    """Box positions [Mpc/h] with the box-side effects the config asks for."""
+def box_redshift_space(cfg: RunConfig, box: GalaxyBox, axis: int | None = None) -> np.ndarray:
+    """Box positions [Mpc/h] with the box-side effects along ``axis`` (default: the config's)."""
     cosmo = cosmology_of(cfg)
-    axis = cfg.box.los_axis
+    axis = cfg.box.los_axis if axis is None else axis
     pos = apply_box_rsd(box, axis, cosmo) if cfg.box.rsd else np.array(box.position)
     if cfg.box.redshift_scatter_kms > 0:
         pos = apply_box_redshift_scatter(pos, axis, cfg.box.redshift_scatter_kms, box.redshift,
@@ -61,27 +64,44 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
     """
     sample = _sample(cfg, sample_name)
     keep = sample_mask(box, sample)
-    return {"measurements": measure_box_sample(cfg, box, sample, keep, jackknife=True),
-            "n_galaxies": int(keep.sum()), "number_density": sample_density(box, sample)}
+    out = measure_box_sample(cfg, box, sample, keep, jackknife=True)
+    others = [measure_box_sample(cfg, box, sample, keep, jackknife=False, axis=a,
+                                 statistics=LOS_DEPENDENT)
+              for a in range(3) if a != cfg.box.los_axis]
+    for name, m in out.items():
+        if name in LOS_DEPENDENT:
+            # The cones see the box along every direction, the box estimator along one axis:
+            # the spread over the three axes measures that part of the box value which no
+            # cone shares (design: the offset's own error).
+            values = np.array([m.value] + [o[name].value for o in others], dtype=np.float64)
+            m.extra[LOS_VARIANCE] = values.var(axis=0, ddof=1).tolist()
+    return {"measurements": out, "n_galaxies": int(keep.sum()),
+            "number_density": sample_density(box, sample)}
 
 
 def measure_box_sample(cfg: RunConfig, box: GalaxyBox, sample: SampleConfig,
-                       keep: np.ndarray, *, jackknife: bool) -> dict[str, Measurement]:
-    """Every configured statistic of the galaxies ``keep`` of ``box`` (statistic → value).
+                       keep: np.ndarray, *, jackknife: bool, axis: int | None = None,
+                       statistics: tuple[str, ...] | None = None) -> dict[str, Measurement]:
+    """The configured statistics of the galaxies ``keep`` of ``box`` (statistic → value).
 
-    The box effects of the run are applied; each statistic draws from the generator of the
-    run's box task for that sample, so boxes measured here with the same galaxies get the
-    same random spheres (common random numbers for the HOD derivatives).
+    The box effects of the run are applied along ``axis`` (default ``box.los_axis``), which
+    is also the estimators' line of sight; ``statistics`` restricts the configured list.
+    Each statistic draws from the generator of the run's box task for that sample, so boxes
+    measured here with the same galaxies get the same random spheres (common random numbers
+    for the HOD derivatives and the line-of-sight spread).
     """
+    axis = cfg.box.los_axis if axis is None else axis
     if keep.sum() < 2:
         raise InputError(f"sample '{sample.name}': {int(keep.sum())} box galaxies brighter "
                          f"than mag_max = {sample.mag_max}; check the threshold and the box")
-    pos = box_redshift_space(cfg, box)
-    bs = BoxSample.with_regions(pos[keep], box.box_size, cfg.box.los_axis,
+    pos = box_redshift_space(cfg, box, axis)
+    bs = BoxSample.with_regions(pos[keep], box.box_size, axis,
                                 n_side=cfg.jackknife.box_n_side,
                                 layout=cfg.jackknife.box_layout)
     out = {}
     for name in cfg.statistics.measure:
+        if statistics is not None and name not in statistics:
+            continue
         rng = task_rng(cfg.seed, "box", sample.name, name)
         out[name] = STATISTICS[name].measure_box(bs, cfg.statistics.get(name), rng,
                                                  jackknife=jackknife)

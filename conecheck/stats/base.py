@@ -23,6 +23,11 @@ SAMPLING_VARIANCE = "sampling_variance"
 #: uses it for the binomial noise the box's probabilities imply where the cones cannot show
 #: any (every cone empty in a bin).
 SAMPLING_TRIALS = "sampling_trials"
+#: Key of ``Measurement.extra`` holding, per bin, the variance of a box value over the box's
+#: three axes taken as the line of sight. The cones look along every direction, so this part
+#: of the box value is not shared by them; the comparison adds it to the offset's own error,
+#: with the two degrees of freedom of a three-value variance.
+LOS_VARIANCE = "los_variance"
 
 
 @dataclass

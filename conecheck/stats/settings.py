@@ -137,7 +137,7 @@ class _CountSettings:
     max_count: int = 30
     count_edges: tuple[float, ...] | None = None
     edge_treatment: str = "drop"
-    min_inside_fraction: float = 0.9
+    min_inside_fraction: float = 0.99
 
     _key = "statistics"
 
@@ -175,7 +175,8 @@ class CicSettings(_CountSettings):
         the survey (default: a cylinder cut by an edge holds fewer neighbours than in the
         box, which biases P(N) low), or keep every centre.
     min_inside_fraction : float
-        Threshold of the ``drop`` treatment.
+        Threshold of the ``drop`` treatment: the completeness-weighted fraction of the
+        cylinder inside the survey (0.99: essentially whole, as the VPF's spheres).
     """
 
     r_cyl: float = 2.0
@@ -204,7 +205,8 @@ class AnnuliSettings(_CountSettings):
         Cone only: drop centres whose annulus lies less than ``min_inside_fraction`` inside
         the survey (default, as for the cylinders), or keep every centre.
     min_inside_fraction : float
-        Threshold of the ``drop`` treatment.
+        Threshold of the ``drop`` treatment: the completeness-weighted fraction of the
+        cylinder inside the survey (0.99: essentially whole, as the VPF's spheres).
     """
 
     r_inner: float = 2.0
