@@ -113,7 +113,7 @@ def test_init_then_check_cli(tmp_path, capsys):
 
 def test_check_reports_bad_config_without_traceback(tmp_path, capsys):
     p = tmp_path / "bad.toml"
-    p.write_text(template_text().replace("n_cones = 4", "n_cones = -1")
+    p.write_text(template_text().replace("n_cones = 12", "n_cones = -1")
                  .replace('mask = "builtin:kestrel"', 'mask = "missing.fits"'))
     assert main(["check", str(p)]) == 2
     err = capsys.readouterr().err

@@ -107,32 +107,85 @@ def bias_chi2(offset: ArrayLike, covariance: ArrayLike, n_regions: int,
         if np.asarray(use).dtype == bool else np.asarray(use, dtype=np.int64)
     d, c = d[idx], c[np.ix_(idx, idx)]
     p = d.size
-    notes: list[str] = []
     if p == 0:
         return Chi2Result(np.nan, 0, np.nan, np.nan, idx, np.nan, False,
                           ["no usable bins for the bias χ²"])
-    h = hartlap_factor(n_regions, p, where)
+    hartlap_factor(n_regions, p, where)  # refuse too few regions before anything else
+    inv = inverse_covariance(c, n_regions, where)
+    t2 = float(d @ inv.raw @ d)
+    return Chi2Result(inv.hartlap * t2, inv.rank, hotelling_p_value(t2, inv.rank, n_regions - 1),
+                      inv.hartlap, idx, inv.condition, inv.pseudo_inverse, inv.notes)
+
+
+@dataclass
+class InverseCovariance:
+    """The inverse of a jackknife covariance, as every χ²-like quantity here uses it.
+
+    Attributes
+    ----------
+    raw : ndarray
+        C⁻¹ (or its pseudo-inverse), without the Hartlap factor.
+    hartlap : float
+        (n − r − 2)/(n − 1) for rank r.
+    rank, condition, pseudo_inverse, notes
+        The rank used, the condition number of the correlation matrix, whether a
+        pseudo-inverse was needed, and what was said about it.
+    """
+
+    raw: NDArray[np.float64]
+    hartlap: float
+    rank: int
+    condition: float
+    pseudo_inverse: bool
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def debiased(self) -> NDArray[np.float64]:
+        """h C⁻¹, the Hartlap-corrected inverse."""
+        return self.hartlap * self.raw
+
+
+def inverse_covariance(covariance: ArrayLike, n_regions: int, where: str = "covariance"
+                       ) -> InverseCovariance:
+    """Invert a jackknife covariance through its correlation matrix.
+
+    Scaling by the diagonal keeps bins of very different amplitude (wp over decades of r_p)
+    from spoiling the conditioning. Where the correlation matrix is still ill-conditioned
+    (condition number > :data:`MAX_CONDITION`; e.g. a normalised distribution P(N), whose
+    bins sum to one), the pseudo-inverse is used and its rank replaces the number of bins
+    in the Hartlap factor; a note says so.
+
+    Raises
+    ------
+    InputError
+        Too few regions for the rank (n ≤ r + 2), or a zero variance.
+    """
+    c = np.atleast_2d(np.asarray(covariance, dtype=np.float64))
+    p = c.shape[0]
     s = np.sqrt(np.diag(c))
+    if np.any(~(s > 0)):
+        raise InputError(f"{where}: zero or undefined variance in bin "
+                         f"{int(np.flatnonzero(~(s > 0))[0])}")
     r = c / np.outer(s, s)
-    cond = float(np.linalg.cond(r))
+    notes: list[str] = []
+    try:
+        cond = float(np.linalg.cond(r))
+    except np.linalg.LinAlgError:
+        cond = np.inf
     pinv = not np.isfinite(cond) or cond > MAX_CONDITION
     if pinv:
         rinv = np.linalg.pinv(r, rcond=1.0 / MAX_CONDITION, hermitian=True)
-        dof = int(np.linalg.matrix_rank(r, tol=np.linalg.norm(r, 2) / MAX_CONDITION,
-                                         hermitian=True))
-        msg = (f"{where}: total covariance ill-conditioned (condition number {cond:.3g}); "
-               f"used a pseudo-inverse of rank {dof} of {p}")
+        rank = int(np.linalg.matrix_rank(r, tol=np.linalg.norm(r, 2) / MAX_CONDITION,
+                                          hermitian=True))
+        msg = (f"{where}: covariance ill-conditioned (condition number {cond:.3g}); used a "
+               f"pseudo-inverse of rank {rank} of {p}")
         notes.append(msg)
         log.warning(msg)
     else:
         rinv = np.linalg.inv(r)
-        dof = p
-    if pinv:
-        h = hartlap_factor(n_regions, dof, where)
-    x = d / s
-    t2 = float(x @ rinv @ x)
-    return Chi2Result(h * t2, dof, hotelling_p_value(t2, dof, n_regions - 1), h, idx, cond,
-                      pinv, notes)
+        rank = p
+    h = hartlap_factor(n_regions, rank, where)
+    return InverseCovariance(rinv / np.outer(s, s), h, rank, cond, pinv, notes)
 
 
 def hotelling_p_value(t2: float, p: int, m: int) -> float:

@@ -27,7 +27,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..errors import InputError
 from ..jackknife import jackknife_covariance
 from ..stats.base import Measurement
-from .chi2 import MAX_CONDITION, hartlap_factor
+from .chi2 import MAX_CONDITION, inverse_covariance
 from .jsonsafe import jsonable
 from .rules import FAIL, PASS, VerdictRules
 
@@ -100,13 +100,11 @@ def parameter_shift(derivatives: ArrayLike, covariance: ArrayLike, offset: Array
                          f"({delta.size},) do not match")
     if not (np.all(np.isfinite(d)) and np.all(np.isfinite(c)) and np.all(np.isfinite(delta))):
         raise InputError(f"{where}: derivatives, covariance and offset must be finite")
-    h = 1.0 if n_regions is None else hartlap_factor(n_regions, p, where)
-    s = np.sqrt(np.diag(c))
-    if np.any(s <= 0):
-        raise InputError(f"{where}: the covariance has a zero variance in bin "
-                         f"{int(np.flatnonzero(s <= 0)[0])}")
-    # whiten through the correlation matrix for conditioning (bins of very different size)
-    cinv = h * np.linalg.inv(c / np.outer(s, s)) / np.outer(s, s)
+    if n_regions is None:
+        inv = inverse_covariance(c, p + 3, where)
+        cinv = inv.raw
+    else:
+        cinv = inverse_covariance(c, n_regions, where).debiased
     fisher = d.T @ cinv @ d
     scale = np.sqrt(np.diag(fisher))
     if np.any(scale <= 0):
@@ -195,12 +193,8 @@ def shifts_for_cut(box: Mapping[str, Measurement], cones: Sequence[Mapping[str, 
                               for s in combo])[use]
         try:
             if dmat is None:
-                h = hartlap_factor(n_regions, int(use.sum()), label)
-                c = cov[np.ix_(use, use)]
-                s = np.sqrt(np.diag(c))
-                x = delta[use] / s
-                rec["chi2_bound"] = float(np.sqrt(max(h * x @ np.linalg.solve(c / np.outer(s, s),
-                                                                               x), 0.0)))
+                cinv = inverse_covariance(cov[np.ix_(use, use)], n_regions, label).debiased
+                rec["chi2_bound"] = float(np.sqrt(max(delta[use] @ cinv @ delta[use], 0.0)))
                 continue
             res = parameter_shift(dmat, cov[np.ix_(use, use)], delta[use], n_regions,
                                   where=label)
