@@ -27,7 +27,7 @@ def test_template_validates_and_resolved_toml_round_trips(tmp_path):
     p = tmp_path / "run.toml"
     p.write_text(template_text())
     cfg = load_config(p)
-    assert cfg.cones.n_cones == 4 and cfg.samples[1].cuts[1].label == "near"
+    assert cfg.cones.n_cones == 12 and cfg.samples[1].cuts[1].label == "near"
     assert cfg.samples[1].cuts[1].mag_max == -21.0  # alternative cuts share the threshold
     q = tmp_path / "resolved.toml"
     q.write_text(resolved_toml(cfg))

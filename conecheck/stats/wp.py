@@ -18,6 +18,16 @@ L · 2Δπ (columns) or 2[aΔπ − (z₂² − z₁²)/2] (cubes) for the |π| 
 When the layout is unknown (labels given by hand) the remaining-volume approximation
 f_R = V_bin / V_R is used instead.
 
+The region R is not periodic any more: galaxies near the removed column have fewer neighbours
+inside R, so with the natural estimator DD/RR − 1 the delete-one values follow the number of
+galaxies near each hole, a first-order noise the full periodic estimate does not have (on
+Poisson boxes at the demo geometry the jackknife σ of wp at r_p = 15 Mpc/h came out 5× the
+true scatter). For columns the delete-one estimate is therefore Landy–Szalay with analytic
+randoms in R: DR_R/(W_R N_R) = Σ_{i∈R} w_i [V_bin − 2Δπ A_i] / (V_R W_R), where A_i is the
+area of the galaxy's r_p annulus that falls inside the removed column (the LOS is whole), and
+ξ_R = (DD_R − 2 DR_R + RR_R)/RR_R with RR_R = f_R (Landy & Szalay 1993, ApJ 412, 64). The full
+periodic estimate is unchanged (there DR = RR). Cubes keep the natural estimator.
+
 Cone: Landy–Szalay ξ = (DD − 2DR + RR)/RR with each count divided by its weighted number
 of pairs (DD, RR: ((Σw)² − Σw²)/2; DR: Σw_D Σw_R).  RR depends only on the randoms, so it
 is counted once per sample and cut (:func:`count_rr_cone`) and passed to every cone.  The
@@ -120,11 +130,88 @@ def wp_box(sample: BoxSample, settings: WpSettings | None = None, *,
     f_full, f_del = box_pair_fractions(bins, sample.box_size, sample.layout if jk else None, k)
     xi = dd.total / (dd.norm * f_full) - 1.0
     delete_one = None
+    jk_estimator = None
     if jk:
-        xi_k = dd.delete_one_all() / (dd.norm_delete_one[:, None, None] * f_del[None]) - 1.0
+        dd_k = dd.delete_one_all() / dd.norm_delete_one[:, None, None]
+        layout = sample.layout
+        if layout is not None and layout.layout == "columns":
+            dr_k = _delete_one_dr_columns(sample, bins, layout)
+            xi_k = (dd_k - 2.0 * dr_k + f_del[None]) / f_del[None]
+            jk_estimator = "Landy–Szalay with analytic randoms in the remaining volume"
+        else:
+            xi_k = dd_k / f_del[None] - 1.0
+            jk_estimator = "natural, analytic RR of the remaining volume"
         delete_one = _wp_from_xi(xi_k, bins.dpi)
     return _measurement(bins, _wp_from_xi(xi, bins.dpi), delete_one,
-                        {"dd_pairs": dd.total.sum(axis=1).tolist(), "estimator": "analytic RR"})
+                        {"dd_pairs": dd.total.sum(axis=1).tolist(), "estimator": "analytic RR",
+                         "jackknife_estimator": jk_estimator})
+
+
+#: Midpoint nodes across a disc for :func:`disc_square_area` (the result enters only the
+#: delete-one values, where a quadrature error common to every region cancels).
+_DISC_NODES = 96
+
+
+def disc_square_area(cx: NDArray[np.float64], cy: NDArray[np.float64],
+                     radii: NDArray[np.float64], side: float) -> NDArray[np.float64]:
+    """Area [(Mpc/h)²] of discs of the given radii around (cx, cy) inside the square [0, side)².
+
+    Parameters
+    ----------
+    cx, cy : ndarray, shape (N,)
+        Disc centres [Mpc/h] relative to the square's corner.
+    radii : ndarray, shape (E,)
+        Radii [Mpc/h].
+    side : float
+        Side of the square [Mpc/h].
+
+    Returns
+    -------
+    ndarray, shape (N, E)
+        Midpoint rule along x of the chord inside the square.
+    """
+    t = (np.arange(_DISC_NODES) + 0.5) / _DISC_NODES
+    out = np.zeros((cx.size, radii.size))
+    for j, r in enumerate(radii):
+        u = r * (2.0 * t - 1.0)
+        half = np.sqrt(np.maximum(r * r - u * u, 0.0))
+        x = cx[:, None] + u[None, :]
+        inside_x = (x >= 0.0) & (x < side)
+        lo = np.maximum(cy[:, None] - half[None, :], 0.0)
+        hi = np.minimum(cy[:, None] + half[None, :], side)
+        out[:, j] = (np.clip(hi - lo, 0.0, None) * inside_x).sum(axis=1) * (2.0 * r
+                                                                               / _DISC_NODES)
+    return out
+
+
+def _delete_one_dr_columns(sample: BoxSample, bins: RpPiBins, layout: object
+                           ) -> NDArray[np.float64]:
+    """DR/(W N_R) of each delete-one region R (columns), shape (K, n_rp, n_pi).
+
+    For a galaxy of R the random pairs in a bin are those of its (r_p, π) cylinder shell
+    inside R: the whole shell V_bin less the part in the removed column, 2Δπ times the area
+    of its r_p annulus inside the column's square (the LOS is whole and periodic).
+    """
+    L, a, n_side = sample.box_size, float(layout.side), int(layout.n_side)
+    perp = [ax for ax in range(3) if ax != sample.los_axis]
+    xs, ys = sample.position[:, perp[0]], sample.position[:, perp[1]]
+    w = sample.w
+    vbin = bins.cylinder_volumes()
+    v_rest = L ** 3 * (1.0 - 1.0 / layout.k)
+    r_max = float(bins.rp_edges[-1])
+    out = np.empty((layout.k, bins.n_rp, bins.n_pi))
+    for k in range(layout.k):  # one pass per region, vectorised over the galaxies near it
+        i, j = divmod(k, n_side)
+        rest = sample.region != k
+        # positions relative to the column's corner, the periodic image nearest to it
+        dx = np.mod(xs - i * a + r_max, L) - r_max
+        dy = np.mod(ys - j * a + r_max, L) - r_max
+        near = rest & (dx > -r_max) & (dx < a + r_max) & (dy > -r_max) & (dy < a + r_max)
+        area = disc_square_area(dx[near], dy[near], bins.rp_edges, a)
+        lost = (w[near][:, None] * np.diff(area, axis=1)).sum(axis=0)  # Σ w_i A_i per r_p bin
+        w_rest = w[rest].sum()
+        out[k] = (w_rest * vbin - 2.0 * bins.dpi * lost[:, None]) / (v_rest * w_rest)
+    return out
 
 
 def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
