@@ -49,8 +49,9 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-SIGMA_OFFSET_SCATTER = ("cones cut from one box: diag(S_cones)/N_cones (+ the box estimator's "
-                        "own sampling variance), Student t with N−1 dof")
+SIGMA_OFFSET_SCATTER = ("cones cut from one box: diag(S_cones)/N_cones + the box's "
+                        "line-of-sight spread τ² (+ its estimator's sampling variance), "
+                        "Student t with Welch–Satterthwaite dof")
 SIGMA_OFFSET_INDEPENDENT = ("independent cones: diag(C_box) + diag(S_cones)/N_cones, "
                             "Student t with N−1 dof")
 SIGMA_OFFSET_SHARED = "one cone, no scatter: diag(C_box) + diag(C_cone)/N_eff (an upper bound)"

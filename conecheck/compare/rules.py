@@ -21,15 +21,18 @@ Quantities
 * σ_Δ, the uncertainty of the offset itself. Given the box, the cones are independent draws
   (each has its own observer, rotation and random numbers), so the cone mean scatters by
   S/N about what an average over every possible cone would give, S being the cone-to-cone
-  sample covariance: σ_Δ² = diag(S)/N. With ``cones_independent = true`` (one box per
-  cone) the box is one more independent realisation: σ_Δ² = diag(C_box) + diag(S)/N. S has
-  N − 1 degrees of freedom, so t = Δ/σ_Δ follows Student's t law; the significance used
-  below is its Gaussian equivalent (same two-sided tail probability). With one cone there is
-  no scatter: σ_Δ² = diag(C_box) + diag(C_cone)/``effective_cones``, an upper bound, and the
-  statistic can at best warn. The neglected box term (the box's own fluctuation that the
-  average over cones does not share, such as one fixed line of sight in the box against
-  radial ones in the cones) is measured on null set-ups over independent boxes:
-  benchmarks/RESULTS.md gives the calibration.
+  sample covariance. Two parts of the box value that no cone shares are added: the box
+  estimator's own sampling noise (the VPF's random spheres) and its line of sight — the box
+  is measured along one axis, the cones along every direction — estimated by the spread τ²
+  of the box value over its three axes: σ_Δ² = diag(S)/N + sampling variance + τ². With
+  ``cones_independent = true`` (one box per cone) the box is one more independent
+  realisation: σ_Δ² = diag(C_box) + diag(S)/N. S has N − 1 degrees of freedom and τ² two, so
+  t = Δ/σ_Δ follows Student's t law with Welch–Satterthwaite degrees of freedom; the
+  significance used below is its Gaussian equivalent (same two-sided tail probability).
+  Where every cone gives the same value (an empty tail bin), and with one cone, σ_Δ is the
+  upper bound diag(C_box) + diag(C_cone)/``effective_cones`` (plus the binomial noise of the
+  cones' trials for count distributions) and the significance is Gaussian; one cone can at
+  best warn. benchmarks/RESULTS.md gives the calibration over independent boxes.
 * Bias χ² = Δᵀ Ĉ⁻¹ Δ over the p usable bins, with the inverse de-biased by the Hartlap
   factor: Ĉ⁻¹ = (n − p − 2)/(n − 1) · C_tot⁻¹ (Hartlap, Simon & Schneider 2007, A&A 464,
   399); n is the smaller of the box's and the cones' number of jackknife regions. Its
