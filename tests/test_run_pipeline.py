@@ -137,6 +137,20 @@ def test_redshift_errors_missing_from_the_box_fail_cic(tmp_path):
     assert res["samples"]["broad"]["cuts"]["primary"]["statistics"]["cic"]["verdict"] == "fail"
 
 
+def test_a_cut_beyond_the_volume_limit_fails_its_number_density(tmp_path):
+    """m < 15.3 makes M < −20 volume limited only to z ≈ 0.038 (m = M + DM, DM(0.038) ≈ 35.3
+    for h = 0.7, from memory), so the cut to 0.055 loses most faint galaxies in the outer
+    two thirds of its volume: a density deficit of tens of per cent, against a cone-to-cone
+    scatter of ≈ 15 % (benchmarks/RESULTS.md) over √10 cones, i.e. many σ_Δ."""
+    d = tiny_dict(seed=31, **{**GEOMETRY_ONLY, "survey.shell.m_lim": 15.3, "cones.n_cones": 10})
+    d["statistics"]["measure"] = ["number_density", "wp"]
+    res, code = _run(d, tmp_path / "run")
+    n = res["samples"]["broad"]["cuts"]["primary"]["statistics"]["number_density"]
+    print(n["reasons"])
+    assert n["verdict"] == "fail" and n["fractional_offset"][0] < -0.15
+    assert res["samples"]["broad"]["volume_limit_zmax"] < 0.045 and code == 1
+
+
 def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
     d = tiny_dict(one_sample=False, seed=3)
     _run(d, tmp_path / "run")
