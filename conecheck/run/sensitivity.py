@@ -25,19 +25,8 @@ from ..box.sensitivity import (
 from ..config import RunConfig
 from ..errors import InputError
 from .execute import task_rng
-from .inputs import box_halos, cosmology_of, hod_model_of
+from .inputs import box_halos, cosmology_of
 from .tasks import _sample, measure_box_sample
-
-
-def hod_parameters(cfg: RunConfig, sample_name: str) -> tuple[str, ...] | None:
-    """Parameters a sample's statistics are differentiated by (None: the box has no HOD)."""
-    if cfg.box.source == "file":
-        return None
-    model = hod_model_of(cfg)
-    threshold = sample_threshold(model, _sample(cfg, sample_name).mag_max)
-    if threshold is None:
-        return None
-    return tuple(parameter_values(model, threshold, with_decoration=True))
 
 
 def _has_column(halos: Any, name: str) -> bool:
@@ -94,4 +83,4 @@ def hod_derivatives_task(cfg: RunConfig, sample_name: str) -> dict[str, Any]:
             "notes": notes}
 
 
-__all__ = ["hod_derivatives_task", "hod_parameters"]
+__all__ = ["hod_derivatives_task"]
