@@ -230,3 +230,19 @@ def test_fresh_ignores_and_a_corrupt_entry_is_recomputed(tmp_path, caplog):
     assert any("corrupt" in r.getMessage().lower() or "checksum" in r.getMessage().lower()
                for r in caplog.records)
     assert _numbers(res) == _numbers(ref)
+
+
+def test_results_do_not_depend_on_the_mask_pixel_ordering(tmp_path):
+    # the same footprint saved NESTED instead of RING must give the same numbers (issue 13,
+    # item 9): randoms, sphere centres and sky regions follow the pixels' storage order
+    from conecheck.footprint import Footprint, demo_mask_path
+
+    nested = tmp_path / "mask_nested.fits"
+    Footprint.from_fits(demo_mask_path()).reordered(nest=True).write_fits(nested)
+    assert Footprint.from_fits(nested).nest
+    d = tiny_dict(seed=14, **{"survey.fibres.overlap_map": None})
+    d["statistics"]["measure"] = ["number_density", "wp", "vpf"]
+    ring, _ = _run(d, tmp_path / "ring")
+    d["survey"]["mask"] = str(nested)
+    nest, _ = _run(d, tmp_path / "nest")
+    assert _numbers(nest) == _numbers(ring)

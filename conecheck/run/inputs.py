@@ -122,12 +122,15 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
 
 
 def load_footprint(cfg: RunConfig) -> Footprint:
-    """The survey footprint, or the full sky when the footprint effect is off."""
+    """The survey footprint in RING ordering, or the full sky when the footprint effect is off."""
     if not cfg.effects.footprint:
         return Footprint.from_map(np.ones(hp.nside2npix(FULL_SKY_NSIDE)), source="full sky")
     mask = _existing(cfg, cfg.survey.mask, "survey.mask")
     vetoes = [_existing(cfg, v, f"survey.vetoes[{i}]") for i, v in enumerate(cfg.survey.vetoes)]
-    return Footprint.from_fits(mask, vetoes)
+    # One canonical ordering: random positions, sphere centres and the k-means of the sky
+    # regions run over the pixels in storage order, so the same footprint saved NESTED
+    # instead of RING would otherwise give different numbers.
+    return Footprint.from_fits(mask, vetoes).reordered(nest=False)
 
 
 def cap_footprint(footprint: Footprint) -> Footprint:
