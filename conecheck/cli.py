@@ -94,6 +94,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ConecheckError as exc:
         print(f"conecheck {args.command}: error: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    except OSError as exc:
+        # The environment, not a verdict: an unwritable directory, a full disk, a vanished
+        # file. Exit code 2 with the path, never the code that means "a statistic fails".
+        where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+        print(f"conecheck {args.command}: error: {where}{exc.strerror or exc}; check the path, "
+              f"its permissions and the free disk space", file=sys.stderr)
+        return EXIT_INPUT
     except KeyboardInterrupt:
         print("conecheck: interrupted; finished tasks are kept and a re-run resumes.",
               file=sys.stderr)

@@ -246,3 +246,19 @@ def test_results_do_not_depend_on_the_mask_pixel_ordering(tmp_path):
     d["survey"]["mask"] = str(nested)
     nest, _ = _run(d, tmp_path / "nest")
     assert _numbers(nest) == _numbers(ring)
+
+
+def test_a_full_disk_while_writing_the_report_exits_2_naming_the_file(tmp_path, capsys,
+                                                                     monkeypatch):
+    import errno
+
+    from conecheck.run import validate as validate_mod
+
+    def full(results, run_dir, out_pdf):
+        raise OSError(errno.ENOSPC, "No space left on device", str(out_pdf))
+
+    monkeypatch.setattr(validate_mod, "render_report", full)
+    code = main(["demo", "--quick", "--out", str(tmp_path / "run"), "-q"])
+    err = capsys.readouterr().err
+    assert code == 2 and "No space left on device" in err and "validation.pdf" in err
+    assert "Traceback" not in err
