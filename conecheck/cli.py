@@ -43,6 +43,9 @@ def _configure_logging(verbosity: int) -> None:
     level = {-1: logging.WARNING, 0: logging.INFO}.get(verbosity, logging.DEBUG)
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("%(levelname)s: %(message)s"))
+    # The terminal's level belongs to the handler: a run lowers the logger's level to INFO
+    # for its run.log, which must not make -q chatty.
+    handler.setLevel(level)
     root = logging.getLogger("conecheck")
     root.handlers[:] = [handler]
     root.setLevel(level)

@@ -262,3 +262,11 @@ def test_a_full_disk_while_writing_the_report_exits_2_naming_the_file(tmp_path, 
     err = capsys.readouterr().err
     assert code == 2 and "No space left on device" in err and "validation.pdf" in err
     assert "Traceback" not in err
+
+
+def test_quiet_prints_no_info_lines(tmp_path, capsys):
+    # -q: warnings and errors only on the terminal; run.log still gets the INFO lines
+    assert main(["demo", "--quick", "--out", str(tmp_path / "run"), "-q"]) == 0
+    err = capsys.readouterr().err
+    assert "INFO:" not in err
+    assert "INFO" in (tmp_path / "run" / "run.log").read_text()
