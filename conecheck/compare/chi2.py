@@ -145,15 +145,16 @@ class InverseCovariance:
         return self.hartlap * self.raw
 
 
-def inverse_covariance(covariance: ArrayLike, n_regions: int, where: str = "covariance"
-                       ) -> InverseCovariance:
+def inverse_covariance(covariance: ArrayLike, n_regions: int | None,
+                       where: str = "covariance") -> InverseCovariance:
     """Invert a jackknife covariance through its correlation matrix.
 
     Scaling by the diagonal keeps bins of very different amplitude (wp over decades of r_p)
     from spoiling the conditioning. Where the correlation matrix is still ill-conditioned
     (condition number > :data:`MAX_CONDITION`; e.g. a normalised distribution P(N), whose
     bins sum to one), the pseudo-inverse is used and its rank replaces the number of bins
-    in the Hartlap factor; a note says so.
+    in the Hartlap factor; a note says so. ``n_regions = None``: a covariance known
+    exactly, Hartlap factor 1.
 
     Raises
     ------
@@ -184,7 +185,7 @@ def inverse_covariance(covariance: ArrayLike, n_regions: int, where: str = "cova
     else:
         rinv = np.linalg.inv(r)
         rank = p
-    h = hartlap_factor(n_regions, rank, where)
+    h = 1.0 if n_regions is None else hartlap_factor(n_regions, rank, where)
     return InverseCovariance(rinv / np.outer(s, s), h, rank, cond, pinv, notes)
 
 

@@ -100,11 +100,7 @@ def parameter_shift(derivatives: ArrayLike, covariance: ArrayLike, offset: Array
                          f"({delta.size},) do not match")
     if not (np.all(np.isfinite(d)) and np.all(np.isfinite(c)) and np.all(np.isfinite(delta))):
         raise InputError(f"{where}: derivatives, covariance and offset must be finite")
-    if n_regions is None:
-        inv = inverse_covariance(c, p + 3, where)
-        cinv = inv.raw
-    else:
-        cinv = inverse_covariance(c, n_regions, where).debiased
+    cinv = inverse_covariance(c, n_regions, where).debiased
     fisher = d.T @ cinv @ d
     scale = np.sqrt(np.diag(fisher))
     if np.any(scale <= 0):
@@ -122,8 +118,6 @@ def parameter_shift(derivatives: ArrayLike, covariance: ArrayLike, offset: Array
     shift = finv @ projection
     sigma = np.sqrt(np.diag(finv))
     return ParameterShift(shift, sigma, shift / sigma, bound, cond, conditional, False)
-
-
 
 
 def _joint(ms: Mapping[str, Measurement], names: tuple[str, ...]
