@@ -8,6 +8,21 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
+#: Part of every temporary file's name; only a killed process (SIGKILL, power loss) can
+#: leave one behind, and :func:`remove_partial_files` clears them.
+PARTIAL_MARK = ".partial-"
+
+
+def remove_partial_files(directory: str | os.PathLike[str]) -> int:
+    """Delete temporaries a killed writer left in ``directory`` and below; their count."""
+    n = 0
+    for p in Path(directory).rglob(f".*{PARTIAL_MARK}*"):
+        if p.is_file():
+            with contextlib.suppress(FileNotFoundError):
+                p.unlink()
+                n += 1
+    return n
+
 
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
@@ -19,8 +34,8 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix="".join(path.suffixes) or ".tmp",
-                               dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}{PARTIAL_MARK}",
+                               suffix="".join(path.suffixes) or ".tmp", dir=path.parent)
     os.close(fd)
     tmp_path = Path(tmp)
     try:

@@ -120,6 +120,11 @@ def write_table(table: Table, path: str | os.PathLike[str]) -> None:
             table.write(tmp, format=FORMATS[suf], overwrite=True)
 
 
+#: Largest |M| accepted as a galaxy absolute magnitude (galaxies span about −10 to −26;
+#: larger values are placeholders for missing data).
+MAX_ABS_MAGNITUDE = 40.0
+
+
 def apply_column_map(table: Table, column_map: Mapping[str, str], source: str) -> Table:
     """Rename user columns to canonical names.
 
@@ -132,6 +137,11 @@ def apply_column_map(table: Table, column_map: Mapping[str, str], source: str) -
     """
     out = Table(meta=dict(table.meta))
     problems = []
+    users = list(column_map.values())
+    for user in sorted({u for u in users if users.count(u) > 1}):
+        keys = [k for k, u in column_map.items() if u == user]
+        problems.append(f"{source}: column '{user}' is mapped to {len(keys)} quantities "
+                        f"({', '.join(keys)}); map each to its own column")
     for canonical, user in column_map.items():
         if user not in table.colnames:
             problems.append(f"{source}: column '{user}' (mapped to '{canonical}') not found; "
@@ -154,8 +164,12 @@ def require_columns(table: Table, names: Sequence[str], source: str) -> None:
             problems.append(f"{source}: missing required column '{name}'")
             continue
         col = np.asarray(table[name])
-        if col.dtype.kind not in "fiub":
+        if col.dtype.kind not in "fiu":  # booleans and text are not coordinates or magnitudes
             problems.append(f"{source}: column '{name}' has dtype {col.dtype}; expected numbers")
+            continue
+        if col.ndim != 1:
+            problems.append(f"{source}: column '{name}' has shape {col.shape}; expected one "
+                            f"value per row (map each component to its own column)")
             continue
         if col.dtype.kind == "f":
             bad = ~np.isfinite(col)
@@ -290,7 +304,16 @@ class GalaxyBox:
                 require_columns(table, [name], source)
             return np.asarray(table[name]).astype(dtype)
 
-        return cls(pos, vel, float(box_size), float(redshift), opt("abs_mag", np.float64),
+        abs_mag = opt("abs_mag", np.float64)
+        if abs_mag is not None and len(abs_mag):
+            odd = np.abs(abs_mag) > MAX_ABS_MAGNITUDE
+            if odd.any():
+                raise InputError(
+                    f"{source}: column 'abs_mag' has {int(odd.sum())} values beyond "
+                    f"±{MAX_ABS_MAGNITUDE:g} (range [{abs_mag.min():.3g}, {abs_mag.max():.3g}]), "
+                    f"not galaxy absolute magnitudes; remove placeholder values such as 99 "
+                    f"or map the right column")
+        return cls(pos, vel, float(box_size), float(redshift), abs_mag,
                    opt("is_central", bool), opt("halo_id", np.int64), opt("halo_mass", np.float64),
                    {"source": source})
 

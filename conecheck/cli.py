@@ -76,8 +76,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+EXIT_INTERRUPTED = 130  # the shell's convention for a process stopped by SIGINT
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``conecheck`` console script; returns the exit code."""
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:
+        # The one place an interrupt ends: executors stop their queued tasks and re-raise
+        # (a Ctrl-C caught inside a numba kernel included), whatever the stage.
+        print("conecheck: interrupted; finished tasks are kept and a re-run resumes.",
+              file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+def _main(argv: Sequence[str] | None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):
@@ -104,10 +118,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"conecheck {args.command}: error: {where}{exc.strerror or exc}; check the path, "
               f"its permissions and the free disk space", file=sys.stderr)
         return EXIT_INPUT
-    except KeyboardInterrupt:
-        print("conecheck: interrupted; finished tasks are kept and a re-run resumes.",
-              file=sys.stderr)
-        return 130
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -256,6 +256,10 @@ class StatisticsConfig:
         return self.settings.get(name) or SETTINGS_TYPES[name]()
 
 
+#: Most jackknife regions a run accepts (sky or box).
+MAX_JACKKNIFE_REGIONS = 1000
+
+
 @dataclass(frozen=True)
 class JackknifeConfig:
     """Jackknife layouts.
@@ -281,6 +285,14 @@ class JackknifeConfig:
             problems.append(f"sky_regions = {self.sky_regions!r}: expected >= 2")
         if self.box_n_side < 2:
             problems.append(f"box_n_side = {self.box_n_side!r}: expected >= 2")
+        # Jackknife covariances use tens to a few hundred regions (common practice); more
+        # regions than that leave most of them nearly empty and the run refuses later.
+        if self.sky_regions > MAX_JACKKNIFE_REGIONS:
+            problems.append(f"sky_regions = {self.sky_regions!r}: expected at most "
+                            f"{MAX_JACKKNIFE_REGIONS}")
+        if self.box_n_side >= 2 and self.box_regions > MAX_JACKKNIFE_REGIONS:
+            problems.append(f"box_n_side = {self.box_n_side!r}: {self.box_regions} box regions "
+                            f"({self.box_layout}); expected at most {MAX_JACKKNIFE_REGIONS}")
         if problems:
             raise InputError("; ".join(problems), problems)
 
@@ -312,6 +324,18 @@ class ConesConfig:
             raise InputError(f"n_cones = {self.n_cones!r}: expected >= 1")
 
 
+SCHEDULER_HELP = ("expected 'local' (in-process), 'local-cluster' (a dask cluster of worker "
+                  "processes on this machine) or a dask scheduler address such as "
+                  "'tcp://host:8786' or 'tls://host:8786'")
+
+
+def scheduler_ok(value: object) -> bool:
+    """Whether ``value`` is a valid ``compute.scheduler`` (the one rule, used everywhere)."""
+    return isinstance(value, str) and (
+        value in ("local", "local-cluster")
+        or re.fullmatch(r"(tcp|tls)://[^\s:/]+:\d{1,5}", value) is not None)
+
+
 @dataclass(frozen=True)
 class ComputeConfig:
     """Where the tasks run.
@@ -329,12 +353,9 @@ class ComputeConfig:
     workers: int | None = None
 
     def __post_init__(self) -> None:
-        ok = (self.scheduler in ("local", "local-cluster")
-              or re.fullmatch(r"(tcp|tls|inproc|ucx)://\S+", self.scheduler))
         problems = []
-        if not ok:
-            problems.append(f"scheduler = {self.scheduler!r}: expected 'local', "
-                            f"'local-cluster' or an address like 'tcp://host:8786'")
+        if not scheduler_ok(self.scheduler):
+            problems.append(f"scheduler = {self.scheduler!r}: {SCHEDULER_HELP}")
         if self.workers is not None and self.workers < 1:
             problems.append(f"workers = {self.workers!r}: expected >= 1")
         if problems:

@@ -1,8 +1,11 @@
 """`conecheck check CONFIG`: validate a configuration and the files it names.
 
 Nothing is computed: the configuration is parsed and validated (every problem is listed with
-its key path), every input file is checked to exist and is opened (mask and vetoes read, the
-box file's columns checked), and the resolved settings — every default filled in — are
+its key path), every input file is checked to exist and is opened (mask, vetoes and overlap
+map read, the box file's columns and content checked), the checks `run` makes before
+computing are made (observers, replicas, thresholds against a file box, the memory of the
+largest task and the number of cones, refused above their limits unless --force), and the
+resolved settings — every default filled in — are
 printed as TOML.
 """
 
@@ -16,11 +19,21 @@ from ..catalog import read_table
 from ..cone import volume_limit_zmax
 from ..config import config_warnings, load_config, resolved_toml
 from ..errors import InputError
-from ..run.inputs import cosmology_of, input_files, load_box, load_footprint
+from ..run.inputs import (
+    SYNTHETIC_BOX_SIZE,
+    cosmology_of,
+    hod_model_of,
+    input_files,
+    load_box,
+    load_footprint,
+)
+from ..run.preflight import box_size_of, preflight, raise_problems
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("config", help="run configuration (TOML)")
+    parser.add_argument("--force", action="store_true",
+                        help="report resource limits (cones, memory) as notes, not problems")
 
 
 def main(args: argparse.Namespace) -> int:
@@ -28,6 +41,9 @@ def main(args: argparse.Namespace) -> int:
     files = input_files(cfg)
     fp = load_footprint(cfg)
     box_note = "synthetic (built at run time)"
+    box = None
+    if cfg.box.source in ("halos", "synthetic"):
+        hod_model_of(cfg)  # read and validated as the run will
     if cfg.box.source in ("file", "halos"):
         table = read_table(files["box.path"])
         missing = [f"{k} -> '{v}'" for k, v in cfg.box.columns.items()
@@ -43,8 +59,12 @@ def main(args: argparse.Namespace) -> int:
             halos = read_halo_catalog(files["box.path"], cfg.box.columns or None,
                                       cfg.box.box_size, cfg.box.redshift)
             box_note = f"{len(halos)} halos (populated with the HOD at run time)"
+    checked = preflight(cfg, fp, box, box_size_of(cfg, SYNTHETIC_BOX_SIZE), force=args.force)
+    raise_problems(checked)
     print(resolved_toml(cfg))
     out = sys.stderr
+    for note in checked.notes:
+        print(f"# {note}", file=out)
     print(f"# box: {box_note}", file=out)
     print(f"# footprint: {fp.area_deg2:.1f} deg² effective area (N_side {fp.nside})", file=out)
     for key, path in files.items():

@@ -30,7 +30,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def main(args: argparse.Namespace) -> int:
     from .. import attribution
     from ..demo import demo_config
-    from ..run.validate import output_dir, print_summary, validate
+    from ..run.validate import EXIT_INCOMPLETE, output_dir, print_summary, validate
 
     cfg = demo_config(args.quick or args.ladder)
     if args.ladder:
@@ -40,5 +40,7 @@ def main(args: argparse.Namespace) -> int:
                              extensions=attribution.extensions(cfg))
     print_summary(results, output_dir(cfg, args.out))
     attribution.finish(results, output_dir(cfg, args.out))
+    if code == EXIT_INCOMPLETE:
+        return code
     print(f"(demo: `conecheck run` would exit with code {code} for this verdict)")
     return 0

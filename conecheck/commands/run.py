@@ -30,6 +30,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "collision correction comparison and the redshift-cut sweep "
                              "(the [ladder], [corrections] and [cut_sweep] sections, with "
                              "their defaults when absent)")
+    parser.add_argument("--force", action="store_true",
+                        help="run even when the pre-flight estimate exceeds a limit (more than "
+                             "10000 cones, a task needing over half the machine's memory)")
 
 
 def main(args: argparse.Namespace) -> int:
@@ -43,7 +46,7 @@ def main(args: argparse.Namespace) -> int:
                              workers=args.workers,
                              progress=None if args.verbosity >= 0 else False,
                              config_path=args.config,
-                             extensions=attribution.extensions(cfg))
+                             extensions=attribution.extensions(cfg), force=args.force)
     print_summary(results, output_dir(cfg, args.out))
     attribution.finish(results, output_dir(cfg, args.out))
     return code

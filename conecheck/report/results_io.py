@@ -79,7 +79,52 @@ def check_results(results: Any, source: str = "results") -> list[str]:
                 elif d["verdict"] not in VERDICTS:
                     problems.append(f"{sw}: verdict must be one of {', '.join(VERDICTS)}, "
                                     f"got {d['verdict']!r}")
+                else:
+                    problems += _statistic_type_problems(d, sw)
+    for key in OPTIONAL_SECTIONS:
+        if key in results and not isinstance(results[key], dict):
+            problems.append(f"{source}: '{key}' must be an object, got "
+                            f"{type(results[key]).__name__}")
     return problems
+
+
+#: Top-level sections the report reads when present; each is a JSON object.
+OPTIONAL_SECTIONS = ("provenance", "footprint", "verdict_rules", "ladder", "corrections",
+                     "cuts")
+#: Per-bin arrays of a statistic (numbers, or null for a missing value), one per bin.
+_BIN_ARRAYS = ("box", "cone_mean", "sigma_box", "sigma_cone", "sigma_total", "z")
+#: Scalars of a statistic (a number or null).
+_SCALARS = ("max_abs_z", "chi2", "dof", "p_value")
+
+
+def _is_number(x: Any) -> bool:
+    return x is None or (isinstance(x, (int, float)) and not isinstance(x, bool))
+
+
+def _statistic_type_problems(d: dict[str, Any], where: str) -> list[str]:
+    """Type problems of one statistic's entry: what an edit by hand can break."""
+    out = []
+    bins = d["bins"]
+    n = len(bins) if isinstance(bins, list) else None
+    if n is None:
+        out.append(f"{where}.bins: expected a list, got {type(bins).__name__}")
+    for k in _BIN_ARRAYS:
+        v = d[k]
+        if not (isinstance(v, list) and all(_is_number(x) for x in v)):
+            out.append(f"{where}.{k}: expected a list of numbers (null for none), got "
+                       f"{str(v)[:40]!r}")
+        elif n is not None and len(v) != n:
+            out.append(f"{where}.{k}: {len(v)} values for {n} bins")
+    cones = d["cones"]
+    if not (isinstance(cones, list) and all(
+            isinstance(c, list) and all(_is_number(x) for x in c) for c in cones)):
+        out.append(f"{where}.cones: expected a list of lists of numbers (one per cone)")
+    elif n is not None and any(len(c) != n for c in cones):
+        out.append(f"{where}.cones: every cone needs {n} values, one per bin")
+    for k in _SCALARS:
+        if not _is_number(d[k]):
+            out.append(f"{where}.{k}: expected a number or null, got {d[k]!r}")
+    return out
 
 
 def load_results(path: str | os.PathLike[str]) -> dict[str, Any]:

@@ -7,7 +7,12 @@ task is read back instead.  An entry is two files::
 
     <root>/<key[:2]>/<key>.npz    arrays of the result (see :mod:`.serialize`)
     <root>/<key[:2]>/<key>.json   the rest of the result, the checksum of the .npz,
-                                  kind, a readable label and the creation time
+                                  kind, a readable label, the creation time and the
+                                  checksum of this record itself
+
+Both files are covered by one integrity scheme: the record's ``entry_sha256`` hashes the
+record's own content (the key, the code version, the result's non-array part and the
+``.npz`` checksum), so an edited number in either file is detected and the task rerun.
 
 The ``.npz`` is written first and the ``.json`` last, each atomically, so an entry
 whose ``.json`` exists is complete; a run killed mid-write leaves at most an orphan
@@ -36,7 +41,7 @@ from .serialize import pack, unpack
 log = logging.getLogger("conecheck.run")
 
 #: Bump when the meaning of cached results changes without a version change.
-CACHE_FORMAT = 2
+CACHE_FORMAT = 3
 
 _KEY_CHARS = 24
 _CHUNK = 1 << 20
@@ -153,6 +158,13 @@ def _sha256_file(path: Path) -> str:
     return h.hexdigest()
 
 
+def _record_digest(doc: Mapping[str, Any]) -> str:
+    """SHA-256 of a cache record's content, every field but the digest itself."""
+    body = {k: v for k, v in doc.items() if k != "entry_sha256"}
+    text = json.dumps(body, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
 # --------------------------------------------------------------------------- store
 class TaskCache:
     """Finished task results on disk.
@@ -216,6 +228,8 @@ class TaskCache:
             if digest != doc["npz_sha256"]:
                 raise ValueError(f"checksum of {npz.name} does not match (file changed or "
                                  f"truncated)")
+            if _record_digest(doc) != doc["entry_sha256"]:
+                raise ValueError(f"checksum of {meta_path.name} does not match (edited)")
             with np.load(npz, allow_pickle=False) as z:
                 arrays = {k: z[k] for k in z.files}
             value = unpack(arrays, doc["meta"])
@@ -243,9 +257,35 @@ class TaskCache:
         doc = {"key": key, "kind": kind, "label": label,
                "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
                "code_version": code_version(), "npz_sha256": digest, "meta": meta}
+        doc["entry_sha256"] = _record_digest(doc)
         # Last, and atomically: the entry exists from this rename on.
         write_text_atomic(meta_path, json.dumps(doc, indent=1, allow_nan=False) + "\n")
         self.stats["writes"] += 1
+
+    def prune_other_code(self) -> tuple[int, int]:
+        """Delete entries written by other code (another version or source); (entries, bytes).
+
+        Their keys can never be asked for again by this code, so they only take space.
+        Unreadable records are left for :meth:`get`.
+        """
+        current = code_version()
+        n = size = 0
+        for meta_path in self.root.glob("??/*.json"):
+            try:
+                doc = json.loads(meta_path.read_text(encoding="utf-8"))
+            except (OSError, ValueError):
+                continue
+            if not isinstance(doc, dict) or doc.get("code_version") == current:
+                continue
+            npz = meta_path.with_suffix(".npz")
+            for p in (meta_path, npz):
+                try:
+                    size += p.stat().st_size
+                    p.unlink()
+                except OSError:
+                    pass
+            n += 1
+        return n, size
 
     def remove(self, key: str) -> None:
         """Delete an entry (JSON first, so a half-removed entry reads as absent)."""

@@ -10,11 +10,14 @@ killed or fails part-way keeps everything already finished and a re-run resumes.
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import hashlib
 import json
 import logging
 import os
+import signal
+import threading
 import traceback
 import uuid
 import warnings
@@ -25,6 +28,7 @@ from typing import Any
 
 import numpy as np
 
+from ..config import SCHEDULER_HELP, scheduler_ok
 from ..errors import ConecheckError, InputError
 from .cache import TaskCache
 from .progress import Progress
@@ -33,9 +37,6 @@ log = logging.getLogger("conecheck.run")
 
 _MISSING = object()
 
-_SCHEDULER_HELP = ("expected 'local' (in-process), 'local-cluster' (a dask cluster of worker "
-                   "processes on this machine) or a dask scheduler address such as "
-                   "'tcp://host:8786' or 'tls://host:8786'")
 
 
 # --------------------------------------------------------------------------- randomness
@@ -132,6 +133,23 @@ class TaskFailed(ConecheckError):
     def __reduce__(self):  # keep it intact through pickling (dask, multiprocessing)
         return (type(self), (self.task_label, self.error, self.n_failed, self.n_total,
                              self.details, self.cached))
+
+
+def interrupted_by(exc: BaseException) -> bool:
+    """Whether ``exc`` is, or was raised because of, a Ctrl-C (SIGINT).
+
+    Python turns SIGINT into :class:`KeyboardInterrupt` at the next bytecode; when that
+    moment falls inside a compiled (numba) kernel, the kernel's return reports it as a
+    ``SystemError`` ("returned a result with an exception set") whose cause is the
+    interrupt.  Both mean the user asked to stop, not that a task failed.
+    """
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, KeyboardInterrupt):
+            return True
+        seen.add(id(exc))
+        exc = exc.__cause__ or exc.__context__
+    return False
 
 
 def _error_text(exc: BaseException) -> str:
@@ -261,6 +279,8 @@ class LocalExecutor(Executor):
             try:
                 result = t.func(*t.args, **t.kwargs)
             except Exception as exc:  # reported after the other tasks have run
+                if interrupted_by(exc):  # Ctrl-C inside a numba kernel: stop, not "failed"
+                    raise KeyboardInterrupt from None
                 done(j, False, exc, traceback.format_exc())
             else:
                 done(j, True, result, "")
@@ -320,11 +340,12 @@ class DaskExecutor(Executor):
         self._distributed = distributed
         self._cluster = None
         self._numba_threads: int | None = None
+        self._shared: dict[int, tuple[Any, Any]] = {}
         if address == "local-cluster":
             n = workers or 2
             self._numba_threads = max(1, (os.cpu_count() or 1) // (n * threads_per_worker))
             try:
-                with warnings.catch_warnings(), _environ_kept():
+                with warnings.catch_warnings(), _environ_kept(), _sigint_ignored():
                     # The scheduler's HTTP endpoint tries port 8787 even without a
                     # dashboard and warns when another cluster holds it; any port will do.
                     warnings.filterwarnings("ignore", message="Port .* is already in use")
@@ -339,9 +360,10 @@ class DaskExecutor(Executor):
                                  f"'local' to run in-process") from exc
             self._workers = n
         else:
+            _probe_scheduler(address, connect_timeout)
             try:
                 self.client = distributed.Client(address, timeout=f"{connect_timeout}s")
-            except (OSError, TimeoutError, ValueError) as exc:
+            except Exception as exc:  # whatever dask raises, it is the address's fault
                 raise InputError(f"compute.scheduler = {address!r}: cannot connect to a dask "
                                  f"scheduler there ({_error_text(exc)})") from exc
             self._workers = len(self.client.scheduler_info().get("workers", {}))
@@ -352,10 +374,25 @@ class DaskExecutor(Executor):
         return f"dask scheduler {self.address} ({self._workers} workers at start)"
 
     def share(self, obj: Any) -> Any:
-        """Send ``obj`` to every worker once; pass the returned future as a task argument."""
-        return self.client.scatter(obj, broadcast=True)
+        """Send ``obj`` to every worker once; pass the returned future as a task argument.
+
+        Each object is sent once per executor and its handle kept until :meth:`close`.
+        dask names scattered data by its content unless told otherwise, so sharing the
+        same object again (the ladder's stages all share the one box) would re-use a name
+        whose earlier copy may be in the middle of being released, and the tasks that
+        depend on it are then cancelled for "lost dependencies".  A random name per
+        object and a handle that lives as long as the executor remove both the name
+        collision and the release.
+        """
+        held = self._shared.get(id(obj))
+        if held is not None and held[0] is obj:
+            return held[1]
+        future = self.client.scatter(obj, broadcast=True, hash=False)
+        self._shared[id(obj)] = (obj, future)  # the object itself keeps its id unique
+        return future
 
     def close(self) -> None:
+        getattr(self, "_shared", {}).clear()
         client = getattr(self, "client", None)
         if client is not None:
             client.close()
@@ -400,6 +437,63 @@ class DaskExecutor(Executor):
                 self.client.cancel([f for _, f in futures.values()])
 
 
+def _probe_scheduler(address: str, timeout: float) -> None:
+    """Ask ``address`` who it is, within ``timeout`` seconds; raise InputError unless a
+    dask scheduler answers.
+
+    ``distributed.Client`` trusts the peer: a port served by something else (a web
+    server, a database) makes it read a garbage frame length and try to allocate
+    exabytes, and a port that accepts but never answers blocks it without limit.  This
+    handshake has one overall deadline and turns every failure into a message naming
+    the address.
+    """
+    from distributed.comm import connect  # distributed is imported only when used
+
+    async def identity() -> Any:
+        comm = await connect(address, timeout=timeout)
+        try:
+            await comm.write({"op": "identity"})
+            return await comm.read()
+        finally:
+            comm.abort()
+
+    what = f"compute.scheduler = {address!r}"
+    try:
+        reply = asyncio.run(asyncio.wait_for(identity(), timeout))
+    except (TimeoutError, asyncio.TimeoutError):
+        raise InputError(f"{what}: no answer within {timeout:g} s; check the address and "
+                         f"that a dask scheduler runs there") from None
+    except MemoryError:  # a garbage frame length read as a size
+        raise InputError(f"{what}: the service at that port is not a dask scheduler (it "
+                         f"answered with data dask cannot read)") from None
+    except Exception as exc:  # refused, reset, wrong protocol
+        raise InputError(f"{what}: no dask scheduler answers there ({_error_text(exc)}); "
+                         f"check the host and port") from None
+    if not (isinstance(reply, dict) and reply.get("type") == "Scheduler"):
+        raise InputError(f"{what}: the service at that port is not a dask scheduler "
+                         f"(it answered {str(reply)[:80]!r})")
+
+
+@contextlib.contextmanager
+def _sigint_ignored() -> Iterator[None]:
+    """Start worker processes with Ctrl-C ignored.
+
+    A terminal's Ctrl-C reaches every process of the foreground group; workers would each
+    print a traceback.  An ignored signal stays ignored in the processes started
+    meanwhile (also across exec, and Python keeps it so), while this process restores its
+    handler and stays the one place an interrupt is handled: it cancels the queued tasks
+    and closes the cluster, which stops the workers.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 @contextlib.contextmanager
 def _environ_kept() -> Iterator[None]:
     """Undo environment changes made while starting workers.
@@ -434,10 +528,7 @@ def make_executor(scheduler: str | None, workers: int | None = None) -> Executor
     if scheduler is None or scheduler == "local":
         _check_count(workers, "compute.workers (--workers)", allow_none=True)
         return LocalExecutor()
-    if not isinstance(scheduler, str):
+    if not scheduler_ok(scheduler):
         raise InputError(f"compute.scheduler (--scheduler): got {scheduler!r}; "
-                         f"{_SCHEDULER_HELP}")
-    if scheduler == "local-cluster" or scheduler.startswith(("tcp://", "tls://")):
-        return DaskExecutor(scheduler, workers)
-    raise InputError(f"compute.scheduler (--scheduler): unknown value {scheduler!r}; "
-                     f"{_SCHEDULER_HELP}")
+                         f"{SCHEDULER_HELP}")
+    return DaskExecutor(scheduler, workers)

@@ -44,6 +44,9 @@ def cosmology_of(cfg: RunConfig) -> Cosmology:
 
 def _existing(cfg: RunConfig, value: str | None, key: str) -> Path | None:
     path = cfg.resolve_path(value)
+    if path is not None and path.is_dir():
+        raise InputError(f"{cfg.source}: {key} = {value!r}: {path} is a directory; expected "
+                         f"a file")
     if path is not None and not path.is_file():
         raise InputError(f"{cfg.source}: {key} = {value!r}: file {path} not found")
     return path

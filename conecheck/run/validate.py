@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from .. import __version__
-from ..atomic import write_text_atomic
+from ..atomic import remove_partial_files, write_text_atomic
 from ..compare import compare_statistic, exit_code, rollup_verdicts
 from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
@@ -40,6 +40,7 @@ from .pipeline import (
     randoms_stage,
     sensitivity_stage,
 )
+from .preflight import preflight, raise_problems
 from .progress import Progress
 
 log = logging.getLogger(__name__)
@@ -53,6 +54,9 @@ INDEPENDENCE_NOTE_SHARED = (
 INDEPENDENCE_NOTE_INDEPENDENT = (
     "The configuration states that the cones are independent realisations; the offset's "
     "error uses the cone-to-cone scatter divided by the number of cones.")
+
+#: Exit code of a run whose requested extension (ladder, corrections, cut sweep) failed.
+EXIT_INCOMPLETE = 2
 
 #: Hooks run after the main comparison (the effect ladder adds itself here).
 Extension = Callable[[RunInputs, dict[str, Any], dict[str, Any]], None]
@@ -137,7 +141,8 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
 def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = False,
              scheduler: str | None = None, workers: int | None = None,
              progress: bool | None = None, config_path: str | Path | None = None,
-             extensions: tuple[Extension, ...] = ()) -> tuple[dict[str, Any], int]:
+             extensions: tuple[Extension, ...] = (), force: bool = False
+             ) -> tuple[dict[str, Any], int]:
     """Run a whole validation and write its outputs.
 
     Parameters
@@ -156,11 +161,14 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         The configuration file, copied into the provenance.
     extensions : tuple of callables
         Extra stages run after the comparison, each given (inputs, box results, results).
+    force : bool
+        Run even when the pre-flight estimate exceeds a resource limit.
 
     Returns
     -------
     (results, exit code)
-        Exit code 0 when every statistic passes (or only warns), 1 when any fails.
+        Exit code 0 when every statistic passes (or only warns), 1 when any fails, 2 when
+        an extension that was asked for did not complete (its section holds the error).
     """
     t_start = time.perf_counter()
     run_dir = output_dir(cfg, out)
@@ -174,6 +182,10 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
     try:
         for w in config_warnings(cfg):
             log.warning("config: %s", w)
+        n_partial = remove_partial_files(run_dir)
+        if n_partial:
+            log.info("removed %d partly written file(s) left by an interrupted run in %s",
+                     n_partial, run_dir)
         write_text_atomic(run_dir / "config.resolved.toml", resolved_toml(cfg))
         cache = TaskCache(run_dir / "cache", enabled=not fresh) if cfg.output.cache else None
         prog = Progress(enabled=progress)
@@ -181,6 +193,10 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
                                  workers if workers is not None else cfg.compute.workers)
         with executor:
             inp = prepare_inputs(cfg, executor, cache, prog)
+            checked = preflight(cfg, inp.footprint, inp.box, force=force)
+            for note in checked.notes:
+                log.info("pre-flight: %s", note)
+            raise_problems(checked)
             inp.regions.save(run_dir / "jackknife_regions.npz")
             box = box_stage(inp)
             derivatives = sensitivity_stage(inp)
@@ -198,6 +214,10 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             results["provenance"]["replicas_per_cone"] = [c["info"].get("n_replicas", 0)
                                                           for c in cones]
         t0 = time.perf_counter()
+        # An old report must never sit beside new results: if this run is killed before
+        # its PDF is written, there is no PDF (`conecheck report DIR` renders it) rather
+        # than one that contradicts results.json.
+        (run_dir / "validation.pdf").unlink(missing_ok=True)
         results_to_json(results, run_dir / "results.json")
         write_statistic_tables(results, run_dir / "tables")
         inp.timings["tables"] = time.perf_counter() - t0
@@ -217,7 +237,19 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
                               for c in s["cuts"].values()))
         for stage, sec in inp.timings.items():
             log.info("timing: %s %.1f s", stage, sec)
+        if cache is not None:
+            n_old, size = cache.prune_other_code()
+            if n_old:
+                log.info("cache: removed %d entries (%.1f MB) written by other versions of "
+                         "conecheck", n_old, size / 1e6)
         code = exit_code(results["overall"], cfg.verdict.warn_is_failure)
+        incomplete = [k for k, v in results.items() if isinstance(v, dict) and "error" in v]
+        if incomplete:
+            # Asked for and not delivered: the run is unusable as a whole even though the
+            # main verdicts above are complete and written.
+            log.error("not completed: %s (see the errors above and in run.log); the main "
+                      "verdicts are complete in results.json", ", ".join(incomplete))
+            code = EXIT_INCOMPLETE
         return results, code
     finally:
         root.removeHandler(handler)
