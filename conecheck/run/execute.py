@@ -351,7 +351,10 @@ class DaskExecutor(Executor):
                     warnings.filterwarnings("ignore", message="Port .* is already in use")
                     self._cluster = distributed.LocalCluster(
                         n_workers=n, threads_per_worker=threads_per_worker, processes=True,
-                        host="127.0.0.1", dashboard_address=None)
+                        host="127.0.0.1", dashboard_address=None,
+                        # the workers' own shutdown chatter (cancelled tasks, a worker
+                        # killed after a Ctrl-C) is not the user's business; errors are
+                        silence_logs=logging.ERROR)
                 self.client = distributed.Client(self._cluster)
             except Exception as exc:
                 self.close()
@@ -394,12 +397,19 @@ class DaskExecutor(Executor):
     def close(self) -> None:
         getattr(self, "_shared", {}).clear()
         client = getattr(self, "client", None)
-        if client is not None:
-            client.close()
-            self.client = None
-        if self._cluster is not None:
-            self._cluster.close()
-            self._cluster = None
+        quiet = logging.getLogger("distributed")
+        level = quiet.level
+        if self._cluster is not None:  # our own cluster: its shutdown warnings are noise
+            quiet.setLevel(logging.ERROR)
+        try:
+            if client is not None:
+                client.close()
+                self.client = None
+            if self._cluster is not None:
+                self._cluster.close()
+                self._cluster = None
+        finally:
+            quiet.setLevel(level)
 
     def _compute(self, tasks: Sequence[Task],
                  done: Callable[[int, bool, Any, str], None]) -> None:

@@ -1,0 +1,119 @@
+"""Interrupts and kills on every back end, then resume to the same numbers.
+
+A run is started as a separate process group (as a terminal runs it), interrupted with
+SIGINT (Ctrl-C reaches every process of the group) or killed with SIGKILL once a given
+number of tasks has reached the cache, then resumed; the resumed results must equal an
+uninterrupted run's to the bit.  The effect ladder on a dask LocalCluster must equal the
+ladder run in-process.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import pytest
+import tomli_w
+from run_helpers import tiny_dict
+
+pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
+
+BACKENDS = {"local": [], "local-cluster": ["--scheduler", "local-cluster", "--workers", "2"]}
+
+
+def _config(tmp: Path) -> str:
+    d = tiny_dict(**{"cones.n_cones": 3, "statistics.measure": ["number_density", "wp"]})
+    path = tmp / "c.toml"
+    path.write_text(tomli_w.dumps(d), encoding="utf-8")
+    return str(path)
+
+
+def _start(cfg: str, out: Path, extra: list[str]) -> subprocess.Popen[str]:
+    return subprocess.Popen([sys.executable, "-m", "conecheck.cli", "run", "-q", cfg, "-o",
+                             str(out), *extra], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True)
+
+
+def _cached(out: Path) -> int:
+    return len(list((out / "cache").glob("??/*.json")))
+
+
+def _wait_for_entries(proc: subprocess.Popen[str], out: Path, n: int,
+                      limit: float = 240.0) -> bool:
+    """Wait until ``n`` cache entries exist; False when the run ended first."""
+    t0 = time.monotonic()
+    while _cached(out) < n:
+        if proc.poll() is not None:
+            return False
+        if time.monotonic() - t0 > limit:
+            raise AssertionError(f"no {n} cache entries after {limit} s")
+        time.sleep(0.05)
+    return True
+
+
+def _numbers(out: Path) -> dict[str, Any]:
+    r = json.loads((out / "results.json").read_text())
+    r.pop("provenance")  # dates, timings, command lines
+    return r
+
+
+def _finish(cfg: str, out: Path, extra: list[str]) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "conecheck.cli", "run", "-q", cfg, "-o",
+                           str(out), *extra], capture_output=True, text=True, timeout=600)
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("reference")
+    cfg = _config(tmp)
+    done = _finish(cfg, tmp / "run", [])
+    assert done.returncode in (0, 1), done.stderr
+    return cfg, _numbers(tmp / "run")
+
+
+@pytest.mark.parametrize("backend", list(BACKENDS))
+def test_interrupt_and_kill_then_resume_give_identical_results(backend, reference, tmp_path):
+    cfg, expected = reference
+    out = tmp_path / "run"
+    extra = BACKENDS[backend]
+    # Ctrl-C to the whole process group after the first task (the box), then SIGKILL later
+    # in the cone stage; each leaves what finished in the cache.
+    for n_entries, sig in ((1, signal.SIGINT), (3, signal.SIGKILL)):
+        proc = _start(cfg, out, extra)
+        reached = _wait_for_entries(proc, out, n_entries)
+        if reached:
+            os.killpg(proc.pid, sig)
+        _, err = proc.communicate(timeout=120)
+        if not reached:  # finished before the signal: nothing to interrupt at this point
+            continue
+        if sig == signal.SIGINT:
+            assert proc.returncode == 130, err
+            assert "interrupted" in err and "Traceback" not in err, err
+            assert len(err.strip().splitlines()) <= 3, err  # no worker tracebacks
+        else:
+            assert proc.returncode == -signal.SIGKILL
+    done = _finish(cfg, out, extra)
+    assert done.returncode in (0, 1), done.stderr
+    assert _numbers(out) == expected
+    assert not list(out.rglob(".*.partial-*"))
+
+
+def test_ladder_on_a_local_cluster_equals_the_local_ladder(tmp_path):
+    cfg = _config(tmp_path)
+    ladders = {}
+    for backend, extra in BACKENDS.items():
+        done = _finish(cfg, tmp_path / backend, ["--ladder", *extra])
+        assert done.returncode in (0, 1), done.stderr
+        r = json.loads((tmp_path / backend / "results.json").read_text())
+        for section in ("ladder", "corrections", "cuts"):
+            assert "error" not in r[section], r[section]["error"]
+        for rung in r["ladder"]["rungs"]:
+            rung.pop("seconds", None)
+        ladders[backend] = {k: r[k] for k in ("ladder", "corrections", "cuts")}
+    assert ladders["local"] == ladders["local-cluster"]
