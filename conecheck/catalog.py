@@ -78,6 +78,11 @@ def read_table(path: str | os.PathLike[str]) -> Table:
         if FORMATS[suf] is None:
             with np.load(path, allow_pickle=False) as data:
                 return Table({k: data[k] for k in data.files})
+        repeated = _repeated_column_names(path, FORMATS[suf])
+        if repeated:
+            raise InputError(f"{path}: column name(s) {', '.join(map(repr, repeated))} appear "
+                             "more than once in the file; give every column its own name so "
+                             "the column mapping is unambiguous")
         kwargs: dict[str, Any] = {}
         if FORMATS[suf] == "hdf5":
             kwargs["path"] = _first_hdf5_dataset(path)
@@ -90,6 +95,37 @@ def read_table(path: str | os.PathLike[str]) -> Table:
     except Exception as exc:  # noqa: BLE001 - any parser failure is a user-file problem
         raise InputError(f"{path}: cannot read as {FORMATS[suf] or 'npz'} table "
                          f"({type(exc).__name__}: {exc})") from None
+
+
+def _repeated_column_names(path: Path, fmt: str) -> list[str]:
+    """Column names the file's header holds twice.
+
+    astropy renames a repeated ECSV name to ``name_1`` without a word, and FITS and Parquet
+    readers fail with messages that do not name the column; the header is read first so
+    the user learns which name is repeated.  HDF5 compound types and .npz keys cannot repeat.
+    """
+    names: list[str] = []
+    if fmt == "fits":
+        from astropy.io import fits
+
+        with fits.open(path, memmap=True) as hdul:
+            table = next((h for h in hdul if isinstance(h, fits.BinTableHDU | fits.TableHDU)),
+                         None)
+            if table is not None:
+                head = table.header
+                names = [str(head.get(f"TTYPE{i}", "")).strip()
+                         for i in range(1, int(head.get("TFIELDS", 0)) + 1)]
+    elif fmt == "parquet":
+        import pyarrow.parquet as pq
+
+        names = list(pq.read_schema(path).names)
+    elif fmt == "ascii.ecsv":
+        with open(path, encoding="utf-8", errors="replace") as fh:
+            # the first line that is neither blank nor a comment holds the column names
+            line = next((ln for ln in fh if ln.strip() and not ln.startswith("#")), "")
+        names = line.replace(",", " ").split()
+    seen: set[str] = set()
+    return sorted({n for n in names if n and (n in seen or seen.add(n))})
 
 
 def _first_hdf5_dataset(path: Path) -> str:

@@ -78,6 +78,15 @@ def _with_file_box(table_edit: Callable[[Table], Table | None] | None = None,
     return build
 
 
+def _repeated_name(tmp: Path) -> list[str]:
+    from astropy.io import fits
+
+    d = _file_box(tmp)
+    with fits.open(tmp / "box.fits", mode="update") as hdul:
+        hdul[1].header["TTYPE2"] = "x"  # a file whose header names two columns 'x'
+    return ["check", _write_config(tmp, d)]
+
+
 def _garbage(tmp: Path, name: str) -> str:
     path = tmp / name
     path.write_bytes(b"\x00\x01 this is not the file you are looking for" * 10)
@@ -90,6 +99,17 @@ def _mask_case(kind: str) -> Callable[[Path], list[str]]:
                   "garbage": _garbage(tmp, "mask.fits")}[kind]
         return ["check", _write_config(tmp, tiny_dict(**{"survey.mask": target}))]
     return build
+
+
+def _mislabelled_ordering(tmp: Path) -> list[str]:
+    """The shipped RING mask written with an ORDERING = 'NESTED' header."""
+    from conecheck.config import resolve_path
+    from conecheck.footprint.fitsio import read_healpix, write_healpix
+
+    ring = read_healpix(resolve_path(tiny_dict()["survey"]["mask"], tmp))
+    assert not ring.nest
+    write_healpix(tmp / "mask.fits", ring.values, nest=True)
+    return ["check", _write_config(tmp, tiny_dict(**{"survey.mask": str(tmp / "mask.fits")}))]
 
 
 def _overlap_above_one(tmp: Path) -> list[str]:
@@ -226,6 +246,8 @@ CASES: dict[str, tuple[Callable[[Path], list[str]], str]] = {
     "mask missing": (_mask_case("missing"), r"nope\.fits"),
     "mask is a directory": (_mask_case("dir"), r"survey\.mask.*directory"),
     "mask not FITS": (_mask_case("garbage"), r"mask\.fits"),
+    "RING mask labelled NESTED": (_mislabelled_ordering,
+                                  r"mask\.fits.*ORDERING = 'NESTED'.*looks RING-ordered"),
     "overlap map above one": (_overlap_above_one, r"overlap_map.*\[0, 1\]"),
     "veto missing": (lambda tmp: ["check", _write_config(tmp, tiny_dict(
         **{"survey.vetoes": [str(tmp / "veto.fits")]}))], r"vetoes\[0\]"),
@@ -241,6 +263,7 @@ CASES: dict[str, tuple[Callable[[Path], list[str]], str]] = {
     # --- columns and content
     "column mapped twice": (_with_file_box(columns={"x": "x", "y": "x"}),
                             r"'x' is mapped to 2"),
+    "column name repeated in the file": (_repeated_name, r"box\.fits.*'x' appear more than"),
     "mapped column absent": (_with_file_box(columns={"x": "xpos"}), r"xpos"),
     "boolean positions": (_with_file_box(lambda t: t.replace_column("x", t["x"] > 80)),
                           r"'x' has dtype bool"),
@@ -260,6 +283,11 @@ CASES: dict[str, tuple[Callable[[Path], list[str]], str]] = {
     "threshold nobody reaches": (lambda tmp: ["check", _write_config(tmp, _file_box(
         tmp, **{"samples": [dict(tiny_dict()["samples"][0], mag_max=-30.0)]}))],
         r"mag_max = -30"),
+    "HOD threshold nobody reaches": (_check(dict(tiny_dict(), samples=[dict(
+        tiny_dict()["samples"][0], mag_max=-30.0)])), r"mag_max = -30.*HOD expects"),
+    "pair work above the limit": (_check_changes(**{"cones.n_cones": 9000,
+                                                    "randoms.multiple": 400.0}),
+                                  r"core-hours.*--force"),
     "negative box size": (_with_file_box(box_size=-5.0), r"box_size"),
     # --- output directories
     "output is a file": (_run_into(_file_at), r"afile"),
@@ -356,3 +384,11 @@ def test_partial_files_of_a_killed_writer_are_removed(tmp_path):
     assert remove_partial_files(tmp_path) == 1
     assert sorted(p.name for p in tmp_path.iterdir()) == ["results.json", "validation.pdf"]
     shutil.rmtree(tmp_path)
+
+
+def test_force_turns_resource_limits_into_notes(tmp_path, capsys):
+    cfg = _write_config(tmp_path, tiny_dict(**{"cones.n_cones": 9000,
+                                               "randoms.multiple": 400.0}))
+    assert main(["check", cfg, "--force"]) == 0
+    err = capsys.readouterr().err
+    assert re.search(r"forced past a limit: .*core-hours", err), err

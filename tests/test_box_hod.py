@@ -13,6 +13,8 @@ from conecheck.box import (
     HODModel,
     default_hod_model,
     default_hod_path,
+    density_brighter_than,
+    halo_threshold_densities,
     load_hod,
     populate,
 )
@@ -96,6 +98,23 @@ def test_magnitude_thresholds_reproduce_each_hod(populated):
         total = n_cen.sum() + n_sat.sum()
         expect = cen_exp.sum() + sat_exp.sum()
         assert abs(total - expect) < 4 * np.sqrt(expect)
+
+
+@pytest.mark.parametrize("mag", [None, -19.0, -20.0, -20.2, -20.75, -21.0, -21.4])
+def test_expected_sample_density_matches_the_populated_box(populated, mag):
+    """The expected density of abs_mag < mag equals the populated box's count.
+
+    Given the halos, the count is a sum of independent Bernoulli (centrals) and Poisson
+    (satellites) draws, so its variance is at most its mean: a 5σ margin (two-sided
+    Gaussian tail 6·10⁻⁷) on this fixed seed.  Source of the occupations: Zheng et al. 2007
+    (ApJ 667, 760); the in-bin magnitudes are uniform and the bright tail exponential.
+    """
+    halos, box = populated
+    model = default_hod_model()
+    per_threshold = halo_threshold_densities(halos, model)
+    expect = density_brighter_than(model, per_threshold, mag) * BOX**3
+    count = len(box) if mag is None else int(np.count_nonzero(box.abs_mag < mag))
+    assert abs(count - expect) < 5 * np.sqrt(expect) + 1, (mag, count, expect)
 
 
 def test_centrals_at_halo_centre_and_positions_wrapped(populated):

@@ -193,6 +193,28 @@ def test_reads_healpy_written_maps(tmp_path, nest):
     np.testing.assert_array_equal(fp.values, vals)
 
 
+@pytest.mark.parametrize("nside", [16, 64, 256])
+@pytest.mark.parametrize("true_nest", [False, True])
+def test_mislabelled_ordering_is_refused_and_speckle_is_not(tmp_path, nside, true_nest):
+    """A cap written under the other ORDERING keyword is refused; a speckled map is read.
+
+    healpy's neighbour tables (reference library) define scatter: a 15° cap has few
+    uncovered neighbours in its own ordering at every N_side and about half in the other.
+    """
+    from conecheck.footprint.fitsio import write_healpix
+
+    cap = cap_map(nside, 60, 20, 15, nest=true_nest)
+    write_healpix(tmp_path / "right.fits", cap, nest=true_nest)
+    assert Footprint.from_fits(tmp_path / "right.fits").nest == true_nest
+    write_healpix(tmp_path / "wrong.fits", cap, nest=not true_nest)
+    right_name = "NESTED" if true_nest else "RING"
+    with pytest.raises(InputError, match=f"wrong.fits.*looks {right_name}-ordered"):
+        Footprint.from_fits(tmp_path / "wrong.fits")
+    speckle = (np.random.default_rng(nside).random(hp.nside2npix(nside)) < 0.3).astype(float)
+    write_healpix(tmp_path / "speckle.fits", speckle, nest=not true_nest)
+    assert Footprint.from_fits(tmp_path / "speckle.fits").npix == speckle.size
+
+
 def test_write_is_atomic_and_overwrites(tmp_path):
     fp = Footprint.from_map(cap_map(16, 0, 0, 20))
     path = tmp_path / "m.fits"

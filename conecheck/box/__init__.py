@@ -6,6 +6,8 @@ Public entry points:
 * :class:`ZhengParams`, :class:`HODThreshold`, :class:`AssemblyBias`, :class:`HODModel`,
   :func:`load_hod`, :func:`default_hod_model` — occupation models.
 * :func:`populate` — halos + HOD -> :class:`conecheck.catalog.GalaxyBox`.
+* :func:`halo_threshold_densities`, :func:`synthetic_threshold_densities`,
+  :func:`density_brighter_than` — expected galaxy densities before anything is drawn.
 * :func:`make_synthetic_halos`, :func:`make_synthetic_box` — no N-body input needed.
 * :func:`apply_box_rsd`, :func:`apply_box_redshift_scatter` — box-side effects.
 """
@@ -21,12 +23,18 @@ from .hod import (
     default_hod_path,
     load_hod,
 )
-from .populate import populate
-from .synthetic import hod_number_density, make_synthetic_box, make_synthetic_halos
+from .populate import density_brighter_than, halo_threshold_densities, populate
+from .synthetic import (
+    hod_number_density,
+    make_synthetic_box,
+    make_synthetic_halos,
+    synthetic_threshold_densities,
+)
 
 __all__ = [
     "AssemblyBias", "HODModel", "HODThreshold", "HaloCatalog", "ZhengParams",
     "apply_box_redshift_scatter", "apply_box_rsd", "default_hod_model", "default_hod_path",
-    "hod_number_density",
+    "density_brighter_than", "halo_threshold_densities", "hod_number_density",
     "load_hod", "make_synthetic_box", "make_synthetic_halos", "populate", "read_halo_catalog",
+    "synthetic_threshold_densities",
 ]

@@ -68,6 +68,44 @@ def decorated_occupations(halos: HaloCatalog, model: HODModel
     return cen, sat
 
 
+def density_brighter_than(model: HODModel, threshold_density: NDArray[np.float64],
+                          mag_max: float | None) -> float:
+    """Expected density of galaxies with abs_mag < ``mag_max`` under the magnitude law above.
+
+    Parameters
+    ----------
+    model : HODModel
+        Its thresholds m_0 > … > m_{K−1} and bright-tail width [mag].
+    threshold_density : array (K,)
+        Expected density of each threshold sample [(h/Mpc)³], faintest first.
+    mag_max : float or None
+        Sample threshold, M − 5 log10 h [mag]; None keeps every galaxy.
+
+    Returns
+    -------
+    float
+        Density [(h/Mpc)³]: n_0 fainter than m_0; linear in magnitude between thresholds
+        (magnitudes are uniform inside a bin); n_{K−1} exp(−(m_{K−1} − m)/w) brighter than
+        the brightest.
+    """
+    mags = model.mag_limits
+    n = np.asarray(threshold_density, dtype=float)
+    if mag_max is None or mag_max >= mags[0]:
+        return float(n[0])
+    if mag_max < mags[-1]:
+        return float(n[-1] * np.exp(-(mags[-1] - mag_max) / model.bright_tail_mag))
+    return float(np.interp(mag_max, mags[::-1], n[::-1]))
+
+
+def halo_threshold_densities(halos: HaloCatalog, model: HODModel) -> NDArray[np.float64]:
+    """Expected galaxy density of each threshold in ``halos`` [(h/Mpc)³], faintest first.
+
+    Σ over halos of <N_cen> + <N_sat>, over L³; decoration keeps the mean at fixed mass.
+    """
+    cen, sat = model.mean_occupations(halos.mass)
+    return (cen + sat).sum(axis=1) / float(halos.box_size) ** 3
+
+
 def _magnitudes(level: NDArray[np.int64], mags: NDArray[np.float64], tail: float,
                 rng: np.random.Generator) -> NDArray[np.float64]:
     """Magnitude for galaxies brighter than ``level`` thresholds (level ≥ 1)."""

@@ -105,6 +105,20 @@ def hod_number_density(model: HODModel, mass_function: HaloMassFunction, m_min: 
     return np.trapezoid(mass_function.dn_dlnm(mass) * (cen + sat), lnm, axis=1)
 
 
+def synthetic_threshold_densities(redshift: float, cosmology: Cosmology, sigma8: float,
+                                  n_s: float, omega_b: float,
+                                  hod_model: HODModel) -> NDArray[np.float64]:
+    """Expected galaxy density of each threshold in a synthetic box [(h/Mpc)³].
+
+    The mass function the box draws its halos from, integrated against the HOD from the
+    mass floor :func:`synthetic_halos_for` uses; nothing is drawn.
+    """
+    hmf = HaloMassFunction(LinearPower(cosmology, sigma8=sigma8, n_s=n_s, omega_b=omega_b),
+                           redshift)
+    m_min = max(hod_model.minimum_mass(1e-3), M_FLOOR)
+    return hod_number_density(hod_model, hmf, m_min, M_CEILING)
+
+
 def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
                          sigma8: float, n_s: float, omega_b: float, rng: np.random.Generator,
                          grid: int | None = None, m_min: float = 1e11, *,

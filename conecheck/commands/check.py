@@ -3,8 +3,9 @@
 Nothing is computed: the configuration is parsed and validated (every problem is listed with
 its key path), every input file is checked to exist and is opened (mask, vetoes and overlap
 map read, the box file's columns and content checked), the checks `run` makes before
-computing are made (observers, replicas, thresholds against a file box, the memory of the
-largest task and the number of cones, refused above their limits unless --force), and the
+computing are made (observers, replicas, each sample's threshold against the box — counted
+in a file box, expected from the HOD otherwise —, the memory of the largest task, the number
+of cones and the pair-counting work, refused above their limits unless --force), and the
 resolved settings — every default filled in — are
 printed as TOML.
 """
@@ -41,9 +42,9 @@ def main(args: argparse.Namespace) -> int:
     files = input_files(cfg)
     fp = load_footprint(cfg)
     box_note = "synthetic (built at run time)"
-    box = None
+    box = halos = model = None
     if cfg.box.source in ("halos", "synthetic"):
-        hod_model_of(cfg)  # read and validated as the run will
+        model = hod_model_of(cfg)  # read and validated as the run will
     if cfg.box.source in ("file", "halos"):
         table = read_table(files["box.path"])
         missing = [f"{k} -> '{v}'" for k, v in cfg.box.columns.items()
@@ -59,7 +60,8 @@ def main(args: argparse.Namespace) -> int:
             halos = read_halo_catalog(files["box.path"], cfg.box.columns or None,
                                       cfg.box.box_size, cfg.box.redshift)
             box_note = f"{len(halos)} halos (populated with the HOD at run time)"
-    checked = preflight(cfg, fp, box, box_size_of(cfg, SYNTHETIC_BOX_SIZE), force=args.force)
+    checked = preflight(cfg, fp, box, box_size_of(cfg, SYNTHETIC_BOX_SIZE), force=args.force,
+                        model=model, halos=halos)
     raise_problems(checked)
     print(resolved_toml(cfg))
     out = sys.stderr

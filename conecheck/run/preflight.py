@@ -3,8 +3,9 @@
 Everything that can be known from the configuration and the input files without building
 a cone is checked here, so that `check` says "configuration OK" only for what `run` would
 accept: the overlap map's values, the observers' positions, the number of periodic
-replicas the shell needs, each sample's threshold against a file box, and an estimate of
-the largest task's memory and of the run's size, refused above stated limits unless the
+replicas the shell needs, each sample's threshold against the box (counted in a built
+box, expected from the HOD for halo and synthetic boxes), and estimates of the largest
+task's memory and of the run's pair-counting work, refused above stated limits unless the
 user forces it.
 """
 
@@ -16,13 +17,21 @@ import os
 
 import numpy as np
 
+from ..box import (
+    HaloCatalog,
+    HODModel,
+    density_brighter_than,
+    halo_threshold_densities,
+    synthetic_threshold_densities,
+)
+from ..box.sensitivity import DEFAULT_STEPS
 from ..catalog import GalaxyBox
 from ..cone.fibres import load_overlap_map
 from ..cone.geometry import check_observer, replica_offsets
 from ..config import RunConfig
 from ..errors import InputError
 from ..footprint import Footprint
-from .inputs import cosmology_of
+from .inputs import SYNTHETIC_REDSHIFT, cosmology_of
 
 #: Cones above this many are refused without ``--force``: a validation needs tens, and a
 #: mistyped exponent should not start a run that cannot end.
@@ -33,6 +42,12 @@ MEMORY_FRACTION = 0.5
 BYTES_PER_CONE_ROW = 160
 #: Bytes per VPF sphere and radius (centre, counts and inside test, float64).
 BYTES_PER_SPHERE_RADIUS = 48
+#: Pairs the engine examines per core-second: the cone DD and DR rows of
+#: benchmarks/RESULTS.md (≈ 5·10⁷ pairs/s on 2 threads), so ≈ 2.5·10⁷ per core.
+PAIRS_PER_CORE_SECOND = 2.5e7
+#: Runs estimated above this many core-hours of pair counting are refused without
+#: ``--force`` (a demo needs minutes; a production run on a cluster tens of core-hours).
+MAX_CORE_HOURS = 2000.0
 
 
 @dataclasses.dataclass(frozen=True)
@@ -59,8 +74,41 @@ def machine_memory_bytes() -> int | None:
         return None
 
 
+def sample_densities(cfg: RunConfig, box: GalaxyBox | None = None,
+                     model: HODModel | None = None,
+                     halos: HaloCatalog | None = None) -> dict[str | None, float] | None:
+    """Galaxy density of each sample [(h/Mpc)³], and of the whole box under key None.
+
+    Counted in ``box`` when one is given; otherwise expected from the HOD ``model`` over
+    ``halos`` (a halo file) or over the synthetic box's mass function; None without either.
+    """
+    if box is not None:
+        volume = float(box.box_size) ** 3
+        mags = box.abs_mag
+        out: dict[str | None, float] = {None: len(box) / volume}
+        for s in cfg.samples:
+            kept = len(box) if s.mag_max is None or mags is None else np.count_nonzero(
+                np.asarray(mags) < s.mag_max)
+            out[s.name] = kept / volume
+        return out
+    if model is None:
+        return None
+    if halos is not None:
+        per_threshold = halo_threshold_densities(halos, model)
+    else:
+        b = cfg.box
+        per_threshold = synthetic_threshold_densities(
+            SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift, cosmology_of(cfg),
+            b.sigma8, b.n_s, b.omega_b, model)
+    out = {None: density_brighter_than(model, per_threshold, None)}
+    for s in cfg.samples:
+        out[s.name] = density_brighter_than(model, per_threshold, s.mag_max)
+    return out
+
+
 def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None,
-              box_size: float | None = None, force: bool = False) -> Preflight:
+              box_size: float | None = None, force: bool = False,
+              model: HODModel | None = None, halos: HaloCatalog | None = None) -> Preflight:
     """Run every check that needs no computation.
 
     Parameters
@@ -70,17 +118,22 @@ def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None
     footprint : Footprint
         The survey footprint (its area sets the cone's size).
     box : GalaxyBox, optional
-        A box read from a file; with it the samples' thresholds and the box density are
-        checked.  Synthetic and halo boxes are made at run time and are not built here.
+        The galaxy box (read from a file, or built by the run); its samples are counted.
     box_size : float, optional
         Box side [Mpc/h] when no box is given (config value or the synthetic default).
     force : bool
-        Turn the resource limits (cones, memory) into notes instead of problems.
+        Turn the resource limits (cones, memory, work) into notes instead of problems.
+    model : HODModel, optional
+        The HOD of a halo or synthetic box not built yet: the samples' densities are then
+        expected from it (over ``halos`` when given, else the synthetic mass function).
+    halos : HaloCatalog, optional
+        The halo file's catalogue.
     """
     notes: list[str] = []
     problems: list[str] = []
     limits: list[str] = []
-    L = float(box.box_size) if box is not None else box_size
+    L = float(box.box_size) if box is not None else (
+        float(halos.box_size) if halos is not None else box_size)
     if cfg.effects.fibres and cfg.fibres.overlap_map:
         try:
             load_overlap_map(str(cfg.resolve_path(cfg.fibres.overlap_map)))
@@ -106,17 +159,17 @@ def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None
                 f"z_max or use a larger box")
         else:
             notes.append(f"replicas per cone: about {n_rep}")
-    if box is not None and box.abs_mag is not None:
+    density = sample_densities(cfg, box, model, halos)
+    if density is not None and L is not None:
+        problems += _empty_samples(cfg, density, L, box, model)
+        how = "in the box" if box is not None else "expected from the HOD"
         for s in cfg.samples:
-            if s.mag_max is not None and not np.any(box.abs_mag < s.mag_max):
-                problems.append(f"samples '{s.name}'.mag_max = {s.mag_max}: no box galaxy is "
-                                f"brighter (the box's brightest is M = "
-                                f"{float(box.abs_mag.min()):.2f}); check the threshold and "
-                                f"the box's magnitude column")
+            notes.append(f"sample '{s.name}': n = {density[s.name]:.3g} (h/Mpc)³, about "
+                         f"{density[s.name] * L**3:.0f} galaxies {how}")
     if cfg.cones.n_cones > MAX_CONES:
         limits.append(f"cones.n_cones = {cfg.cones.n_cones}: above the limit of {MAX_CONES} "
                       f"cones (a validation needs tens; check the value)")
-    need = _largest_task_bytes(cfg, footprint, box, L)
+    need = _largest_task_bytes(cfg, footprint, density)
     have = machine_memory_bytes()
     if need is not None:
         notes.append(f"largest task: about {_gib(need)} of memory"
@@ -126,6 +179,17 @@ def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None
                           f"{MEMORY_FRACTION:.0%} of this machine's {_gib(have)} "
                           f"(statistics.vpf.n_spheres, randoms.multiple and the shell's depth "
                           f"set it); lower them")
+    if density is not None and L is not None:
+        hours = pair_work(cfg, footprint, density, L) / PAIRS_PER_CORE_SECOND / 3600.0
+        workers = max(1, cfg.compute.workers or os.cpu_count() or 1)
+        notes.append(f"pair counting: about {hours:.2g} core-hours, {hours / workers:.2g} h "
+                     f"on {workers} worker(s) (order of magnitude; --ladder adds about one "
+                     f"run per rung)")
+        if hours > MAX_CORE_HOURS:
+            limits.append(f"the run's pair counting is estimated at {hours:.3g} core-hours, "
+                          f"above the limit of {MAX_CORE_HOURS:g} (cones.n_cones, "
+                          f"randoms.multiple, the samples' depth and statistics.wp.rp_max / "
+                          f"pi_max set it); check the values")
     if force:
         notes += [f"forced past a limit: {x}" for x in limits]
     else:
@@ -155,17 +219,88 @@ def _replicas_lower_bound(L: float, chi_min: float, chi_max: float, limit: int) 
     return len(replica_offsets(np.full(3, 0.5 * L), L, chi_min, chi_max))
 
 
-def _largest_task_bytes(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None,
-                        L: float | None) -> float | None:
+def _empty_samples(cfg: RunConfig, density: dict[str | None, float], L: float,
+                   box: GalaxyBox | None, model: HODModel | None) -> list[str]:
+    """A problem per sample with no galaxy in the box (counted, or expected below one)."""
+    out = []
+    for s in cfg.samples:
+        n_box = density[s.name] * L**3
+        if s.mag_max is None or n_box >= (0.5 if box is not None else 1.0):
+            continue
+        if box is not None:
+            brightest = (f" (the box's brightest is M = {float(np.min(box.abs_mag)):.2f})"
+                         if box.abs_mag is not None and len(box) else "")
+            out.append(f"samples '{s.name}'.mag_max = {s.mag_max}: no box galaxy is "
+                       f"brighter{brightest}; check the threshold and the box's magnitude "
+                       f"column")
+        elif model is not None:
+            out.append(f"samples '{s.name}'.mag_max = {s.mag_max}: the HOD expects "
+                       f"{n_box:.2g} galaxies brighter in the {L:g} Mpc/h box (its brightest "
+                       f"threshold is {float(model.mag_limits[-1]):g}); check the threshold "
+                       f"against box.hod")
+    return out
+
+
+def _cut_volumes(cfg: RunConfig, footprint: Footprint) -> dict[str, list[float]]:
+    """Comoving volume of each sample's cuts over the footprint [(Mpc/h)³]."""
+    cosmo = cosmology_of(cfg)
+    return {s.name: [float(cosmo.shell_volume(c.z_min, c.z_max, footprint.area_deg2))
+                     for c in s.cuts] for s in cfg.samples}
+
+
+def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, float],
+              L: float) -> float:
+    """Pairs the run's estimators examine, an order-of-magnitude count.
+
+    Each galaxy (or random, or VPF sphere) meets the ``n × V`` neighbours inside its search
+    volume V: the wp cylinder (r_p,max, ±π_max) with (1 + randoms multiple)² for DD, DR and
+    RR in every cone and three line-of-sight axes in the box; the counts-in-cylinders and
+    annuli cylinders; the largest VPF sphere.  HOD boxes add two box runs per derivative.
+    Clustering raises DD above this by 1 + ξ̄, a factor of order one at these scales.
+    """
+    stats = cfg.statistics
+    measured = set(stats.measure)
+    search = 0.0  # Σ over cone estimators of the search volume [(Mpc/h)³]
+    box_search = 0.0
+    if "wp" in measured:
+        wp = stats.get("wp")
+        cyl = math.pi * wp.rp_max**2 * 2.0 * wp.pi_max
+        search += (1.0 + cfg.randoms.multiple) ** 2 * cyl
+        box_search += 3.0 * cyl
+    for name, radius in (("cic", "r_cyl"), ("annuli", "r_outer")):
+        if name in measured:
+            st = stats.get(name)
+            cyl = math.pi * getattr(st, radius) ** 2 * 2.0 * st.half_length
+            search += cyl
+            box_search += cyl
+    volumes = _cut_volumes(cfg, footprint)
+    box_runs = 1 + (2 * len(DEFAULT_STEPS) if cfg.parameter_shifts.enabled
+                    and cfg.box.source != "file" else 0)
+    total = 0.0
+    for s in cfg.samples:
+        n = density[s.name]
+        n_cone = sum(n * v for v in volumes[s.name])
+        total += cfg.cones.n_cones * n_cone * n * search
+        total += box_runs * n * L**3 * n * box_search
+        if "vpf" in measured:
+            vpf = stats.get("vpf")
+            sphere = 4.0 / 3.0 * math.pi * max(vpf.radii) ** 3
+            spheres = vpf.n_spheres * len(volumes[s.name])
+            total += (cfg.cones.n_cones + box_runs) * spheres * n * sphere
+    return total
+
+
+def _largest_task_bytes(cfg: RunConfig, footprint: Footprint,
+                        density: dict[str | None, float] | None) -> float | None:
     """Estimated peak memory of the largest task [bytes]: randoms or VPF spheres of a cone."""
     total = 0.0
     vpf = cfg.statistics.get("vpf") if "vpf" in cfg.statistics.measure else None
     if vpf is not None:
         total += float(vpf.n_spheres) * len(vpf.radii) * BYTES_PER_SPHERE_RADIUS
-    if box is not None and L is not None:
+    if density is not None:
         volume = float(cosmology_of(cfg).shell_volume(cfg.shell.z_min, cfg.shell.z_max,
                                                       footprint.area_deg2))
-        n_cone = len(box) / L**3 * volume
+        n_cone = density[None] * volume
         total += n_cone * (1.0 + cfg.randoms.multiple) * BYTES_PER_CONE_ROW
     return total or None
 
@@ -178,5 +313,5 @@ def box_size_of(cfg: RunConfig, default: float) -> float | None:
     return default if b.source == "synthetic" else None
 
 
-__all__ = ["MAX_CONES", "Preflight", "box_size_of", "machine_memory_bytes", "preflight",
-           "raise_problems"]
+__all__ = ["MAX_CONES", "MAX_CORE_HOURS", "Preflight", "box_size_of", "machine_memory_bytes",
+           "pair_work", "preflight", "raise_problems", "sample_densities"]
