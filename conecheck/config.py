@@ -374,11 +374,14 @@ class OutputConfig:
         Also write every cone and the randoms as FITS under ``<directory>/cones``.
     cache : bool
         Keep finished tasks on disk so a re-run or an interrupted run resumes.
+    html : bool
+        Also write validation.html: the report as one self-contained web page.
     """
 
     directory: str = "reports/run"
     write_cones: bool = False
     cache: bool = True
+    html: bool = True
 
 
 @dataclass(frozen=True)

@@ -21,6 +21,9 @@ def tiny_dict(one_sample: bool = True, **changes: Any) -> dict[str, Any]:
     A value of ``None`` deletes the key.
     """
     d = copy.deepcopy(demo_dict(quick=True))
+    # The HTML page redraws every figure (seconds per run); the demo and the report tests
+    # cover it, the many small runs here do not need it.
+    d.setdefault("output", {})["html"] = False
     if one_sample:
         d["samples"] = [d["samples"][0]]
         d["samples"][0]["alt_cuts"] = []

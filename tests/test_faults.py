@@ -36,6 +36,19 @@ def _config(tmp: Path, n_cones: int = 3,
 
 
 def _start(cfg: str, out: Path, extra: list[str]) -> subprocess.Popen[str]:
+    # A shell starts background jobs with SIGINT ignored, and an ignored signal stays
+    # ignored across exec; a handled one is reset to the default, under which Python turns
+    # Ctrl-C into KeyboardInterrupt as in a terminal.
+    old = signal.getsignal(signal.SIGINT)
+    if old == signal.SIG_IGN:
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        return _popen(cfg, out, extra)
+    finally:
+        signal.signal(signal.SIGINT, old)
+
+
+def _popen(cfg: str, out: Path, extra: list[str]) -> subprocess.Popen[str]:
     return subprocess.Popen([sys.executable, "-m", "conecheck.cli", "run", "-q", cfg, "-o",
                              str(out), *extra], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, start_new_session=True)

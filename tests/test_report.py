@@ -7,6 +7,7 @@ import json
 import re
 import shutil
 import subprocess
+from html.parser import HTMLParser
 from pathlib import Path
 
 import matplotlib.text
@@ -21,13 +22,18 @@ from conecheck.report import (
     build_pages,
     draw_page,
     load_results,
+    render_html,
     render_report,
     rerender,
     results_to_json,
     summary_table,
     write_statistic_tables,
 )
+from conecheck.report.access import iter_stats
+from conecheck.report.html import TEXT_KINDS
 from conecheck.report.layout import text_width, wrap
+from conecheck.report.pages_values import PER_PAGE as VALUES_PER_PAGE
+from conecheck.report.style import FOOTER_RULE, HEADER_RULE
 
 STATS = ("number_density", "wp", "cic", "vpf", "annuli")
 
@@ -51,20 +57,37 @@ def _pdf_pages(path: Path) -> int:
 
 
 def _check_figure(fig, expected_axes) -> None:
-    """Expected axes present; no text artist extends beyond the page."""
+    """Expected axes present; no text beyond the page; axes and their labels in the content.
+
+    The content area lies between the header rule and the footer rule (report/style.py).
+    """
     labels = {ax.get_label() for ax in fig.axes}
     missing = set(expected_axes) - labels
     assert not missing, f"missing axes {missing}"
     fig.canvas.draw()  # axis labels and tick labels get their positions at draw time
     renderer = fig.canvas.get_renderer()
     w, h = fig.bbox.width, fig.bbox.height
+    # Tick labels beyond an axis's view limits exist but are not drawn; the drawn ones are
+    # inside each axes' tight box, checked below.
+    ticks = {id(label) for ax in fig.axes for axis in (ax.xaxis, ax.yaxis)
+             for tick in axis.get_major_ticks() + axis.get_minor_ticks()
+             for label in (tick.label1, tick.label2)}
     for t in fig.findobj(matplotlib.text.Text):
         if not t.get_visible() or not t.get_text().strip():
+            continue
+        if id(t) in ticks:
+            assert t.get_fontsize() >= 8, f"font below 8 pt: {t.get_text()!r}"
             continue
         bb = t.get_window_extent(renderer)
         assert bb.x0 >= -1 and bb.y0 >= -1 and bb.x1 <= w + 1 and bb.y1 <= h + 1, \
             f"text off the page: {t.get_text()!r} at {bb}"
         assert t.get_fontsize() >= 8, f"font below 8 pt: {t.get_text()!r}"
+    dpi = fig.dpi
+    top, bottom = h - HEADER_RULE * dpi, FOOTER_RULE * dpi  # display y grows upwards
+    for ax in fig.axes:
+        bb = ax.get_tightbbox(renderer)
+        assert bb.y0 >= bottom - 1 and bb.y1 <= top + 1 and bb.x0 >= -1 and bb.x1 <= w + 1, \
+            f"axes {ax.get_label()!r} (with its labels) leaves the content area: {bb}"
 
 
 def test_render_report_pages(run, rendered):
@@ -73,18 +96,22 @@ def test_render_report_pages(run, rendered):
     kinds = [s.kind for s in specs]
     # 2 samples × 2 cuts → 4 statistics pages; one page each for the rest at this size.
     expected = {"summary": 1, "provenance": 1, "footprint": 1, "nz": 1,
-                "statistics": 4, "fibres": 1, "cuts": 1}
+                "statistics": 4, "values": 4 * -(-len(STATS) // VALUES_PER_PAGE),
+                "fibres": 1, "cuts": 1}
     for kind, n in expected.items():
         assert kinds.count(kind) == n, kind
     assert 1 <= kinds.count("findings") <= 3
     assert 1 <= kinds.count("rules") <= 2  # the rules text, with the parameter-shift rule
     assert kinds[0] == "summary"
+    assert 1 <= kinds.count("appendix") <= 2 and kinds[-1] == "appendix"  # the configuration
     fp = next(s for s in specs if s.kind == "footprint")
     assert set(fp.axes) >= {"footprint:completeness", "footprint:regions"}
     for s in specs:
         if s.kind == "statistics":
             assert set(s.axes) == {"number_density:histogram", "number_density:z",
                                    *(f"{n}:{k}" for n in STATS[1:] for k in ("offset", "z"))}
+    values_axes = {a for s in specs if s.kind == "values" for a in s.axes}
+    assert values_axes == {f"{n}:values" for n in STATS}
     out, n = rendered
     assert n == len(specs) == _pdf_pages(out)
 
@@ -210,14 +237,17 @@ def test_long_content_paginates(tmp_path):
     specs = build_pages(results, tmp_path)
     kinds = [s.kind for s in specs]
     assert kinds.count("summary") >= 2
-    assert kinds.count("provenance") >= 3
+    # what a referee needs stays on one page; a long configuration flows over the
+    # appendix's two columns (400 lines at about 70 per column)
+    assert kinds.count("provenance") == 1
+    assert kinds.count("appendix") >= 3
     seen: dict[str, int] = {}
     for i, spec in enumerate(specs, 1):
         seen[spec.kind] = seen.get(spec.kind, 0) + 1
         # First two and the last page of each long kind (drawing every page is slow).
         last = i == len(specs) or specs[i].kind != spec.kind
-        if spec.kind in ("summary", "provenance", "findings") and (seen[spec.kind] <= 2
-                                                                    or last):
+        long_kind = spec.kind in ("summary", "provenance", "findings", "appendix")
+        if long_kind and (seen[spec.kind] <= 2 or last):
             fig = draw_page(results, spec, i, len(specs))
             _check_figure(fig, spec.axes)
             fig.clear()
@@ -246,3 +276,81 @@ def test_pdf_pages_as_images(rendered, tmp_path):
     for p in pngs:
         img = mpimg.imread(p)
         assert img.std() > 0.01  # not blank
+
+
+# --------------------------------------------------------------------------- HTML page
+class _Page(HTMLParser):
+    """Collects what the HTML checks need (Python's own parser: a reference outside us)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.ids: set[str] = set()
+        self.links: list[str] = []
+        self.external: list[str] = []
+        self.rows: list[dict[str, str]] = []
+        self.reasons: list[str] = []
+        self.svgs = 0
+        self.selects: dict[str, list[str]] = {}
+        self._select: str | None = None
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if "id" in a:
+            self.ids.add(a["id"])
+        for key in ("href", "src"):
+            v = a.get(key)
+            if v is None:
+                continue
+            if v.startswith("#"):
+                self.links.append(v[1:])
+            elif not v.startswith("data:"):
+                self.external.append(v)
+        if tag in ("link", "iframe", "object", "embed"):
+            self.external.append(tag)
+        if tag == "tr" and "row" in (a.get("class") or "").split():
+            self.rows.append(a)
+        if tag == "tr" and a.get("class") == "reasons":
+            self.reasons.append(a.get("id", ""))
+        if tag == "svg":
+            self.svgs += 1
+        if tag == "select":
+            self._select = a.get("name")
+            self.selects[self._select] = []
+        if tag == "option" and self._select and a.get("value"):
+            self.selects[self._select].append(a["value"])
+
+    def handle_endtag(self, tag):
+        if tag == "select":
+            self._select = None
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def test_html_report_is_self_contained_and_complete(run, tmp_path):
+    run_dir, results = run
+    out = tmp_path / "validation.html"
+    n_fig = render_html(results, run_dir, out)
+    page = _Page()
+    page.feed(out.read_text(encoding="utf-8"))
+    page.close()
+    stats = list(iter_stats(results))
+    # one row per sample × cut × statistic, each with its reasons row
+    assert len(page.rows) == len(stats) == len(page.reasons)
+    assert [(r["data-sample"], r["data-cut"]) for r in page.rows] == [(s, c) for s, c, *_ in stats]
+    assert all(r["data-reasons"] in page.ids for r in page.rows)
+    # every figure of the PDF but the text pages, as inline vector graphics
+    figure_pages = [s for s in build_pages(results, run_dir) if s.kind not in TEXT_KINDS]
+    assert n_fig == len(figure_pages) == page.svgs > 0
+    # every link lands on this page; nothing is fetched from anywhere
+    assert page.links and set(page.links) <= page.ids
+    assert not page.external, page.external
+    # the filters offer exactly the values of the table
+    assert set(page.selects) == {"sample", "cut", "statistic", "verdict"}
+    assert set(page.selects["sample"]) == {s for s, *_ in stats}
+    assert set(page.selects["verdict"]) == {d["verdict"] for *_, d in stats}
+    text = " ".join(page.text)
+    first_reason = stats[0][3]["reasons"][0]
+    assert first_reason in text
+    assert "Provenance" in text and "seed" in text

@@ -47,8 +47,8 @@ def demo_run(tmp_path_factory):
 def test_quick_demo_writes_every_output(demo_run):
     out, code = demo_run
     assert code == 0
-    for name in ("results.json", "validation.pdf", "config.resolved.toml", "run.log",
-                 "jackknife_regions.npz"):
+    for name in ("results.json", "validation.pdf", "validation.html", "config.resolved.toml",
+                 "run.log", "jackknife_regions.npz"):
         assert (out / name).is_file(), name
     res = json.loads((out / "results.json").read_text())
     assert res["overall"] in ("pass", "warn", "fail")
@@ -66,6 +66,10 @@ def test_quick_demo_writes_every_output(demo_run):
     assert len(list((out / "tables").glob("*.ecsv"))) == n_stats
     assert "timing: cones" in (out / "run.log").read_text()
     assert res["provenance"]["n_cones"] == 2 and len(res["provenance"]["replicas_per_cone"]) == 2
+    # the record says where and how this run ran, not what the file said
+    assert res["provenance"]["output_dir"] == str(out)
+    assert f'directory = "{out}"' in res["provenance"]["resolved_config"]
+    assert res["provenance"]["extensions"] == []
 
 
 def test_report_rerenders_from_results(demo_run, tmp_path, capsys):

@@ -73,6 +73,13 @@ def _describe(i: int, bins: NDArray[np.float64], label: str) -> str:
     return f"bin {i} ({name} = {bins[i]:.3g}{' ' + unit if unit else ''})"
 
 
+def _correlation(cov: np.ndarray) -> np.ndarray:
+    """Correlation matrix C_ij / √(C_ii C_jj); NaN in the rows of zero-variance bins."""
+    sd = np.sqrt(np.clip(np.diag(cov), 0, None))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(np.outer(sd, sd) > 0, cov / np.outer(sd, sd), np.nan)
+
+
 def compare_statistic(box: Measurement, cones: Sequence[Measurement],
                       rules: VerdictRules | None = None, cones_independent: bool = False, *,
                       where: str = "") -> dict[str, Any]:
@@ -116,7 +123,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         that would fail), ``failing_bins``, ``noisy_bins`` (outside the error bar, not
         significant), ``real_small_bins`` (significant, inside the error bar),
         ``cones_needed`` (cones that would settle the noisy bins, None when none would),
-        ``n_cones``, ``cones_independent``.
+        ``n_cones``, ``cones_independent``, ``correlation_box`` and ``correlation_cone``
+        (p × p correlation matrices of C_box and C_cone; None where a bin has no variance).
 
     Raises
     ------
@@ -236,6 +244,8 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         "sigma_cone": sig_cone,
         "sigma_total": sig_tot,
         "cone_scatter": None if scatter is None else np.sqrt(np.clip(np.diag(scatter), 0, None)),
+        "correlation_box": _correlation(cbox),
+        "correlation_cone": _correlation(ccone),
         "cone_scatter_ratio": ratio,
         "z": z,
         # Infinite (→ null in JSON) when a bin has an offset with zero error.

@@ -216,8 +216,8 @@ def decorate(fig: Figure, title: str, page_no: int, n_pages: int, run_label: str
     pg.text(x1, 0.55, right, st.SMALL, colour=st.MUTED, ha="right")
     pg.text(x0, 0.55, shorten(title, pg.content_width - text_width(right, st.SMALL) - 0.3,
                               st.H1, bold=True), st.H1, bold=True)
-    pg.hline(x0, x1, 0.68, st.INK, 0.8)
-    pg.hline(x0, x1, pg.h - 0.42)
+    pg.hline(x0, x1, st.HEADER_RULE, st.INK, 0.8)
+    pg.hline(x0, x1, pg.h - st.FOOTER_RULE)
     pg.text(x0, pg.h - 0.25, f"conecheck {version} · box versus light-cone validation",
             st.SMALL, colour=st.MUTED)
     pg.text(x1, pg.h - 0.25, f"page {page_no} of {n_pages}", st.SMALL, colour=st.MUTED,

@@ -37,7 +37,8 @@ def _rows(results: dict[str, Any]) -> list[list[Cell]]:
     return rows
 
 
-def _answer(results: dict[str, Any]) -> str:
+def overall_answer(results: dict[str, Any]) -> str:
+    """The answer to "may I fit this?" in a sentence or two (PDF page 1 and the HTML)."""
     verdicts = [(s, c, t, d.get("verdict")) for s, c, t, d in ac.iter_stats(results)]
     n = len(verdicts)
     fails = [f"{t} ({s}, {c})" for s, c, t, v in verdicts if v == "fail"]
@@ -95,7 +96,7 @@ def _draw_head(page: Page, results: dict[str, Any]) -> None:
     width = page.w - st.MARGIN_X - tx
     page.text(tx, 1.55, "May I fit these statistics with the box?", st.H2, bold=True)
     y = 1.82
-    for line in wrap(_answer(results), width, st.BODY)[:5]:
+    for line in wrap(overall_answer(results), width, st.BODY)[:5]:
         page.text(tx, y, line, st.BODY)
         y += 0.17
     page.text(tx, 2.62, _counts(results), st.BODY, bold=True, colour=st.MUTED)

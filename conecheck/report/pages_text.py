@@ -15,15 +15,23 @@ from .pagespec import PageSpec
 _TOP = 1.0  # first line of flowing text [inch from the top]
 
 
-def _flow_pages(title: str, kind: str, blocks: list[tuple[str, ...]]) -> list[PageSpec]:
-    width = st.PAGE_W - 2 * st.MARGIN_X
+_COLUMN_GAP = 0.3  # between the columns of a two-column text page [inch]
+
+
+def _flow_pages(title: str, kind: str, blocks: list[tuple[str, ...]],
+                columns: int = 1) -> list[PageSpec]:
+    """Pages of flowing text, in one column or in ``columns`` side by side."""
+    full = st.PAGE_W - 2 * st.MARGIN_X
+    width = (full - (columns - 1) * _COLUMN_GAP) / columns
     height = st.PAGE_H - st.CONTENT_BOTTOM - _TOP - 0.1
     lines = flow_lines(blocks, width)
-    pages = paginate_flow(lines, height)
+    chunks = paginate_flow(lines, height)
+    pages = [chunks[i:i + columns] for i in range(0, len(chunks), columns)]
     specs = []
-    for i, chunk in enumerate(pages):
-        def draw(page: Page, chunk: list[FlowLine] = chunk) -> None:
-            draw_flow(page, chunk, _TOP)
+    for i, group in enumerate(pages):
+        def draw(page: Page, group: list[list[FlowLine]] = group) -> None:
+            for j, chunk in enumerate(group):
+                draw_flow(page, chunk, _TOP, left=st.MARGIN_X + j * (width + _COLUMN_GAP))
         specs.append(PageSpec(title if i == 0 else f"{title} (continued)", kind, draw))
     return specs
 
@@ -129,8 +137,21 @@ def _duration(seconds: Any) -> str:
     return f"{s / 3600:.2f} h"
 
 
+def _replicas(reps: list[Any]) -> str:
+    nums = [int(r) for r in reps if isinstance(r, (int, float))]
+    if not nums:
+        return "not recorded"
+    return (f"{min(nums)}–{max(nums)} per cone (mean {sum(nums) / len(nums):.1f}, "
+            f"{len(nums)} cones)")
+
+
 def provenance_pages(results: dict[str, Any]) -> list[PageSpec]:
-    """Configuration, input hashes, versions, seeds, date, cones, timings."""
+    """What a referee needs to repeat the run, on one page; the configuration is appended.
+
+    Command, output directory, extensions, versions, input hashes, seeds, cones, replicas
+    and timings; the resolved configuration is the report's last pages
+    (:func:`config_appendix_pages`).
+    """
     prov = results.get("provenance")
     blocks: list[tuple[str, ...]] = []
     if not isinstance(prov, dict) or not prov:
@@ -139,42 +160,44 @@ def provenance_pages(results: dict[str, Any]) -> list[PageSpec]:
                                "are unknown."))
         return _flow_pages("Provenance", "provenance", blocks)
     blocks.append(("h2", "Run"))
-    run = {"date": prov.get("date", "not recorded"),
+    ext = prov.get("extensions")
+    run = {"command": prov.get("command") or "not recorded",
+           "output directory": prov.get("output_dir", "not recorded"),
+           "date": prov.get("date", "not recorded"),
            "conecheck version": results.get("conecheck_version", "not recorded"),
-           "configuration hash": results.get("config_hash", "not recorded"),
-           "configuration file": prov.get("config_path", "not recorded"),
+           "configuration": f"{prov.get('config_path', 'not recorded')} (hash "
+                            f"{str(results.get('config_hash', 'not recorded'))[:16]}; resolved "
+                            f"in the appendix and in config.resolved.toml)",
+           "extensions run": (", ".join(ext) or "none") if isinstance(ext, list)
+           else "not recorded",
            "light cones": prov.get("n_cones", "not recorded")}
     reps = prov.get("replicas_per_cone")
     if isinstance(reps, list) and reps:
-        run["box replicas per cone"] = (", ".join(str(r) for r in reps[:40])
-                                        + (" …" if len(reps) > 40 else ""))
+        run["box replicas"] = _replicas(reps)
     run["cones independent"] = ("yes (stated by the user)" if prov.get("cones_independent")
                                 else "no (cut from one box; they share its structure)")
     blocks.extend(_kv(run))
-    if prov.get("independence_note"):
-        blocks.append(("body", str(prov["independence_note"])))
     if isinstance(prov.get("box"), dict) and prov["box"]:
         blocks.append(("h2", "The box"))
-        blocks.extend(_kv(prov["box"]))
+        blocks.append(("mono", " · ".join(f"{k} {_short(v)}" for k, v in prov["box"].items())))
     if isinstance(prov.get("seeds"), dict) and prov["seeds"]:
         blocks.append(("h2", "Random seeds"))
-        blocks.extend(_kv(prov["seeds"]))
+        blocks.append(("mono", " · ".join(f"{k} {v}" for k, v in prov["seeds"].items())))
     timings = prov.get("timings")
     if isinstance(timings, dict) and timings:
         blocks.append(("h2", "Stage timings"))
-        blocks.extend(("mono", f"{k}: {_duration(v)}") for k, v in timings.items())
+        parts = [f"{k} {_duration(v)}" for k, v in timings.items()]
         if not any(str(k).startswith("total") for k in timings):  # a run records its own
             try:
-                total = sum(float(v) for v in timings.values())
-                blocks.append(("mono", f"total: {_duration(total)}"))
+                parts.append(f"total {_duration(sum(float(v) for v in timings.values()))}")
             except (TypeError, ValueError):
                 pass
+        blocks.append(("mono", " · ".join(parts)))
     files = prov.get("input_files")
     blocks.append(("h2", "Input files (SHA-256)"))
     if isinstance(files, dict) and files:
         for path, digest in files.items():
-            blocks.append(("mono", str(path)))
-            blocks.append(("mono", f"    {digest}"))
+            blocks.append(("mono", f"{digest}  {path}"))
     else:
         blocks.append(("muted", "none recorded"))
     versions = prov.get("versions")
@@ -183,9 +206,24 @@ def provenance_pages(results: dict[str, Any]) -> list[PageSpec]:
         blocks.append(("mono", " · ".join(f"{k} {v}" for k, v in versions.items())))
     else:
         blocks.append(("muted", "none recorded"))
-    blocks.append(("h2", "Configuration"))
-    if prov.get("config_text"):
-        blocks.append(("mono", str(prov["config_text"]).rstrip("\n")))
-    else:
-        blocks.append(("muted", "configuration text not recorded"))
+    if prov.get("independence_note"):
+        blocks.append(("h2", "Independence of the cones"))
+        blocks.append(("muted", str(prov["independence_note"])))
     return _flow_pages("Provenance", "provenance", blocks)
+
+
+def _short(v: Any) -> str:
+    return f"{v:.4g}" if isinstance(v, float) else str(v)
+
+
+def config_appendix_pages(results: dict[str, Any]) -> list[PageSpec]:
+    """Appendix: the run's resolved configuration (every default filled in), two columns."""
+    prov = results.get("provenance") if isinstance(results.get("provenance"), dict) else {}
+    text = prov.get("resolved_config") or prov.get("config_text")
+    if not text:
+        return []
+    label = ("every default filled in" if prov.get("resolved_config")
+             else "the configuration file as given")
+    blocks: list[tuple[str, ...]] = [("muted", f"The configuration of this run, {label}.")]
+    blocks += [("mono", line) for line in str(text).rstrip("\n").splitlines()]
+    return _flow_pages("Appendix: configuration", "appendix", blocks, columns=2)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import logging
 import os
+from pathlib import Path
 from typing import Any
 
 from matplotlib.backends.backend_pdf import PdfPages
@@ -28,8 +29,10 @@ from .pages_nz import nz_pages
 from .pages_shifts import shift_pages
 from .pages_statistics import statistics_pages
 from .pages_summary import summary_pages
-from .pages_text import findings_pages, provenance_pages, rules_pages
+from .pages_text import config_appendix_pages, findings_pages, provenance_pages, rules_pages
+from .pages_values import values_pages
 from .pagespec import PageSpec
+from .results_io import load_results
 from .style import report_style
 
 log = logging.getLogger(__name__)
@@ -49,9 +52,11 @@ def build_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | None 
     with report_style():
         return (summary_pages(results) + findings_pages(results) + rules_pages(results)
                 + provenance_pages(results) + footprint_pages(results, run_dir)
-                + nz_pages(results) + statistics_pages(results) + shift_pages(results)
+                + nz_pages(results) + statistics_pages(results) + values_pages(results)
+                + shift_pages(results)
                 + fibre_pages(results)
-                + cut_pages(results) + attribution_pages(results))
+                + cut_pages(results) + attribution_pages(results)
+                + config_appendix_pages(results))
 
 
 def _run_label(results: dict[str, Any]) -> str:
@@ -73,7 +78,7 @@ def draw_page(results: dict[str, Any], spec: PageSpec, page_no: int, n_pages: in
 
 
 def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
-                  out_pdf: str | os.PathLike[str]) -> int:
+                  out_pdf: str | os.PathLike[str], pages: list[PageSpec] | None = None) -> int:
     """Write the PDF report atomically; returns the number of pages.
 
     Parameters
@@ -85,8 +90,10 @@ def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | Non
         against it.
     out_pdf : path
         Output PDF file.
+    pages : list of PageSpec, optional
+        The planned pages (planned here when omitted).
     """
-    specs = build_pages(results, run_dir)
+    specs = pages if pages is not None else build_pages(results, run_dir)
     n = len(specs)
     with atomic_path(out_pdf) as tmp, PdfPages(tmp, metadata={
             "Title": "conecheck validation report",
@@ -115,10 +122,6 @@ def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | 
     -------
     (results, page count)
     """
-    from pathlib import Path
-
-    from .results_io import load_results
-
     run_dir = Path(run_dir)
     results = load_results(run_dir / results_name)
     n = render_report(results, run_dir, out_pdf if out_pdf is not None

@@ -93,6 +93,8 @@ OPTIONAL_SECTIONS = ("provenance", "footprint", "verdict_rules", "ladder", "corr
                      "cuts")
 #: Per-bin arrays of a statistic (numbers, or null for a missing value), one per bin.
 _BIN_ARRAYS = ("box", "cone_mean", "sigma_box", "sigma_cone", "sigma_total", "z")
+#: Bin-by-bin matrices of a statistic (optional).
+_MATRICES = ("correlation_box", "correlation_cone")
 #: Scalars of a statistic (a number or null).
 _SCALARS = ("max_abs_z", "chi2", "dof", "p_value")
 
@@ -121,6 +123,15 @@ def _statistic_type_problems(d: dict[str, Any], where: str) -> list[str]:
         out.append(f"{where}.cones: expected a list of lists of numbers (one per cone)")
     elif n is not None and any(len(c) != n for c in cones):
         out.append(f"{where}.cones: every cone needs {n} values, one per bin")
+    for k in _MATRICES:  # optional: older results carry none
+        m = d.get(k)
+        if m is None:
+            continue
+        if not (isinstance(m, list) and all(isinstance(r, list) and all(_is_number(x) for x in r)
+                                            for r in m)):
+            out.append(f"{where}.{k}: expected a matrix (list of lists of numbers)")
+        elif n is not None and (len(m) != n or any(len(r) != n for r in m)):
+            out.append(f"{where}.{k}: expected {n} × {n} values, one row per bin")
     for k in _SCALARS:
         if not _is_number(d[k]):
             out.append(f"{where}.{k}: expected a number or null, got {d[k]!r}")

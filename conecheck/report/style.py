@@ -21,6 +21,9 @@ from matplotlib.colors import LinearSegmentedColormap, to_rgba  # noqa: E402
 PAGE_W, PAGE_H = 8.27, 11.69
 #: Page margins [inch]: left/right, top of the content (below the header), bottom.
 MARGIN_X, CONTENT_TOP, CONTENT_BOTTOM = 0.6, 0.95, 0.6
+#: The header rule [inch from the top] and the footer rule [inch from the bottom]: nothing
+#: but the header and footer lies outside them.
+HEADER_RULE, FOOTER_RULE = 0.68, 0.42
 
 FONT = "DejaVu Sans"
 MONO = "DejaVu Sans Mono"
@@ -47,6 +50,9 @@ UNKNOWN_COLOUR, UNKNOWN_TINT = "#7a7f87", "#e6e7ea"
 #: Completeness 0 → 1 from paper to harbour blue.
 COMPLETENESS_CMAP = LinearSegmentedColormap.from_list(
     "conecheck_completeness", ["#f6f1e7", "#9cc0c9", "#3f7f98", BOX])
+#: Correlation −1 → 0 → 1 from harbour blue through paper to rust.
+CORRELATION_CMAP = LinearSegmentedColormap.from_list(
+    "conecheck_correlation", [BOX, "#f6f1e7", CONE])
 #: Qualitative cycle for jackknife regions (muted, mutually distinct).
 REGION_CYCLE = ("#5b8bb2", "#d08c60", "#7fa672", "#b46f8f", "#c9b458", "#6aa3a0",
                 "#9d7fba", "#c46a5a", "#8c9a5b", "#5f7fa8", "#d3a06a", "#7c8f99")

@@ -27,7 +27,14 @@ from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
 from ..config import RunConfig, config_warnings, resolved_toml
 from ..errors import InputError
-from ..report import render_report, results_to_json, summary_table, write_statistic_tables
+from ..report import (
+    build_pages,
+    render_html,
+    render_report,
+    results_to_json,
+    summary_table,
+    write_statistic_tables,
+)
 from .cache import TaskCache
 from .execute import make_executor
 from .inputs import cosmology_of
@@ -186,7 +193,15 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         if n_partial:
             log.info("removed %d partly written file(s) left by an interrupted run in %s",
                      n_partial, run_dir)
-        write_text_atomic(run_dir / "config.resolved.toml", resolved_toml(cfg))
+        # The configuration as this run used it: the command line's directory, scheduler
+        # and workers replace the file's, so the record says where and how it ran.
+        as_run = dataclasses.replace(
+            cfg, output=dataclasses.replace(cfg.output, directory=str(run_dir)),
+            compute=dataclasses.replace(
+                cfg.compute, scheduler=scheduler or cfg.compute.scheduler,
+                workers=workers if workers is not None else cfg.compute.workers))
+        resolved = resolved_toml(as_run)
+        write_text_atomic(run_dir / "config.resolved.toml", resolved)
         cache = TaskCache(run_dir / "cache", enabled=not fresh) if cfg.output.cache else None
         prog = Progress(enabled=progress)
         executor = make_executor(scheduler or cfg.compute.scheduler,
@@ -203,7 +218,7 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             randoms, rkeys = randoms_stage(inp, box)
             cones = cone_stage(inp, randoms, rkeys)
             t0 = time.perf_counter()
-            results = _results(inp, run_dir, config_path)
+            results = _results(inp, run_dir, config_path, resolved)
             results["samples"] = compare_all(inp, box, cones, derivatives)
             rollup_verdicts(results)
             inp.timings["compare"] = time.perf_counter() - t0
@@ -211,6 +226,8 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
                 ext(inp, {"box": box, "randoms": randoms, "randoms_keys": rkeys,
                           "cones": cones}, results)
             rollup_verdicts(results)
+            results["provenance"]["extensions"] = [k for k in ("ladder", "corrections", "cuts")
+                                                   if k in results]
             results["provenance"]["replicas_per_cone"] = [c["info"].get("n_replicas", 0)
                                                           for c in cones]
         t0 = time.perf_counter()
@@ -218,6 +235,7 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         # its PDF is written, there is no PDF (`conecheck report DIR` renders it) rather
         # than one that contradicts results.json.
         (run_dir / "validation.pdf").unlink(missing_ok=True)
+        (run_dir / "validation.html").unlink(missing_ok=True)
         results_to_json(results, run_dir / "results.json")
         write_statistic_tables(results, run_dir / "tables")
         inp.timings["tables"] = time.perf_counter() - t0
@@ -226,8 +244,13 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         if cache is not None:
             results["provenance"]["cache"] = dict(cache.stats)
         t0 = time.perf_counter()
-        n_pages = render_report(results, run_dir, run_dir / "validation.pdf")
+        pages = build_pages(results, run_dir)
+        n_pages = render_report(results, run_dir, run_dir / "validation.pdf", pages)
         inp.timings["pdf"] = time.perf_counter() - t0
+        if cfg.output.html:
+            t0 = time.perf_counter()
+            render_html(results, run_dir, run_dir / "validation.html", pages)
+            inp.timings["html"] = time.perf_counter() - t0
         inp.timings["total"] = time.perf_counter() - t_start
         # results.json keeps the complete timings (the PDF cannot contain its own)
         results["provenance"]["timings"] = dict(inp.timings)
@@ -274,7 +297,8 @@ def _shifts(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, Any]],
     return out
 
 
-def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None) -> dict[str, Any]:
+def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None,
+             resolved: str) -> dict[str, Any]:
     cfg = inp.cfg
     text = Path(config_path).read_text(encoding="utf-8") if config_path else resolved_toml(cfg)
     mask = cfg.resolve_path(cfg.survey.mask) if cfg.effects.footprint else None
@@ -283,6 +307,7 @@ def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None) -> d
         "samples": {},
         "provenance": {
             "config_text": text, "config_path": str(config_path or cfg.source),
+            "resolved_config": resolved, "output_dir": str(run_dir),
             "input_files": inp.hashes, "versions": _versions(),
             "seeds": {"run": cfg.seed}, "date": _dt.datetime.now().isoformat(timespec="seconds"),
             "command": " ".join(sys.argv[:1] + sys.argv[1:]) if sys.argv else "",
