@@ -39,10 +39,31 @@ SUBCOMMANDS: dict[str, tuple[str, str]] = {
 log = logging.getLogger("conecheck")
 
 
+class _OncePerRun(logging.Filter):
+    """Let each distinct warning reach the terminal once per command (run.log keeps all).
+
+    The same remark can come from every stage, rung or sample that meets its cause.
+    """
+
+    def __init__(self) -> None:
+        super().__init__()
+        self._seen: set[tuple[int, str]] = set()
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        if record.levelno < logging.WARNING:
+            return True
+        key = (record.levelno, record.getMessage())
+        if key in self._seen:
+            return False
+        self._seen.add(key)
+        return True
+
+
 def _configure_logging(verbosity: int) -> None:
     level = {-1: logging.WARNING, 0: logging.INFO}.get(verbosity, logging.DEBUG)
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("%(levelname)s: %(message)s"))
+    handler.addFilter(_OncePerRun())
     # The terminal's level belongs to the handler: a run lowers the logger's level to INFO
     # for its run.log, which must not make -q chatty.
     handler.setLevel(level)

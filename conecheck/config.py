@@ -903,9 +903,18 @@ def n_bins(name: str, settings: Any) -> int:
     return len(settings.edges) - 1
 
 
+#: Randoms per galaxy below which the 2-point statistics carry noticeable random shot noise
+#: (common practice: 10-50 per galaxy for Landy–Szalay estimates).
+RECOMMENDED_RANDOMS_MULTIPLE = 10
+
+
 def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
     """Problems that involve several sections; returns warnings."""
     warnings = []
+    if cfg.randoms.multiple < RECOMMENDED_RANDOMS_MULTIPLE:
+        warnings.append(f"randoms.multiple = {cfg.randoms.multiple:g}: fewer than "
+                        f"{RECOMMENDED_RANDOMS_MULTIPLE} randoms per galaxy adds noticeable "
+                        f"shot noise to 2-point statistics; raise it for a final run")
     shell = cfg.shell
     for i, s in enumerate(cfg.samples):
         for cut in s.cuts:

@@ -274,3 +274,6 @@ def test_quiet_prints_no_info_lines(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "INFO:" not in err
     assert "INFO" in (tmp_path / "run" / "run.log").read_text()
+    # every warning reaches the terminal once however many stages meet its cause
+    warnings = [ln for ln in err.splitlines() if ln.startswith("WARNING:")]
+    assert len(warnings) == len(set(warnings)), err

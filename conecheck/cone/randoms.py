@@ -22,9 +22,6 @@ log = logging.getLogger(__name__)
 
 def n_randoms(n_data: float, multiple: float) -> int:
     """Number of randoms for ``n_data`` (weighted) galaxies at ``multiple`` per galaxy."""
-    if multiple < 10:
-        log.warning("randoms.multiple = %g: fewer than 10 randoms per galaxy adds noticeable "
-                    "shot noise to 2-point statistics", multiple)
     return max(1, int(round(n_data * multiple)))
 
 
