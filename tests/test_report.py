@@ -354,3 +354,37 @@ def test_html_report_is_self_contained_and_complete(run, tmp_path):
     first_reason = stats[0][3]["reasons"][0]
     assert first_reason in text
     assert "Provenance" in text and "seed" in text
+
+
+def test_single_cut_samples_get_a_line_not_a_block(run):
+    run_dir, results = run
+    results = copy.deepcopy(results)
+    bright = results["samples"]["bright"]["cuts"]
+    for cname in list(bright)[1:]:
+        del bright[cname]
+    cut_specs = [s for s in build_pages(results, run_dir) if s.kind == "cuts"]
+    assert len(cut_specs) == 1 and cut_specs[0].axes == ("cuts:faint",)
+    fig = draw_page(results, cut_specs[0], 1, 1)
+    texts = [t.get_text() for t in fig.findobj(matplotlib.text.Text)]
+    assert any("One redshift cut only, nothing to compare: bright." in t for t in texts)
+    for sample in results["samples"].values():  # no sample with two cuts: no page
+        for cname in list(sample["cuts"])[1:]:
+            del sample["cuts"][cname]
+    assert not [s for s in build_pages(results, run_dir) if s.kind == "cuts"]
+
+
+def test_fibre_fractions_shared_by_every_sample_are_drawn_once(run):
+    run_dir, results = run
+    fibre = [s for s in build_pages(results, run_dir) if s.kind == "fibres"]
+    assert [a for s in fibre for a in s.axes] == ["fibres:bright", "fibres:faint"]
+    results = copy.deepcopy(results)
+    results["samples"]["faint"]["fibres"]["collided_fraction"] = \
+        results["samples"]["bright"]["fibres"]["collided_fraction"]
+    results["samples"]["faint"]["fibres"]["recovered_fraction"] = \
+        results["samples"]["bright"]["fibres"]["recovered_fraction"]
+    fibre = [s for s in build_pages(results, run_dir) if s.kind == "fibres"]
+    assert [a for s in fibre for a in s.axes] == ["fibres:bright"]
+    fig = draw_page(results, fibre[0], 1, 1)
+    _check_figure(fig, fibre[0].axes)
+    assert any("all samples (bright, faint)" in t.get_text()
+               for t in fig.findobj(matplotlib.text.Text))

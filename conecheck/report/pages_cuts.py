@@ -96,20 +96,31 @@ def cut_pages(results: dict[str, Any]) -> list[PageSpec]:
     rules = results.get("verdict_rules") or {}
     z_fail = ac.as_float(rules.get("z_fail", 1.0))
     z_fail = z_fail if np.isfinite(z_fail) and z_fail > 0 else 1.0
-    names = list(ac.samples(results))
+    samples = ac.samples(results)
+    # A sample with one cut has nothing to compare: one line, not a block of the page.
+    single = [s for s in samples if len(ac.cuts(samples[s])) < 2]
+    names = [s for s in samples if s not in single]
+    if not names:
+        if not samples:
+            return [PageSpec("Redshift cuts compared", "cuts",
+                             lambda page: page.text(st.MARGIN_X, 1.3,
+                                                    "No samples in these results.", st.BODY))]
+        return []  # nothing to compare anywhere: no page at all
+    note = (f"One redshift cut only, nothing to compare: {', '.join(single)}."
+            if single else "")
     specs = []
-    for i in range(0, max(len(names), 1), PER_PAGE):
+    for i in range(0, len(names), PER_PAGE):
         chunk = names[i:i + PER_PAGE]
-        axes = tuple(f"cuts:{s}" for s in chunk if len(ac.cuts(ac.samples(results)[s])) >= 2)
+        axes = tuple(f"cuts:{s}" for s in chunk)
 
-        def draw(page: Page, chunk=chunk) -> None:
-            if not chunk:
-                page.text(st.MARGIN_X, 1.3, "No samples in these results.", st.BODY)
+        def draw(page: Page, chunk=chunk, note=note if i == 0 else "") -> None:
             top = 1.0
+            if note:
+                page.text(st.MARGIN_X, top, note, st.SMALL, colour=st.MUTED)
+                top += 0.2
             block = (page.h - st.CONTENT_BOTTOM - top) / PER_PAGE
             for j, s in enumerate(chunk):
-                _draw_sample(page, top + j * block, block - 0.25, s, ac.samples(results)[s],
-                             z_fail)
+                _draw_sample(page, top + j * block, block - 0.25, s, samples[s], z_fail)
 
         specs.append(PageSpec("Redshift cuts compared", "cuts", draw, axes))
     return specs

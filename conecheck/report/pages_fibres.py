@@ -50,10 +50,24 @@ def _has_fractions(fib: Any) -> bool:
     return ac.arr(fib, "collided_fraction").size > 0 or ac.arr(fib, "recovered_fraction").size > 0
 
 
-def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any]
-                 ) -> None:
+def _same_fractions(fibs: list[Any]) -> bool:
+    """True when every sample records the same per-cone fractions (collisions act on the
+    whole target list, before any sample is selected, so they usually do)."""
+    recs = [(tuple(ac.arr(f, "collided_fraction")), tuple(ac.arr(f, "recovered_fraction")))
+            for f in fibs if _has_fractions(f)]
+    return len(recs) == len(fibs) > 1 and all(r == recs[0] for r in recs)
+
+
+def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any],
+                 others: tuple[tuple[str, dict[str, Any]], ...] = ()) -> None:
+    """One block: the per-cone fractions and the correction's record.
+
+    ``others`` are further samples with the same fractions: one plot serves them all and
+    each adds only its own lines (correction, effect without it).
+    """
     x0, w = st.MARGIN_X, page.content_width
-    page.text(x0, top + 0.2, shorten(sname, w, st.H2, bold=True), st.H2, bold=True)
+    title = sname if not others else f"all samples ({', '.join([sname, *(o for o, _ in others)])})"
+    page.text(x0, top + 0.2, shorten(title, w, st.H2, bold=True), st.H2, bold=True)
     fib = sample.get("fibres")
     if not isinstance(fib, dict) or not fib:
         page.text(x0, top + 0.5, "No fibre-collision emulation recorded for this sample.",
@@ -82,7 +96,12 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     else:
         text_x = x0
     tw = page.w - st.MARGIN_X - text_x
-    lines = [f"correction: {fib.get('correction', 'not recorded')}"]
+    lines = []
+    if others:
+        lines.append("Collisions act on the whole target list, before samples are selected: "
+                     "the fractions are the same for every sample.")
+        lines.append("")
+    lines.append(f"correction: {fib.get('correction', 'not recorded')}")
     if coll.size:
         lines.append(f"collided: {ac.fmt_pct(np.nanmean(coll))} mean, "
                      f"{ac.fmt_pct(np.nanmin(coll))}–{ac.fmt_pct(np.nanmax(coll))} over "
@@ -90,11 +109,13 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     if rec.size:
         lines.append(f"recovered in tile overlaps: {ac.fmt_pct(np.nanmean(rec))} of the "
                      f"collided targets (mean)")
-    eff = _effect_lines(fib.get("uncorrected_effect"))
-    if eff:
-        lines.append("")
-        lines.append("without the correction:")
-        lines.extend(f"  {e}" for e in eff)
+    for name, other in ((sname, fib), *((o, d.get("fibres") or {}) for o, d in others)):
+        eff = _effect_lines(other.get("uncorrected_effect"))
+        if eff:
+            lines.append("")
+            lines.append(f"{name} without the correction:" if others
+                         else "without the correction:")
+            lines.extend(f"  {e}" for e in eff)
     y = top + 0.55
     bottom = top + height - 0.1
     for text in lines:
@@ -108,7 +129,16 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
 
 def fibre_pages(results: dict[str, Any]) -> list[PageSpec]:
     """Fibre-collision diagnostics, up to three samples per page."""
-    names = list(ac.samples(results))
+    samples = ac.samples(results)
+    names = list(samples)
+    if _same_fractions([samples[n].get("fibres") for n in names]):
+        first, rest = names[0], tuple((n, samples[n]) for n in names[1:])
+
+        def draw_shared(page: Page) -> None:
+            _draw_sample(page, 1.0, (page.h - st.CONTENT_BOTTOM - 1.0) / PER_PAGE - 0.2,
+                         first, samples[first], rest)
+
+        return [PageSpec("Fibre collisions", "fibres", draw_shared, (f"fibres:{first}",))]
     specs = []
     for i in range(0, max(len(names), 1), PER_PAGE):
         chunk = names[i:i + PER_PAGE]
