@@ -579,3 +579,36 @@ def test_default_ladder_uses_the_cap_and_stays_consistent(tmp_path):
     skies = [r["sky"] for r in rungs]
     assert skies[0] == "equal-area cap" and skies[-1] == "survey footprint"
     assert "error" not in res["ladder"]
+
+
+def test_an_unmeasurable_sweep_cut_is_skipped_with_its_reason(tmp_path, monkeypatch):
+    """One cut the cones cannot measure leaves the sweep finishing without it.
+
+    The failure is planted (an InputError such as an empty jackknife region in a thin
+    automatic cut) so that the test does not hang on one geometry.
+    """
+    from conecheck.run import tasks
+
+    thin = grid_label(0.02, 0.03)
+    real = tasks.measure_cone_cut
+
+    def measure(cfg, table, footprint, regions, sample, cut, *args, **kw):
+        if cut.label == thin:
+            raise InputError("jackknife: 1 of 9 regions hold no galaxies (planted)")
+        return real(cfg, table, footprint, regions, sample, cut, *args, **kw)
+
+    monkeypatch.setattr(tasks, "measure_cone_cut", measure)
+    d = _small()
+    d["statistics"] = {"measure": ["number_density"]}
+    d["cones"]["n_cones"] = 2
+    d["cut_sweep"] = {"z_max": [0.03, 0.035]}
+    path = tmp_path / "c.toml"
+    path.write_text(tomli_w.dumps(d), encoding="utf-8")
+    code = cli_main(["run", str(path), "-o", str(tmp_path / "run"), "-q"])
+    assert code in (0, 1)  # the sweep completed: not the code of an incomplete run
+    results = json.loads((tmp_path / "run" / "results.json").read_text(encoding="utf-8"))
+    sweep = results["cuts"]["samples"]["broad"]
+    assert "error" not in results["cuts"]
+    assert set(sweep["skipped"]) == {thin} and "planted" in sweep["skipped"][thin]
+    assert thin not in sweep["cuts"] and grid_label(0.02, 0.035) in sweep["cuts"]
+    assert thin not in sweep["order"]

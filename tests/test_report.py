@@ -388,3 +388,15 @@ def test_fibre_fractions_shared_by_every_sample_are_drawn_once(run):
     _check_figure(fig, fibre[0].axes)
     assert any("all samples (bright, faint)" in t.get_text()
                for t in fig.findobj(matplotlib.text.Text))
+
+
+def test_statistics_with_many_bins_get_a_whole_row_on_attribution_pages():
+    from conecheck.report.pages_attribution import WIDE_BINS, _pack
+
+    wide = WIDE_BINS + 1
+    pages = _pack(["number_density", "wp", "cic", "vpf"],
+                  {"number_density": 1, "wp": wide, "cic": 6, "vpf": 3})
+    assert pages == [[("number_density", 0, 1), ("wp", 2, 2), ("cic", 1, 1), ("vpf", 4, 1)]]
+    # three wide statistics: two rows on the first page (the third row keeps the key)
+    pages = _pack(["a", "b", "c"], {"a": wide, "b": wide + 6, "c": wide})
+    assert pages == [[("a", 0, 2), ("b", 2, 2)], [("c", 0, 2)]]

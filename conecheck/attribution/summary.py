@@ -55,8 +55,10 @@ def _cut_lines(section: dict[str, Any]) -> list[str]:
         elif s.get("widest_not_failing"):
             lines.append(f"  {sname}: no cut passes; widest cut not failing "
                          f"{rng(s['widest_not_failing'])}")
-        else:
+        elif cuts:
             lines.append(f"  {sname}: every cut fails")
+        for label, reason in (s.get("skipped") or {}).items():
+            lines.append(f"  {sname}: cut {label} skipped ({reason})")
     return lines
 
 

@@ -99,6 +99,17 @@ def _widest(cuts: dict[str, Any], ok: tuple[str, ...]) -> str | None:
     return max(good)[1] if good else None
 
 
+def _without(cones: list[dict[str, Any]], skipped: dict[tuple[str, str], str]
+             ) -> list[dict[str, Any]]:
+    """The cones' records without the skipped (sample, cut) pieces."""
+    out = []
+    for cone in cones:
+        keep = {k: {s: {c: v for c, v in cuts.items() if (s, c) not in skipped}
+                    for s, cuts in cone[k].items()} for k in ("measurements", "nz")}
+        out.append({**cone, **keep})
+    return out
+
+
 def run_sweep(variants: ConeVariants) -> dict[str, Any]:
     """The ``cuts`` section of results.json."""
     cfg = variants.cfg
@@ -107,11 +118,29 @@ def run_sweep(variants: ConeVariants) -> dict[str, Any]:
     pieces: list[Piece] = [(by_name[n], c.cut) for n, cs in plan.items() for c in cs]
     log.info("cut sweep: %d cuts over %d samples (%d new)", len(pieces), len(plan),
              sum(c.source == "sweep" for cs in plan.values() for c in cs))
-    cones = variants.measure(main_variant(cfg), pieces, stage="cut sweep")
-    tree = compare_variant(cfg, variants.box, cones, pieces, what="cut sweep")
+    cones = variants.measure(main_variant(cfg), pieces, stage="cut sweep",
+                             skip_unmeasurable=True)
+    # A cut some cone cannot measure (an automatic cut too thin for the jackknife regions,
+    # say) is left out with its reason; the sweep goes on with the others.
+    skipped: dict[tuple[str, str], str] = {}
+    for i, cone in enumerate(cones):
+        for sname, cuts in cone.get("skipped", {}).items():
+            for label, reason in cuts.items():
+                skipped.setdefault((sname, label), f"cone {i}: {reason}")
+    for (sname, label), reason in skipped.items():
+        log.warning("cut sweep: sample %s, cut %s skipped: %s", sname, label, reason)
+    measured = [(s, c) for s, c in pieces if (s.name, c.label) not in skipped]
+    if measured:
+        tree = compare_variant(cfg, variants.box, _without(cones, skipped), measured,
+                               what="cut sweep")
+    else:
+        tree = {"samples": {}, "overall": "warn"}
     samples: dict[str, Any] = {}
-    for name, cs in plan.items():
-        entry = tree["samples"][name]
+    for name, all_cuts in plan.items():
+        cs = [c for c in all_cuts if (name, c.cut.label) not in skipped]
+        entry = tree["samples"].get(name, {"cuts": {}})
+        entry["skipped"] = {c.cut.label: skipped[(name, c.cut.label)] for c in all_cuts
+                            if (name, c.cut.label) in skipped}
         for c in cs:
             rec = entry["cuts"][c.cut.label]
             stats = rec["statistics"]

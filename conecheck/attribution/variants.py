@@ -165,26 +165,33 @@ class ConeVariants:
     # ----------------------------------------------------------------- cones
     def _merge(self, variant: Variant, cones: list[dict[str, Any]]) -> None:
         store = self._cones.setdefault(variant.key, [
-            {"measurements": {}, "nz": {}, "info": {}} for _ in range(len(cones))])
+            {"measurements": {}, "nz": {}, "info": {}, "skipped": {}}
+            for _ in range(len(cones))])
         for mine, new in zip(store, cones, strict=True):
             for sname, cuts in new["measurements"].items():
                 mine["measurements"].setdefault(sname, {}).update(cuts)
                 mine["nz"].setdefault(sname, {}).update(new["nz"][sname])
+            for sname, cuts in new.get("skipped", {}).items():
+                mine["skipped"].setdefault(sname, {}).update(cuts)
             mine["info"] = new["info"] or mine["info"]
 
     def _has(self, variant: Variant, s: SampleConfig, cut: SampleCut) -> bool:
         store = self._cones.get(variant.key)
         return store is not None and cut.label in store[0]["measurements"].get(s.name, {})
 
-    def measure(self, variant: Variant, pieces: Sequence[Piece], stage: str
-                ) -> list[dict[str, Any]]:
+    def measure(self, variant: Variant, pieces: Sequence[Piece], stage: str,
+                skip_unmeasurable: bool = False) -> list[dict[str, Any]]:
         """Every cone of ``variant`` measured on ``pieces``.
+
+        ``skip_unmeasurable``: a cut a cone cannot measure is recorded under ``skipped``
+        instead of failing the stage.
 
         Returns
         -------
         list of dict
             Per cone, as :func:`conecheck.run.pipeline.cone_stage`: ``measurements``
-            (sample → cut → statistic → Measurement), ``nz`` and ``info``.
+            (sample → cut → statistic → Measurement, None where skipped), ``nz``, ``info``
+            and ``skipped`` (sample → cut → reason).
         """
         missing = [(s, c) for s, c in pieces if not self._has(variant, s, c)]
         if missing:
@@ -193,7 +200,7 @@ class ConeVariants:
             sub = dataclasses.replace(geo, cfg=config_for(self.cfg, missing))
             cones = cone_stage(sub, randoms, rkeys, effects=self.build_effects(variant),
                                correction=CorrectionSettings(variant.correction_applied),
-                               stage=stage)
+                               stage=stage, skip_unmeasurable=skip_unmeasurable)
             self._merge(variant, cones)
         store = self._cones[variant.key]
         return [{"measurements": {s.name: {c.label: cone["measurements"][s.name][c.label]
@@ -201,7 +208,11 @@ class ConeVariants:
                                   for s, _ in pieces},
                  "nz": {s.name: {c.label: cone["nz"][s.name][c.label]
                                  for s2, c in pieces if s2.name == s.name} for s, _ in pieces},
-                 "info": cone["info"]} for cone in store]
+                 "info": cone["info"],
+                 "skipped": {s.name: {c.label: cone["skipped"][s.name][c.label]
+                                      for s2, c in pieces if s2.name == s.name
+                                      and c.label in cone["skipped"].get(s.name, {})}
+                             for s, _ in pieces}} for cone in store]
 
 
 def ladder_pieces(cfg: RunConfig, which: str) -> list[Piece]:

@@ -25,6 +25,15 @@ STAT_SHORT = {"number_density": "number density", "wp": "w_p(r_p)", "cic": "cyli
               "vpf": "voids P_0(R)", "annuli": "annuli P(N)"}
 
 
+STAT_SYMBOL = {"number_density": "n", "wp": "w_p", "cic": "P(N)", "vpf": "P_0",
+               "annuli": "annuli"}
+
+
+def stat_symbol(name: str) -> str:
+    """The statistic's symbol alone (narrow table columns)."""
+    return STAT_SYMBOL.get(name, name.replace("_", " "))
+
+
 def stat_short(name: str) -> str:
     """Short name of a statistic key (tables)."""
     return STAT_SHORT.get(name, name.replace("_", " "))

@@ -40,7 +40,6 @@ from .layout import (
 )
 from .pagespec import PageSpec
 
-PER_PAGE = 5
 _TOP = 1.0
 _GAP = 0.45
 #: Increment significance: paper at zero, harbour blue below, rust above.
@@ -52,10 +51,44 @@ RUNG_CMAP = LinearSegmentedColormap.from_list(
 SIG_CLIP = 5.0
 
 
-def _cell(page: Page, i: int) -> tuple[float, float, float, float]:
+def _cell(page: Page, i: int, span: int = 1) -> tuple[float, float, float, float]:
+    """Geometry (x, y, w, h) [inch] of slot ``i`` of the 2 × 3 grid; ``span`` 2: the row."""
     cw = (page.content_width - _GAP) / 2
     ch = (page.h - st.CONTENT_BOTTOM - _TOP) / 3
+    if span == 2:
+        return st.MARGIN_X, _TOP + (i // 2) * ch, page.content_width, ch
     return st.MARGIN_X + (i % 2) * (cw + _GAP), _TOP + (i // 2) * ch, cw, ch
+
+
+#: A statistic with more bins than this gets a whole row, so each bin keeps room for its
+#: number (8-pt text needs about 0.3 inch).
+WIDE_BINS = 7
+#: Slots 0-4 of a page hold statistics; slot 5 holds the key or the side-by-side table.
+_STAT_SLOTS = 5
+
+
+def _pack(order: list[str], n_bins: dict[str, int]) -> list[list[tuple[str, int, int]]]:
+    """Pages of (statistic, slot, span): wide statistics take a whole row (two slots)."""
+    pages: list[list[tuple[str, int, int]]] = []
+    free: list[int] = []
+    for name in order:
+        span = 2 if n_bins.get(name, 0) > WIDE_BINS else 1
+        while True:
+            if not free:
+                pages.append([])
+                free = list(range(_STAT_SLOTS))
+            if span == 1:
+                slot = free.pop(0)
+                break
+            pair = next((f for f in free if f % 2 == 0 and f + 1 in free), None)
+            if pair is not None:
+                free.remove(pair)
+                free.remove(pair + 1)
+                slot = pair
+                break
+            free = []  # no whole row left on this page
+        pages[-1].append((name, slot, span))
+    return pages or [[]]
 
 
 def _title(page: Page, x: float, y: float, w: float, title: str, tag: str,
@@ -176,8 +209,8 @@ def _ladder_overview(results: dict[str, Any], ladder: dict[str, Any]) -> list[Pa
 
 
 def _ladder_cell(page: Page, i: int, stat: str, a: dict[str, Any], short: dict[str, str],
-                 z_fail: float) -> list[str]:
-    x0, y0, cw, ch = _cell(page, i)
+                 z_fail: float, span: int = 1) -> list[str]:
+    x0, y0, cw, ch = _cell(page, i, span)
     first = a.get("first_failing_rung")
     v = (a.get("verdicts") or {}).get((a.get("rungs") or [""])[-1])
     tag = str(v or "—").upper() + (f" from {short.get(first, first)}" if first else "")
@@ -222,7 +255,7 @@ def _ladder_cell(page: Page, i: int, stat: str, a: dict[str, Any], short: dict[s
                     -SIG_CLIP, SIG_CLIP)
     hax.imshow(shown, cmap=SIGNIFICANCE_CMAP, norm=TwoSlopeNorm(0.0, -SIG_CLIP, SIG_CLIP),
                aspect="auto", interpolation="nearest")
-    if x.size <= 9:
+    if ax_w / x.size >= 0.3:  # room for a number in every cell
         with np.errstate(divide="ignore", invalid="ignore"):
             pct = inc / absb
         for r in range(len(names)):
@@ -265,16 +298,16 @@ def _ladder_pages(results: dict[str, Any], ladder: dict[str, Any]) -> list[PageS
     for sname, cuts in (ladder.get("attribution") or {}).items():
         for cname, stats in cuts.items():
             order = ac.ordered_stats(stats)
-            chunks = [order[i:i + PER_PAGE] for i in range(0, len(order), PER_PAGE)] or [[]]
+            chunks = _pack(order, {n: ac.arr(stats[n], "bins").size for n in order})
             for k, chunk in enumerate(chunks):
-                axes = tuple(f"{n}:{p}" for n in chunk for p in ("ladder", "increments"))
+                axes = tuple(f"{n}:{p}" for n, *_ in chunk for p in ("ladder", "increments"))
 
                 def draw(page: Page, chunk=chunk, stats=stats, cname=cname) -> None:
-                    for i, n in enumerate(chunk):
-                        _ladder_cell(page, i, n, stats[n], short, z_fail)
+                    for n, slot, span in chunk:
+                        _ladder_cell(page, slot, n, stats[n], short, z_fail, span)
                     _ladder_key(page, 5, ladder, names, short, cname, stats)
 
-                title = f"{sname} · {cname}: how the offset builds up"
+                title = f"{sname} · {cname}: effect ladder"
                 if len(chunks) > 1:
                     title += f" ({k + 1}/{len(chunks)})"
                 specs.append(PageSpec(title, "ladder", draw, axes))
@@ -286,11 +319,10 @@ _CORR_COLOURS = (st.CONE, "#7fa672", "#9d7fba", "#c9b458", "#6aa3a0", "#c46a5a")
 
 
 def _corrections_cell(page: Page, i: int, stat: str, entry: dict[str, Any],
-                      truth: dict[str, Any], names: list[str]) -> list[str]:
-    x0, y0, cw, ch = _cell(page, i)
+                      truth: dict[str, Any], names: list[str], span: int = 1) -> list[str]:
+    x0, y0, cw, ch = _cell(page, i, span)
     best = entry.get("closest_to_truth")
-    _title(page, x0, y0 + 0.2, cw, ac.stat_title(stat), f"closest: {best}" if best else "",
-           st.MUTED)
+    _title(page, x0, y0 + 0.2, cw, ac.stat_title(stat), "", st.MUTED)
     x = ac.arr(truth, "bins")
     t = ac.arr(truth, "cone_mean")
     b = ac.arr(truth, "box")
@@ -322,6 +354,10 @@ def _corrections_cell(page: Page, i: int, stat: str, entry: dict[str, Any],
     ax.set_ylim(-min(lim, 2.0), min(lim, 2.0))
     ax.yaxis.set_major_formatter(lambda v, _p: f"{100 * v:.3g}%")
     ax.set_ylabel("(c − truth)/|truth|")
+    if best:  # inside the panel: the title row keeps its room for the statistic's name
+        ax.text(0.01, 0.97, f"closest to truth: {best}", transform=ax.transAxes, ha="left",
+                va="top", fontsize=st.SMALL, color=st.MUTED, parse_math=False,
+                bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1})
     ticks = range(0, x.size, max(1, math.ceil(x.size / 8)))
     ax.set_xticks(list(ticks), [_fmt_bin(x[j]) for j in ticks])
     ax.set_xlim(-0.5, x.size - 0.5)
@@ -336,7 +372,7 @@ def _corrections_table(page: Page, i: int, section: dict[str, Any], stats: dict[
     page.text(x0, y0 + 0.2, "Side by side", st.BODY + 1, bold=True)
     names = list(section.get("names") or [])
     cols = fit_columns([Column("correction", 1.3)]
-                       + [Column(ac.stat_short(s), 0.9, "right") for s in order], cw)
+                       + [Column(ac.stat_symbol(s), 0.5, "right") for s in order], cw)
     rows = []
     for n in names:
         row = [Cell(n + (" ★" if n == section.get("configured") else ""), middle=True)]
@@ -384,19 +420,20 @@ def _correction_pages(section: dict[str, Any]) -> list[PageSpec]:
     for sname, cuts in (section.get("against_truth") or {}).items():
         for cname, stats in cuts.items():
             order = ac.ordered_stats(stats)
-            chunks = [order[i:i + PER_PAGE] for i in range(0, len(order), PER_PAGE)] or [[]]
+            tstats = (truth.get(sname, {}).get("cuts", {}).get(cname, {})
+                      .get("statistics", {}))
+            chunks = _pack(order, {n: ac.arr(tstats.get(n, {}), "bins").size for n in order})
             for k, chunk in enumerate(chunks):
-                axes = tuple(f"{n}:corrections" for n in chunk)
+                axes = tuple(f"{n}:corrections" for n, *_ in chunk)
 
-                def draw(page: Page, chunk=chunk, stats=stats, sname=sname, cname=cname,
-                         order=order) -> None:
-                    tstats = (truth.get(sname, {}).get("cuts", {}).get(cname, {})
-                              .get("statistics", {}))
-                    for i, n in enumerate(chunk):
-                        _corrections_cell(page, i, n, stats[n], tstats.get(n, {}), names)
+                def draw(page: Page, chunk=chunk, stats=stats, order=order,
+                         tstats=tstats) -> None:
+                    for n, slot, span in chunk:
+                        _corrections_cell(page, slot, n, stats[n], tstats.get(n, {}), names,
+                                          span)
                     _corrections_table(page, 5, section, stats, order)
 
-                title = f"{sname} · {cname}: fibre-collision corrections"
+                title = f"{sname} · {cname}: fibre corrections"
                 if len(chunks) > 1:
                     title += f" ({k + 1}/{len(chunks)})"
                 specs.append(PageSpec(title, "corrections", draw, axes))
@@ -411,7 +448,9 @@ def _sweep_sample(page: Page, top: float, height: float, sname: str, s: dict[str
     cuts = s.get("cuts") or {}
     labels = [c for c in (s.get("order") or list(cuts)) if c in cuts]
     if not labels:
-        page.text(x0, top + 0.5, "No cuts in this sweep.", st.BODY, colour=st.MUTED)
+        why = "; ".join(f"{c}: {r}" for c, r in (s.get("skipped") or {}).items())
+        _flow(page, x0, top + 0.35, w, "No cut of this sample could be measured" +
+              (f" ({why})" if why else "") + ".", st.BODY, st.MUTED, 0.17)
         return []
     zmin = {ac.num(cuts[c], "z_min") for c in labels}
     numeric = len(zmin) == 1
@@ -491,6 +530,8 @@ def _sweep_sample(page: Page, top: float, height: float, sname: str, s: dict[str
     y += 0.05
     note = ("Filled markers: the statistic passes at that cut; shaded: the cut passes (every "
             "statistic passes); dashed: z_fail; ★ primary cut.")
+    for label, reason in (s.get("skipped") or {}).items():
+        note += f" Cut {label} skipped, not measurable: {reason}."
     _flow(page, tx, y + 0.02, tw, note, max_lines=max(0, int((top + height - y) / 0.15) - 1))
     return [f"cut_sweep:{sname}:z", f"cut_sweep:{sname}:chi2"]
 

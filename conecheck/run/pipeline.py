@@ -152,14 +152,18 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
                randoms_keys: dict[str, dict[str, str]], *,
                effects: EffectSwitches | None = None,
                correction: CorrectionSettings | None = None, tag: str = "",
-               stage: str = "cones") -> list[dict[str, Any]]:
+               stage: str = "cones", skip_unmeasurable: bool = False) -> list[dict[str, Any]]:
     """Every cone measured on every sample and cut; one cache entry per piece.
+
+    ``skip_unmeasurable`` records a cut a cone cannot measure as skipped instead of failing
+    the stage (see :func:`~conecheck.run.tasks.cone_task`).
 
     Returns
     -------
     list of dict
-        Per cone: ``measurements`` (sample → cut → statistic → Measurement), ``nz`` and
-        ``info`` (as :func:`~conecheck.run.tasks.cone_task`).
+        Per cone: ``measurements`` (sample → cut → statistic → Measurement), ``nz``,
+        ``info`` and ``skipped`` (sample → cut → reason) as
+        :func:`~conecheck.run.tasks.cone_task`.
     """
     c = inp.cfg
     eff = effects or c.effects
@@ -183,7 +187,9 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
                     "statistics": _stat_settings(c), "randoms": randoms_keys[s.name][cut.label],
                     "sky_regions": c.jackknife.sky_regions})
                 got = cache.get(keys[(s.name, cut.label)]) if cache is not None else None
-                if got is not None:
+                if got is not None and (skip_unmeasurable or not got.get("skipped")):
+                    # (a stage that may not skip recomputes a cut skipped before, to fail
+                    # with its reason)
                     have[(s.name, cut.label)] = got
         pieces.append(have)
         piece_keys.append(keys)
@@ -196,7 +202,7 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
             tasks.append(Task(key=tkey, label=f"cone {i}" + (f" ({tag})" if tag else ""),
                               func=cone_task,
                               args=(sub, box_ref, fp_ref, reg_ref, i, sub_randoms,
-                                    eff, corr, tag), kind="cone"))
+                                    eff, corr, tag, skip_unmeasurable), kind="cone"))
             task_cones.append(i)
     if tasks:
         results = _run_stage(inp, stage, tasks)
@@ -204,7 +210,8 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
             for sname, cuts in r["measurements"].items():
                 for label, meas in cuts.items():
                     piece = {"measurements": meas, "nz": r["nz"][sname][label],
-                             "info": r["info"]}
+                             "info": r["info"],
+                             "skipped": r.get("skipped", {}).get(sname, {}).get(label)}
                     pieces[i][(sname, label)] = piece
                     if cache is not None:
                         cache.put(piece_keys[i][(sname, label)], piece,
@@ -220,11 +227,14 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
         meas: dict[str, dict[str, Any]] = {}
         nz: dict[str, dict[str, Any]] = {}
         info: dict[str, Any] = {}
+        skipped: dict[str, dict[str, str]] = {}
         for (sname, label), piece in pieces[i].items():
             meas.setdefault(sname, {})[label] = piece["measurements"]
             nz.setdefault(sname, {})[label] = piece["nz"]
             info = piece["info"]
-        out.append({"measurements": meas, "nz": nz, "info": info})
+            if piece.get("skipped"):
+                skipped.setdefault(sname, {})[label] = piece["skipped"]
+        out.append({"measurements": meas, "nz": nz, "info": info, "skipped": skipped})
     return out
 
 

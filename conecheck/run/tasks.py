@@ -255,19 +255,28 @@ def measure_cone_cut(cfg: RunConfig, table: Any, footprint: Any, regions: Any,
 def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, index: int,
               randoms: dict[str, dict[str, dict[str, Any]]],
               effects: EffectSwitches | None = None,
-              correction: CorrectionSettings | None = None, tag: str = "") -> dict[str, Any]:
+              correction: CorrectionSettings | None = None, tag: str = "",
+              skip_unmeasurable: bool = False) -> dict[str, Any]:
     """Build cone ``index`` and measure every sample, cut and statistic on it.
+
+    Parameters
+    ----------
+    skip_unmeasurable : bool
+        A cut this cone cannot measure (an input problem such as an empty jackknife
+        region) is recorded as skipped, with the reason, instead of failing the task:
+        for explorations over many cuts, where one thin cut must not stop the others.
 
     Returns
     -------
     dict
-        ``measurements`` (sample → cut → statistic → Measurement), ``nz`` (sample → cut →
-        weighted counts in :data:`NZ_BINS` redshift bins) and ``info`` (replicas, fibre
-        statistics, sizes).
+        ``measurements`` (sample → cut → statistic → Measurement; None for a skipped cut),
+        ``nz`` (sample → cut → weighted counts in :data:`NZ_BINS` redshift bins), ``info``
+        (replicas, fibre statistics, sizes) and ``skipped`` (sample → cut → reason).
     """
     table, info = cone_table(cfg, box, footprint, index, effects, correction)
     meas: dict[str, Any] = {}
     nz: dict[str, Any] = {}
+    skipped: dict[str, dict[str, str]] = {}
     for sample in cfg.samples:
         meas[sample.name], nz[sample.name] = {}, {}
         for cut in sample.cuts:
@@ -276,6 +285,10 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
                 m, h = measure_cone_cut(cfg, table, footprint, regions, sample, cut,
                                         randoms[sample.name][cut.label], index, tag)
             except InputError as exc:
+                if skip_unmeasurable:
+                    meas[sample.name][cut.label] = nz[sample.name][cut.label] = None
+                    skipped.setdefault(sample.name, {})[cut.label] = str(exc)
+                    continue
                 raise InputError(f"{where}: {exc}", [f"{where}: {p}" for p in exc.problems]
                                  ) from exc
             except Exception as exc:
@@ -290,7 +303,7 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
                "build_seconds": float(info.get("timing_s", {}).get("total", 0.0))}
-    return {"measurements": meas, "nz": nz, "info": summary}
+    return {"measurements": meas, "nz": nz, "info": summary, "skipped": skipped}
 
 
 # --------------------------------------------------------------------------- helpers
