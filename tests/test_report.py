@@ -95,7 +95,8 @@ def test_render_report_pages(run, rendered):
     specs = build_pages(results, run_dir)
     kinds = [s.kind for s in specs]
     # 2 samples × 2 cuts → 4 statistics pages; one page each for the rest at this size.
-    expected = {"summary": 1, "provenance": 1, "footprint": 1, "nz": 1,
+    # n(z): one block per sample and cut, three per page
+    expected = {"summary": 1, "provenance": 1, "footprint": 1, "nz": 2,
                 "statistics": 4, "values": 4 * -(-len(STATS) // VALUES_PER_PAGE),
                 "fibres": 1, "cuts": 1}
     for kind, n in expected.items():
@@ -400,3 +401,25 @@ def test_statistics_with_many_bins_get_a_whole_row_on_attribution_pages():
     # three wide statistics: two rows on the first page (the third row keeps the key)
     pages = _pack(["a", "b", "c"], {"a": wide, "b": wide + 6, "c": wide})
     assert pages == [[("a", 0, 2), ("b", 2, 2)], [("c", 0, 2)]]
+
+
+def test_nz_departures_are_named_with_their_significance():
+    """A bin whose mean lies 5 % low with a 1 % error of the mean is named; noise is not.
+
+    The cones are drawn Gaussian about the expectation (σ = 2 % per cone, 16 cones, so the
+    error of the mean is 0.5 %): the untouched bins stay far below 3 errors and 1 %.
+    """
+    from conecheck.report.pages_nz import departures
+
+    rng = np.random.default_rng(5)
+    edges = np.linspace(0.02, 0.07, 6)
+    expected = np.full(5, 1000.0)
+    truth = expected.copy()
+    truth[-1] *= 0.95
+    cones = truth * (1 + 0.02 * rng.standard_normal((16, 5)))
+    notes = departures(edges, cones, expected)
+    assert len(notes) == 1 and notes[0].startswith("z 0.06–0.07: mean -")
+    low = float(re.search(r"mean (-[\d.]+) %", notes[0]).group(1))
+    assert abs(low + 5.0) < 1.5  # 3 errors of the mean (0.5 %)
+    assert "far edge" in notes[0]
+    assert departures(edges, cones[:, :4].repeat(2, axis=1)[:, :5], expected) == []

@@ -1,4 +1,9 @@
-"""n(z) page: galaxy counts per redshift bin in every cone against the expectation."""
+"""n(z) pages: galaxy counts per redshift bin in every cone against the expectation.
+
+One block per sample and redshift cut. Bins where the cones' mean departs from the
+expectation by more than its own error (the cone-to-cone scatter over √N, three times) and
+by more than a per cent are named under the panel, with the likely cause at a cut's edge.
+"""
 
 from __future__ import annotations
 
@@ -8,18 +13,56 @@ import numpy as np
 
 from . import access as ac
 from . import style as st
-from .layout import Page, shorten
+from .layout import Page, shorten, wrap
 from .pagespec import PageSpec
 
 PER_PAGE = 3
 
 
-def _nz_of(sample: dict[str, Any]) -> tuple[str | None, dict[str, Any] | None]:
-    cname = ac.primary_cut(sample)
+#: A bin is named when the mean's departure exceeds this many errors of the mean ...
+DEPARTURE_SIGMA = 3.0
+#: ... and this fraction of the expectation.
+DEPARTURE_FRACTION = 0.01
+
+
+def _nz_of(sample: dict[str, Any], cname: str | None) -> dict[str, Any] | None:
     if cname is None:
-        return None, None
+        return None
     nz = ac.cuts(sample)[cname].get("nz")
-    return cname, nz if isinstance(nz, dict) else None
+    return nz if isinstance(nz, dict) else None
+
+
+def departures(edges: np.ndarray, cones: np.ndarray, expected: np.ndarray) -> list[str]:
+    """Sentences naming the bins whose mean over cones departs from the expectation.
+
+    The error of the mean is the cone-to-cone scatter over √N (the cones are independent
+    draws given the box, whose own density is the expectation's); a bin is named when the
+    departure exceeds :data:`DEPARTURE_SIGMA` such errors and :data:`DEPARTURE_FRACTION`.
+    """
+    n = cones.shape[0]
+    if n < 2:
+        return []
+    mean = cones.mean(axis=0)
+    err = cones.std(axis=0, ddof=1) / np.sqrt(n)
+    out = []
+    last = edges.size - 2
+    for j in range(edges.size - 1):
+        e = expected[j]
+        if not (np.isfinite(e) and e > 0 and err[j] > 0):
+            continue
+        rel, t = mean[j] / e - 1, (mean[j] - e) / err[j]
+        if abs(t) > DEPARTURE_SIGMA and abs(rel) > DEPARTURE_FRACTION:
+            where = ("the cut's near edge" if j == 0 else "the cut's far edge" if j == last
+                     else "inside the cut")
+            text = (f"z {edges[j]:.4g}–{edges[j + 1]:.4g}: mean {100 * rel:+.1f} % against "
+                    f"the expectation ({abs(t):.1f} errors of the mean), at {where}")
+            if j in (0, last):
+                text += (": galaxies move across the cut's edge in redshift space (velocities"
+                         ", redshift errors) and the flux limit acts on the observed "
+                         "redshift, while the expectation counts the box's density in the "
+                         "real-space shell")
+            out.append(text + ".")
+    return out
 
 
 def _valid(nz: dict[str, Any] | None) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
@@ -38,12 +81,14 @@ def _valid(nz: dict[str, Any] | None) -> tuple[np.ndarray, np.ndarray, np.ndarra
     return edges, cones, expected
 
 
-def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any]
-                 ) -> None:
+def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any],
+                 cname: str | None) -> None:
     x0, w = st.MARGIN_X, page.content_width
-    cname, nz = _nz_of(sample)
+    nz = _nz_of(sample, cname)
     data = _valid(nz)
     label = f"{sname} · {cname}" if cname else sname
+    if cname is not None and ac.cuts(sample)[cname].get("primary"):
+        label += " ★"
     page.text(x0, top + 0.2, shorten(label, w, st.H2, bold=True), st.H2, bold=True)
     if data is None:
         why = "no redshift cut" if cname is None else (
@@ -59,8 +104,14 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     page.text(x0, top + 0.4, shorten(summary, w, st.BODY), st.BODY, colour=st.MUTED)
     lx = x0 + 0.65
     aw = w - 0.75
-    main_h = (height - 1.2) * 0.66
-    ax = page.axes(lx, top + 0.8, aw, main_h, f"nz:{sname}:counts")
+    notes = departures(edges, cones, expected)
+    if not notes and cones.shape[0] >= 2 and np.isfinite(expected).any():
+        notes = [f"Every bin agrees with the expectation within {DEPARTURE_SIGMA:g} errors of "
+                 f"the mean (cone-to-cone scatter/√{cones.shape[0]}) or "
+                 f"{100 * DEPARTURE_FRACTION:g} %."]
+    note_lines = [ln for t in notes for ln in wrap(t, w, st.SMALL)][:4]
+    main_h = (height - 1.2 - 0.15 * len(note_lines)) * 0.66
+    ax = page.axes(lx, top + 0.8, aw, main_h, f"nz:{sname}:{cname}:counts")
     for c in cones:
         ax.stairs(c, edges, color=st.CONE_FAINT, lw=0.6, baseline=None)
     handles = [ax.stairs(mean, edges, color=st.CONE, lw=1.8, baseline=None,
@@ -74,8 +125,8 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     ax.set_ylim(0, None)
     ax.tick_params(labelbottom=False)
     ax.grid(True, axis="y")
-    rax = page.axes(lx, top + 0.85 + main_h, aw, height - 1.25 - main_h,
-                    f"nz:{sname}:ratio")
+    ratio_h = height - 1.25 - main_h - 0.15 * len(note_lines)
+    rax = page.axes(lx, top + 0.85 + main_h, aw, ratio_h, f"nz:{sname}:{cname}:ratio")
     with np.errstate(divide="ignore", invalid="ignore"):
         ok = np.isfinite(expected) & (expected > 0)
         safe = np.where(ok, expected, 1.0)
@@ -101,29 +152,33 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     rax.set_xlim(edges[0], edges[-1])
     rax.set_xlabel("observed redshift z")
     rax.set_ylabel("ratio − 1", fontsize=st.SMALL)
+    y = top + 0.85 + main_h + ratio_h + 0.55
+    for line in note_lines:
+        page.text(x0, y, line, st.SMALL, colour=st.MUTED)
+        y += 0.15
 
 
 def nz_pages(results: dict[str, Any]) -> list[PageSpec]:
-    """n(z) of the primary cut of each sample, up to three samples per page."""
-    names = list(ac.samples(results))
-    if not names:
+    """n(z) of every sample and cut, up to three per page."""
+    samples = ac.samples(results)
+    if not samples:
         def empty(page: Page) -> None:
             page.text(st.MARGIN_X, 1.3, "No samples in these results.", st.BODY)
         return [PageSpec("Redshift distribution of the cones", "nz", empty)]
+    blocks = [(s, c) for s in samples for c in (list(ac.cuts(samples[s])) or [None])]
     specs = []
-    for i in range(0, len(names), PER_PAGE):
-        chunk = names[i:i + PER_PAGE]
+    for i in range(0, len(blocks), PER_PAGE):
+        chunk = blocks[i:i + PER_PAGE]
         axes = []
-        for s in chunk:
-            if _valid(_nz_of(ac.samples(results)[s])[1]) is not None:
-                axes += [f"nz:{s}:counts", f"nz:{s}:ratio"]
+        for s, c in chunk:
+            if _valid(_nz_of(samples[s], c)) is not None:
+                axes += [f"nz:{s}:{c}:counts", f"nz:{s}:{c}:ratio"]
 
         def draw(page: Page, chunk=chunk) -> None:
             top = 1.0
             block = (page.h - st.CONTENT_BOTTOM - top) / max(len(chunk), 2)
-            for j, s in enumerate(chunk):
-                _draw_sample(page, top + j * block, block - 0.15, s, ac.samples(results)[s])
+            for j, (s, c) in enumerate(chunk):
+                _draw_sample(page, top + j * block, block - 0.15, s, samples[s], c)
 
-        specs.append(PageSpec("n(z) of the cones (primary cuts)", "nz", draw,
-                              tuple(axes)))
+        specs.append(PageSpec("n(z) of the cones", "nz", draw, tuple(axes)))
     return specs
