@@ -423,3 +423,54 @@ def test_nz_departures_are_named_with_their_significance():
     assert abs(low + 5.0) < 1.5  # 3 errors of the mean (0.5 %)
     assert "far edge" in notes[0]
     assert departures(edges, cones[:, :4].repeat(2, axis=1)[:, :5], expected) == []
+
+
+def test_footprint_page_and_mask_plot_both_put_east_on_the_left(run):
+    """Larger right ascension lies further left in both, as on the sky seen from inside."""
+    from conecheck.footprint import Footprint
+    from conecheck.footprint.plot import plot_footprint
+
+    run_dir, results = run
+    spec = next(s for s in build_pages(results, run_dir) if s.kind == "footprint")
+    fig = draw_page(results, spec, 1, 1)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    ax = next(a for a in fig.axes if a.get_label() == "footprint:completeness")
+    ra_labels = [(float(t.get_text()[:-1]), t.get_window_extent(renderer).x0)
+                 for t in ax.texts if re.fullmatch(r"\d+°", t.get_text())]
+    assert len(ra_labels) >= 3  # the test footprint spans RA 150–230 (no wrap)
+    ras, xs = zip(*sorted(ra_labels), strict=True)
+    assert all(np.diff(xs) < 0), ra_labels
+    plot = plot_footprint(Footprint.from_fits(run_dir / "mask.fits"))
+    pax = plot.axes[0]
+    ticks = sorted(pax.get_xticks())
+    fmt = pax.xaxis.get_major_formatter()
+    tick_ras = [float(fmt(t, 0)[:-1]) for t in ticks if pax.get_xlim()[0] <= t
+                <= pax.get_xlim()[1]]
+    assert len(tick_ras) >= 2 and all(np.diff(tick_ras) < 0), tick_ras
+
+
+def test_completeness_panel_includes_the_vetoes(run, tmp_path):
+    """The panel shows mask × vetoes, a veto of another N_side resampled as the run does."""
+    import healpy as hp
+
+    from conecheck.report.pages_footprint import apply_vetoes, load_mask
+
+    run_dir, results = run
+    mask = load_mask(run_dir / "mask.fits")
+    nside = hp.npix2nside(mask.size)
+    ra, dec = hp.pix2ang(nside // 2, np.arange(hp.nside2npix(nside // 2)), lonlat=True)
+    veto = np.where(dec > 20, 0.0, 1.0)  # cut away the north of the footprint
+    hp.write_map(str(tmp_path / "veto.fits"), veto, dtype=np.float64)
+    got = apply_vetoes(mask, [tmp_path / "veto.fits"])
+    np.testing.assert_array_equal(got, mask * hp.ud_grade(veto, nside))  # healpy reference
+    assert got.sum() < mask.sum()
+    results = copy.deepcopy(results)
+    results["footprint"]["veto_paths"] = [str(tmp_path / "veto.fits")]
+    spec = next(s for s in build_pages(results, run_dir) if s.kind == "footprint")
+    texts = [t.get_text() for t in draw_page(results, spec, 1, 1).findobj(matplotlib.text.Text)]
+    assert not any("veto" in t for t in texts)  # applied, no problem reported
+    results["footprint"]["veto_paths"] = [str(tmp_path / "gone.fits")]
+    spec = next(s for s in build_pages(results, run_dir) if s.kind == "footprint")
+    texts = [t.get_text() for t in draw_page(results, spec, 1, 1).findobj(matplotlib.text.Text)]
+    assert any("veto map(s) not found" in t for t in texts)

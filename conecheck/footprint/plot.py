@@ -146,7 +146,9 @@ def _draw(ax, fp: Footprint, projection: str, ra_c: float, ncells: int,
         ax.grid(True, color="0.6", lw=0.4)
         ax.tick_params(axis="x", labelsize=7)
     else:
-        ax.set_xlim(-lim["x0"], -lim["x1"])
+        # plot x = −ΔRA: increasing x is westward, so east (larger RA) is on the left as
+        # on the sky and in the report
+        ax.set_xlim(lim["x0"], lim["x1"])
         ax.set_ylim(lim["y0"], lim["y1"])
         ax.set_aspect(lim["aspect"])
         ax.set_xlabel("RA")

@@ -18,6 +18,7 @@ import healpy as hp
 import numpy as np
 from matplotlib.colors import ListedColormap
 from numpy.typing import NDArray
+from scipy import ndimage
 
 from . import access as ac
 from . import style as st
@@ -43,6 +44,18 @@ def load_mask(path: Path) -> NDArray[np.float64]:
     m = np.asarray(hp.read_map(str(path), dtype=np.float64), dtype=np.float64)
     m[~np.isfinite(m) | (m == hp.UNSEEN) | (m < 0)] = 0.0
     return m
+
+
+def apply_vetoes(mask: NDArray[np.float64], paths: list[Path]) -> NDArray[np.float64]:
+    """The mask times each veto map, resampled to the mask's N_side as the run does."""
+    nside = hp.npix2nside(mask.size)
+    out = mask.copy()
+    for path in paths:
+        veto = load_mask(path)
+        if veto.size != mask.size:
+            veto = hp.ud_grade(veto, nside)
+        out *= veto
+    return out
 
 
 def load_regions(path: Path) -> tuple[NDArray[np.int64], bool]:
@@ -158,16 +171,22 @@ def _graticule(ax, img: SkyImage) -> None:
         _label_line(ax, x, y, f"{ra:.0f}°", img, "bottom")
 
 
+#: Fraction of the frame next to the lower-left corner kept free of the other axis's labels,
+#: so that a Dec label near the bottom never sits on an RA label near the left.
+_CORNER = 0.2
+
+
 def _label_line(ax, x, y, text, img: SkyImage, side: str) -> None:
     """Label a graticule line where it meets the left (Dec) or bottom (RA) frame edge."""
     x0, x1, y0, y1 = img.extent
     mx, my = 0.05 * (x1 - x0), 0.05 * (y1 - y0)
     inside = (x > x0 + mx) & (x < x1 - mx) & (y > y0 + my) & (y < y1 - my)
+    inside &= (y > y0 + _CORNER * (y1 - y0)) if side == "left" else \
+        (x > x0 + _CORNER * (x1 - x0))
     if not inside.any():
         return
     i = np.flatnonzero(inside)
-    j = i[np.argmax(x[i])] if side == "left" else i[np.argmin(y[i])]
-    # x grows to the left on the plot (inverted axis), so the "left" edge is max x.
+    j = i[np.argmin(x[i])] if side == "left" else i[np.argmin(y[i])]
     ax.text(x[j], y[j], text, fontsize=st.SMALL, color=st.MUTED, ha="center", va="center",
             zorder=4, clip_on=True, parse_math=False,
             bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.8})
@@ -197,7 +216,9 @@ def _panel(ax, img: SkyImage, data, cmap, vmin, vmax, title: str):
                   shading="flat", rasterized=True)
     mesh = ax.pcolormesh(img.xe, img.ye, data, cmap=cmap, vmin=vmin, vmax=vmax,
                          shading="flat", rasterized=True)
-    ax.set_xlim(x1, x0)  # east to the left
+    # _Frame.forward puts east at negative x: an ordinary axis shows it on the left, as on
+    # the sky and in `conecheck mask plot`
+    ax.set_xlim(x0, x1)
     ax.set_ylim(y0, y1)
     ax.set_aspect("equal")
     ax.set_xticks([])
@@ -224,6 +245,20 @@ def footprint_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | N
             mask = load_mask(mask_path)
         except (OSError, ValueError, TypeError, KeyError) as exc:
             problems.append(f"footprint mask {mask_path} could not be read: {exc}")
+    if mask is not None:
+        # the completeness the cones saw: the mask times the vetoes (as the area and the
+        # regions are), not the mask file alone
+        vetoes = [_resolve(v, run_dir) for v in fp.get("veto_paths") or []]
+        missing = [str(v) for v in vetoes if v is None or not v.is_file()]
+        if missing:
+            problems.append(f"veto map(s) not found: {', '.join(missing)}; the completeness "
+                            f"panel shows the mask without them")
+        else:
+            try:
+                mask = apply_vetoes(mask, [v for v in vetoes if v is not None])
+            except (OSError, ValueError, TypeError, KeyError) as exc:
+                problems.append(f"veto maps could not be applied ({exc}); the completeness "
+                                f"panel shows the mask without them")
     if mask is not None and not (mask > 0).any():
         problems.append(f"footprint mask {mask_path} is empty (no pixel with completeness > 0)")
         mask = None
@@ -300,10 +335,11 @@ def footprint_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | N
                 m = reg == r
                 if m.sum() < 4:
                     continue
-                # The region's cell nearest its median position (never inside a hole).
-                mx, my = np.median(xx[m]), np.median(yy[m])
-                j = np.argmin((xx[m] - mx) ** 2 + (yy[m] - my) ** 2)
-                ax2.text(xx[m][j], yy[m][j], str(r), fontsize=st.SMALL,
+                # The region's cell farthest from its edge: inside its largest piece even
+                # when the region is curved or split (a median can fall outside it).
+                depth = ndimage.distance_transform_edt(np.pad(m, 1))[1:-1, 1:-1]
+                j = np.unravel_index(np.argmax(depth), m.shape)
+                ax2.text(xx[j], yy[j], str(r), fontsize=st.SMALL,
                          ha="center", va="center", color="white", weight="bold", zorder=5,
                          clip_on=True)
 

@@ -324,6 +324,8 @@ def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None,
             "randoms_multiple": cfg.randoms.multiple,
         },
         "footprint": {"mask_path": str(mask) if mask is not None else None,
+                      "veto_paths": [str(cfg.resolve_path(v)) for v in cfg.survey.vetoes]
+                      if cfg.effects.footprint else [],
                       "regions_path": "jackknife_regions.npz",
                       "area_deg2": float(inp.footprint.area_deg2),
                       "n_regions": int(inp.regions.k), "nside": int(inp.footprint.nside)},
