@@ -445,3 +445,23 @@ def test_bins_where_every_cone_agrees_fall_back_to_the_upper_bound():
     assert r["sigma_offset"][1] == pytest.approx(math.sqrt(1e-6))
     assert abs(r["significance"][1]) == pytest.approx(1.5)  # Gaussian, not Student t
     assert any("every cone gives the same value" in n for n in r["notes"])
+
+
+def test_singular_covariance_messages_say_what_to_do(caplog):
+    """One exact relation (a distribution summing to one) is expected; more is advice."""
+    import logging
+
+    from conecheck.compare.chi2 import inverse_covariance
+
+    rng = np.random.default_rng(3)
+    x = rng.dirichlet(np.ones(6), size=40)  # rows sum to one: rank p − 1
+    with caplog.at_level(logging.INFO, logger="conecheck"):
+        inv = inverse_covariance(np.cov(x, rowvar=False), 40, "P(N)")
+    assert inv.rank == 5 and "nothing to change" in inv.notes[0]
+    assert not [r for r in caplog.records if r.levelno >= logging.WARNING]
+    y = rng.standard_normal((40, 3)) @ rng.standard_normal((3, 7))  # rank 3 of 7
+    caplog.clear()
+    with caplog.at_level(logging.INFO, logger="conecheck"):
+        inv = inverse_covariance(np.cov(y, rowvar=False), 40, "wp")
+    assert inv.rank == 3 and "use more regions" in inv.notes[0]
+    assert [r for r in caplog.records if r.levelno == logging.WARNING]

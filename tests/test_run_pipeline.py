@@ -13,6 +13,7 @@ Checks (issue: validation end to end; scale and resilience):
 from __future__ import annotations
 
 import json
+import logging
 import re
 from pathlib import Path
 
@@ -277,3 +278,14 @@ def test_quiet_prints_no_info_lines(tmp_path, capsys):
     # every warning reaches the terminal once however many stages meet its cause
     warnings = [ln for ln in err.splitlines() if ln.startswith("WARNING:")]
     assert len(warnings) == len(set(warnings)), err
+
+
+def test_repeated_structures_are_reported_once_from_the_cones_counts(caplog):
+    from conecheck.run.validate import _warn_repeats
+
+    with caplog.at_level(logging.WARNING, logger="conecheck"):
+        _warn_repeats([0, 0], [100, 120], 250.0)
+        assert not caplog.records
+        _warn_repeats([0, 30, 12], [1000, 1000, 600], 250.0)
+    assert len(caplog.records) == 1
+    assert "2 of 3 cones hold some box galaxies twice (up to 3.0 %" in caplog.text

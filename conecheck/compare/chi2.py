@@ -180,8 +180,18 @@ def inverse_covariance(covariance: ArrayLike, n_regions: int | None,
                                           hermitian=True))
         msg = (f"{where}: covariance ill-conditioned (condition number {cond:.3g}); used a "
                f"pseudo-inverse of rank {rank} of {p}")
+        if p - rank <= 1:
+            # One exact linear relation, as for a distribution whose bins sum to one
+            # (P(N) over every count): the χ² in the remaining combinations is the right one.
+            msg += (": the bins obey one linear relation (a distribution summing to one "
+                    "does); the χ² uses the other combinations, nothing to change")
+            log.info(msg)
+        else:
+            msg += (f": {p - rank} combinations of bins carry no independent information "
+                    f"at this number of jackknife regions; use more regions (jackknife."
+                    f"sky_regions, jackknife.box_n_side) or fewer bins")
+            log.warning(msg)
         notes.append(msg)
-        log.warning(msg)
     else:
         rinv = np.linalg.inv(r)
         rank = p

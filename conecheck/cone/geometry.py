@@ -165,16 +165,14 @@ def replica_offsets(observer: ArrayLike, box_size: float, r_in: float,
     return n[keep][order].astype(np.int64)
 
 
-_WARNED_REPLICATION: set[tuple[float, float]] = set()
-
-
 def check_replication(n_replicas: int, r_out: float, box_size: float,
                       settings: ObserverSettings) -> bool:
     """Apply the replication policy; return True when structures may repeat.
 
     Repetition is possible when the shell's diameter 2 (χ_max + margin) exceeds L:
     a full-sky cone then holds some box galaxies twice (a narrow footprint may not;
-    the cone's info counts the actual repeats).
+    the cone's info counts the actual repeats, and the run reports them once, from the
+    counts, rather than each cone warning of the possibility).
     """
     if n_replicas > settings.max_replicas:
         raise InputError(
@@ -189,12 +187,6 @@ def check_replication(n_replicas: int, r_out: float, box_size: float,
             raise InputError(f"observers.replication = 'refuse': {msg} ({n_replicas} "
                              "replicas); lower shell.z_max, use a larger box or set "
                              "replication = 'warn'")
-        # every cone of a run has the same shell and box: say it once per process, not once
-        # per cone (each cone's info still records its replicas and repeats)
-        key = (round(r_out, 3), float(box_size))
-        if key not in _WARNED_REPLICATION:
-            _WARNED_REPLICATION.add(key)
-            log.warning("%s", msg)
     return repeats
 
 

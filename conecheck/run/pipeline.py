@@ -42,7 +42,6 @@ from .tasks import (
     box_task,
     cone_table,
     cone_task,
-    cut_distances,
     expected_count,
     randoms_task,
     shuffle_distances,
@@ -300,11 +299,6 @@ def prepare_inputs(cfg: RunConfig, executor: Executor, cache: TaskCache | None,
     footprint = load_footprint(cfg)
     regions = sky_regions(cfg, footprint)
     box = load_box(cfg)
-    _, chi_max = cut_distances(cfg, max((c for s in cfg.samples for c in s.cuts),
-                                        key=lambda c: c.z_max))
-    if chi_max > box.box_size:
-        log.warning("the cones reach χ = %.0f Mpc/h, beyond the box side L = %.0f Mpc/h: "
-                    "replicas repeat structures within a cone", chi_max, box.box_size)
     stop()
     return RunInputs(cfg, box, footprint, regions, hashes, executor, cache, progress, timings)
 

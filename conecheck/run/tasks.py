@@ -298,6 +298,7 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
             nz[sample.name][cut.label] = h
     fib = info.get("fibres", {})
     summary = {"n_replicas": int(info.get("n_replicas", 0)),
+               "n_repeated": int(info.get("n_repeated", 0)),
                "n_galaxies": int(info.get("n_galaxies", len(table))),
                "n_targets": int(info.get("n_targets", 0)),
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),

@@ -230,6 +230,10 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
                                                    if k in results]
             results["provenance"]["replicas_per_cone"] = [c["info"].get("n_replicas", 0)
                                                           for c in cones]
+            results["provenance"]["repeated_per_cone"] = [c["info"].get("n_repeated", 0)
+                                                          for c in cones]
+            _warn_repeats(results["provenance"]["repeated_per_cone"],
+                          [c["info"].get("n_galaxies", 0) for c in cones], inp.box.box_size)
         t0 = time.perf_counter()
         # An old report must never sit beside new results: if this run is killed before
         # its PDF is written, there is no PDF (`conecheck report DIR` renders it) rather
@@ -278,6 +282,18 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         root.removeHandler(handler)
         handler.close()
         root.setLevel(prev_level)
+
+
+def _warn_repeats(repeated: list[int], galaxies: list[int], box_size: float) -> None:
+    """One warning, from the cones' own counts, when any cone holds a box galaxy twice."""
+    hit = [(r, g) for r, g in zip(repeated, galaxies, strict=True) if r > 0]
+    if not hit:
+        return
+    worst = max(r / g if g else 0.0 for r, g in hit)
+    log.warning("%d of %d cones hold some box galaxies twice (up to %.1f %% of a cone's "
+                "galaxies): the shell is wider than the box side L = %g Mpc/h, so structures "
+                "repeat within a cone; a larger box or a shallower shell avoids it",
+                len(hit), len(repeated), 100 * worst, box_size)
 
 
 def _shifts(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, Any]],
