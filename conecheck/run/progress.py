@@ -1,12 +1,13 @@
-"""Progress of a run: one updating line on a terminal, sparse log lines elsewhere."""
+"""Progress of a run: a tqdm bar on a terminal, sparse log lines elsewhere."""
 
 from __future__ import annotations
 
 import logging
-import shutil
 import sys
 import time
 from typing import TextIO
+
+from tqdm import tqdm
 
 log = logging.getLogger("conecheck.run")
 
@@ -35,6 +36,8 @@ class Progress:
     stream : text stream
         Where the terminal line goes.  When it is not a TTY, progress is logged instead
         (logger ``conecheck.run``, INFO) every ~10 % and at the end of each stage.
+    refresh_seconds : float
+        Least time between two redraws of the terminal bar [s].
 
     Attributes
     ----------
@@ -42,8 +45,10 @@ class Progress:
         Wall-clock seconds spent in each finished stage (summed if a stage repeats).
     """
 
-    def __init__(self, enabled: bool | None = None, stream: TextIO | None = None) -> None:
+    def __init__(self, enabled: bool | None = None, stream: TextIO | None = None,
+                 refresh_seconds: float = 0.2) -> None:
         self.enabled = True if enabled is None else bool(enabled)
+        self.refresh_seconds = float(refresh_seconds)
         self.stream = sys.stderr if stream is None else stream
         isatty = getattr(self.stream, "isatty", None)
         try:
@@ -56,7 +61,7 @@ class Progress:
         self.done = 0
         self._t0 = 0.0
         self._logged_step = 0
-        self._line_len = 0
+        self._bar: tqdm | None = None
 
     def start(self, stage: str, total: int) -> None:
         """Begin ``stage`` with ``total`` units of work (ends any unfinished stage)."""
@@ -66,7 +71,13 @@ class Progress:
         self._t0 = time.perf_counter()
         self._logged_step = 0
         if self.enabled and self.tty:
-            self._draw("")
+            # tqdm draws the bar, rate and remaining time; it closes without a trace
+            # (leave=False) and the stage's summary line replaces it
+            self._bar = tqdm(total=self.total, desc=stage, file=self.stream, leave=False,
+                             dynamic_ncols=True, unit="task",
+                             mininterval=self.refresh_seconds, miniters=1,
+                             bar_format="{desc}: {n}/{total} {bar} [{elapsed}, eta "
+                                        "{remaining}]{postfix}")
 
     def advance(self, n: int = 1, note: str = "") -> None:
         """Record ``n`` more units done; ``note`` says what finished (shown on a TTY)."""
@@ -75,8 +86,10 @@ class Progress:
         self.done = min(self.done + int(n), self.total) if self.total else self.done + int(n)
         if not self.enabled:
             return
-        if self.tty:
-            self._draw(note)
+        if self._bar is not None:
+            if note:
+                self._bar.set_postfix_str(note, refresh=False)
+            self._bar.update(int(n))
         elif self.total and self.done < self.total:
             step = self.done * _LOG_STEPS // self.total
             if step > self._logged_step:
@@ -91,8 +104,9 @@ class Progress:
         self.timings[self.stage] = self.timings.get(self.stage, 0.0) + elapsed
         if self.enabled:
             text = f"{self.stage}: {self.done}/{self.total} done in {format_seconds(elapsed)}"
-            if self.tty:
-                self._clear()
+            if self._bar is not None:
+                self._bar.close()
+                self._bar = None
                 self.stream.write(text + "\n")
                 self.stream.flush()
             else:
@@ -109,15 +123,3 @@ class Progress:
             eta = "eta 0s"
         return f"{self.stage}: {self.done}/{self.total} [{format_seconds(elapsed)}, {eta}]"
 
-    def _draw(self, note: str) -> None:
-        text = self._text() + (f"  {note}" if note else "")
-        # A line longer than the terminal wraps, and "\r" then only redraws its tail.
-        text = text[:max(shutil.get_terminal_size().columns - 1, 20)]
-        pad = max(self._line_len - len(text), 0)
-        self.stream.write("\r" + text + " " * pad)
-        self.stream.flush()
-        self._line_len = len(text)
-
-    def _clear(self) -> None:
-        self.stream.write("\r" + " " * self._line_len + "\r")
-        self._line_len = 0
