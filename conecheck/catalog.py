@@ -60,8 +60,18 @@ def _suffix(path: Path) -> str:
                      + ", ".join(sorted(FORMATS)))
 
 
-def read_table(path: str | os.PathLike[str]) -> Table:
+def read_table(path: str | os.PathLike[str], hdf5_path: str | None = None) -> Table:
     """Read a catalogue file into an astropy Table (format from the file name).
+
+    Parameters
+    ----------
+    path : path
+        FITS, HDF5, ECSV, Parquet or .npz file.
+    hdf5_path : str, optional
+        HDF5 only: the table dataset, or a group whose datasets are the columns (one
+        dataset per column, (N, k) datasets allowed; the group's attributes are the
+        header). Default: the first table (compound) dataset, else the root group's
+        datasets.
 
     Raises
     ------
@@ -83,10 +93,12 @@ def read_table(path: str | os.PathLike[str]) -> Table:
             raise InputError(f"{path}: column name(s) {', '.join(map(repr, repeated))} appear "
                              "more than once in the file; give every column its own name so "
                              "the column mapping is unambiguous")
-        kwargs: dict[str, Any] = {}
         if FORMATS[suf] == "hdf5":
-            kwargs["path"] = _first_hdf5_dataset(path)
-        return Table.read(path, format=FORMATS[suf], **kwargs)
+            return _read_hdf5(path, hdf5_path)
+        if hdf5_path is not None:
+            raise InputError(f"{path}: an HDF5 path ({hdf5_path!r}) was given for a "
+                             f"{FORMATS[suf]} file")
+        return Table.read(path, format=FORMATS[suf])
     except InputError:
         raise
     except ImportError as exc:
@@ -128,16 +140,41 @@ def _repeated_column_names(path: Path, fmt: str) -> list[str]:
     return sorted({n for n in names if n and (n in seen or seen.add(n))})
 
 
-def _first_hdf5_dataset(path: Path) -> str:
+def _read_hdf5(path: Path, hdf5_path: str | None) -> Table:
+    """An HDF5 table dataset, or a group of one dataset per column (see :func:`read_table`)."""
     import h5py
 
-    found: list[str] = []
     with h5py.File(path, "r") as f:
-        f.visititems(lambda name, obj: found.append(name)
-                     if isinstance(obj, h5py.Dataset) and obj.dtype.names else None)
-    if not found:
-        raise InputError(f"{path}: no table (compound dataset) found in the HDF5 file")
-    return found[0]
+        if hdf5_path is None:
+            found: list[str] = []
+            f.visititems(lambda name, obj: found.append(name)
+                         if isinstance(obj, h5py.Dataset) and obj.dtype.names else None)
+            target = found[0] if found else "/"
+        else:
+            if hdf5_path not in f:
+                raise InputError(f"{path}: no dataset or group {hdf5_path!r}; the file has "
+                                 f"{', '.join(sorted(f.keys())) or 'nothing'} at its root")
+            target = hdf5_path
+        obj = f[target]
+        if isinstance(obj, h5py.Dataset):
+            if not obj.dtype.names:
+                raise InputError(f"{path}: {target!r} is a plain array, not a table; give "
+                                 f"the group that holds one dataset per column")
+            return Table.read(path, format="hdf5", path=target)
+        columns = {k: v for k, v in obj.items() if isinstance(v, h5py.Dataset)}
+        if not columns:
+            raise InputError(f"{path}: group {target!r} holds no datasets (no table and no "
+                             f"column arrays); set the HDF5 path of the catalogue")
+        lengths = {k: v.shape[0] if v.shape else 0 for k, v in columns.items()}
+        n = max(lengths.values(), key=list(lengths.values()).count)  # the common length
+        odd = sorted(k for k, m in lengths.items() if m != n)
+        if odd:
+            log.info("%s: datasets %s in %r are not %d rows long; left out", path, odd,
+                     target, n)
+        table = Table({k: np.asarray(v[()]) for k, v in columns.items() if lengths[k] == n})
+        table.meta.update({str(k): (v.item() if hasattr(v, "item") else v)
+                           for k, v in obj.attrs.items()})
+        return table
 
 
 def write_table(table: Table, path: str | os.PathLike[str]) -> None:
@@ -161,13 +198,27 @@ def write_table(table: Table, path: str | os.PathLike[str]) -> None:
 MAX_ABS_MAGNITUDE = 40.0
 
 
+#: Canonical names that stand for three columns, filled from one (N, 3) column.
+VECTOR_COLUMNS = {"position": POSITION_COLUMNS, "velocity": VELOCITY_COLUMNS}
+
+
+def _component(table: Table, user: str) -> tuple[str, int] | None:
+    """``("pos", 1)`` for a mapping value ``"pos[1]"`` naming a component of a column."""
+    if not (user.endswith("]") and "[" in user):
+        return None
+    name, _, index = user[:-1].rpartition("[")
+    return (name, int(index)) if index.isdigit() and name in table.colnames else None
+
+
 def apply_column_map(table: Table, column_map: Mapping[str, str], source: str) -> Table:
     """Rename user columns to canonical names.
 
     Parameters
     ----------
     column_map : mapping
-        canonical name -> name in the user's file.
+        canonical name -> name in the user's file. ``position`` / ``velocity`` may name one
+        (N, 3) column, split into x, y, z / vx, vy, vz; ``"col[i]"`` takes component i of
+        an (N, k) column.
     source : str
         File name, for error messages.
     """
@@ -178,26 +229,62 @@ def apply_column_map(table: Table, column_map: Mapping[str, str], source: str) -
         keys = [k for k, u in column_map.items() if u == user]
         problems.append(f"{source}: column '{user}' is mapped to {len(keys)} quantities "
                         f"({', '.join(keys)}); map each to its own column")
+    used = set()
     for canonical, user in column_map.items():
-        if user not in table.colnames:
+        part = _component(table, user)
+        if user not in table.colnames and part is None:
             problems.append(f"{source}: column '{user}' (mapped to '{canonical}') not found; "
                             f"available columns: {', '.join(table.colnames)}")
             continue
+        if canonical in VECTOR_COLUMNS:
+            col = np.asarray(table[user])
+            if col.ndim != 2 or col.shape[1] != 3:
+                problems.append(f"{source}: column '{user}' (mapped to '{canonical}') has "
+                                f"shape {col.shape}; expected (N, 3)")
+                continue
+            for k, name in enumerate(VECTOR_COLUMNS[canonical]):
+                out[name] = col[:, k]
+            used.add(user)
+            continue
+        if part is not None:
+            name, k = part
+            col = np.asarray(table[name])
+            if col.ndim != 2 or k >= col.shape[1]:
+                problems.append(f"{source}: '{user}' (mapped to '{canonical}'): column "
+                                f"'{name}' has shape {col.shape}; no component {k}")
+                continue
+            out[canonical] = col[:, k]
+            used.add(name)
+            continue
         out[canonical] = table[user]
+        used.add(user)
     for name in table.colnames:
-        if name not in column_map.values() and name not in out.colnames:
+        if name not in used and name not in out.colnames:
             out[name] = table[name]
     if problems:
         raise InputError("; ".join(problems), problems)
     return out
 
 
-def require_columns(table: Table, names: Sequence[str], source: str) -> None:
-    """Check that ``names`` exist, are numeric and finite."""
+#: How a user maps columns, named in "missing column" errors unless the caller knows better.
+COLUMN_MAP_HINT = ("map them to the file's columns with box.columns in a run configuration "
+                   "(e.g. x = \"px\", or position = \"pos\" for an (N, 3) column)")
+
+
+def require_columns(table: Table, names: Sequence[str], source: str,
+                    hint: str = COLUMN_MAP_HINT) -> None:
+    """Check that ``names`` exist, are numeric and finite.
+
+    ``hint`` says how to map the file's columns (the config key or command-line option),
+    appended to the message when columns are missing.
+    """
     problems = []
+    missing = [n for n in names if n not in table.colnames]
+    if missing:
+        problems.append(f"{source}: missing column(s) {', '.join(repr(n) for n in missing)}; "
+                        f"the file has {', '.join(table.colnames) or 'no columns'}; {hint}")
     for name in names:
-        if name not in table.colnames:
-            problems.append(f"{source}: missing required column '{name}'")
+        if name in missing:
             continue
         col = np.asarray(table[name])
         if col.dtype.kind not in "fiu":  # booleans and text are not coordinates or magnitudes
@@ -356,9 +443,13 @@ class GalaxyBox:
 
 def read_galaxy_box(path: str | os.PathLike[str], column_map: Mapping[str, str] | None = None,
                     box_size: float | None = None, redshift: float | None = None,
-                    require_magnitudes: bool = False) -> GalaxyBox:
-    """Read a galaxy-box file, map its columns and check it (see :class:`GalaxyBox`)."""
-    table = read_table(path)
+                    require_magnitudes: bool = False,
+                    hdf5_path: str | None = None) -> GalaxyBox:
+    """Read a galaxy-box file, map its columns and check it (see :class:`GalaxyBox`).
+
+    ``hdf5_path``: the dataset or group of an HDF5 file (see :func:`read_table`).
+    """
+    table = read_table(path, hdf5_path)
     if column_map:
         table = apply_column_map(table, column_map, str(path))
     return GalaxyBox.from_table(table, box_size, redshift, str(path), require_magnitudes)

@@ -103,6 +103,9 @@ class BoxConfig:
         Box side L [Mpc/h] (read from the file's metadata when omitted; synthetic: 250).
     redshift : float or None
         Snapshot redshift (file metadata when omitted; synthetic: 0.06).
+    hdf5_path : str or None
+        HDF5 files: the table dataset, or the group holding one dataset per column (default:
+        the first table in the file, else the root group's datasets).
     los_axis : int
         Line-of-sight axis of the box estimators (0, 1, 2 for x, y, z).
     hod : str or None
@@ -127,6 +130,7 @@ class BoxConfig:
     columns: dict[str, str] = field(default_factory=dict)
     box_size: float | None = None
     redshift: float | None = None
+    hdf5_path: str | None = None
     los_axis: int = 2
     hod: str | None = None
     sigma8: float = 0.8

@@ -61,7 +61,7 @@ def test_mockbox_synthetic(run, tmp_path):
 
 
 @pytest.mark.parametrize("case,match", [
-    ("nomass", "missing required column 'mass'"),
+    ("nomass", "missing column(s) 'mass'; the file has"),
     ("negative", "non-positive"),
     ("nogalaxy", "no galaxy"),
     ("nosize", "--box-size"),

@@ -11,6 +11,7 @@ import pytest
 from astropy.table import Table
 
 from conecheck.catalog import read_galaxy_box
+from conecheck.errors import InputError
 
 
 def _table(n: int = 50) -> Table:
@@ -35,3 +36,70 @@ def test_each_format_round_trips(tmp_path, suffix):
     assert len(box) == len(t)
     np.testing.assert_array_equal(box.position[:, 0], np.asarray(t["x"]))
     np.testing.assert_array_equal(box.abs_mag, np.asarray(t["abs_mag"]))
+
+
+# --------------------------------------------------------------------------- layouts
+def _vectors(n: int = 40, seed: int = 2) -> dict[str, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    return {"pos": rng.uniform(0, 100.0, (n, 3)), "vel": rng.normal(0, 300.0, (n, 3)),
+            "mag": rng.uniform(-22, -19, n)}
+
+
+def test_n_by_3_columns_map_whole_or_by_component(tmp_path):
+    cols = _vectors()
+    t = Table(cols)
+    t.meta.update(BOXSIZE=100.0, REDSHIFT=0.1)
+    t.write(tmp_path / "b.fits")
+    whole = read_galaxy_box(tmp_path / "b.fits", {"position": "pos", "velocity": "vel",
+                                                  "abs_mag": "mag"})
+    parts = read_galaxy_box(tmp_path / "b.fits", {
+        **{c: f"pos[{i}]" for i, c in enumerate("xyz")},
+        **{f"v{c}": f"vel[{i}]" for i, c in enumerate("xyz")}, "abs_mag": "mag"})
+    np.testing.assert_array_equal(whole.position, cols["pos"])
+    np.testing.assert_array_equal(parts.velocity, cols["vel"])
+    with pytest.raises(InputError, match=r"'pos\[5\]'.*no component 5"):
+        read_galaxy_box(tmp_path / "b.fits", {"x": "pos[5]", "y": "pos[1]", "z": "pos[2]",
+                                              "velocity": "vel"})
+
+
+def test_hdf5_group_of_column_datasets_and_a_chosen_path(tmp_path):
+    h5py = pytest.importorskip("h5py")
+    cols = _vectors()
+    with h5py.File(tmp_path / "b.hdf5", "w") as f:
+        f.create_dataset("header/info", data=np.arange(3))  # something that is not the box
+        g = f.create_group("galaxies")
+        for k, v in cols.items():
+            g.create_dataset(k, data=v)
+        g.attrs["BoxSize"] = 100.0
+        g.attrs["Redshift"] = 0.1
+    box = read_galaxy_box(tmp_path / "b.hdf5", {"position": "pos", "velocity": "vel"},
+                          hdf5_path="galaxies")
+    np.testing.assert_array_equal(box.position, cols["pos"])
+    assert box.box_size == 100.0 and box.redshift == 0.1  # from the group's attributes
+    with pytest.raises(InputError, match=r"no dataset or group 'gals'.*galaxies, header"):
+        read_galaxy_box(tmp_path / "b.hdf5", hdf5_path="gals")
+
+
+def test_missing_columns_name_the_files_columns_and_the_key(tmp_path):
+    t = Table({"px": np.ones(3), "py": np.ones(3), "pz": np.ones(3)})
+    t.meta.update(BOXSIZE=10.0, REDSHIFT=0.1)
+    t.write(tmp_path / "b.fits")
+    with pytest.raises(InputError, match=r"missing column\(s\) 'x', 'y', 'z', 'vx', 'vy', "
+                                         r"'vz'; the file has px, py, pz; .*box\.columns"):
+        read_galaxy_box(tmp_path / "b.fits")
+
+
+def test_check_warns_when_the_box_header_disagrees_with_the_config():
+    from run_helpers import tiny_dict
+
+    from conecheck.config import config_from_dict
+    from conecheck.run.inputs import header_disagreements
+
+    d = tiny_dict(**{"cosmology.omega_m": 0.3})
+    d["box"] = {"source": "file", "path": "b.fits", "box_size": 250.0, "redshift": 0.1}
+    cfg = config_from_dict(d, "c", ".")
+    notes = header_disagreements(cfg, {"BOXSIZE": 500.0, "redshift": 0.1, "Om0": 0.25})
+    assert len(notes) == 2
+    assert "box.box_size = 250" in notes[0] and "BOXSIZE = 500" in notes[0]
+    assert "cosmology.omega_m = 0.3" in notes[1] and "OM0 = 0.25" in notes[1]
+    assert header_disagreements(cfg, {"BOXSIZE": 250.0, "REDSHIFT": 0.1}) == []

@@ -109,7 +109,8 @@ class HaloCatalog:
 
 def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str] | None = None,
                       box_size: float | None = None,
-                      redshift: float | None = None) -> HaloCatalog:
+                      redshift: float | None = None,
+                      hdf5_path: str | None = None) -> HaloCatalog:
     """Read and check a halo catalogue file (FITS, HDF5, ECSV, Parquet, npz).
 
     Parameters
@@ -122,6 +123,8 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
         Box side [Mpc/h]; defaults to the file's BOXSIZE header keyword.
     redshift : float, optional
         Snapshot redshift; defaults to the file's REDSHIFT header keyword.
+    hdf5_path : str, optional
+        HDF5 only: the table dataset or the group of column datasets.
 
     Raises
     ------
@@ -130,7 +133,7 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
         box, radii ≤ 0, concentrations ≤ 1, missing box size or redshift.
     """
     source = str(path)
-    table = read_table(path)
+    table = read_table(path, hdf5_path)
     if column_map:
         table = apply_column_map(table, column_map, source)
     meta = {k.upper(): v for k, v in table.meta.items()}
@@ -148,7 +151,10 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
         raise InputError(f"{source}: box size {box_size!r} must be > 0 Mpc/h")
     if not (np.isfinite(redshift) and 0 <= redshift <= 10):
         raise InputError(f"{source}: redshift {redshift!r} outside 0 <= z <= 10")
-    require_columns(table, list(POSITION_COLUMNS + VELOCITY_COLUMNS) + ["mass"], source)
+    require_columns(table, list(POSITION_COLUMNS + VELOCITY_COLUMNS) + ["mass"], source,
+                    hint="map them with box.columns in a run configuration or --column "
+                         "NAME=COLUMN with conecheck mockbox (position / velocity may name "
+                         "one (N, 3) column)")
     mass = np.asarray(table["mass"], dtype=np.float64)
     if len(mass) == 0:
         raise InputError(f"{source}: halo catalogue is empty")

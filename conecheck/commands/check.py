@@ -19,10 +19,10 @@ from ..box import read_halo_catalog
 from ..catalog import read_table
 from ..cone import volume_limit_zmax
 from ..config import config_warnings, load_config, resolved_toml
-from ..errors import InputError
 from ..run.inputs import (
     SYNTHETIC_BOX_SIZE,
     cosmology_of,
+    header_disagreements,
     hod_model_of,
     input_files,
     load_box,
@@ -45,20 +45,18 @@ def main(args: argparse.Namespace) -> int:
     box = halos = model = None
     if cfg.box.source in ("halos", "synthetic"):
         model = hod_model_of(cfg)  # read and validated as the run will
+    header_notes: list[str] = []
     if cfg.box.source in ("file", "halos"):
-        table = read_table(files["box.path"])
-        missing = [f"{k} -> '{v}'" for k, v in cfg.box.columns.items()
-                   if v not in table.colnames]
-        if missing:
-            raise InputError(f"{files['box.path']}: mapped column(s) not found: "
-                             f"{', '.join(missing)}; available: {', '.join(table.colnames)}")
+        table = read_table(files["box.path"], cfg.box.hdf5_path)
+        header_notes = header_disagreements(cfg, dict(table.meta))
         if cfg.box.source == "file":
             # every check the run makes: dtypes, NaN/inf, positions inside [0, L), units
             box = load_box(cfg)
             box_note = f"{len(box)} galaxies, L = {box.box_size:g} Mpc/h, z = {box.redshift:g}"
         else:
             halos = read_halo_catalog(files["box.path"], cfg.box.columns or None,
-                                      cfg.box.box_size, cfg.box.redshift)
+                                      cfg.box.box_size, cfg.box.redshift,
+                                      hdf5_path=cfg.box.hdf5_path)
             box_note = f"{len(halos)} halos (populated with the HOD at run time)"
     checked = preflight(cfg, fp, box, box_size_of(cfg, SYNTHETIC_BOX_SIZE), force=args.force,
                         model=model, halos=halos)
@@ -81,7 +79,7 @@ def main(args: argparse.Namespace) -> int:
                 flag = "" if cut.z_max <= zlim + 1e-12 else "  NOT volume limited"
                 print(f"# sample {s.name} cut {cut.label}: z {cut.z_min}–{cut.z_max}, "
                       f"volume limit z = {zlim:.4f}{flag}", file=out)
-    for w in config_warnings(cfg):
+    for w in (*config_warnings(cfg), *header_notes):
         print(f"# warning: {w}", file=out)
     print(f"# {args.config}: configuration OK", file=out)
     return 0

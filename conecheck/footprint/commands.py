@@ -92,7 +92,8 @@ def _cmd_build(args: argparse.Namespace) -> int:
 
 def _cmd_from_randoms(args: argparse.Namespace) -> int:
     table = read_table(args.catalogue)
-    require_columns(table, [args.ra_column, args.dec_column], args.catalogue)
+    require_columns(table, [args.ra_column, args.dec_column], args.catalogue,
+                    hint="name them with --ra-column and --dec-column")
     fp = mask_from_randoms(table[args.ra_column], table[args.dec_column], args.nside,
                            nest=args.nest, source=str(args.catalogue))
     fp.write_fits(args.output, dtype=args.dtype)

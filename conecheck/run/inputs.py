@@ -96,7 +96,7 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
     rng = task_rng(cfg.seed, "box")
     if b.source == "halos":
         halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
-                                  b.box_size, b.redshift)
+                                  b.box_size, b.redshift, hdf5_path=b.hdf5_path)
     else:
         halos = synthetic_halos_for(b.box_size or SYNTHETIC_BOX_SIZE,
                                     SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
@@ -111,7 +111,8 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
     cosmo = cosmology_of(cfg)
     if b.source == "file":
         box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,
-                              b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg))
+                              b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg),
+                              hdf5_path=b.hdf5_path)
     else:
         halos, model, rng = box_halos(cfg)
         fill = populate_synthetic if b.source == "synthetic" else populate
@@ -122,6 +123,42 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
     log.info("box: %d galaxies, L = %.1f Mpc/h, z = %.3f (%s)", len(box), box.box_size,
              box.redshift, b.source)
     return box
+
+
+#: Header keywords of a box file that may state the simulation's cosmology (Ω_m, h).
+_HEADER_OMEGA_M = ("OMEGA_M", "OMEGAM", "OM0", "OMEGA0")
+_HEADER_H = ("HUBBLE", "H", "LITTLEH", "HUBBLE_H")
+
+
+def header_disagreements(cfg: RunConfig, meta: dict[str, Any]) -> list[str]:
+    """Where a box file's header disagrees with the configuration (box size, redshift, Ω_m, h).
+
+    The configuration's values win in a run; a disagreement usually means the wrong file or
+    a stale setting, so ``check`` says so.
+    """
+    head = {str(k).upper(): v for k, v in meta.items()}
+    out = []
+
+    def differ(a: Any, b: float, rel: float) -> bool:
+        try:
+            return abs(float(a) - b) > rel * max(abs(b), 1e-12)
+        except (TypeError, ValueError):
+            return False
+
+    b = cfg.box
+    if b.box_size is not None and "BOXSIZE" in head and differ(head["BOXSIZE"], b.box_size, 1e-6):
+        out.append(f"box.box_size = {b.box_size:g} Mpc/h but the file's header says BOXSIZE = "
+                   f"{head['BOXSIZE']}")
+    if b.redshift is not None and "REDSHIFT" in head and differ(head["REDSHIFT"], b.redshift,
+                                                                 1e-3):
+        out.append(f"box.redshift = {b.redshift:g} but the file's header says REDSHIFT = "
+                   f"{head['REDSHIFT']}")
+    for keys, value, name in ((_HEADER_OMEGA_M, cfg.cosmology.omega_m, "cosmology.omega_m"),
+                              (_HEADER_H, cfg.cosmology.h, "cosmology.h")):
+        key = next((k for k in keys if k in head), None)
+        if key is not None and differ(head[key], value, 1e-3):
+            out.append(f"{name} = {value:g} but the file's header says {key} = {head[key]}")
+    return out
 
 
 def load_footprint(cfg: RunConfig) -> Footprint:
