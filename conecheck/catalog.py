@@ -33,6 +33,7 @@ from numpy.typing import NDArray
 
 from .atomic import atomic_path
 from .errors import InputError
+from .units import H_SCALED, to_pipeline_units
 
 log = logging.getLogger(__name__)
 
@@ -373,7 +374,7 @@ class GalaxyBox:
         t = Table()
         for i, c in enumerate(POSITION_COLUMNS):
             t[c] = self.position[:, i]
-            t[c].unit = "Mpc/h"
+            t[c].unit = H_SCALED["Mpc/h"]
         for i, c in enumerate(VELOCITY_COLUMNS):
             t[c] = self.velocity[:, i]
             t[c].unit = "km/s"
@@ -381,6 +382,7 @@ class GalaxyBox:
             val = getattr(self, name)
             if val is not None:
                 t[name] = val
+                t[name].unit = {"abs_mag": "mag", "halo_mass": H_SCALED["Msun/h"]}.get(name)
         t.meta["BOXSIZE"] = float(self.box_size)
         t.meta["REDSHIFT"] = float(self.redshift)
         for k, v in self.meta.items():
@@ -391,11 +393,13 @@ class GalaxyBox:
     @classmethod
     def from_table(cls, table: Table, box_size: float | None = None,
                    redshift: float | None = None, source: str = "catalogue",
-                   require_magnitudes: bool = False) -> GalaxyBox:
+                   require_magnitudes: bool = False,
+                   hubble_h: float | None = None) -> GalaxyBox:
         """Build a box from a canonical-column table, checking every input.
 
         ``box_size`` [Mpc/h] and ``redshift`` default to the table's BOXSIZE/REDSHIFT
-        metadata when not given.
+        metadata when not given. Columns that carry a unit are converted to Mpc/h, km/s and
+        Msun/h (:mod:`conecheck.units`; ``hubble_h`` converts plain Mpc and Msun).
         """
         meta = {k.upper(): v for k, v in table.meta.items()}
         if box_size is None:
@@ -413,8 +417,10 @@ class GalaxyBox:
         if require_magnitudes:
             needed.append("abs_mag")
         require_columns(table, needed, source)
-        pos = np.column_stack([np.asarray(table[c], dtype=np.float64) for c in POSITION_COLUMNS])
-        vel = np.column_stack([np.asarray(table[c], dtype=np.float64) for c in VELOCITY_COLUMNS])
+        pos = np.column_stack([to_pipeline_units(table[c], table[c].unit, "length", c, source,
+                                                 hubble_h) for c in POSITION_COLUMNS])
+        vel = np.column_stack([to_pipeline_units(table[c], table[c].unit, "speed", c, source)
+                               for c in VELOCITY_COLUMNS])
         pos = wrap_positions(pos, box_size, source)
         if np.abs(vel).max() > 2e4:
             raise InputError(f"{source}: peculiar velocities reach {np.abs(vel).max():.3g}; "
@@ -425,6 +431,9 @@ class GalaxyBox:
                 return None
             if name in ("abs_mag", "halo_mass"):
                 require_columns(table, [name], source)
+            if name == "halo_mass":
+                return to_pipeline_units(table[name], table[name].unit, "mass", name, source,
+                                         hubble_h)
             return np.asarray(table[name]).astype(dtype)
 
         abs_mag = opt("abs_mag", np.float64)
@@ -444,15 +453,17 @@ class GalaxyBox:
 def read_galaxy_box(path: str | os.PathLike[str], column_map: Mapping[str, str] | None = None,
                     box_size: float | None = None, redshift: float | None = None,
                     require_magnitudes: bool = False,
-                    hdf5_path: str | None = None) -> GalaxyBox:
+                    hdf5_path: str | None = None, hubble_h: float | None = None) -> GalaxyBox:
     """Read a galaxy-box file, map its columns and check it (see :class:`GalaxyBox`).
 
-    ``hdf5_path``: the dataset or group of an HDF5 file (see :func:`read_table`).
+    ``hdf5_path``: the dataset or group of an HDF5 file (see :func:`read_table`);
+    ``hubble_h``: H0/(100 km/s/Mpc), to convert columns given in Mpc or Msun.
     """
     table = read_table(path, hdf5_path)
     if column_map:
         table = apply_column_map(table, column_map, str(path))
-    return GalaxyBox.from_table(table, box_size, redshift, str(path), require_magnitudes)
+    return GalaxyBox.from_table(table, box_size, redshift, str(path), require_magnitudes,
+                                hubble_h)
 
 
 def write_galaxy_box(box: GalaxyBox, path: str | os.PathLike[str]) -> None:

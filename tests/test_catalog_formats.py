@@ -103,3 +103,50 @@ def test_check_warns_when_the_box_header_disagrees_with_the_config():
     assert "box.box_size = 250" in notes[0] and "BOXSIZE = 500" in notes[0]
     assert "cosmology.omega_m = 0.3" in notes[1] and "OM0 = 0.25" in notes[1]
     assert header_disagreements(cfg, {"BOXSIZE": 250.0, "REDSHIFT": 0.1}) == []
+
+
+def test_input_columns_with_units_are_converted_or_refused(tmp_path):
+    """Mpc is converted with h, kpc/h scaled, m/s to km/s; a time is refused.
+
+    "Mpc/h" in a file parses as megaparsec per hour in astropy; conecheck reads it as
+    the trade means it (conecheck/units.py).
+    """
+    import astropy.units as u
+
+    base = _table(30)
+    base.meta.update(BOXSIZE=100.0, REDSHIFT=0.1)
+    plain = base.copy()
+    for c in ("x", "y", "z"):
+        plain[c] = plain[c] / 0.7  # the same positions in Mpc (h = 0.7)
+        plain[c].unit = u.Mpc
+    plain["vx"] = plain["vx"] * 1000.0
+    plain["vx"].unit = u.m / u.s
+    plain.write(tmp_path / "mpc.fits")
+    got = read_galaxy_box(tmp_path / "mpc.fits", hubble_h=0.7)
+    np.testing.assert_allclose(got.position[:, 0], base["x"], rtol=1e-12)
+    np.testing.assert_allclose(got.velocity[:, 0], base["vx"], rtol=1e-12)
+    with pytest.raises(InputError, match=r"column 'x' is in Mpc \(no h\).*cosmology\.h"):
+        read_galaxy_box(tmp_path / "mpc.fits")
+    hscaled = base.copy()
+    hscaled["x"].unit = "Mpc/h"  # written as the trade writes it
+    hscaled["y"] = hscaled["y"] * 1000.0
+    hscaled["y"].unit = "kpc/h"
+    hscaled.write(tmp_path / "h.fits")
+    got = read_galaxy_box(tmp_path / "h.fits")
+    np.testing.assert_allclose(got.position, np.column_stack([base["x"], base["y"],
+                                                               base["z"]]), rtol=1e-12)
+    wrong = base.copy()
+    wrong["z"].unit = u.s
+    wrong.write(tmp_path / "s.fits")
+    with pytest.raises(InputError, match=r"column 'z' is in s; expected Mpc/h"):
+        read_galaxy_box(tmp_path / "s.fits")
+
+
+def test_statistic_tables_carry_units():
+    from conecheck.report.tables import statistic_table
+
+    d = {"bins": [1.0, 2.0], "box": [3.0, 4.0], "cone_mean": [3.0, 4.0],
+         "cones": [[3.0, 4.0]], "bin_label": "r_p [Mpc/h]", "value_label": "w_p(r_p) [Mpc/h]"}
+    t = statistic_table(d, "s", "c", "wp")
+    assert str(t["bin"].unit) == str(t["box"].unit) == str(t["cone_000"].unit) == "Mpc / h"
+    assert t["z"].unit is None  # z-scores are numbers

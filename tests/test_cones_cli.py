@@ -30,6 +30,15 @@ def test_cones_command_writes_cones_randoms_and_manifest(tmp_path):
     rnd = Table.read(tmp_path / "cones" / "randoms_broad__primary.fits")
     assert len(rnd) > 3 * len(cone[np.asarray(cone["abs_mag"]) < -20.0])
     assert np.all(np.asarray(rnd["region"]) >= 0)
+    # the cone's own header says how it was made, without the manifest
+    from astropy.io import fits
+
+    head = fits.getheader(tmp_path / "cones" / "cone_000.fits", 1)
+    info = man["cones"][0]
+    assert [head["OBS_X"], head["OBS_Y"], head["OBS_Z"]] == info["observer_mpch"]
+    assert head["NREPLIC"] == info["n_replicas"] and head["SEED"] == d["seed"]
+    assert head["OMEGA_M"] == d["cosmology"]["omega_m"] and head["CONECHK"]
+    assert head["TUNIT" + str(cone.colnames.index("chi_obs") + 1)].startswith("Mpc")
 
 
 def test_cones_command_refuses_a_file_as_output(tmp_path, capsys):

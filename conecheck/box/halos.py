@@ -35,6 +35,7 @@ from ..catalog import (
     wrap_positions,
 )
 from ..errors import InputError
+from ..units import to_pipeline_units
 
 
 @dataclass
@@ -110,7 +111,8 @@ class HaloCatalog:
 def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str] | None = None,
                       box_size: float | None = None,
                       redshift: float | None = None,
-                      hdf5_path: str | None = None) -> HaloCatalog:
+                      hdf5_path: str | None = None,
+                      hubble_h: float | None = None) -> HaloCatalog:
     """Read and check a halo catalogue file (FITS, HDF5, ECSV, Parquet, npz).
 
     Parameters
@@ -125,6 +127,9 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
         Snapshot redshift; defaults to the file's REDSHIFT header keyword.
     hdf5_path : str, optional
         HDF5 only: the table dataset or the group of column datasets.
+    hubble_h : float, optional
+        H0/(100 km/s/Mpc): converts columns given in Mpc or Msun (columns with a unit are
+        converted, see :mod:`conecheck.units`).
 
     Raises
     ------
@@ -155,7 +160,7 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
                     hint="map them with box.columns in a run configuration or --column "
                          "NAME=COLUMN with conecheck mockbox (position / velocity may name "
                          "one (N, 3) column)")
-    mass = np.asarray(table["mass"], dtype=np.float64)
+    mass = to_pipeline_units(table["mass"], table["mass"].unit, "mass", "mass", source, hubble_h)
     if len(mass) == 0:
         raise InputError(f"{source}: halo catalogue is empty")
     if np.any(mass <= 0):
@@ -165,9 +170,11 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
     if mass.max() < 1e5:
         raise InputError(f"{source}: column 'mass' peaks at {mass.max():.4g}; expected Msun/h "
                          "(not log10 M or units of 1e10 Msun/h)")
-    pos = wrap_positions(np.column_stack([np.asarray(table[c], dtype=np.float64)
-                                          for c in POSITION_COLUMNS]), box_size, source)
-    vel = np.column_stack([np.asarray(table[c], dtype=np.float64) for c in VELOCITY_COLUMNS])
+    pos = wrap_positions(np.column_stack([
+        to_pipeline_units(table[c], table[c].unit, "length", c, source, hubble_h)
+        for c in POSITION_COLUMNS]), box_size, source)
+    vel = np.column_stack([to_pipeline_units(table[c], table[c].unit, "speed", c, source)
+                           for c in VELOCITY_COLUMNS])
     if np.abs(vel).max() > 2e4:
         raise InputError(f"{source}: halo velocities reach {np.abs(vel).max():.3g}; expected km/s")
 
@@ -175,7 +182,9 @@ def read_halo_catalog(path: str | os.PathLike[str], column_map: Mapping[str, str
         if name not in table.colnames:
             return None
         require_columns(table, [name], source)
-        col = np.asarray(table[name], dtype=np.float64)
+        col = (to_pipeline_units(table[name], table[name].unit, "length", name, source,
+                                 hubble_h) if name == "rvir"
+               else np.asarray(table[name], dtype=np.float64))
         if np.any(col <= lower):
             raise InputError(f"{source}: column '{name}' has values <= {lower} (min "
                              f"{col.min():.4g})")

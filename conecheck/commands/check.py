@@ -56,7 +56,8 @@ def main(args: argparse.Namespace) -> int:
         else:
             halos = read_halo_catalog(files["box.path"], cfg.box.columns or None,
                                       cfg.box.box_size, cfg.box.redshift,
-                                      hdf5_path=cfg.box.hdf5_path)
+                                      hdf5_path=cfg.box.hdf5_path,
+                                      hubble_h=cfg.cosmology.h)
             box_note = f"{len(halos)} halos (populated with the HOD at run time)"
     checked = preflight(cfg, fp, box, box_size_of(cfg, SYNTHETIC_BOX_SIZE), force=args.force,
                         model=model, halos=halos)

@@ -13,7 +13,19 @@ import dataclasses
 import logging
 from pathlib import Path
 
+from .. import __version__
+from ..cone import write_cones_directory
+from ..cone.build import prepare_box
 from ..config import load_config
+from ..errors import InputError
+from ..run.inputs import load_box, load_footprint, sky_regions
+from ..run.tasks import (
+    cone_table,
+    cut_randoms,
+    expected_count,
+    sample_density,
+    shuffle_distances,
+)
 
 log = logging.getLogger(__name__)
 
@@ -25,27 +37,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    from ..cone import write_cones_directory
-    from ..run.inputs import load_box, load_footprint, sky_regions
-    from ..run.tasks import (
-        cone_table,
-        cut_randoms,
-        expected_count,
-        sample_density,
-        shuffle_distances,
-    )
-
     cfg = load_config(args.config)
     out = Path(args.out)
     if out.exists() and not out.is_dir():
-        from ..errors import InputError
         raise InputError(f"--out {out}: exists and is a file, not a directory")
     box = load_box(cfg)
     footprint = load_footprint(cfg)
     regions = sky_regions(cfg, footprint)
     n = cfg.cones.n_cones if args.cones is None else max(1, min(args.cones, cfg.cones.n_cones))
-    from ..cone.build import prepare_box
-
     cells = prepare_box(box)
     cones = []
     for i in range(n):
@@ -64,7 +63,8 @@ def main(args: argparse.Namespace) -> int:
             randoms[f"{s.name}__{cut.label}"] = cut_randoms(
                 cfg, footprint, s, cut, expected_count(cfg, footprint, cut, density), data_chi)
     manifest = {"config": str(Path(args.config).resolve()), "seed": cfg.seed,
-                "config_hash": cfg.config_hash,
+                "config_hash": cfg.config_hash, "version": __version__,
+                "cosmology": dataclasses.asdict(cfg.cosmology),
                 "effects": dataclasses.asdict(cfg.effects),
                 "correction": cfg.correction.name,
                 "samples": {s.name: [dataclasses.asdict(c) for c in s.cuts]

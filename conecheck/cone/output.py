@@ -56,13 +56,45 @@ def _select(table: Table, columns: Sequence[str]) -> Table:
     return out
 
 
+def cone_header(info: Mapping[str, Any], manifest: Mapping[str, Any]) -> dict[str, Any]:
+    """FITS header keywords of a cone: how it was made, readable without the manifest.
+
+    Observer [Mpc/h], rotation (ZYZ Euler angles [deg]), periodic replicas, cosmology,
+    run seed, configuration hash and conecheck version (8-character keywords).
+    """
+    head: dict[str, Any] = {}
+    obs = info.get("observer_mpch")
+    if obs is not None and len(obs) == 3:
+        head.update({"OBS_X": float(obs[0]), "OBS_Y": float(obs[1]), "OBS_Z": float(obs[2])})
+    euler = info.get("euler_zyz_deg")
+    if euler is not None and len(euler) == 3:
+        head.update({"EULER_Z1": float(euler[0]), "EULER_Y": float(euler[1]),
+                     "EULER_Z2": float(euler[2])})
+    for key, name in (("n_replicas", "NREPLIC"), ("cone_index", "CONE_IDX"),
+                      ("n_repeated", "NREPEAT")):
+        if info.get(key) is not None:
+            head[name] = int(info[key])
+    cosmo = manifest.get("cosmology") or {}
+    for key, name in (("omega_m", "OMEGA_M"), ("omega_k", "OMEGA_K"), ("h", "HUBBLE_H")):
+        if cosmo.get(key) is not None:
+            head[name] = float(cosmo[key])
+    for key, name in (("seed", "SEED"), ("config_hash", "CFGHASH"), ("version", "CONECHK")):
+        if manifest.get(key) is not None:
+            head[name] = str(manifest[key])[:68] if key != "seed" else int(manifest[key])
+    return head
+
+
 def write_cone(table: Table, path: str | os.PathLike[str], regions: Any = None,
-               columns: Sequence[str] = CONE_COLUMNS) -> None:
+               columns: Sequence[str] = CONE_COLUMNS,
+               header: Mapping[str, Any] | None = None) -> None:
     """Write a cone (FITS by default, format from the name), adding ``region`` if given.
 
-    ``regions`` is a jackknife layout with ``region_of(ra_deg, dec_deg)``.
+    ``regions`` is a jackknife layout with ``region_of(ra_deg, dec_deg)``; ``header`` adds
+    keywords (see :func:`cone_header`).
     """
-    write_table(_select(_with_region(table, regions), columns), path)
+    out = _select(_with_region(table, regions), columns)
+    out.meta.update(header or {})
+    write_table(out, path)
 
 
 def write_randoms(table: Table, path: str | os.PathLike[str], regions: Any = None) -> None:
@@ -116,7 +148,7 @@ def write_cones_directory(outdir: str | os.PathLike[str],
     for i, item in enumerate(cones):
         table, info = (item if isinstance(item, tuple) else (item, {}))
         name = f"cone_{i:03d}.fits"
-        write_cone(table, out / name, regions)
+        write_cone(table, out / name, regions, header=cone_header(info, manifest or {}))
         files.append({"kind": "cone", "index": i, "file": name, "rows": len(table)})
         infos.append(dict(info))
     for label, table in (randoms or {}).items():

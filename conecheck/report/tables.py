@@ -13,6 +13,7 @@ from astropy.table import Table
 from ..atomic import atomic_path
 from ..compare.jsonsafe import as_float_array
 from ..errors import InputError
+from ..units import written_unit
 from .access import iter_stats
 
 #: Per-bin columns copied from the statistic record (missing ones are filled with NaN).
@@ -53,6 +54,13 @@ def statistic_table(d: dict[str, Any], sample: str = "", cut: str = "", stat: st
         t[f"cone_{i:0{width}d}"] = cones[i]
     for key in BIN_COLUMNS[2:]:
         t[key] = cols[key]
+    # units from the labels, e.g. "r_p [Mpc/h]" (h-scaled units as conecheck.units writes)
+    t["bin"].unit = written_unit(str(d.get("bin_label") or ""))
+    value_unit = written_unit(str(d.get("value_label") or ""))
+    for name in t.colnames:
+        if name in ("box", "cone_mean", "sigma_box", "sigma_cone", "sigma_total",
+                    "detectable_offset", "offset", "sigma_offset") or name.startswith("cone_"):
+            t[name].unit = value_unit
     t.meta.update({"sample": sample, "cut": cut, "statistic": stat})
     for key in META_KEYS:
         if key in d:

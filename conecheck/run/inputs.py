@@ -96,7 +96,8 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
     rng = task_rng(cfg.seed, "box")
     if b.source == "halos":
         halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
-                                  b.box_size, b.redshift, hdf5_path=b.hdf5_path)
+                                  b.box_size, b.redshift, hdf5_path=b.hdf5_path,
+                                  hubble_h=cfg.cosmology.h)
     else:
         halos = synthetic_halos_for(b.box_size or SYNTHETIC_BOX_SIZE,
                                     SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
@@ -112,7 +113,7 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
     if b.source == "file":
         box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,
                               b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg),
-                              hdf5_path=b.hdf5_path)
+                              hdf5_path=b.hdf5_path, hubble_h=cfg.cosmology.h)
     else:
         halos, model, rng = box_halos(cfg)
         fill = populate_synthetic if b.source == "synthetic" else populate
