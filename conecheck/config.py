@@ -86,6 +86,12 @@ class CosmologyConfig:
             raise InputError("; ".join(problems), problems)
 
 
+#: Side [Mpc/h] and snapshot redshift of the synthetic box when neither the configuration
+#: nor the command line gives them (`run` and `mockbox` share them).
+SYNTHETIC_BOX_SIZE = 250.0
+SYNTHETIC_REDSHIFT = 0.06
+
+
 @dataclass(frozen=True)
 class BoxConfig:
     """The periodic galaxy box the model predictions come from.

@@ -60,6 +60,24 @@ def test_mockbox_synthetic(run, tmp_path):
     assert "threshold" in t.meta["HODPARS"]
 
 
+def test_mockbox_synthetic_defaults_are_the_runs():
+    """`mockbox --synthetic` and a run's synthetic box start from the same settings."""
+    import argparse
+
+    from conecheck.box.commands import add_arguments
+    from conecheck.config import SYNTHETIC_BOX_SIZE, BoxConfig, CosmologyConfig
+    from conecheck.cosmology import Cosmology
+
+    p = argparse.ArgumentParser()
+    add_arguments(p)
+    args = p.parse_args(["--synthetic", "-o", "x.fits"])
+    assert (args.sigma8, args.n_s, args.omega_b) == (BoxConfig.sigma8, BoxConfig.n_s,
+                                                     BoxConfig.omega_b)
+    assert (args.omega_m, args.hubble_h) == (CosmologyConfig.omega_m, CosmologyConfig.h)
+    assert args.box_size is None and SYNTHETIC_BOX_SIZE == 250.0  # filled in by main
+    assert Cosmology(omega_m=args.omega_m, h=args.hubble_h).h == CosmologyConfig.h
+
+
 @pytest.mark.parametrize("case,match", [
     ("nomass", "missing column(s) 'mass'; the file has"),
     ("negative", "non-positive"),
@@ -80,8 +98,13 @@ def test_mockbox_bad_input_exit_2(run, tmp_path, capsys, case, match):
     elif case == "nogalaxy":
         args = ["--halos", str(halo_file(halos, mass=np.full(3000, 1e11))),
                 "--column", "x=X", "--column", "mass=M200m"]
-    elif case == "nosize":
-        args = ["--synthetic"]
+    elif case == "nosize":  # a halo file without a BOXSIZE header and no --box-size
+        from astropy.table import Table as _T
+
+        t = _T.read(halo_file(halos))
+        del t.meta["BOXSIZE"]
+        t.write(halos, overwrite=True)
+        args = ["--halos", str(halos), "--column", "x=X", "--column", "mass=M200m"]
     else:
         args = ["--synthetic", "--box-size", "20", "--grid", "64"]
     assert run(*args, "-o", out) == 2

@@ -21,6 +21,7 @@ import time
 import numpy as np
 
 from ..catalog import file_sha256, write_galaxy_box
+from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, BoxConfig, CosmologyConfig
 from ..cosmology import Cosmology
 from ..errors import InputError
 from .halos import read_halo_catalog
@@ -30,7 +31,6 @@ from .synthetic import make_synthetic_box
 
 log = logging.getLogger(__name__)
 
-DEFAULT_SYNTHETIC_REDSHIFT = 0.2
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -46,10 +46,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--hod", metavar="PARAMS.toml",
                         help="HOD parameters (TOML); default: the built-in illustrative model")
     parser.add_argument("--box-size", type=float, metavar="L",
-                        help="box side in Mpc/h (halo file: default from its BOXSIZE header)")
+                        help="box side in Mpc/h (halo file: default from its BOXSIZE header; "
+                             f"synthetic: default {SYNTHETIC_BOX_SIZE:g}, as `run`)")
     parser.add_argument("--redshift", type=float, metavar="Z",
                         help="snapshot redshift (halo file: default from its REDSHIFT header; "
-                             f"synthetic: default {DEFAULT_SYNTHETIC_REDSHIFT})")
+                             f"synthetic: default {SYNTHETIC_REDSHIFT:g}, as `run`)")
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     parser.add_argument("--column", action="append", default=[], metavar="NAME=COLUMN",
                         help="map a canonical halo column to the file's name (repeatable), "
@@ -59,11 +60,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                      help="FFT cells per side (even; default cells of about 2 Mpc/h, <= 256)")
     syn.add_argument("--m-min", type=float, metavar="M",
                      help="smallest halo mass in Msun/h (default: from the HOD)")
-    syn.add_argument("--sigma8", type=float, default=0.81, help="sigma_8 (default 0.81)")
-    syn.add_argument("--n-s", type=float, default=0.965, help="spectral index (default 0.965)")
-    syn.add_argument("--omega-b", type=float, default=0.049, help="Omega_b (default 0.049)")
-    parser.add_argument("--omega-m", type=float, default=0.31,
-                        help="Omega_m (flat LCDM; default 0.31)")
+    # the defaults of a run's [box] and [cosmology], so both make the same synthetic box
+    syn.add_argument("--sigma8", type=float, default=BoxConfig.sigma8,
+                     help=f"sigma_8 (default {BoxConfig.sigma8:g})")
+    syn.add_argument("--n-s", type=float, default=BoxConfig.n_s,
+                     help=f"spectral index (default {BoxConfig.n_s:g})")
+    syn.add_argument("--omega-b", type=float, default=BoxConfig.omega_b,
+                     help=f"Omega_b (default {BoxConfig.omega_b:g})")
+    parser.add_argument("--omega-m", type=float, default=CosmologyConfig.omega_m,
+                        help=f"Omega_m (flat LCDM; default {CosmologyConfig.omega_m:g})")
+    parser.add_argument("--hubble-h", type=float, default=CosmologyConfig.h,
+                        help=f"h = H0/(100 km/s/Mpc), to convert halo columns given in Mpc or "
+                             f"Msun (default {CosmologyConfig.h:g})")
 
 
 def _column_map(items: list[str]) -> dict[str, str]:
@@ -89,7 +97,7 @@ def main(args: argparse.Namespace) -> int:
     t0 = time.perf_counter()
     if not (0.05 < args.omega_m < 1.0):
         raise InputError(f"--omega-m {args.omega_m}: expected 0.05 < Omega_m < 1")
-    cosmology = Cosmology(omega_m=args.omega_m)
+    cosmology = Cosmology(omega_m=args.omega_m, h=args.hubble_h)
     model: HODModel = load_hod(args.hod) if args.hod else default_hod_model()
     rng = np.random.default_rng(args.seed)
     meta: dict[str, object] = {"SEED": int(args.seed),
@@ -97,19 +105,18 @@ def main(args: argparse.Namespace) -> int:
     if args.hod:
         meta["HODFILE"] = str(args.hod)
     if args.synthetic:
-        if args.box_size is None:
-            raise InputError("--synthetic needs --box-size L (Mpc/h)")
         if args.column:
             raise InputError("--column applies to --halos files only")
-        z = DEFAULT_SYNTHETIC_REDSHIFT if args.redshift is None else args.redshift
-        box = make_synthetic_box(args.box_size, z, cosmology, args.sigma8, args.n_s,
+        z = SYNTHETIC_REDSHIFT if args.redshift is None else args.redshift
+        size = SYNTHETIC_BOX_SIZE if args.box_size is None else args.box_size
+        box = make_synthetic_box(size, z, cosmology, args.sigma8, args.n_s,
                                  args.omega_b, model, rng, grid=args.grid, m_min=args.m_min)
     else:
         for opt in ("grid", "m_min"):
             if getattr(args, opt) is not None:
                 raise InputError(f"--{opt.replace('_', '-')} applies to --synthetic only")
         halos = read_halo_catalog(args.halos, _column_map(args.column) or None,
-                                  args.box_size, args.redshift)
+                                  args.box_size, args.redshift, hubble_h=args.hubble_h)
         box = populate(halos, model, rng, cosmology)
         meta.update({"BOXMADE": "halo catalogue + HOD (conecheck)",
                      "HALOSHA": file_sha256(args.halos), "NHALO": len(halos)})

@@ -18,9 +18,8 @@ import sys
 from ..box import read_halo_catalog
 from ..catalog import read_table
 from ..cone import volume_limit_zmax
-from ..config import config_warnings, load_config, resolved_toml
+from ..config import SYNTHETIC_BOX_SIZE, config_warnings, load_config, resolved_toml
 from ..run.inputs import (
-    SYNTHETIC_BOX_SIZE,
     cosmology_of,
     header_disagreements,
     hod_model_of,

@@ -20,7 +20,7 @@ from ..box.hod import HODModel
 from ..box.synthetic import populate_synthetic, synthetic_halos_for
 from ..catalog import GalaxyBox, file_sha256, read_galaxy_box
 from ..cone import SurveyModel
-from ..config import RunConfig
+from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, RunConfig
 from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint import Footprint, jackknife_regions
@@ -29,9 +29,6 @@ from .execute import task_rng
 
 log = logging.getLogger(__name__)
 
-#: Defaults of the synthetic box when the config leaves them out.
-SYNTHETIC_BOX_SIZE = 250.0
-SYNTHETIC_REDSHIFT = 0.06
 #: N_side of the full-sky footprint used when the footprint effect is switched off.
 FULL_SKY_NSIDE = 32
 

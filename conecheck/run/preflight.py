@@ -28,10 +28,10 @@ from ..box.sensitivity import DEFAULT_STEPS
 from ..catalog import GalaxyBox
 from ..cone.fibres import load_overlap_map
 from ..cone.geometry import check_observer, replica_offsets
-from ..config import RunConfig
+from ..config import SYNTHETIC_REDSHIFT, RunConfig
 from ..errors import InputError
 from ..footprint import Footprint
-from .inputs import SYNTHETIC_REDSHIFT, cosmology_of
+from .inputs import cosmology_of
 
 #: Cones above this many are refused without ``--force``: a validation needs tens, and a
 #: mistyped exponent should not start a run that cannot end.
