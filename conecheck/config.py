@@ -29,6 +29,8 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Literal
 
+from astropy import cosmology as apc
+
 from .compare.rules import VerdictRules
 from .cone.settings import (
     CorrectionSettings,
@@ -67,12 +69,17 @@ class CosmologyConfig:
     omega_k : float
         Curvature density parameter (0: flat).
     h : float
-        H0 / (100 km/s/Mpc); used only for magnitudes.
+        H0 / (100 km/s/Mpc); used for magnitudes and to convert input columns in Mpc or Msun.
+    realisation : str or None
+        Name of an astropy realisation (Planck18, WMAP9, …) whose Ω_m, Ω_k and h are used
+        instead of the three keys above (radiation and neutrinos are left out: comoving
+        distances then differ from astropy's by < 6·10⁻⁴ up to z = 0.5 for Planck18).
     """
 
     omega_m: float = 0.3
     omega_k: float = 0.0
     h: float = 0.7
+    realisation: str | None = None
 
     def __post_init__(self) -> None:
         problems = []
@@ -804,6 +811,42 @@ def _prefix(path: str, problem: str) -> str:
     return f"{path}: {problem}"
 
 
+def _astropy_values(cosmo: Any) -> dict[str, float]:
+    """Ω_m, Ω_k and h of an astropy cosmology object."""
+    return {"omega_m": float(cosmo.Om0), "omega_k": float(cosmo.Ok0),
+            "h": float(cosmo.H0.to_value("km / (Mpc s)")) / 100.0}
+
+
+def _cosmology_table(table: Any, problems: list[str]) -> Any:
+    """The [cosmology] table with an astropy object or a named realisation resolved.
+
+    From Python, ``cosmology`` may be an astropy Cosmology instance; in a file,
+    ``realisation = "Planck18"`` names one of astropy's realisations and then stands alone.
+    """
+    if isinstance(table, apc.Cosmology):
+        return {**_astropy_values(table), "realisation": table.name or None}
+    if not isinstance(table, Mapping) or table.get("realisation") is None:
+        return table
+    name = table["realisation"]
+    if isinstance(name, str) and name in apc.realizations.available:
+        values = _astropy_values(getattr(apc, name))
+        # a resolved configuration repeats the realisation's values: they may stay
+        others = sorted(k for k in set(table) - {"realisation"}
+                        if not (k in values and isinstance(table[k], (int, float))
+                                and math.isclose(table[k], values[k], rel_tol=1e-12)))
+    else:
+        others = []
+    if others:
+        problems.append(f"cosmology.realisation = {name!r} sets Ω_m, Ω_k and h; remove "
+                        f"{', '.join(f'cosmology.{k}' for k in others)} or the realisation")
+        return None
+    if not isinstance(name, str) or name not in apc.realizations.available:
+        problems.append(f"cosmology.realisation = {name!r}: expected one of astropy's "
+                        f"{', '.join(apc.realizations.available)}")
+        return None
+    return {**_astropy_values(getattr(apc, name)), "realisation": name}
+
+
 def build_section(cls: type, table: Any, path: str, problems: list[str],
                   skip: tuple[str, ...] = (), extra: Mapping[str, Any] | None = None) -> Any:
     """Build dataclass ``cls`` from a TOML table, appending problems (with key paths).
@@ -988,8 +1031,9 @@ def config_from_dict(data: Mapping[str, Any], source: str = "<dict>",
         problems.append("survey: expected a table")
         survey = {}
     parts: dict[str, Any] = {
-        "cosmology": build_section(CosmologyConfig, data.get("cosmology"), "cosmology",
-                                   problems),
+        "cosmology": build_section(CosmologyConfig, _cosmology_table(data.get("cosmology"),
+                                                                     problems),
+                                   "cosmology", problems),
         "box": build_section(BoxConfig, data.get("box"), "box", problems),
         "survey": build_section(SurveyFiles, survey, "survey", problems,
                                 skip=tuple(_SURVEY_SUBTABLES)),

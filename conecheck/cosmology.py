@@ -13,6 +13,7 @@ better than 1e-6 over 0 ≤ z ≤ ``z_max_table``.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -80,6 +81,18 @@ class Cosmology:
         object.__setattr__(self, "_z_spline", CubicSpline(chi, z))
 
     # ------------------------------------------------------------------ basics
+    @classmethod
+    def from_astropy(cls, cosmo: Any) -> Cosmology:
+        """The Ω_m, Ω_k and h of an astropy cosmology (radiation and neutrinos left out).
+
+        Parameters
+        ----------
+        cosmo : astropy.cosmology.Cosmology
+            Any astropy FLRW cosmology, e.g. ``astropy.cosmology.Planck18``.
+        """
+        return cls(omega_m=float(cosmo.Om0), omega_k=float(cosmo.Ok0),
+                   h=float(cosmo.H0.to_value("km / (Mpc s)")) / 100.0)
+
     @property
     def omega_lambda(self) -> float:
         """Dark-energy density today, Ω_Λ = 1 − Ω_m − Ω_k."""
