@@ -13,6 +13,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import logging
+import os
 import sys
 from collections.abc import Sequence
 
@@ -98,6 +99,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 EXIT_INTERRUPTED = 130  # the shell's convention for a process stopped by SIGINT
+EXIT_PIPE_CLOSED = 141  # ... and for one whose reader went away (128 + SIGPIPE)
+
+
+def _quiet_stdout() -> None:
+    """Point stdout at /dev/null so the interpreter's final flush cannot fail again."""
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -110,6 +118,11 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("conecheck: interrupted; finished tasks are kept and a re-run resumes.",
               file=sys.stderr)
         return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        # `conecheck mask info X | head`: the reader has what it wanted; end quietly, as
+        # a shell tool killed by SIGPIPE does (Python's documented recipe for SIGPIPE)
+        _quiet_stdout()
+        return EXIT_PIPE_CLOSED
 
 
 def _main(argv: Sequence[str] | None) -> int:
@@ -132,6 +145,8 @@ def _main(argv: Sequence[str] | None) -> int:
     except ConecheckError as exc:
         print(f"conecheck {args.command}: error: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    except BrokenPipeError:
+        raise  # not a problem of the input: handled in main
     except OSError as exc:
         # The environment, not a verdict: an unwritable directory, a full disk, a vanished
         # file. Exit code 2 with the path, never the code that means "a statistic fails".

@@ -392,3 +392,20 @@ def test_force_turns_resource_limits_into_notes(tmp_path, capsys):
     assert main(["check", cfg, "--force"]) == 0
     err = capsys.readouterr().err
     assert re.search(r"forced past a limit: .*core-hours", err), err
+
+
+def test_a_closed_output_pipe_ends_quietly():
+    """`conecheck mask info MASK | head`: no traceback, no error, the shell's SIGPIPE code."""
+    import subprocess
+    import sys
+
+    from conecheck.config import resolve_path
+
+    mask = str(resolve_path("builtin:kestrel"))
+    p = subprocess.Popen([sys.executable, "-m", "conecheck.cli", "mask", "info", mask],
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    assert p.stdout is not None and p.stderr is not None
+    p.stdout.close()  # the reader goes away while the interpreter is still starting
+    err = p.stderr.read().decode()
+    assert p.wait() == 141, err
+    assert "Traceback" not in err and "error" not in err, err
