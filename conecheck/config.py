@@ -391,6 +391,8 @@ class OutputConfig:
         Also write every cone and the randoms as FITS under ``<directory>/cones``.
     cache : bool
         Keep finished tasks on disk so a re-run or an interrupted run resumes.
+    pdf : bool
+        Write validation.pdf (``conecheck report DIR`` draws it later from results.json).
     html : bool
         Also write validation.html: the report as one self-contained web page.
     """
@@ -398,6 +400,7 @@ class OutputConfig:
     directory: str = "reports/run"
     write_cones: bool = False
     cache: bool = True
+    pdf: bool = True
     html: bool = True
 
 

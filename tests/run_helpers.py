@@ -21,9 +21,9 @@ def tiny_dict(one_sample: bool = True, **changes: Any) -> dict[str, Any]:
     A value of ``None`` deletes the key.
     """
     d = copy.deepcopy(demo_dict(quick=True))
-    # The HTML page redraws every figure (seconds per run); the demo and the report tests
-    # cover it, the many small runs here do not need it.
-    d.setdefault("output", {})["html"] = False
+    # The PDF and HTML pages take seconds per run; the demo and the report tests draw them,
+    # the many small runs that check numbers here do not need them.
+    d.setdefault("output", {}).update(pdf=False, html=False)
     if one_sample:
         d["samples"] = [d["samples"][0]]
         d["samples"][0]["alt_cuts"] = []

@@ -247,10 +247,12 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         results["provenance"]["timings"] = dict(inp.timings)
         if cache is not None:
             results["provenance"]["cache"] = dict(cache.stats)
-        t0 = time.perf_counter()
-        pages = build_pages(results, run_dir)
-        n_pages = render_report(results, run_dir, run_dir / "validation.pdf", pages)
-        inp.timings["pdf"] = time.perf_counter() - t0
+        pages = build_pages(results, run_dir) if cfg.output.pdf or cfg.output.html else []
+        n_pages = 0
+        if cfg.output.pdf:
+            t0 = time.perf_counter()
+            n_pages = render_report(results, run_dir, run_dir / "validation.pdf", pages)
+            inp.timings["pdf"] = time.perf_counter() - t0
         if cfg.output.html:
             t0 = time.perf_counter()
             render_html(results, run_dir, run_dir / "validation.html", pages)
@@ -259,9 +261,11 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         # results.json keeps the complete timings (the PDF cannot contain its own)
         results["provenance"]["timings"] = dict(inp.timings)
         results_to_json(results, run_dir / "results.json")
-        log.info("wrote %s (%d pages), results.json and %d tables", run_dir / "validation.pdf",
-                 n_pages, sum(len(c["statistics"]) for s in results["samples"].values()
-                              for c in s["cuts"].values()))
+        log.info("wrote %s, results.json and %d tables",
+                 f"{run_dir / 'validation.pdf'} ({n_pages} pages)" if cfg.output.pdf
+                 else "no PDF (output.pdf = false)",
+                 sum(len(c["statistics"]) for s in results["samples"].values()
+                     for c in s["cuts"].values()))
         for stage, sec in inp.timings.items():
             log.info("timing: %s %.1f s", stage, sec)
         if cache is not None:
@@ -290,7 +294,7 @@ def _warn_repeats(repeated: list[int], galaxies: list[int], box_size: float) -> 
     if not hit:
         return
     worst = max(r / g if g else 0.0 for r, g in hit)
-    log.warning("%d of %d cones hold some box galaxies twice (up to %.1f %% of a cone's "
+    log.warning("%d of %d cones hold some box galaxies twice (up to %.2g %% of a cone's "
                 "galaxies): the shell is wider than the box side L = %g Mpc/h, so structures "
                 "repeat within a cone; a larger box or a shallower shell avoids it",
                 len(hit), len(repeated), 100 * worst, box_size)
@@ -353,8 +357,9 @@ def print_summary(results: dict[str, Any], run_dir: Path, stream: Any = None) ->
     """The terminal verdict table and where the outputs are."""
     stream = stream or sys.stdout
     print(summary_table(results), file=stream)
-    print(f"\nreport: {run_dir / 'validation.pdf'}\nresults: {run_dir / 'results.json'}",
-          file=stream)
+    pdf = run_dir / "validation.pdf"
+    where = pdf if pdf.is_file() else f"not drawn (`conecheck report {run_dir}` draws it)"
+    print(f"\nreport: {where}\nresults: {run_dir / 'results.json'}", file=stream)
 
 
 __all__ = ["INDEPENDENCE_NOTE_SHARED", "TaskCache", "compare_all", "output_dir",
