@@ -218,6 +218,8 @@ def test_missing_sections_are_stated(tmp_path):
     assert [s.axes for s in specs if s.kind == "footprint"] == [()]
     texts = []
     for i, spec in enumerate(specs, 1):
+        if spec.kind not in ("footprint", "provenance", "fibres", "nz"):
+            continue  # the pages that lost their data; every page is drawn by the next test
         fig = draw_page(results, spec, i, len(specs))
         _check_figure(fig, spec.axes)
         texts += [t.get_text() for t in fig.findobj(matplotlib.text.Text)]

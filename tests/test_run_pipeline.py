@@ -263,7 +263,9 @@ def test_a_full_disk_while_writing_the_report_exits_2_naming_the_file(tmp_path, 
         raise OSError(errno.ENOSPC, "No space left on device", str(out_pdf))
 
     monkeypatch.setattr(validate_mod, "render_report", full)
-    code = main(["demo", "--quick", "--out", str(tmp_path / "run"), "-q"])
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(tomli_w.dumps(tiny_dict(**{"output.pdf": True})), encoding="utf-8")
+    code = main(["run", str(cfg), "--out", str(tmp_path / "run"), "-q"])
     err = capsys.readouterr().err
     assert code == 2 and "No space left on device" in err and "validation.pdf" in err
     assert "Traceback" not in err
