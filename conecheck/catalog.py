@@ -28,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from astropy.io import fits
 from astropy.table import Table
 from numpy.typing import NDArray
 
@@ -119,8 +120,6 @@ def _repeated_column_names(path: Path, fmt: str) -> list[str]:
     """
     names: list[str] = []
     if fmt == "fits":
-        from astropy.io import fits
-
         with fits.open(path, memmap=True) as hdul:
             table = next((h for h in hdul if isinstance(h, fits.BinTableHDU | fits.TableHDU)),
                          None)
@@ -129,7 +128,7 @@ def _repeated_column_names(path: Path, fmt: str) -> list[str]:
                 names = [str(head.get(f"TTYPE{i}", "")).strip()
                          for i in range(1, int(head.get("TFIELDS", 0)) + 1)]
     elif fmt == "parquet":
-        import pyarrow.parquet as pq
+        import pyarrow.parquet as pq  # optional dependency (the io extra): imported on use
 
         names = list(pq.read_schema(path).names)
     elif fmt == "ascii.ecsv":
