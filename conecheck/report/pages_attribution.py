@@ -514,10 +514,10 @@ def _sweep_sample(page: Page, top: float, height: float, sname: str, s: dict[str
         axc.set_xlabel("cut (by z_min, z_max)")
     tx = x0 + w * 0.62 + 0.15
     tw = w - (tx - x0)
-    cols = fit_columns([Column("cut", 1.0), Column("z range", 0.9), Column("verdict", 0.7,
-                                                                           "center")], tw)
+    cols = fit_columns([Column("cut", 1.0), Column("z range", 0.85), Column("verdict", 0.62,
+                                                                            "center")], tw)
     rows = [[Cell(c + (" ★" if cuts[c].get("source") == "primary" else ""), middle=True),
-             Cell(f"{ac.fmt(ac.num(cuts[c], 'z_min'))}–{ac.fmt(ac.num(cuts[c], 'z_max'))}"),
+             Cell(f"{ac.num(cuts[c], 'z_min'):.3f}–{ac.num(cuts[c], 'z_max'):.3f}"),
              Cell(str(cuts[c].get("verdict") or "—").upper(), cuts[c].get("verdict"))]
             for c in labels]
     cap = rows_that_fit(height - 0.9, 0.2)
