@@ -90,8 +90,7 @@ def plan_sweep(cfg: RunConfig) -> dict[str, list[SweptCut]]:
 
 
 def _volume(cfg: RunConfig, cut: SampleCut) -> float:
-    chi = cosmology_of(cfg).comoving_distance(np.array([cut.z_min, cut.z_max]))
-    return float((chi[1] ** 3 - chi[0] ** 3) / 3.0)
+    return float(cosmology_of(cfg).shell_volume_per_sr(cut.z_min, cut.z_max))
 
 
 def _widest(cuts: dict[str, Any], ok: tuple[str, ...]) -> str | None:

@@ -44,7 +44,7 @@ def make_randoms(footprint: Any, chi_min: float, chi_max: float, n: int,
         Seeded source of every draw.
     radial : {"volume", "shuffle"}
         ``volume``: χ = (χ_min³ + u (χ_max³ − χ_min³))^(1/3), uniform in comoving volume
-        (flat geometry); ``shuffle``: χ drawn with replacement from ``data_chi``.
+        (curvature included); ``shuffle``: χ drawn with replacement from ``data_chi``.
     data_chi : array_like or None
         The data's observed distances [Mpc/h] (``shuffle`` only).
     cosmology : Cosmology or None
@@ -64,8 +64,9 @@ def make_randoms(footprint: Any, chi_min: float, chi_max: float, n: int,
     ra, dec = fp.sample(int(n), rng)
     ra, dec = np.asarray(ra, dtype=np.float64), np.asarray(dec, dtype=np.float64)
     if radial == "volume":
-        u = rng.random(len(ra))
-        chi = np.cbrt(chi_min**3 + u * (chi_max**3 - chi_min**3))
+        # uniform in comoving volume, curvature included (the same law as every volume)
+        chi = (cosmology or Cosmology()).distance_at_volume_fraction(chi_min, chi_max,
+                                                                     rng.random(len(ra)))
     elif radial == "shuffle":
         if data_chi is None or len(np.atleast_1d(data_chi)) == 0:
             raise InputError("randoms.radial = 'shuffle' needs the data's observed distances "

@@ -277,7 +277,8 @@ def nz_expected(cfg: RunConfig, footprint: Any, cut: Any, density: float) -> dic
     cosmo = cosmology_of(cfg)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
     chi = cosmo.comoving_distance(edges)
-    expected = density * footprint.area_sr * np.diff(chi ** 3) / 3.0
+    expected = density * footprint.area_sr * cosmo.volume_between_distances_per_sr(chi[:-1],
+                                                                                 chi[1:])
     return {"edges": edges.tolist(), "expected": expected.tolist()}
 
 

@@ -117,9 +117,15 @@ def cut_distances(cfg: RunConfig, cut: SampleCut) -> tuple[float, float]:
 
 
 def expected_count(cfg: RunConfig, footprint: Any, cut: SampleCut, density: float) -> float:
-    """Galaxies a cone should hold: n_box × V_eff, V_eff = Ω_eff (χ_max³ − χ_min³)/3."""
+    """Galaxies a cone should hold: n_box × V_eff, V_eff = Ω_eff × the shell's comoving volume
+    per steradian (the cosmology's, curvature included)."""
+    return density * footprint.area_sr * cut_volume_per_sr(cfg, cut)
+
+
+def cut_volume_per_sr(cfg: RunConfig, cut: SampleCut) -> float:
+    """Comoving volume per steradian of a cut's shell [(Mpc/h)³]."""
     lo, hi = cut_distances(cfg, cut)
-    return density * footprint.area_sr * (hi ** 3 - lo ** 3) / 3.0
+    return float(cosmology_of(cfg).volume_between_distances_per_sr(lo, hi))
 
 
 def _pair_counts_to_dict(pc: PairCounts) -> dict[str, Any]:
@@ -172,7 +178,7 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
     lo, hi = cut_distances(cfg, cut)
     rand = _cone_sample(cut_randoms(cfg, footprint, sample, cut, n_expected, data_chi),
                         regions)
-    geometry = ConeGeometry(footprint, lo, hi, regions)
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cfg, cut))
     shared = {}
     for name in cfg.statistics.measure:
         s = STATISTICS[name].prepare_cone(
@@ -237,7 +243,7 @@ def measure_cone_cut(cfg: RunConfig, table: Any, footprint: Any, regions: Any,
     sel = select_cut(table, cut, cfg.shell, cosmo)
     data = _cone_sample(sel, regions)
     lo, hi = cut_distances(cfg, cut)
-    geometry = ConeGeometry(footprint, lo, hi, regions)
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cfg, cut))
     rand = randoms_sample(randoms, regions)
     shared = shared_counts(randoms)
     out = {}

@@ -13,6 +13,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from ..cosmology import DEG2_PER_SR, Cosmology
+
 #: Key of ``Measurement.extra`` holding, per bin, the variance of a box value that comes from
 #: the box estimator's own random sampling (e.g. random sphere centres), which the cones do
 #: not share. The comparison adds it to the offset's own error.
@@ -278,12 +280,16 @@ class ConeGeometry:
         Radial limits of the shell [Mpc/h].
     regions : object or None
         Sky jackknife regions (``k``, ``areas_deg2``, ``region_of(ra, dec)``).
+    volume_per_sr : float or None
+        Comoving volume per steradian between the limits [(Mpc/h)³], from the run's
+        cosmology (curvature included); flat space when omitted.
     """
 
     footprint: Any
     chi_min: float
     chi_max: float
     regions: Any = None
+    volume_per_sr: float | None = None
 
     def __post_init__(self) -> None:
         from ..errors import InputError
@@ -292,25 +298,24 @@ class ConeGeometry:
                 and 0 <= self.chi_min < self.chi_max):
             raise InputError(f"cone geometry: need 0 ≤ chi_min < chi_max, got "
                              f"{self.chi_min!r}, {self.chi_max!r} Mpc/h")
+        if self.volume_per_sr is None:  # flat space unless the run's cosmology says more
+            object.__setattr__(self, "volume_per_sr", float(
+                Cosmology.flat_volume_per_sr(self.chi_min, self.chi_max)))
 
     @property
     def omega_sr(self) -> float:
         """Effective solid angle Ω_eff (completeness-weighted) [sr]."""
-        from ..cosmology import DEG2_PER_SR
-
         return float(self.footprint.area_deg2) / DEG2_PER_SR
 
     @property
     def volume(self) -> float:
-        """Effective volume V_eff = (Ω_eff/3)(χ_max³ − χ_min³) [(Mpc/h)³]."""
-        return self.omega_sr / 3.0 * (self.chi_max**3 - self.chi_min**3)
+        """Effective volume V_eff = Ω_eff × (comoving volume per sr of the shell) [(Mpc/h)³]."""
+        return self.omega_sr * float(self.volume_per_sr)
 
     def region_volumes(self) -> NDArray[np.float64]:
         """Effective volume of each sky region [(Mpc/h)³], shape (K,)."""
-        from ..cosmology import DEG2_PER_SR
-
         areas = np.asarray(self.regions.areas_deg2, dtype=np.float64)
-        return areas / DEG2_PER_SR / 3.0 * (self.chi_max**3 - self.chi_min**3)
+        return areas / DEG2_PER_SR * float(self.volume_per_sr)
 
     def radial_fraction(self, chi: ArrayLike, half_length: float) -> NDArray[np.float64]:
         """Fraction of [χ − H, χ + H] inside [χ_min, χ_max] (χ, H in Mpc/h)."""
