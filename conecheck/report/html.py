@@ -210,7 +210,7 @@ def render_html(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
         for sname, sample in ac.samples(results).items():
             for cname in ac.cuts(sample):
                 if spec.title.startswith(f"{sname} · {cname}:"):
-                    label = "values" if spec.kind == "values" else "offsets"
+                    label = {"statistics": "offsets"}.get(spec.kind, spec.kind)
                     figure_ids.setdefault((sname, cname), []).append((anchor, label))
     stats = list(ac.iter_stats(results))
     overall = str(results.get("overall") or "unknown")
