@@ -34,6 +34,17 @@ def stat_symbol(name: str) -> str:
     return STAT_SYMBOL.get(name, name.replace("_", " "))
 
 
+#: A positive axis whose values span more than this ratio is drawn logarithmically.
+LOG_AXIS_RATIO = 20.0
+
+
+def wants_log_axis(values: NDArray[np.float64]) -> bool:
+    """True when the finite ``values`` are all positive and span more than LOG_AXIS_RATIO."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    return bool(v.size and np.all(v > 0) and v.max() / v.min() > LOG_AXIS_RATIO)
+
+
 def stat_short(name: str) -> str:
     """Short name of a statistic key (tables)."""
     return STAT_SHORT.get(name, name.replace("_", " "))

@@ -97,7 +97,7 @@ def _curve_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float)
     ax_x, ax_w = x0 + 0.62, cw - 0.68
     main_h = ch * 0.52
     ax = page.axes(ax_x, y0 + 0.35, ax_w, main_h, f"{name}:offset")
-    logx = bool(np.all(x > 0) and x.max() / x.min() > 20)
+    logx = ac.wants_log_axis(x)
     with np.errstate(divide="ignore", invalid="ignore"):
         nz = b != 0
         frac_mean = np.where(nz, mean / np.where(nz, b, 1) - 1, np.nan)

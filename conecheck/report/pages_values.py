@@ -84,11 +84,9 @@ def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool)
         ax.plot(x, b, color=st.BOX, lw=1.6, label="box")
         ax.errorbar(x, mean, yerr=sc, fmt="o", ms=3, color=st.CONE, capsize=2, elinewidth=0.8,
                     label="cone mean ±σ of one cone")
-        positive = np.concatenate([b, mean])
-        positive = positive[np.isfinite(positive)]
-        if positive.size and np.all(positive > 0) and positive.max() / positive.min() > 30:
+        if ac.wants_log_axis(np.concatenate([b, mean])):
             ax.set_yscale("log")
-        if np.all(x > 0) and x.max() / x.min() > 20:
+        if ac.wants_log_axis(x):
             ax.set_xscale("log")
         ax.set_xlabel(shorten(str(d.get("bin_label") or "bin"), w, st.BODY))
     ax.set_ylabel(shorten(_y_label(name, d), h, st.BODY))
