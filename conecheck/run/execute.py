@@ -352,9 +352,10 @@ class DaskExecutor(Executor):
                     self._cluster = distributed.LocalCluster(
                         n_workers=n, threads_per_worker=threads_per_worker, processes=True,
                         host="127.0.0.1", dashboard_address=None,
-                        # the workers' own shutdown chatter (cancelled tasks, a worker
-                        # killed after a Ctrl-C) is not the user's business; errors are
-                        silence_logs=logging.ERROR)
+                        # the workers' own logs (cancelled tasks, a heartbeat to a scheduler
+                        # that a Ctrl-C already closed) are not the user's business: a task's
+                        # failure reaches the run through its future, with its traceback
+                        silence_logs=logging.CRITICAL)
                 self.client = distributed.Client(self._cluster)
             except Exception as exc:
                 self.close()
