@@ -319,8 +319,16 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     statistics with conecheck's functions.  Returns times, memory, cone-0 values and the
     exact-agreement check."""
     from conecheck.cone import make_randoms, n_randoms
+    from conecheck.run.cache import content_digest
     from conecheck.run.execute import task_rng
-    from conecheck.run.inputs import cosmology_of, load_box, load_footprint, sky_regions
+    from conecheck.run.inputs import (
+        cosmology_of,
+        load_box,
+        load_footprint,
+        overlap_input,
+        sky_regions,
+    )
+    from conecheck.run.specs import cone_build_spec
     from conecheck.run.tasks import (
         _cone_sample,  # the pipeline's own table → ConeSample (same points dropped)
         cone_table,
@@ -353,7 +361,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
 
     # the exact check runs conecheck's full RR: on the cut with the fewest randoms only
     smallest = min(((s, c) for s in cfg.samples for c in s.cuts),
-                   key=lambda sc: expected_count(cfg, footprint, sc[1], density[sc[0].name]))
+                   key=lambda sc: expected_count(cosmo, footprint, sc[1], density[sc[0].name]))
     exact_key = f"{smallest[0].name}/{smallest[1].label}"
     times = dict.fromkeys(BASELINE_PARTS, 0.0)
     per_cone: list[float] = []
@@ -363,18 +371,20 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     for i in range(cfg.cones.n_cones):
         tc = time.perf_counter()
         t = time.perf_counter()
-        table, _ = cone_table(cfg, box, footprint, i)
+        table, _ = cone_table(cone_build_spec(cfg, i, content_digest(box),
+                                              content_digest(footprint), overlap_input(cfg)),
+                              box, footprint)
         times["build"] += time.perf_counter() - t
         for s in cfg.samples:
             for cut in s.cuts:
                 key = f"{s.name}/{cut.label}"
                 sel = select_cut(table, cut, cfg.shell, cosmo)
                 data = _cone_sample(sel, regions)
-                lo, hi = cut_distances(cfg, cut)
+                lo, hi = cut_distances(cosmo, cut)
                 geometry = ConeGeometry(footprint, lo, hi, regions)
 
                 t = time.perf_counter()
-                n_r = n_randoms(expected_count(cfg, footprint, cut, density[s.name]),
+                n_r = n_randoms(expected_count(cosmo, footprint, cut, density[s.name]),
                                 cfg.randoms.multiple)
                 rt = make_randoms(footprint, lo, hi, n_r,
                                   task_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label))

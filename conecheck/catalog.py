@@ -360,6 +360,13 @@ class GalaxyBox:
     def __len__(self) -> int:
         return int(self.position.shape[0])
 
+    def cache_token(self) -> dict[str, Any]:
+        """What identifies the box in a cache key: every physical column, not ``meta``."""
+        return {"position": self.position, "velocity": self.velocity,
+                "box_size": float(self.box_size), "redshift": float(self.redshift),
+                "abs_mag": self.abs_mag, "is_central": self.is_central,
+                "halo_id": self.halo_id, "halo_mass": self.halo_mass}
+
     def subset(self, mask: NDArray[np.bool_]) -> GalaxyBox:
         """A new box holding only the galaxies where ``mask`` is True."""
         def pick(a: NDArray[Any] | None) -> NDArray[Any] | None:

@@ -42,6 +42,7 @@ from .cone.settings import (
     SampleCut,
     SurveyShell,
 )
+from .cosmology import Cosmology
 from .errors import InputError
 from .stats.settings import SETTINGS_TYPES
 
@@ -91,6 +92,10 @@ class CosmologyConfig:
             problems.append(f"h = {self.h!r}: expected 0.2 < h < 2")
         if problems:
             raise InputError("; ".join(problems), problems)
+
+    def model(self) -> Cosmology:
+        """The distance–redshift model of these parameters."""
+        return Cosmology(omega_m=self.omega_m, omega_k=self.omega_k, h=self.h)
 
 
 #: Side [Mpc/h] and snapshot redshift of the synthetic box when neither the configuration
@@ -271,6 +276,12 @@ class StatisticsConfig:
     def get(self, name: str) -> Any:
         """Settings of statistic ``name`` (defaults when not configured)."""
         return self.settings.get(name) or SETTINGS_TYPES[name]()
+
+    def restricted(self) -> StatisticsConfig:
+        """The measured statistics with their settings spelled out (defaults filled in),
+        nothing else: equal for two configurations that measure the same thing."""
+        return StatisticsConfig(tuple(self.measure),
+                                {name: self.get(name) for name in self.measure})
 
 
 #: Most jackknife regions a run accepts (sky or box).
@@ -764,6 +775,8 @@ def _convert(value: Any, hint: Any, key: str) -> Any:
                 continue
             try:
                 return _convert(value, a, key)
+            except InputError:
+                raise  # a specific problem of this alternative, not a mismatch
             except ValueError:
                 continue
         raise ValueError(f"{key} = {value!r}: expected {_type_name(hint)}")
@@ -875,6 +888,8 @@ def build_section(cls: type, table: Any, path: str, problems: list[str],
             continue
         try:
             kwargs[key] = _convert(value, hints[key], f"{path}.{key}")
+        except InputError:
+            raise
         except ValueError as exc:
             problems.append(str(exc))
             ok = False

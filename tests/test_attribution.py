@@ -110,9 +110,9 @@ def planted(tmp_path_factory):
         calls["cones"].append((effects, correction.name))
         return real_cones(inp, *a, effects=effects, correction=correction, **kw)
 
-    def randoms(inp, box, effects=None):
+    def randoms(inp, box, pieces=None, effects=None):
         calls["randoms"].append(inp.footprint.area_deg2)
-        return real_randoms(inp, box, effects=effects)
+        return real_randoms(inp, box, pieces, effects=effects)
 
     mp = pytest.MonkeyPatch()
     mp.setattr(variants_mod, "cone_stage", cones)
@@ -592,10 +592,10 @@ def test_an_unmeasurable_sweep_cut_is_skipped_with_its_reason(tmp_path, monkeypa
     thin = grid_label(0.02, 0.03)
     real = tasks.measure_cone_cut
 
-    def measure(cfg, table, footprint, regions, sample, cut, *args, **kw):
-        if cut.label == thin:
+    def measure(build, cut_spec, *args, **kw):
+        if cut_spec.cut.label == thin:
             raise InputError("jackknife: 1 of 9 regions hold no galaxies (planted)")
-        return real(cfg, table, footprint, regions, sample, cut, *args, **kw)
+        return real(build, cut_spec, *args, **kw)
 
     monkeypatch.setattr(tasks, "measure_cone_cut", measure)
     d = _small()

@@ -21,11 +21,14 @@ import pytest
 from run_helpers import tiny_dict
 from scipy.special import erf
 
+from conecheck.box.sensitivity import DEFAULT_STEPS
 from conecheck.compare import VerdictRules
 from conecheck.compare.fisher import shifts_for_cut
 from conecheck.config import config_from_dict
-from conecheck.run.inputs import box_halos
+from conecheck.run.cache import content_digest
+from conecheck.run.inputs import box_halos, load_box, load_box_and_halos
 from conecheck.run.sensitivity import hod_derivatives_task
+from conecheck.run.specs import DerivativesSpec, box_spec
 from conecheck.run.tasks import box_task, sample_mask
 from conecheck.run.validate import validate
 
@@ -35,7 +38,10 @@ def setup():
     d = tiny_dict(seed=21)
     d["jackknife"]["box_n_side"] = 5  # 25 sub-volumes: enough for 15 bins (n ≥ p + 3)
     cfg = config_from_dict(d, "test")
-    return cfg, hod_derivatives_task(cfg, "broad")
+    box, halos, hod = load_box_and_halos(cfg)
+    spec = DerivativesSpec(box_spec(cfg, cfg.samples[0], content_digest(box)),
+                           content_digest(halos), hod, tuple(sorted(DEFAULT_STEPS.items())))
+    return cfg, hod_derivatives_task(spec, halos)
 
 
 def test_density_derivative_matches_the_expected_central_occupation(setup):
@@ -61,7 +67,8 @@ def test_density_derivative_matches_the_expected_central_occupation(setup):
 
 def test_an_offset_along_the_derivatives_returns_the_parameters(setup):
     cfg, deriv = setup
-    box = box_task(cfg, box_halos_box(cfg), "broad")["measurements"]
+    box = load_box(cfg)
+    box = box_task(box_spec(cfg, cfg.samples[0], content_digest(box)), box)["measurements"]
     combo = tuple(cfg.statistics.measure)  # 1 + 5 + 6 + 3 = 15 bins, 25 box sub-volumes
     dmat = np.vstack([deriv["derivatives"][s] for s in combo])
     dtheta = 0.02 * np.array([1.0, -0.5, 1.0, 0.5, -1.0, 1.0, 1.0])[:dmat.shape[1]]
@@ -81,12 +88,6 @@ def test_an_offset_along_the_derivatives_returns_the_parameters(setup):
     rec = out["combinations"]["+".join(combo)]
     assert "note" not in rec, rec.get("note")
     np.testing.assert_allclose(rec["shift"], dtheta, rtol=1e-6, atol=1e-9)
-
-
-def box_halos_box(cfg):
-    from conecheck.run.inputs import load_box
-
-    return load_box(cfg)
 
 
 def test_run_reports_shifts_and_the_optional_rule(tmp_path):
@@ -110,7 +111,7 @@ def test_run_reports_shifts_and_the_optional_rule(tmp_path):
 
 def test_a_box_without_hod_gets_the_bound_only(tmp_path):
     cfg = config_from_dict(tiny_dict(seed=23), "t")
-    box = box_halos_box(cfg)
+    box = load_box(cfg)
     keep = sample_mask(box, cfg.samples[0])
     from astropy.table import Table
 

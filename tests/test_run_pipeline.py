@@ -175,10 +175,10 @@ def test_interrupted_run_resumes_to_the_same_results(tmp_path, monkeypatch):
     ref, _ = _run(d, tmp_path / "ref")
     real = pipeline.cone_task
 
-    def flaky(cfg, box, footprint, regions, index, *args, **kw):
-        if index == 1:
+    def flaky(spec, *args, **kw):
+        if spec.build.index == 1:
             raise RuntimeError("worker lost")
-        return real(cfg, box, footprint, regions, index, *args, **kw)
+        return real(spec, *args, **kw)
 
     monkeypatch.setattr(pipeline, "cone_task", flaky)
     with pytest.raises(TaskFailed, match="cone 1"):
@@ -209,7 +209,7 @@ def test_output_directory_that_is_a_file_exits_2(tmp_path, capsys):
 def test_a_failing_measurement_names_cone_sample_and_cut(tmp_path, monkeypatch):
     from conecheck.run import tasks
 
-    def broken(cfg, table, footprint, regions, sample, cut, *args, **kw):
+    def broken(build, cut_spec, *args, **kw):
         raise FloatingPointError("overflow in the kernel")
 
     monkeypatch.setattr(tasks, "measure_cone_cut", broken)

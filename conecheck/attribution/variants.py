@@ -26,7 +26,7 @@ from typing import Any
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig, SampleConfig
 from ..run.inputs import cap_footprint, load_footprint, sky_regions
-from ..run.pipeline import RunInputs, cone_stage, randoms_stage
+from ..run.pipeline import CutPiece, RunInputs, cone_stage, randoms_stage
 
 log = logging.getLogger(__name__)
 
@@ -63,26 +63,6 @@ class Variant:
 def main_variant(cfg: RunConfig) -> Variant:
     """The configured survey."""
     return Variant(cfg.effects, cfg.correction.name)
-
-
-def config_for(cfg: RunConfig, pieces: Sequence[Piece]) -> RunConfig:
-    """``cfg`` whose samples hold exactly the cuts in ``pieces`` (first cut = primary)."""
-    order: list[str] = []
-    cuts: dict[str, list[SampleCut]] = {}
-    samples: dict[str, SampleConfig] = {}
-    for s, cut in pieces:
-        if s.name not in cuts:
-            order.append(s.name)
-            cuts[s.name], samples[s.name] = [], s
-        if all(c.label != cut.label for c in cuts[s.name]):
-            cuts[s.name].append(cut)
-    out = []
-    for name in order:
-        first, *rest = cuts[name]
-        out.append(dataclasses.replace(
-            samples[name], label=first.label, z_min=first.z_min, z_max=first.z_max,
-            alt_cuts=tuple(dataclasses.replace(c, mag_max=None) for c in rest)))
-    return dataclasses.replace(cfg, samples=tuple(out))
 
 
 class ConeVariants:
@@ -149,8 +129,8 @@ class ConeVariants:
         fp = variant.effects.footprint
         need = [(s, c) for s, c in pieces if (fp, s.name, c.label) not in self._randoms]
         if need:
-            sub = dataclasses.replace(geo, cfg=config_for(self.cfg, need))
-            rnd, keys = randoms_stage(sub, self.box, effects=self.build_effects(variant))
+            rnd, keys = randoms_stage(geo, self.box, _cut_pieces(need),
+                                      effects=self.build_effects(variant))
             for sname, cuts in rnd.items():
                 for label, payload in cuts.items():
                     self._randoms[(fp, sname, label)] = (payload, keys[sname][label])
@@ -197,8 +177,8 @@ class ConeVariants:
         if missing:
             geo = self.geometry(variant.effects.footprint)
             randoms, rkeys = self._randoms_for(geo, variant, missing)
-            sub = dataclasses.replace(geo, cfg=config_for(self.cfg, missing))
-            cones = cone_stage(sub, randoms, rkeys, effects=self.build_effects(variant),
+            cones = cone_stage(geo, randoms, rkeys, _cut_pieces(missing),
+                               effects=self.build_effects(variant),
                                correction=CorrectionSettings(variant.correction_applied),
                                stage=stage, skip_unmeasurable=skip_unmeasurable)
             self._merge(variant, cones)
@@ -215,9 +195,18 @@ class ConeVariants:
                              for s, _ in pieces}} for cone in store]
 
 
+def _cut_pieces(pieces: Sequence[Piece]) -> list[CutPiece]:
+    """The pipeline's (sample name, cut) pieces, each once, in order."""
+    out: list[CutPiece] = []
+    for s, cut in pieces:
+        if all(not (name == s.name and c.label == cut.label) for name, c in out):
+            out.append((s.name, cut))
+    return out
+
+
 def ladder_pieces(cfg: RunConfig, which: str) -> list[Piece]:
     """The (sample, cut) pieces a section measures: primary cuts only, or every cut."""
     return [(s, c) for s in cfg.samples for c in (s.cuts if which == "all" else s.cuts[:1])]
 
 
-__all__ = ["ConeVariants", "Piece", "Variant", "config_for", "ladder_pieces", "main_variant"]
+__all__ = ["ConeVariants", "Piece", "Variant", "ladder_pieces", "main_variant"]

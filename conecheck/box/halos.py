@@ -94,6 +94,13 @@ class HaloCatalog:
     def __len__(self) -> int:
         return int(len(self.mass))
 
+    def cache_token(self) -> dict[str, Any]:
+        """What identifies the halos in a cache key: every column, not ``meta``."""
+        return {"position": self.position, "velocity": self.velocity, "mass": self.mass,
+                "box_size": float(self.box_size), "redshift": float(self.redshift),
+                "concentration": self.concentration, "rvir": self.rvir,
+                "halo_id": self.halo_id, "properties": dict(self.properties)}
+
     def column(self, name: str) -> NDArray[Any]:
         """A per-halo column by canonical or property name (InputError when absent)."""
         if name in ("concentration", "rvir", "halo_id", "mass"):

@@ -18,13 +18,22 @@ from ..cone import write_cones_directory
 from ..cone.build import prepare_box
 from ..config import load_config
 from ..errors import InputError
-from ..run.inputs import load_box, load_footprint, sky_regions
+from ..run.cache import content_digest
+from ..run.inputs import (
+    cosmology_of,
+    load_box,
+    load_footprint,
+    overlap_input,
+    sky_regions,
+)
+from ..run.specs import cone_build_spec, randoms_spec
 from ..run.tasks import (
     cone_table,
     cut_randoms,
     expected_count,
     sample_density,
     shuffle_distances,
+    survey_model,
 )
 
 log = logging.getLogger(__name__)
@@ -46,22 +55,30 @@ def main(args: argparse.Namespace) -> int:
     regions = sky_regions(cfg, footprint)
     n = cfg.cones.n_cones if args.cones is None else max(1, min(args.cones, cfg.cones.n_cones))
     cells = prepare_box(box)
+    # the specs `conecheck run` gives its tasks, so cone i and the randoms are the same
+    box_content, fp_content = content_digest(box), content_digest(footprint)
+    builds = [cone_build_spec(cfg, i, box_content, fp_content, overlap_input(cfg))
+              for i in range(n)]
     cones = []
     for i in range(n):
-        table, info = cone_table(cfg, box, footprint, i, cells=cells)
+        table, info = cone_table(builds[i], box, footprint, cells=cells)
         info = {k: v for k, v in info.items() if k != "targets"}
         info["cone_index"] = i
         cones.append((table, info))
         log.info("cone %d/%d: %d galaxies", i + 1, n, len(table))
     randoms = {}
     shuffle = cfg.randoms.radial == "shuffle"
+    cosmo = cosmology_of(cfg)
+    reg_content = content_digest(regions)
     for s in cfg.samples:
         density = sample_density(box, s)
         for cut in s.cuts:
             # the same catalogue `conecheck run` builds for this sample and cut
-            data_chi = shuffle_distances(cfg, cones[0][0], s, cut) if shuffle else None
-            randoms[f"{s.name}__{cut.label}"] = cut_randoms(
-                cfg, footprint, s, cut, expected_count(cfg, footprint, cut, density), data_chi)
+            data_chi = (shuffle_distances(cones[0][0], cut, survey_model(builds[0], footprint),
+                                          s.name) if shuffle else None)
+            spec = randoms_spec(cfg, s.name, cut, expected_count(cosmo, footprint, cut, density),
+                                fp_content, reg_content, data_chi)
+            randoms[f"{s.name}__{cut.label}"] = cut_randoms(spec, footprint)
     manifest = {"config": str(Path(args.config).resolve()), "seed": cfg.seed,
                 "config_hash": cfg.config_hash, "version": __version__,
                 "cosmology": dataclasses.asdict(cfg.cosmology),

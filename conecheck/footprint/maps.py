@@ -125,6 +125,10 @@ class Footprint:
             fp = fp.multiply(cls.from_fits(veto))
         return fp
 
+    def cache_token(self) -> dict[str, object]:
+        """What identifies the footprint in a cache key: its map and pixel ordering."""
+        return {"values": self._values, "nest": self._nest}
+
     # ------------------------------------------------------------------ basic properties
     @property
     def values(self) -> NDArray[np.float64]:

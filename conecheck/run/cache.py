@@ -97,6 +97,13 @@ def _canonical(x: Any, where: str) -> Any:
         # C order, so a Fortran-ordered copy of the same values hashes the same.
         data = np.ascontiguousarray(a).tobytes()
         return ["array", a.dtype.str, list(a.shape), hashlib.sha256(data).hexdigest()]
+    # before the dataclass rule: a class that names its identity (e.g. a catalogue
+    # without its free-form provenance) is keyed by that
+    token = getattr(x, "cache_token", None)
+    if callable(token):
+        cls = type(x)
+        return ["token", f"{cls.__module__}.{cls.__qualname__}",
+                _canonical(token(), f"{where}.cache_token()")]
     if dataclasses.is_dataclass(x) and not isinstance(x, type):
         # Fields read directly (what dataclasses.asdict gives, without deep-copying
         # large arrays); the class name keeps two record types with equal fields apart.
@@ -115,11 +122,6 @@ def _canonical(x: Any, where: str) -> Any:
     if isinstance(x, (set, frozenset)):
         parts = [_canonical(v, f"{where} item") for v in x]
         return ["set", sorted(parts, key=lambda p: json.dumps(p, separators=(",", ":")))]
-    token = getattr(x, "cache_token", None)
-    if callable(token):
-        cls = type(x)
-        return ["token", f"{cls.__module__}.{cls.__qualname__}",
-                _canonical(token(), f"{where}.cache_token()")]
     raise TypeError(f"{where}: cannot hash a {type(x).__module__}.{type(x).__qualname__} "
                     f"into a cache key; pass plain values, arrays or dataclasses, or give "
                     f"the class a cache_token() method")
@@ -143,6 +145,24 @@ def task_key(kind: str, inputs: Mapping[str, Any]) -> str:
                      "task inputs")
     text = json.dumps(doc, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
     return hashlib.sha256(text.encode("ascii")).hexdigest()[:_KEY_CHARS]
+
+
+def spec_key(spec: Any) -> str:
+    """Cache key of a task spec (:mod:`conecheck.run.specs`): the hash of all its fields,
+    its type and the code version."""
+    if not dataclasses.is_dataclass(spec) or isinstance(spec, type):
+        raise TypeError(f"spec_key expects a spec dataclass, got {type(spec).__name__}")
+    cls = type(spec)
+    return task_key(cls.__qualname__, {f.name: getattr(spec, f.name)
+                                        for f in dataclasses.fields(spec)})
+
+
+def content_digest(obj: Any) -> str:
+    """SHA-256 hex digest of an in-memory input's content (a box, a footprint, regions,
+    halos), through its ``cache_token()`` or its fields; what a spec holds for it."""
+    doc = _canonical(obj, type(obj).__name__)
+    text = json.dumps(doc, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+    return hashlib.sha256(text.encode("ascii")).hexdigest()
 
 
 def file_fingerprint(path: str | os.PathLike[str]) -> str:

@@ -6,7 +6,6 @@ here once per run; everything downstream receives them as arguments.
 
 from __future__ import annotations
 
-import dataclasses
 import logging
 from pathlib import Path
 from typing import Any
@@ -19,13 +18,13 @@ from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
 from ..box.synthetic import populate_synthetic, synthetic_halos_for
 from ..catalog import GalaxyBox, file_sha256, read_galaxy_box
-from ..cone import SurveyModel
 from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, RunConfig
 from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint import Footprint, jackknife_regions
 from ..footprint.jackknife import SkyRegions
 from .execute import task_rng
+from .specs import InputFile
 
 log = logging.getLogger(__name__)
 
@@ -35,8 +34,7 @@ FULL_SKY_NSIDE = 32
 
 def cosmology_of(cfg: RunConfig) -> Cosmology:
     """The fiducial cosmology of the run."""
-    c = cfg.cosmology
-    return Cosmology(omega_m=c.omega_m, omega_k=c.omega_k, h=c.h)
+    return cfg.cosmology.model()
 
 
 def _existing(cfg: RunConfig, value: str | None, key: str) -> Path | None:
@@ -61,6 +59,12 @@ def input_files(cfg: RunConfig) -> dict[str, Path]:
     for i, v in enumerate(cfg.survey.vetoes):
         files[f"survey.vetoes[{i}]"] = _existing(cfg, v, f"survey.vetoes[{i}]")
     return {k: v for k, v in files.items() if v is not None}
+
+
+def overlap_input(cfg: RunConfig) -> InputFile | None:
+    """The fibre overlap map the cone builders open, with the digest of its content."""
+    path = input_files(cfg).get("survey.fibres.overlap_map")
+    return None if path is None else InputFile(str(path), file_sha256(path))
 
 
 def input_hashes(cfg: RunConfig) -> dict[str, str]:
@@ -103,10 +107,13 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
     return halos, model, rng
 
 
-def load_box(cfg: RunConfig) -> GalaxyBox:
-    """The real-space galaxy box (positions, velocities, magnitudes) the run starts from."""
+def load_box_and_halos(cfg: RunConfig) -> tuple[GalaxyBox, HaloCatalog | None,
+                                                  HODModel | None]:
+    """The real-space galaxy box the run starts from, with the halos and HOD it was
+    populated from (None, None for a galaxy file)."""
     b = cfg.box
     cosmo = cosmology_of(cfg)
+    halos = model = None
     if b.source == "file":
         box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,
                               b.box_size, b.redshift, require_magnitudes=needs_magnitudes(cfg),
@@ -120,7 +127,12 @@ def load_box(cfg: RunConfig) -> GalaxyBox:
                          "absolute magnitude column; map one as box.columns.abs_mag")
     log.info("box: %d galaxies, L = %.1f Mpc/h, z = %.3f (%s)", len(box), box.box_size,
              box.redshift, b.source)
-    return box
+    return box, halos, model
+
+
+def load_box(cfg: RunConfig) -> GalaxyBox:
+    """The real-space galaxy box (positions, velocities, magnitudes) the run starts from."""
+    return load_box_and_halos(cfg)[0]
 
 
 #: Header keywords of a box file that may state the simulation's cosmology (Ω_m, h).
@@ -199,16 +211,3 @@ def cap_footprint(footprint: Footprint) -> Footprint:
 def sky_regions(cfg: RunConfig, footprint: Footprint) -> SkyRegions:
     """K near-equal-area jackknife regions of the footprint (seeded by the run seed)."""
     return jackknife_regions(footprint, cfg.jackknife.sky_regions, seed=cfg.seed)
-
-
-def survey_model(cfg: RunConfig, footprint: Footprint, effects: Any = None,
-                 correction: Any = None) -> SurveyModel:
-    """The cone builder's survey description (built-in file names resolved)."""
-    fibres = cfg.fibres
-    if fibres.overlap_map:
-        fibres = dataclasses.replace(fibres, overlap_map=str(
-            _existing(cfg, fibres.overlap_map, "survey.fibres.overlap_map")))
-    return SurveyModel(cosmology=cosmology_of(cfg), shell=cfg.shell, footprint=footprint,
-                       effects=effects or cfg.effects, fibres=fibres,
-                       correction=correction or cfg.correction,
-                       redshift_errors=cfg.redshift_errors, observers=cfg.cones.observers)

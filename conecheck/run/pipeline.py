@@ -16,27 +16,42 @@ from __future__ import annotations
 import dataclasses
 import logging
 import time
-from collections.abc import Callable
-from dataclasses import asdict
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
 
 from .. import __version__
+from ..box.halos import HaloCatalog
+from ..box.hod import HODModel
 from ..box.sensitivity import DEFAULT_STEPS
-from ..cone.settings import CorrectionSettings, EffectSwitches
+from ..catalog import GalaxyBox
+from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig
-from .cache import TaskCache, task_key
+from ..footprint import Footprint, SkyRegions
+from .cache import TaskCache, content_digest, spec_key
 from .execute import Executor, Task
 from .inputs import (
     cosmology_of,
     input_hashes,
-    load_box,
+    load_box_and_halos,
     load_footprint,
+    overlap_input,
     sky_regions,
 )
 from .progress import Progress
 from .sensitivity import hod_derivatives_task
+from .specs import (
+    ConeBuildSpec,
+    ConePieceSpec,
+    ConeSpec,
+    DerivativesSpec,
+    InputFile,
+    box_spec,
+    cone_build_spec,
+    cut_spec,
+    randoms_spec,
+)
 from .tasks import (
     NZ_BINS,
     box_task,
@@ -45,30 +60,58 @@ from .tasks import (
     expected_count,
     randoms_task,
     shuffle_distances,
+    survey_model,
 )
 
 log = logging.getLogger(__name__)
 
+#: One sample cut measured on every cone: (sample name, cut).
+CutPiece = tuple[str, SampleCut]
+
 
 @dataclasses.dataclass
 class RunInputs:
-    """Everything the stages share, built once per run."""
+    """Everything the stages share, built once per run.
+
+    ``halos`` and ``hod`` are the halos and HOD the box was populated from (None for a box
+    read from a galaxy file).
+    """
 
     cfg: RunConfig
-    box: Any
-    footprint: Any
-    regions: Any
+    box: GalaxyBox
+    footprint: Footprint
+    regions: SkyRegions
     hashes: dict[str, str]
     executor: Executor
     cache: TaskCache | None
     progress: Progress
     timings: dict[str, float] = dataclasses.field(default_factory=dict)
+    halos: HaloCatalog | None = None
+    hod: HODModel | None = None
+    overlap: InputFile | None = None
+    _digests: dict[int, tuple[Any, str]] = dataclasses.field(default_factory=dict,
+                                                             repr=False)
 
-    def identity(self) -> dict[str, Any]:
-        """What the box and every cone depend on besides their own settings."""
-        c = self.cfg
-        return {"seed": c.seed, "cosmology": asdict(c.cosmology), "box": asdict(c.box),
-                "files": sorted(self.hashes.values())}
+    def content(self, obj: Any) -> str:
+        """Digest of an in-memory input's content (computed once per object)."""
+        got = self._digests.get(id(obj))
+        if got is None or got[0] is not obj:
+            # the object is kept beside its digest so its id cannot be reused meanwhile
+            got = (obj, content_digest(obj))
+            self._digests[id(obj)] = got
+        return got[1]
+
+    def cone_build(self, index: int, effects: EffectSwitches | None = None,
+                   correction: CorrectionSettings | None = None) -> ConeBuildSpec:
+        """The build spec of cone ``index`` on this geometry."""
+        return cone_build_spec(self.cfg, index, self.content(self.box),
+                               self.content(self.footprint), self.overlap, effects,
+                               correction)
+
+
+def all_pieces(cfg: RunConfig) -> list[CutPiece]:
+    """Every sample cut of the configuration, samples in order, primary cut first."""
+    return [(s.name, cut) for s in cfg.samples for cut in s.cuts]
 
 
 def _run_stage(inp: RunInputs, stage: str, tasks: list[Task]) -> list[Any]:
@@ -85,11 +128,9 @@ def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     box_ref = inp.executor.share(inp.box)
     tasks = []
     for s in c.samples:
-        key = task_key("box", {**inp.identity(), "mag_max": s.mag_max,
-                               "statistics": _stat_settings(c),
-                               "jackknife": asdict(c.jackknife)})
-        tasks.append(Task(key=key, label=f"box / sample {s.name}", func=box_task,
-                          args=(c, box_ref, s.name), kind="box"))
+        spec = box_spec(c, s, inp.content(inp.box))
+        tasks.append(Task(key=spec_key(spec), label=f"box / sample {s.name}", func=box_task,
+                          args=(spec, box_ref), kind="box"))
     results = _run_stage(inp, "box", tasks)
     return {s.name: r for s, r in zip(c.samples, results, strict=True)}
 
@@ -101,58 +142,62 @@ def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     one of the HOD's thresholds get an empty result with a note.
     """
     c = inp.cfg
-    if not c.parameter_shifts.enabled or c.box.source == "file":
+    if not c.parameter_shifts.enabled or inp.halos is None or inp.hod is None:
         return {}
+    halos_ref = inp.executor.share(inp.halos)
+    steps = tuple(sorted(DEFAULT_STEPS.items()))
     tasks = []
     for s in c.samples:
-        key = task_key("hod-derivatives", {**inp.identity(), "mag_max": s.mag_max,
-                                           "statistics": _stat_settings(c),
-                                           "steps": dict(DEFAULT_STEPS)})
-        tasks.append(Task(key=key, label=f"HOD derivatives / sample {s.name}",
-                          func=hod_derivatives_task, args=(c, s.name), kind="box"))
+        spec = DerivativesSpec(box=box_spec(c, s, inp.content(inp.box)),
+                               halos_content=inp.content(inp.halos), hod=inp.hod, steps=steps)
+        tasks.append(Task(key=spec_key(spec), label=f"HOD derivatives / sample {s.name}",
+                          func=hod_derivatives_task, args=(spec, halos_ref), kind="box"))
     results = _run_stage(inp, "HOD derivatives", tasks)
     return {s.name: r for s, r in zip(c.samples, results, strict=True)}
 
 
 def randoms_stage(inp: RunInputs, box: dict[str, dict[str, Any]],
+                  pieces: Sequence[CutPiece] | None = None,
                   effects: EffectSwitches | None = None,
                   ) -> tuple[dict[str, dict[str, Any]], dict[str, dict[str, str]]]:
-    """Randoms (and shared RR) of every sample and cut, with their cache keys."""
+    """Randoms (and shared RR) of every sample cut in ``pieces`` (default: all), with their
+    cache keys (sample → cut label → key)."""
     c = inp.cfg
-    tasks, where = [], []
+    pieces = all_pieces(c) if pieces is None else list(pieces)
+    cosmo = cosmology_of(c)
+    tasks = []
     # radial = "shuffle" draws distances from cone 0 of the same effects: built once here
-    cone0 = (cone_table(c, inp.box, inp.footprint, 0, effects)[0]
-             if c.randoms.radial == "shuffle" else None)
-    for s in c.samples:
-        for cut in s.cuts:
-            n_exp = expected_count(c, inp.footprint, cut, box[s.name]["number_density"])
-            data_chi = None if cone0 is None else shuffle_distances(c, cone0, s, cut)
-            key = task_key("randoms", {
-                "seed": c.seed, "cosmology": asdict(c.cosmology), "cut": asdict(cut),
-                "footprint": _footprint_key(inp, effects), "randoms": asdict(c.randoms),
-                "n_expected": float(n_exp), "statistics": _stat_settings(c),
-                "sky_regions": c.jackknife.sky_regions,
-                "data_chi": None if data_chi is None else data_chi})
-            tasks.append(Task(key=key, label=f"randoms / sample {s.name} / cut {cut.label}",
-                              func=randoms_task,
-                              args=(c, inp.footprint, inp.regions, s.name, cut.label, n_exp,
-                                    data_chi), kind="randoms"))
-            where.append((s.name, cut.label))
+    cone0 = None
+    if c.randoms.radial == "shuffle":
+        build0 = inp.cone_build(0, effects)
+        cone0 = cone_table(build0, inp.box, inp.footprint)[0]
+        survey0 = survey_model(build0, inp.footprint)
+    fp_content, reg_content = inp.content(inp.footprint), inp.content(inp.regions)
+    for sname, cut in pieces:
+        n_exp = expected_count(cosmo, inp.footprint, cut, box[sname]["number_density"])
+        data_chi = (None if cone0 is None
+                    else shuffle_distances(cone0, cut, survey0, sname))
+        spec = randoms_spec(c, sname, cut, n_exp, fp_content, reg_content, data_chi)
+        tasks.append(Task(key=spec_key(spec), label=f"randoms / sample {sname} / cut {cut.label}",
+                          func=randoms_task, args=(spec, inp.footprint, inp.regions),
+                          kind="randoms"))
     results = _run_stage(inp, "randoms", tasks)
     out: dict[str, dict[str, Any]] = {}
     keys: dict[str, dict[str, str]] = {}
-    for (sname, label), task, r in zip(where, tasks, results, strict=True):
-        out.setdefault(sname, {})[label] = r
-        keys.setdefault(sname, {})[label] = task.key
+    for (sname, cut), task, r in zip(pieces, tasks, results, strict=True):
+        out.setdefault(sname, {})[cut.label] = r
+        keys.setdefault(sname, {})[cut.label] = task.key
     return out, keys
 
 
 def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
-               randoms_keys: dict[str, dict[str, str]], *,
+               randoms_keys: dict[str, dict[str, str]],
+               pieces: Sequence[CutPiece] | None = None, *,
                effects: EffectSwitches | None = None,
                correction: CorrectionSettings | None = None, tag: str = "",
                stage: str = "cones", skip_unmeasurable: bool = False) -> list[dict[str, Any]]:
-    """Every cone measured on every sample and cut; one cache entry per piece.
+    """Every cone measured on every sample cut in ``pieces`` (default: all); one cache entry
+    per cone and cut.
 
     ``skip_unmeasurable`` records a cut a cone cannot measure as skipped instead of failing
     the stage (see :func:`~conecheck.run.tasks.cone_task`).
@@ -165,43 +210,38 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
         :func:`~conecheck.run.tasks.cone_task`.
     """
     c = inp.cfg
-    eff = effects or c.effects
-    corr = correction or c.correction
-    base = {**inp.identity(), "survey": asdict(c.survey), "shell": asdict(c.shell),
-            "effects": asdict(eff), "fibres": asdict(c.fibres), "correction": asdict(corr),
-            "redshift_errors": asdict(c.redshift_errors), "observers": asdict(c.cones.observers),
-            "n_cones": c.cones.n_cones, "tag": tag, "footprint": _footprint_key(inp, eff)}
+    pieces = all_pieces(c) if pieces is None else list(pieces)
     box_ref = inp.executor.share(inp.box)
     fp_ref, reg_ref = inp.executor.share(inp.footprint), inp.executor.share(inp.regions)
-    pieces: list[dict[tuple[str, str], Any]] = []
+    reg_content = inp.content(inp.regions)
+    cut_specs = {(sname, cut.label): cut_spec(c, sname, cut, randoms_keys[sname][cut.label],
+                                              reg_content, tag) for sname, cut in pieces}
+    stored: list[dict[tuple[str, str], Any]] = []
     piece_keys: list[dict[tuple[str, str], str]] = []
     tasks, task_cones = [], []
     cache = inp.cache
     for i in range(c.cones.n_cones):
-        keys, have = {}, {}
-        for s in c.samples:
-            for cut in s.cuts:
-                keys[(s.name, cut.label)] = task_key("cone-piece", {
-                    **base, "index": i, "cut": asdict(cut),
-                    "statistics": _stat_settings(c), "randoms": randoms_keys[s.name][cut.label],
-                    "sky_regions": c.jackknife.sky_regions})
-                got = cache.get(keys[(s.name, cut.label)]) if cache is not None else None
-                if got is not None and (skip_unmeasurable or not got.get("skipped")):
-                    # (a stage that may not skip recomputes a cut skipped before, to fail
-                    # with its reason)
-                    have[(s.name, cut.label)] = got
-        pieces.append(have)
+        build = inp.cone_build(i, effects, correction)
+        keys = {k: spec_key(ConePieceSpec(build, cs)) for k, cs in cut_specs.items()}
+        have = {}
+        for k, key in keys.items():
+            got = cache.get(key) if cache is not None else None
+            if got is not None and (skip_unmeasurable or not got.get("skipped")):
+                # (a stage that may not skip recomputes a cut skipped before, to fail
+                # with its reason)
+                have[k] = got
+        stored.append(have)
         piece_keys.append(keys)
         missing = [k for k in keys if k not in have]
         if missing:
-            sub = _restrict(c, missing)
-            sub_randoms = {s: {cl: randoms[s][cl] for (s2, cl) in missing if s2 == s}
-                           for s in {m[0] for m in missing}}
-            tkey = task_key("cone", {"pieces": sorted(keys[m] for m in missing)})
-            tasks.append(Task(key=tkey, label=f"cone {i}" + (f" ({tag})" if tag else ""),
-                              func=cone_task,
-                              args=(sub, box_ref, fp_ref, reg_ref, i, sub_randoms,
-                                    eff, corr, tag, skip_unmeasurable), kind="cone"))
+            spec = ConeSpec(build, tuple(cut_specs[k] for k in missing), skip_unmeasurable)
+            sub_randoms: dict[str, dict[str, Any]] = {}
+            for sname, label in missing:
+                sub_randoms.setdefault(sname, {})[label] = randoms[sname][label]
+            tasks.append(Task(key=spec_key(spec),
+                              label=f"cone {i}" + (f" ({tag})" if tag else ""),
+                              func=cone_task, args=(spec, box_ref, fp_ref, reg_ref, sub_randoms),
+                              kind="cone"))
             task_cones.append(i)
     if tasks:
         results = _run_stage(inp, stage, tasks)
@@ -211,7 +251,7 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
                     piece = {"measurements": meas, "nz": r["nz"][sname][label],
                              "info": r["info"],
                              "skipped": r.get("skipped", {}).get(sname, {}).get(label)}
-                    pieces[i][(sname, label)] = piece
+                    stored[i][(sname, label)] = piece
                     if cache is not None:
                         cache.put(piece_keys[i][(sname, label)], piece,
                                   label=f"cone {i} / {sname} / {label}", kind="cone-piece")
@@ -227,7 +267,7 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
         nz: dict[str, dict[str, Any]] = {}
         info: dict[str, Any] = {}
         skipped: dict[str, dict[str, str]] = {}
-        for (sname, label), piece in pieces[i].items():
+        for (sname, label), piece in stored[i].items():
             meas.setdefault(sname, {})[label] = piece["measurements"]
             nz.setdefault(sname, {})[label] = piece["nz"]
             info = piece["info"]
@@ -235,40 +275,6 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
                 skipped.setdefault(sname, {})[label] = piece["skipped"]
         out.append({"measurements": meas, "nz": nz, "info": info, "skipped": skipped})
     return out
-
-
-def _restrict(cfg: RunConfig, pieces: list[tuple[str, str]]) -> RunConfig:
-    """``cfg`` with only the samples and cuts in ``pieces`` (for a partial cone task)."""
-    samples = []
-    for s in cfg.samples:
-        labels = {label for (name, label) in pieces if name == s.name}
-        if not labels:
-            continue
-        cuts = s.cuts
-        primary, alts = cuts[0], [cut for cut in cuts[1:] if cut.label in labels]
-        if primary.label in labels:
-            samples.append(dataclasses.replace(s, alt_cuts=tuple(alts)))
-        else:
-            first, rest = alts[0], alts[1:]
-            samples.append(dataclasses.replace(s, label=first.label, z_min=first.z_min,
-                                               z_max=first.z_max, alt_cuts=tuple(rest)))
-    return dataclasses.replace(cfg, samples=tuple(samples))
-
-
-def _stat_settings(cfg: RunConfig) -> dict[str, Any]:
-    return {name: asdict(cfg.statistics.get(name)) for name in cfg.statistics.measure}
-
-
-def _footprint_key(inp: RunInputs, effects: EffectSwitches | None) -> Any:
-    """What the sky of a stage depends on: the footprint in use, not only its switch."""
-    eff = effects or inp.cfg.effects
-    fp = inp.footprint
-    ident = {"source": str(fp.source), "nside": int(fp.nside),
-             "area_deg2": float(fp.area_deg2)}
-    if not eff.footprint:
-        return {"full sky": True, **ident}
-    return {"mask": inp.cfg.survey.mask, "vetoes": list(inp.cfg.survey.vetoes),
-            "files": sorted(inp.hashes.values()), **ident}
 
 
 # --------------------------------------------------------------------------- helpers
@@ -299,10 +305,11 @@ def prepare_inputs(cfg: RunConfig, executor: Executor, cache: TaskCache | None,
     hashes = input_hashes(cfg)
     footprint = load_footprint(cfg)
     regions = sky_regions(cfg, footprint)
-    box = load_box(cfg)
+    box, halos, hod = load_box_and_halos(cfg)
     stop()
-    return RunInputs(cfg, box, footprint, regions, hashes, executor, cache, progress, timings)
+    return RunInputs(cfg, box, footprint, regions, hashes, executor, cache, progress, timings,
+                     halos=halos, hod=hod, overlap=overlap_input(cfg))
 
 
-__all__ = ["RunInputs", "__version__", "box_stage", "cone_stage", "nz_expected",
-           "prepare_inputs", "randoms_stage"]
+__all__ = ["CutPiece", "RunInputs", "__version__", "all_pieces", "box_stage", "cone_stage",
+           "nz_expected", "prepare_inputs", "randoms_stage", "sensitivity_stage"]

@@ -14,19 +14,18 @@ from typing import Any
 import numpy as np
 
 from ..box import populate
+from ..box.halos import HaloCatalog
 from ..box.sensitivity import (
     DECORATION_PARAMETERS,
-    DEFAULT_STEPS,
     parameter_values,
     sample_threshold,
     step_values,
     varied_model,
 )
-from ..config import RunConfig
 from ..errors import InputError
 from .execute import task_rng
-from .inputs import box_halos, cosmology_of
-from .tasks import _sample, measure_box_sample
+from .specs import DerivativesSpec
+from .tasks import measure_box_sample
 
 
 def _has_column(halos: Any, name: str) -> bool:
@@ -37,8 +36,11 @@ def _has_column(halos: Any, name: str) -> bool:
     return True
 
 
-def hod_derivatives_task(cfg: RunConfig, sample_name: str) -> dict[str, Any]:
+def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str, Any]:
     """∂(statistic)/∂(parameter) for one sample, by central differences on the box.
+
+    ``halos`` are the run's halos (their digest is ``spec.halos_content``), populated again
+    with ``spec.hod`` moved by ± the step of each parameter.
 
     Returns
     -------
@@ -48,8 +50,9 @@ def hod_derivatives_task(cfg: RunConfig, sample_name: str) -> dict[str, Any]:
         statistic per unit of the parameter), ``notes``. Empty ``parameters`` with a note
         when the sample is not one of the HOD's thresholds.
     """
-    sample = _sample(cfg, sample_name)
-    halos, model, _ = box_halos(cfg)
+    box_spec = spec.box
+    sample = box_spec.sample
+    model = spec.hod
     threshold = sample_threshold(model, sample.mag_max)
     notes: list[str] = []
     if threshold is None:
@@ -61,18 +64,19 @@ def hod_derivatives_task(cfg: RunConfig, sample_name: str) -> dict[str, Any]:
         names = [n for n in names if n not in DECORATION_PARAMETERS]
         notes.append(f"the halos carry no '{model.assembly_bias.secondary}' column: the "
                      f"decoration strengths are left out")
-    cosmo = cosmology_of(cfg)
+    cosmo = box_spec.model()
+    step_of = dict(spec.steps)
     fid = parameter_values(model, threshold, with_decoration=True)
-    per_stat: dict[str, list[np.ndarray]] = {s: [] for s in cfg.statistics.measure}
+    per_stat: dict[str, list[np.ndarray]] = {s: [] for s in box_spec.statistics.measure}
     steps = []
     for name in names:
-        lo, hi = step_values(model, threshold, name, DEFAULT_STEPS[name])
+        lo, hi = step_values(model, threshold, name, step_of[name])
         values = {}
         for side, v in (("lo", lo), ("hi", hi)):
-            rng = task_rng(cfg.seed, "hod-derivative", sample.name)  # the same draws each time
+            rng = task_rng(box_spec.seed, "hod-derivative", sample.name)  # the same draws each time
             box = populate(halos, varied_model(model, threshold, name, v), rng, cosmo)
             keep = np.ones(len(box), dtype=bool)
-            values[side] = measure_box_sample(cfg, box, sample, keep, jackknife=False)
+            values[side] = measure_box_sample(box_spec, box, keep, jackknife=False)
         for stat in per_stat:
             per_stat[stat].append((np.asarray(values["hi"][stat].value, dtype=np.float64)
                                    - np.asarray(values["lo"][stat].value, dtype=np.float64))

@@ -1,10 +1,11 @@
 """The run's task functions: the box of one sample, the randoms of one cut, one cone.
 
-Each is a module-level function of plain inputs (so a dask worker can run it) returning a
-structure :mod:`conecheck.run.serialize` can store (dicts, arrays, numbers, Measurements),
-so every finished task can be cached. Every random draw comes from
-:func:`~conecheck.run.execute.task_rng` keyed by the run seed and the task's own name,
-never from execution order.
+Each is a module-level function (so a dask worker can run it) of a frozen spec
+(:mod:`conecheck.run.specs`) and the large in-memory inputs the spec names by content,
+returning a structure :mod:`conecheck.run.serialize` can store (dicts, arrays, numbers,
+Measurements), so every finished task can be cached under the hash of its spec. Every
+random draw comes from :func:`~conecheck.run.execute.task_rng` keyed by the run seed and
+the task's own names, never from execution order.
 """
 
 from __future__ import annotations
@@ -17,15 +18,16 @@ import numpy as np
 from ..box import apply_box_redshift_scatter, apply_box_rsd
 from ..catalog import GalaxyBox
 from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms, select_cut
-from ..cone.build import prepare_box
-from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
-from ..config import RunConfig, SampleConfig
+from ..cone.build import SurveyModel, prepare_box
+from ..cone.settings import SampleCut
+from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
+from ..footprint import Footprint, SkyRegions
 from ..pairs.counts import PairCounts
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
 from ..stats.base import LOS_VARIANCE
 from .execute import task_rng
-from .inputs import cosmology_of, survey_model
+from .specs import BoxSpec, ConeBuildSpec, ConeSpec, CutSpec, RandomsSpec, SampleThreshold
 
 #: Number of redshift bins of the n(z) diagnostic per cut.
 NZ_BINS = 12
@@ -34,26 +36,28 @@ LOS_DEPENDENT = ("wp", "cic", "vpf", "annuli")
 
 
 # --------------------------------------------------------------------------- box
-def box_redshift_space(cfg: RunConfig, box: GalaxyBox, axis: int | None = None) -> np.ndarray:
-    """Box positions [Mpc/h] with the box-side effects along ``axis`` (default: the config's)."""
-    cosmo = cosmology_of(cfg)
-    axis = cfg.box.los_axis if axis is None else axis
-    pos = apply_box_rsd(box, axis, cosmo) if cfg.box.rsd else np.array(box.position)
-    if cfg.box.redshift_scatter_kms > 0:
-        pos = apply_box_redshift_scatter(pos, axis, cfg.box.redshift_scatter_kms, box.redshift,
-                                         cosmo, task_rng(cfg.seed, "box-scatter"),
+def box_redshift_space(spec: BoxSpec, box: GalaxyBox, axis: int | None = None) -> np.ndarray:
+    """Box positions [Mpc/h] with the box-side effects along ``axis`` (default: the spec's)."""
+    cosmo = spec.model()
+    eff = spec.effects
+    axis = eff.los_axis if axis is None else axis
+    pos = apply_box_rsd(box, axis, cosmo) if eff.rsd else np.array(box.position)
+    if eff.redshift_scatter_kms > 0:
+        pos = apply_box_redshift_scatter(pos, axis, eff.redshift_scatter_kms, box.redshift,
+                                         cosmo, task_rng(spec.seed, "box-scatter"),
                                          box.box_size)
     return pos
 
 
-def sample_mask(box: GalaxyBox, sample: SampleConfig) -> np.ndarray:
-    """Galaxies of ``sample`` in the box (brighter than its threshold)."""
+def sample_mask(box: GalaxyBox, sample: SampleThreshold | Any) -> np.ndarray:
+    """Galaxies of ``sample`` (anything with ``mag_max``) in the box: brighter than its
+    threshold."""
     if sample.mag_max is None:
         return np.ones(len(box), dtype=bool)
     return np.asarray(box.abs_mag) < sample.mag_max
 
 
-def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]:
+def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
     """Every statistic of one sample measured in the box, with box jackknife.
 
     Returns
@@ -62,12 +66,11 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
         ``measurements`` (statistic → Measurement), ``n_galaxies``, ``number_density``
         [(h/Mpc)³].
     """
-    sample = _sample(cfg, sample_name)
-    keep = sample_mask(box, sample)
-    out = measure_box_sample(cfg, box, sample, keep, jackknife=True)
-    others = [measure_box_sample(cfg, box, sample, keep, jackknife=False, axis=a,
+    keep = sample_mask(box, spec.sample)
+    out = measure_box_sample(spec, box, keep, jackknife=True)
+    others = [measure_box_sample(spec, box, keep, jackknife=False, axis=a,
                                  statistics=LOS_DEPENDENT)
-              for a in range(3) if a != cfg.box.los_axis]
+              for a in range(3) if a != spec.effects.los_axis]
     for name, m in out.items():
         if name in LOS_DEPENDENT:
             # The cones see the box along every direction, the box estimator along one axis:
@@ -76,93 +79,91 @@ def box_task(cfg: RunConfig, box: GalaxyBox, sample_name: str) -> dict[str, Any]
             values = np.array([m.value] + [o[name].value for o in others], dtype=np.float64)
             m.extra[LOS_VARIANCE] = values.var(axis=0, ddof=1).tolist()
     return {"measurements": out, "n_galaxies": int(keep.sum()),
-            "number_density": sample_density(box, sample)}
+            "number_density": sample_density(box, spec.sample)}
 
 
-def measure_box_sample(cfg: RunConfig, box: GalaxyBox, sample: SampleConfig,
-                       keep: np.ndarray, *, jackknife: bool, axis: int | None = None,
-                       statistics: tuple[str, ...] | None = None) -> dict[str, Measurement]:
-    """The configured statistics of the galaxies ``keep`` of ``box`` (statistic → value).
+def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackknife: bool,
+                       axis: int | None = None, statistics: tuple[str, ...] | None = None
+                       ) -> dict[str, Measurement]:
+    """The spec's statistics of the galaxies ``keep`` of ``box`` (statistic → value).
 
-    The box effects of the run are applied along ``axis`` (default ``box.los_axis``), which
-    is also the estimators' line of sight; ``statistics`` restricts the configured list.
-    Each statistic draws from the generator of the run's box task for that sample, so boxes
+    The box effects are applied along ``axis`` (default ``spec.effects.los_axis``), which is
+    also the estimators' line of sight; ``statistics`` restricts the spec's list. Each
+    statistic draws from the generator of the box task of the spec's sample, so boxes
     measured here with the same galaxies get the same random spheres (common random numbers
     for the HOD derivatives and the line-of-sight spread).
     """
-    axis = cfg.box.los_axis if axis is None else axis
+    axis = spec.effects.los_axis if axis is None else axis
+    sample = spec.sample
     if keep.sum() < 2:
         raise InputError(f"sample '{sample.name}': {int(keep.sum())} box galaxies brighter "
                          f"than mag_max = {sample.mag_max}; check the threshold and the box")
-    pos = box_redshift_space(cfg, box, axis)
-    bs = BoxSample.with_regions(pos[keep], box.box_size, axis,
-                                n_side=cfg.jackknife.box_n_side,
-                                layout=cfg.jackknife.box_layout)
+    pos = box_redshift_space(spec, box, axis)
+    bs = BoxSample.with_regions(pos[keep], box.box_size, axis, n_side=spec.jackknife.n_side,
+                                layout=spec.jackknife.layout)
     out = {}
-    for name in cfg.statistics.measure:
+    for name in spec.statistics.measure:
         if statistics is not None and name not in statistics:
             continue
-        rng = task_rng(cfg.seed, "box", sample.name, name)
-        out[name] = STATISTICS[name].measure_box(bs, cfg.statistics.get(name), rng,
+        rng = task_rng(spec.seed, "box", sample.name, name)
+        out[name] = STATISTICS[name].measure_box(bs, spec.statistics.get(name), rng,
                                                  jackknife=jackknife)
     return out
 
 
+def sample_density(box: GalaxyBox, sample: SampleThreshold | Any) -> float:
+    """Number density [(h/Mpc)³] of ``sample`` in the box (real-space counts over L³)."""
+    return float(np.count_nonzero(sample_mask(box, sample))) / float(box.box_size) ** 3
+
+
 # --------------------------------------------------------------------------- randoms
-def cut_distances(cfg: RunConfig, cut: SampleCut) -> tuple[float, float]:
+def cut_distances(cosmology: Cosmology, cut: SampleCut) -> tuple[float, float]:
     """Comoving distance limits [Mpc/h] of a redshift cut."""
-    cosmo = cosmology_of(cfg)
-    return (float(cosmo.comoving_distance(cut.z_min)),
-            float(cosmo.comoving_distance(cut.z_max)))
+    return (float(cosmology.comoving_distance(cut.z_min)),
+            float(cosmology.comoving_distance(cut.z_max)))
 
 
-def expected_count(cfg: RunConfig, footprint: Any, cut: SampleCut, density: float) -> float:
-    """Galaxies a cone should hold: n_box × V_eff, V_eff = Ω_eff × the shell's comoving volume
-    per steradian (the cosmology's, curvature included)."""
-    return density * footprint.area_sr * cut_volume_per_sr(cfg, cut)
+def cut_volume_per_sr(cosmology: Cosmology, cut: SampleCut) -> float:
+    """Comoving volume per steradian of a cut's shell [(Mpc/h)³] (curvature included)."""
+    lo, hi = cut_distances(cosmology, cut)
+    return float(cosmology.volume_between_distances_per_sr(lo, hi))
 
 
-def cut_volume_per_sr(cfg: RunConfig, cut: SampleCut) -> float:
-    """Comoving volume per steradian of a cut's shell [(Mpc/h)³]."""
-    lo, hi = cut_distances(cfg, cut)
-    return float(cosmology_of(cfg).volume_between_distances_per_sr(lo, hi))
+def expected_count(cosmology: Cosmology, footprint: Footprint, cut: SampleCut,
+                   density: float) -> float:
+    """Galaxies a cone should hold: n_box [(h/Mpc)³] × V_eff, V_eff = Ω_eff × the shell's
+    comoving volume per steradian."""
+    return density * footprint.area_sr * cut_volume_per_sr(cosmology, cut)
 
 
 def _pair_counts_to_dict(pc: PairCounts) -> dict[str, Any]:
     return {f.name: getattr(pc, f.name) for f in dataclasses.fields(pc)}
 
 
-def sample_density(box: GalaxyBox, sample: SampleConfig) -> float:
-    """Number density [(h/Mpc)³] of ``sample`` in the box (real-space counts over L³)."""
-    return float(np.count_nonzero(sample_mask(box, sample))) / float(box.box_size) ** 3
-
-
-def shuffle_distances(cfg: RunConfig, table: Any, sample: SampleConfig,
-                      cut: SampleCut) -> np.ndarray:
+def shuffle_distances(table: Any, cut: SampleCut, survey: SurveyModel,
+                      sample_name: str) -> np.ndarray:
     """Observed distances [Mpc/h] of a cone's galaxies in a cut: the ``shuffle`` source."""
-    sel = select_cut(table, cut, cfg.shell, cosmology_of(cfg))
+    sel = select_cut(table, cut, survey.shell, survey.cosmology)
     if len(sel) == 0:
         raise InputError(f"randoms.radial = 'shuffle': cone 0 has no galaxies in sample "
-                         f"'{sample.name}', cut '{cut.label}' to draw distances from")
+                         f"'{sample_name}', cut '{cut.label}' to draw distances from")
     return np.asarray(sel["chi_obs"], dtype=np.float64)
 
 
-def cut_randoms(cfg: RunConfig, footprint: Any, sample: SampleConfig, cut: SampleCut,
-                n_expected: float, data_chi: np.ndarray | None) -> Any:
+def cut_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
     """The random catalogue of one sample and cut (seeded by the run seed, sample and cut).
 
-    ``n_expected`` galaxies × ``randoms.multiple`` points inside the footprint between the
-    cut's distances; ``data_chi`` [Mpc/h] is the radial source of ``radial = "shuffle"``.
+    ``spec.n_expected`` galaxies × ``randoms.multiple`` points inside the footprint between
+    the cut's distances; ``spec.data_chi`` [Mpc/h] is the radial source of ``shuffle``.
     """
-    lo, hi = cut_distances(cfg, cut)
-    n = n_randoms(n_expected, cfg.randoms.multiple)
-    rng = task_rng(cfg.seed, "randoms", sample.name, cut.label)
-    return make_randoms(footprint, lo, hi, n, rng, cfg.randoms.radial, data_chi,
-                        cosmology_of(cfg))
+    cosmo = spec.model()
+    lo, hi = cut_distances(cosmo, spec.cut)
+    n = n_randoms(spec.n_expected, spec.randoms.multiple)
+    rng = task_rng(spec.seed, "randoms", spec.sample_name, spec.cut.label)
+    return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo)
 
 
-def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
-                 cut_label: str, n_expected: float, data_chi: np.ndarray | None
+def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
                  ) -> dict[str, Any]:
     """The randoms of one sample and cut with everything every cone shares (wp's RR).
 
@@ -173,17 +174,16 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
         (statistic → ``{"pair_counts": …}`` for wp's RR or ``{"arrays": …}`` for the VPF's
         sphere centres).
     """
-    sample = _sample(cfg, sample_name)
-    cut = _cut(sample, cut_label)
-    lo, hi = cut_distances(cfg, cut)
-    rand = _cone_sample(cut_randoms(cfg, footprint, sample, cut, n_expected, data_chi),
-                        regions)
-    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cfg, cut))
+    cosmo = spec.model()
+    lo, hi = cut_distances(cosmo, spec.cut)
+    rand = _cone_sample(cut_randoms(spec, footprint), regions)
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, spec.cut))
     shared = {}
-    for name in cfg.statistics.measure:
+    for name in spec.statistics.measure:
         s = STATISTICS[name].prepare_cone(
-            rand, geometry, cfg.statistics.get(name), n_data=max(int(round(n_expected)), 1),
-            rng=task_rng(cfg.seed, "shared", sample.name, cut.label, name))
+            rand, geometry, spec.statistics.get(name),
+            n_data=max(int(round(spec.n_expected)), 1),
+            rng=task_rng(spec.seed, "shared", spec.sample_name, spec.cut.label, name))
         if isinstance(s, PairCounts):
             shared[name] = {"pair_counts": _pair_counts_to_dict(s)}
         elif isinstance(s, dict):
@@ -192,7 +192,7 @@ def randoms_task(cfg: RunConfig, footprint: Any, regions: Any, sample_name: str,
             "region": rand.region, "shared": shared}
 
 
-def randoms_sample(payload: dict[str, Any], regions: Any) -> ConeSample:
+def randoms_sample(payload: dict[str, Any], regions: SkyRegions) -> ConeSample:
     """The ConeSample of a randoms task result."""
     return ConeSample(payload["ra"], payload["dec"], payload["chi"], payload["weight"],
                       payload["region"], regions.k)
@@ -207,7 +207,7 @@ def shared_counts(payload: dict[str, Any]) -> dict[str, Any]:
 
 
 # --------------------------------------------------------------------------- cones
-def _cone_sample(table: Any, regions: Any) -> ConeSample:
+def _cone_sample(table: Any, regions: SkyRegions) -> ConeSample:
     ra = np.asarray(table["ra"], dtype=np.float64)
     dec = np.asarray(table["dec"], dtype=np.float64)
     chi = np.asarray(table["chi_obs"], dtype=np.float64)
@@ -222,35 +222,44 @@ def _cone_sample(table: Any, regions: Any) -> ConeSample:
     return ConeSample(ra, dec, chi, w, region, regions.k)
 
 
-def cone_table(cfg: RunConfig, box: GalaxyBox, footprint: Any, index: int,
-               effects: EffectSwitches | None = None,
-               correction: CorrectionSettings | None = None, cells: Any = None,
+def survey_model(spec: ConeBuildSpec, footprint: Footprint) -> SurveyModel:
+    """The cone builder's survey description of a build spec."""
+    fibres = spec.fibres
+    if spec.overlap_map is not None:
+        fibres = dataclasses.replace(fibres, overlap_map=spec.overlap_map.path)
+    return SurveyModel(cosmology=spec.model(), shell=spec.shell, footprint=footprint,
+                       effects=spec.effects, fibres=fibres, correction=spec.correction,
+                       redshift_errors=spec.redshift_errors, observers=spec.observers)
+
+
+def cone_table(spec: ConeBuildSpec, box: GalaxyBox, footprint: Footprint, cells: Any = None,
                keep_targets: bool = False) -> tuple[Any, dict[str, Any]]:
-    """Build cone ``index`` (observer, rotation and draws from the run seed and the index)."""
-    survey = survey_model(cfg, footprint, effects, correction)
-    o, rot = cone_geometry(cfg.cones.observers, box.box_size, cfg.cones.n_cones, cfg.seed,
-                           index)
-    return build_cone(box, survey, o, rot, cone_rngs(cfg.seed, index),
+    """Build cone ``spec.index`` (observer, rotation and draws from the seed and the index)."""
+    o, rot = cone_geometry(spec.observers, box.box_size, spec.n_cones, spec.seed, spec.index)
+    return build_cone(box, survey_model(spec, footprint), o, rot,
+                      cone_rngs(spec.seed, spec.index),
                       cells=cells if cells is not None else prepare_box(box),
                       keep_targets=keep_targets)
 
 
-def measure_cone_cut(cfg: RunConfig, table: Any, footprint: Any, regions: Any,
-                     sample: SampleConfig, cut: SampleCut, randoms: dict[str, Any],
-                     index: int, tag: str = "") -> tuple[dict[str, Measurement], np.ndarray]:
-    """Every statistic of one sample cut measured on one cone (with sky jackknife)."""
-    cosmo = cosmology_of(cfg)
-    sel = select_cut(table, cut, cfg.shell, cosmo)
+def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
+                     footprint: Footprint, regions: SkyRegions, randoms: dict[str, Any]
+                     ) -> tuple[dict[str, Measurement], np.ndarray]:
+    """Every statistic of one sample cut measured on one built cone (with sky jackknife)."""
+    cosmo = build.model()
+    cut = cut_spec.cut
+    sel = select_cut(table, cut, build.shell, cosmo)
     data = _cone_sample(sel, regions)
-    lo, hi = cut_distances(cfg, cut)
-    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cfg, cut))
+    lo, hi = cut_distances(cosmo, cut)
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, cut))
     rand = randoms_sample(randoms, regions)
     shared = shared_counts(randoms)
+    stats = cut_spec.statistics
     out = {}
-    for name in cfg.statistics.measure:
-        rng = task_rng(cfg.seed, "cone", index, sample.name, cut.label, name, tag)
-        out[name] = STATISTICS[name].measure_cone(data, rand, geometry,
-                                                  cfg.statistics.get(name), rng,
+    for name in stats.measure:
+        rng = task_rng(build.seed, "cone", build.index, cut_spec.sample_name, cut.label, name,
+                       cut_spec.tag)
+        out[name] = STATISTICS[name].measure_cone(data, rand, geometry, stats.get(name), rng,
                                                   shared.get(name), jackknife=True)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
     nz, _ = np.histogram(np.asarray(sel["z_obs"]), bins=edges,
@@ -258,19 +267,15 @@ def measure_cone_cut(cfg: RunConfig, table: Any, footprint: Any, regions: Any,
     return out, nz
 
 
-def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, index: int,
-              randoms: dict[str, dict[str, dict[str, Any]]],
-              effects: EffectSwitches | None = None,
-              correction: CorrectionSettings | None = None, tag: str = "",
-              skip_unmeasurable: bool = False) -> dict[str, Any]:
-    """Build cone ``index`` and measure every sample, cut and statistic on it.
+def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: SkyRegions,
+              randoms: dict[str, dict[str, dict[str, Any]]]) -> dict[str, Any]:
+    """Build cone ``spec.build.index`` and measure every cut of ``spec.cuts`` on it.
 
-    Parameters
-    ----------
-    skip_unmeasurable : bool
-        A cut this cone cannot measure (an input problem such as an empty jackknife
-        region) is recorded as skipped, with the reason, instead of failing the task:
-        for explorations over many cuts, where one thin cut must not stop the others.
+    ``randoms`` holds the randoms task result of each cut (sample → cut label → payload).
+    With ``spec.skip_unmeasurable``, a cut this cone cannot measure (an input problem such
+    as an empty jackknife region) is recorded as skipped, with the reason, instead of
+    failing the task: for explorations over many cuts, where one thin cut must not stop
+    the others.
 
     Returns
     -------
@@ -279,29 +284,30 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
         ``nz`` (sample → cut → weighted counts in :data:`NZ_BINS` redshift bins), ``info``
         (replicas, fibre statistics, sizes) and ``skipped`` (sample → cut → reason).
     """
-    table, info = cone_table(cfg, box, footprint, index, effects, correction)
+    table, info = cone_table(spec.build, box, footprint)
     meas: dict[str, Any] = {}
     nz: dict[str, Any] = {}
     skipped: dict[str, dict[str, str]] = {}
-    for sample in cfg.samples:
-        meas[sample.name], nz[sample.name] = {}, {}
-        for cut in sample.cuts:
-            where = f"sample {sample.name}, cut {cut.label}"
-            try:
-                m, h = measure_cone_cut(cfg, table, footprint, regions, sample, cut,
-                                        randoms[sample.name][cut.label], index, tag)
-            except InputError as exc:
-                if skip_unmeasurable:
-                    meas[sample.name][cut.label] = nz[sample.name][cut.label] = None
-                    skipped.setdefault(sample.name, {})[cut.label] = str(exc)
-                    continue
-                raise InputError(f"{where}: {exc}", [f"{where}: {p}" for p in exc.problems]
-                                 ) from exc
-            except Exception as exc:
-                # name the sample and cut; the executor adds the cone
-                raise TaskError(where, f"{type(exc).__name__}: {exc}") from exc
-            meas[sample.name][cut.label] = m
-            nz[sample.name][cut.label] = h
+    for cs in spec.cuts:
+        name, label = cs.sample_name, cs.cut.label
+        meas.setdefault(name, {})
+        nz.setdefault(name, {})
+        where = f"sample {name}, cut {label}"
+        try:
+            m, h = measure_cone_cut(spec.build, cs, table, footprint, regions,
+                                    randoms[name][label])
+        except InputError as exc:
+            if spec.skip_unmeasurable:
+                meas[name][label] = nz[name][label] = None
+                skipped.setdefault(name, {})[label] = str(exc)
+                continue
+            raise InputError(f"{where}: {exc}", [f"{where}: {p}" for p in exc.problems]
+                             ) from exc
+        except Exception as exc:
+            # name the sample and cut; the executor adds the cone
+            raise TaskError(where, f"{type(exc).__name__}: {exc}") from exc
+        meas[name][label] = m
+        nz[name][label] = h
     fib = info.get("fibres", {})
     summary = {"n_replicas": int(info.get("n_replicas", 0)),
                "n_repeated": int(info.get("n_repeated", 0)),
@@ -311,18 +317,3 @@ def cone_task(cfg: RunConfig, box: GalaxyBox, footprint: Any, regions: Any, inde
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
                "build_seconds": float(info.get("timing_s", {}).get("total", 0.0))}
     return {"measurements": meas, "nz": nz, "info": summary, "skipped": skipped}
-
-
-# --------------------------------------------------------------------------- helpers
-def _sample(cfg: RunConfig, name: str) -> SampleConfig:
-    for s in cfg.samples:
-        if s.name == name:
-            return s
-    raise InputError(f"no sample named {name!r} in the configuration")
-
-
-def _cut(sample: SampleConfig, label: str) -> SampleCut:
-    for c in sample.cuts:
-        if c.label == label:
-            return c
-    raise InputError(f"sample '{sample.name}' has no cut labelled {label!r}")
