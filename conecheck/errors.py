@@ -12,11 +12,13 @@ class ConecheckError(Exception):
     """Base class of every error conecheck raises on purpose."""
 
 
-class InputError(ConecheckError):
+class InputError(ConecheckError, ValueError):
     """Unusable input: a file, column, config key or value that cannot be used.
 
     The message must name what is wrong (file, column, key path, value) and what
-    was expected.  Several problems may be joined into one message.
+    was expected.  Several problems may be joined into one message. It is also a
+    :class:`ValueError`, so code calling conecheck from Python can catch bad values the
+    usual way.
     """
 
     def __init__(self, message: str, problems: list[str] | None = None):

@@ -84,6 +84,12 @@ class SkyRegions:
     def k(self) -> int:
         return int(self.areas_deg2.size)
 
+    def cache_token(self) -> dict[str, object]:
+        """What identifies the regions in a cache key (everything but ``meta``)."""
+        return {"nside": self.nside, "nest": self.nest, "region_map": self.region_map,
+                "areas_deg2": self.areas_deg2, "centres_ra_deg": self.centres_ra_deg,
+                "centres_dec_deg": self.centres_dec_deg}
+
     @property
     def min_area_deg2(self) -> float:
         return float(self.areas_deg2.min())
@@ -126,6 +132,8 @@ class SkyRegions:
                            centres_dec_deg=d["centres_dec_deg"], seed=int(d["seed"]))
         except FileNotFoundError:
             raise InputError(f"{path}: jackknife region file not found") from None
+        except InputError:
+            raise
         except (OSError, KeyError, ValueError) as exc:
             raise InputError(f"{path}: not a jackknife region file ({exc})") from None
 
