@@ -27,8 +27,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from conecheck.attribution import extensions
 from conecheck.attribution.ladder import plan_ladder
+from conecheck.attribution.stages import extensions
 from conecheck.cone.settings import CorrectionSettings
 from conecheck.config import config_from_dict
 from conecheck.demo import demo_dict

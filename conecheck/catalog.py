@@ -4,7 +4,7 @@ Every catalogue goes through :mod:`astropy.table`, so FITS, HDF5, ECSV, Parquet 
 numpy ``.npz`` files are all read and written the same way.  A *column mapping*
 (from the config) renames the user's columns to conecheck's canonical names.
 
-Canonical galaxy-box columns (design.md §3 units):
+Canonical galaxy-box columns (docs/design.md §3 units):
 
 ========== ============ ===============================================
 name        unit         meaning

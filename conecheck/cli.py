@@ -17,8 +17,8 @@ import os
 import sys
 from collections.abc import Sequence
 
-from . import __version__
 from .errors import ConecheckError, InputError
+from .version import __version__
 
 EXIT_PASS, EXIT_FAIL, EXIT_INPUT = 0, 1, 2
 

@@ -21,9 +21,6 @@ import hashlib
 import json
 import math
 import re
-import sys
-import types
-import typing
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -31,6 +28,14 @@ from typing import Any, Literal
 
 from astropy import cosmology as apc
 
+from .attribution.settings import (
+    CorrectionsConfig,
+    CutSweepConfig,
+    LadderConfig,
+    cut_sweep_section,
+    sweep_problems,
+    switched_on,
+)
 from .compare.rules import VerdictRules
 from .cone.settings import (
     CorrectionSettings,
@@ -44,12 +49,8 @@ from .cone.settings import (
 )
 from .cosmology import Cosmology
 from .errors import InputError
+from .loader import build_section, read_toml
 from .stats.settings import SETTINGS_TYPES
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
 
 BUILTIN_FILES = {"builtin:kestrel": "kestrel_mask.fits",
                  "builtin:kestrel-overlap": "kestrel_overlap.fits"}
@@ -447,231 +448,6 @@ class ParameterShiftsConfig:
         return tuple(out)
 
 
-# --------------------------------------------------------------------------- attribution
-# Optional sections of conecheck.attribution: [ladder], [corrections], [cut_sweep].
-# A section present in the file is switched on unless it says ``enabled = false``;
-# ``conecheck run --ladder`` switches all three on.
-
-#: Steps an effect ladder can add, one at a time, after its geometry-only rung.
-LADDER_STEPS = ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres", "correction")
-#: The documented default order (the flux limit stays as configured on every rung).
-DEFAULT_LADDER_ORDER = ("rsd", "redshift_errors", "footprint", "fibres", "correction")
-
-
-@dataclass(frozen=True)
-class LadderConfig:
-    """The effect ladder: the same cones with the survey's effects added one at a time.
-
-    Attributes
-    ----------
-    enabled : bool
-        Run the ladder.
-    order : list of str
-        Steps added cumulatively after the geometry-only rung, among rsd,
-        redshift_errors, footprint, flux_limit, fibres (collisions, uncorrected when a
-        ``correction`` step follows) and correction (the configured one). Effects not
-        listed stay as configured on every rung; steps the survey switches off are skipped.
-        Rungs before ``footprint`` see the sky chosen by ``sky``.
-    cuts : {"primary", "all"}
-        Which redshift cuts of each sample the ladder measures.
-    sky : {"cap", "full_sky"}
-        Sky of the rungs before the footprint step: ``cap``, a round cap with the
-        footprint's effective area centred on it (completeness 1: the survey's solid angle
-        without its edges, holes and completeness; as cheap as survey cones); ``full_sky``,
-        the whole sky (1/f_sky times larger cones).
-    """
-
-    enabled: bool = False
-    order: tuple[str, ...] = DEFAULT_LADDER_ORDER
-    cuts: Literal["primary", "all"] = "primary"
-    sky: Literal["cap", "full_sky"] = "cap"
-
-    def __post_init__(self) -> None:
-        problems = [f"order = {list(self.order)!r}: item {i} {s!r} is not a step; expected "
-                    f"one of {', '.join(LADDER_STEPS)}"
-                    for i, s in enumerate(self.order) if s not in LADDER_STEPS]
-        dup = sorted({s for s in self.order if self.order.count(s) > 1})
-        if dup:
-            problems.append(f"order = {list(self.order)!r}: steps must not repeat ({dup})")
-        if not self.order:
-            problems.append("order = []: expected at least one step")
-        if ("correction" in self.order and "fibres" in self.order
-                and self.order.index("correction") < self.order.index("fibres")):
-            problems.append(f"order = {list(self.order)!r}: 'correction' corrects fibre "
-                            f"collisions, so it must come after 'fibres'")
-        if self.cuts not in ("primary", "all"):
-            problems.append(f"cuts = {self.cuts!r}: expected 'primary' or 'all'")
-        if self.sky not in ("cap", "full_sky"):
-            problems.append(f"sky = {self.sky!r}: expected 'cap' or 'full_sky'")
-        if problems:
-            raise InputError("; ".join(problems), problems)
-
-
-@dataclass(frozen=True)
-class CorrectionsConfig:
-    """Several fibre-collision corrections compared on the same collided cones.
-
-    Attributes
-    ----------
-    enabled : bool
-        Run the comparison.
-    names : list of str
-        Corrections to compare (keys of ``conecheck.cone.CORRECTIONS``); empty: all of them.
-    cuts : {"primary", "all"}
-        Which redshift cuts of each sample are compared.
-    """
-
-    enabled: bool = False
-    names: tuple[str, ...] = ()
-    cuts: Literal["primary", "all"] = "primary"
-
-    def __post_init__(self) -> None:
-        from .cone.corrections import CORRECTIONS
-
-        problems = [f"names = {list(self.names)!r}: item {i} {n!r} is not a correction; "
-                    f"expected one of {', '.join(sorted(CORRECTIONS))}"
-                    for i, n in enumerate(self.names) if n not in CORRECTIONS]
-        dup = sorted({n for n in self.names if self.names.count(n) > 1})
-        if dup:
-            problems.append(f"names = {list(self.names)!r}: names must not repeat ({dup})")
-        if self.cuts not in ("primary", "all"):
-            problems.append(f"cuts = {self.cuts!r}: expected 'primary' or 'all'")
-        if problems:
-            raise InputError("; ".join(problems), problems)
-
-
-def _check_grid(z_max: tuple[float, ...], key: str) -> list[str]:
-    problems = [f"{key} = {list(z_max)!r}: item {i} ({z!r}) is not a redshift > 0"
-                for i, z in enumerate(z_max) if not z > 0]
-    if len(set(z_max)) != len(z_max):
-        problems.append(f"{key} = {list(z_max)!r}: values must not repeat")
-    return problems
-
-
-@dataclass(frozen=True)
-class SweepCuts:
-    """One sample's cuts in the redshift-cut sweep (``[cut_sweep.samples.NAME]``).
-
-    Attributes
-    ----------
-    z_max : list of float
-        Upper redshift limits, each with the sample's primary z_min.
-    cuts : list of tables
-        Further cuts, each with ``label``, ``z_min``, ``z_max``.
-    """
-
-    z_max: tuple[float, ...] = ()
-    cuts: tuple[SampleCut, ...] = ()
-
-    def __post_init__(self) -> None:
-        problems = _check_grid(self.z_max, "z_max")
-        for i, c in enumerate(self.cuts):
-            if c.z_min is None or c.z_max is None:
-                problems.append(f"cuts[{i}]: expected both z_min and z_max")
-        if problems:
-            raise InputError("; ".join(problems), problems)
-
-
-@dataclass(frozen=True)
-class CutSweepConfig:
-    """Alternative redshift cuts validated on the same cones, to find the widest safe one.
-
-    Attributes
-    ----------
-    enabled : bool
-        Run the sweep.
-    z_max : list of float
-        Upper limits tried for every sample without its own entry (primary z_min kept).
-    n_grid : int
-        When neither is given: this many z_max values, evenly spaced from the middle of
-        each sample's primary cut to the shell's z_max.
-    samples : table of tables
-        Per-sample cuts (``[cut_sweep.samples.NAME]`` with ``z_max`` and/or ``cuts``).
-    """
-
-    enabled: bool = False
-    z_max: tuple[float, ...] = ()
-    n_grid: int = 4
-    samples: dict[str, SweepCuts] = field(default_factory=dict)
-
-    def __post_init__(self) -> None:
-        problems = _check_grid(self.z_max, "z_max")
-        if not 1 <= self.n_grid <= 50:
-            problems.append(f"n_grid = {self.n_grid!r}: expected 1 to 50 cuts")
-        if problems:
-            raise InputError("; ".join(problems), problems)
-
-
-def _switched_on(table: Any) -> Any:
-    """A present section is on unless it says otherwise."""
-    return {"enabled": True, **table} if isinstance(table, Mapping) else table
-
-
-def _cut_sweep(table: Any, problems: list[str]) -> CutSweepConfig | None:
-    if table is None:
-        return CutSweepConfig()
-    if not isinstance(table, Mapping):
-        problems.append(f"cut_sweep: expected a table, got {table!r}")
-        return None
-    raw = table.get("samples", {})
-    if not isinstance(raw, Mapping):
-        problems.append("cut_sweep.samples: expected a table of sample names")
-        raw = {}
-    samples: dict[str, SweepCuts] = {}
-    for name, sub in raw.items():
-        path = f"cut_sweep.samples.{name}"
-        if not isinstance(sub, Mapping):
-            problems.append(f"{path}: expected a table (z_max, cuts)")
-            continue
-        cuts = []
-        raw_cuts = sub.get("cuts", [])
-        if not isinstance(raw_cuts, list):
-            problems.append(f"{path}.cuts: expected a list of tables (label, z_min, z_max)")
-            raw_cuts = []
-        for j, c in enumerate(raw_cuts):
-            if isinstance(c, Mapping) and "mag_max" in c:
-                problems.append(f"{path}.cuts[{j}].mag_max: a swept cut keeps its sample's "
-                                f"magnitude threshold")
-                continue
-            cut = build_section(SampleCut, c, f"{path}.cuts[{j}]", problems)
-            if cut is not None:
-                cuts.append(cut)
-        s = build_section(SweepCuts, sub, path, problems, skip=("cuts",),
-                          extra={"cuts": tuple(cuts)})
-        if s is not None:
-            samples[str(name)] = s
-    return build_section(CutSweepConfig, _switched_on(table), "cut_sweep", problems,
-                         skip=("samples",), extra={"samples": samples})
-
-
-def _attribution_checks(cfg: RunConfig, problems: list[str]) -> None:
-    """Cross-section checks of [cut_sweep]: known samples, cuts inside the shell."""
-    by_name = {s.name: s for s in cfg.samples}
-    shell = cfg.shell
-    for name in cfg.cut_sweep.samples:
-        if name not in by_name:
-            problems.append(f"cut_sweep.samples.{name}: no sample of that name (samples: "
-                            f"{', '.join(by_name)})")
-    for s in cfg.samples:
-        sweep = cfg.cut_sweep.samples.get(s.name)
-        grid = sweep.z_max if sweep is not None else cfg.cut_sweep.z_max
-        key = (f"cut_sweep.samples.{s.name}.z_max" if sweep is not None
-               else "cut_sweep.z_max")
-        for i, z in enumerate(grid):
-            if not s.z_min < z <= shell.z_max + 1e-12:
-                problems.append(f"{key}[{i}] = {z!r}: expected z_min of sample '{s.name}' "
-                                f"({s.z_min}) < z_max <= survey.shell.z_max ({shell.z_max})")
-        labels = {c.label for c in s.cuts}
-        for j, c in enumerate(sweep.cuts if sweep is not None else ()):
-            where = f"cut_sweep.samples.{s.name}.cuts[{j}]"
-            if c.z_min < shell.z_min - 1e-12 or c.z_max > shell.z_max + 1e-12:
-                problems.append(f"{where}: cut {c.z_min}–{c.z_max} lies outside the survey "
-                                f"shell {shell.z_min}–{shell.z_max}")
-            if c.label in labels:
-                problems.append(f"{where}.label = {c.label!r}: sample '{s.name}' already has "
-                                f"a cut of that name")
-            labels.add(c.label)
-# ------------------------------------------------------------------------- end attribution
 
 
 @dataclass(frozen=True)
@@ -744,89 +520,6 @@ _TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jac
              "ladder", "corrections", "cut_sweep")
 
 
-def _type_name(hint: Any) -> str:
-    if hint is type(None):
-        return "nothing"
-    origin = typing.get_origin(hint)
-    if origin is Literal:
-        return "one of " + ", ".join(repr(a) for a in typing.get_args(hint))
-    if origin in (typing.Union, types.UnionType):
-        return " or ".join(_type_name(a) for a in typing.get_args(hint)
-                           if a is not type(None))
-    if origin in (tuple, list):
-        return "a list"
-    if origin is dict:
-        return "a table of strings"
-    return {float: "a number", int: "an integer", bool: "true or false",
-            str: "a string"}.get(hint, getattr(hint, "__name__", str(hint)))
-
-
-def _convert(value: Any, hint: Any, key: str) -> Any:
-    """``value`` checked against ``hint`` (raises ValueError with a message)."""
-    origin = typing.get_origin(hint)
-    args = typing.get_args(hint)
-    if hint is Any:
-        return value
-    if origin in (typing.Union, types.UnionType):
-        if value is None and type(None) in args:
-            return None
-        for a in args:
-            if a is type(None):
-                continue
-            try:
-                return _convert(value, a, key)
-            except InputError:
-                raise  # a specific problem of this alternative, not a mismatch
-            except ValueError:
-                continue
-        raise ValueError(f"{key} = {value!r}: expected {_type_name(hint)}")
-    if origin is Literal:
-        if value not in args:
-            raise ValueError(f"{key} = {value!r}: expected {_type_name(hint)}")
-        return value
-    if origin is tuple:
-        if not isinstance(value, (list, tuple)):
-            raise ValueError(f"{key} = {value!r}: expected a list")
-        if len(args) == 2 and args[1] is Ellipsis:
-            return tuple(_convert(v, args[0], f"{key}[{i}]") for i, v in enumerate(value))
-        if len(args) != len(value):
-            raise ValueError(f"{key} = {value!r}: expected a list of {len(args)} values")
-        pairs = enumerate(zip(value, args, strict=True))
-        return tuple(_convert(v, a, f"{key}[{i}]") for i, (v, a) in pairs)
-    if origin is dict:
-        if not isinstance(value, Mapping) or not all(isinstance(v, str) for v in value.values()):
-            raise ValueError(f"{key} = {value!r}: expected a table of strings")
-        return dict(value)
-    if hint is float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise ValueError(f"{key} = {value!r}: expected a number")
-        if not math.isfinite(value):
-            raise ValueError(f"{key} = {value!r}: expected a finite number")
-        return float(value)
-    if hint is int:
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise ValueError(f"{key} = {value!r}: expected an integer")
-        return value
-    if hint is bool:
-        if not isinstance(value, bool):
-            raise ValueError(f"{key} = {value!r}: expected true or false")
-        return value
-    if hint is str:
-        if not isinstance(value, str):
-            raise ValueError(f"{key} = {value!r}: expected a string")
-        return value
-    return value
-
-
-def _prefix(path: str, problem: str) -> str:
-    """``problem`` (from a settings class) with the section's key path in front."""
-    if problem.startswith(path.split(".")[0]):  # already carries its key path
-        return problem
-    if re.match(r"^[a-z_]+ ?[=:.]", problem):  # starts with a key: "rp_min = -1: ..."
-        return f"{path}.{problem}"
-    return f"{path}: {problem}"
-
-
 def _astropy_values(cosmo: Any) -> dict[str, float]:
     """Ω_m, Ω_k and h of an astropy cosmology object."""
     return {"omega_m": float(cosmo.Om0), "omega_k": float(cosmo.Ok0),
@@ -861,47 +554,6 @@ def _cosmology_table(table: Any, problems: list[str]) -> Any:
                         f"{', '.join(apc.realizations.available)}")
         return None
     return {**_astropy_values(getattr(apc, name)), "realisation": name}
-
-
-def build_section(cls: type, table: Any, path: str, problems: list[str],
-                  skip: tuple[str, ...] = (), extra: Mapping[str, Any] | None = None) -> Any:
-    """Build dataclass ``cls`` from a TOML table, appending problems (with key paths).
-
-    Returns the instance, or None when a problem prevented building it.
-    """
-    if table is None:
-        table = {}
-    if not isinstance(table, Mapping):
-        problems.append(f"{path}: expected a table, got {table!r}")
-        return None
-    hints = typing.get_type_hints(cls)
-    names = [f.name for f in fields(cls) if f.init and not f.name.startswith("_")]
-    allowed = [n for n in names if n not in (extra or {})] + list(skip)
-    kwargs: dict[str, Any] = dict(extra or {})
-    ok = True
-    for key, value in table.items():
-        if key in skip:
-            continue
-        if key not in allowed:
-            problems.append(f"{path}.{key}: unknown key (allowed: {', '.join(sorted(allowed))})")
-            ok = False
-            continue
-        try:
-            kwargs[key] = _convert(value, hints[key], f"{path}.{key}")
-        except InputError:
-            raise
-        except ValueError as exc:
-            problems.append(str(exc))
-            ok = False
-    if not ok:
-        return None
-    try:
-        return cls(**kwargs)
-    except InputError as exc:
-        problems.extend(_prefix(path, p) for p in exc.problems)
-    except (TypeError, ValueError) as exc:
-        problems.append(f"{path}: {exc}")
-    return None
 
 
 def _samples(value: Any, problems: list[str]) -> tuple[SampleConfig, ...]:
@@ -1077,16 +729,16 @@ def config_from_dict(data: Mapping[str, Any], source: str = "<dict>",
     parts["parameter_shifts"] = build_section(ParameterShiftsConfig,
                                               data.get("parameter_shifts"),
                                               "parameter_shifts", problems)
-    parts["ladder"] = build_section(LadderConfig, _switched_on(data.get("ladder")), "ladder",
+    parts["ladder"] = build_section(LadderConfig, switched_on(data.get("ladder")), "ladder",
                                     problems)
-    parts["corrections"] = build_section(CorrectionsConfig, _switched_on(
+    parts["corrections"] = build_section(CorrectionsConfig, switched_on(
         data.get("corrections")), "corrections", problems)
-    parts["cut_sweep"] = _cut_sweep(data.get("cut_sweep"), problems)
+    parts["cut_sweep"] = cut_sweep_section(data.get("cut_sweep"), problems)
     if problems or any(v is None for v in parts.values()):
         raise InputError(_joined(source, problems), problems)
     cfg = RunConfig(seed=seed, source=source, base_dir=str(base_dir), **parts)
     warnings = _cross_checks(cfg, problems)
-    _attribution_checks(cfg, problems)
+    problems.extend(sweep_problems(cfg.cut_sweep, cfg.samples, cfg.shell))
     if problems:
         raise InputError(_joined(source, problems), problems)
     object.__setattr__(cfg, "_warnings", tuple(warnings))
@@ -1107,13 +759,7 @@ def _joined(source: str, problems: list[str]) -> str:
 def load_config(path: str | Path) -> RunConfig:
     """Read and validate a TOML run configuration."""
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: configuration file not found" if not path.exists()
-                         else f"{path}: expected a TOML file, found a directory")
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: not valid TOML ({exc})") from None
+    data = read_toml(path, "configuration file")
     return config_from_dict(data, str(path), path.parent.resolve())
 
 

@@ -14,6 +14,7 @@ import re
 from typing import Any
 
 from . import config as C
+from .attribution import settings as A
 from .compare.rules import VerdictRules
 from .cone.settings import (
     CorrectionSettings,
@@ -50,10 +51,10 @@ SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("compute", C.ComputeConfig, ()),
     ("output", C.OutputConfig, ()),
     ("parameter_shifts", C.ParameterShiftsConfig, ()),
-    ("ladder", C.LadderConfig, ()),
-    ("corrections", C.CorrectionsConfig, ()),
-    ("cut_sweep", C.CutSweepConfig, ("samples",)),
-    ("cut_sweep.samples.NAME", C.SweepCuts, ()),
+    ("ladder", A.LadderConfig, ()),
+    ("corrections", A.CorrectionsConfig, ()),
+    ("cut_sweep", A.CutSweepConfig, ("samples",)),
+    ("cut_sweep.samples.NAME", A.SweepCuts, ()),
 ]
 
 

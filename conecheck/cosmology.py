@@ -1,7 +1,7 @@
 """Background cosmology in the units the whole pipeline shares.
 
 Distances are comoving, in Mpc/h; H(z) is in km/s/(Mpc/h), i.e. H(z) = 100 E(z).
-Radiation is neglected (design.md §3).  Magnitudes use the M − 5 log10 h
+Radiation is neglected (docs/design.md §3).  Magnitudes use the M − 5 log10 h
 convention, so distance moduli are computed from D_L in Mpc/h and do not need h.
 
 Comoving distance is tabulated once per :class:`Cosmology` on a dense redshift grid

@@ -16,17 +16,11 @@ runs in well under a minute (for the tests).
 from __future__ import annotations
 
 import copy
-import sys
 from pathlib import Path
 from typing import Any
 
-from .commands.init import template_text
 from .config import RunConfig, config_from_dict
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
+from .loader import parse_toml
 
 DEMO_OUTPUT = Path("reports") / "demo"
 
@@ -43,9 +37,18 @@ QUICK_CHANGES: dict[str, dict[str, Any]] = {
 }
 
 
+#: The commented configuration template `conecheck init` writes; it runs this demo.
+TEMPLATE_PATH = Path(__file__).resolve().parent / "data" / "template.toml"
+
+
+def template_text() -> str:
+    """The commented configuration template (the demo's configuration)."""
+    return TEMPLATE_PATH.read_text(encoding="utf-8")
+
+
 def demo_dict(quick: bool = False) -> dict[str, Any]:
     """The demo configuration as a TOML-like dictionary."""
-    data = tomllib.loads(template_text())
+    data = parse_toml(template_text())
     if quick:
         data = copy.deepcopy(data)
         for section, changes in QUICK_CHANGES.items():

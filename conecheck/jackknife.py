@@ -1,4 +1,4 @@
-"""Delete-one jackknife covariances (design.md §7).
+"""Delete-one jackknife covariances (docs/design.md §7).
 
 Given K delete-one estimates x_k of a p-vector, the covariance is
 C = (K − 1)/K Σ_k (x_k − x̄)(x_k − x̄)ᵀ (e.g. Efron 1982, *The Jackknife, the Bootstrap
@@ -55,7 +55,7 @@ BOX_LAYOUTS = ("columns", "cubes")
 
 @dataclass(frozen=True)
 class BoxRegions:
-    """Equal jackknife sub-volumes of a periodic box (design.md §7).
+    """Equal jackknife sub-volumes of a periodic box (docs/design.md §7).
 
     ``columns``: an n_side × n_side grid of columns running the full box length along the
     line of sight (K = n_side²), so no pair along the LOS is cut more than across it;

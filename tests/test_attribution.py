@@ -33,19 +33,21 @@ from astropy.table import Table
 from run_helpers import tiny_dict
 from scipy import stats
 
-from conecheck import attribution
+from conecheck.attribution import stages as attribution
 from conecheck.attribution import variants as variants_mod
 from conecheck.attribution.ladder import plan_ladder
 from conecheck.attribution.paired import paired_difference
+from conecheck.attribution.settings import DEFAULT_LADDER_ORDER
 from conecheck.attribution.sweep import grid_label, plan_sweep
 from conecheck.attribution.variants import main_variant
 from conecheck.attribution.verdicts import first_failing
 from conecheck.cli import main as cli_main
-from conecheck.commands.init import template_text
 from conecheck.compare import VerdictRules
-from conecheck.config import DEFAULT_LADDER_ORDER, config_from_dict
+from conecheck.config import config_from_dict
+from conecheck.demo import template_text
 from conecheck.errors import InputError
 from conecheck.report import REQUIRED_STATISTIC_KEYS
+from conecheck.report.attribution_summary import attribution_summary
 from conecheck.report.render import build_pages, draw_page, rerender
 from conecheck.stats.base import Measurement
 
@@ -426,7 +428,7 @@ def test_outputs_tables_pages_and_summary(planted):
     assert (run_dir / "tables" / "corrections" / "vs_truth" / "broad__primary__wp.ecsv").exists()
     s = Table.read(run_dir / "tables" / "cuts" / "broad__summary.ecsv")
     assert list(s["label"]) == results["cuts"]["samples"]["broad"]["order"]
-    text = attribution.attribution_summary(results)
+    text = attribution_summary(results)
     assert "broad primary wp: fails from +RSD" in text and "redshift-cut sweep" in text
     # pages: present, fitting the page, re-rendered from results.json alone
     specs = build_pages(results, run_dir)
@@ -514,7 +516,8 @@ def test_ladder_flag_switches_everything_on(monkeypatch, tmp_path):
         seen["cfg"], seen["extensions"] = cfg, kw["extensions"]
         return {"samples": {}, "overall": "pass"}, 0
 
-    monkeypatch.setattr("conecheck.run.validate.validate", fake_validate)
+    # patched where the command looks it up
+    monkeypatch.setattr("conecheck.commands.run.validate", fake_validate)
     path = tmp_path / "c.toml"
     path.write_text(tomli_w.dumps(tiny_dict()), encoding="utf-8")
     assert cli_main(["run", str(path), "--ladder", "-o", str(tmp_path / "o"), "-q"]) == 0
@@ -538,7 +541,7 @@ def test_a_failing_section_is_reported_and_spares_the_main_results(monkeypatch, 
     results = {"samples": {}, "overall": "pass"}
     attribution.Attribution().cut_sweep(Inputs(), {}, results)
     assert "no galaxies" in results["cuts"]["error"]
-    assert "redshift-cut sweep: not completed" in attribution.attribution_summary(results)
+    assert "redshift-cut sweep: not completed" in attribution_summary(results)
     specs = build_pages(results, tmp_path)
     err = [s for s in specs if s.kind == "cut_sweep"]
     assert len(err) == 1 and "not completed" in err[0].title
@@ -564,7 +567,7 @@ def test_equal_area_cap_of_the_footprint():
 
 
 def test_default_ladder_uses_the_cap_and_stays_consistent(tmp_path):
-    from conecheck.attribution import extensions, with_attribution
+    from conecheck.attribution.stages import extensions, with_attribution
     from conecheck.config import config_from_dict
     from conecheck.run.validate import validate
 

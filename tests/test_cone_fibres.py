@@ -29,8 +29,8 @@ from conecheck.cone import (
     load_overlap_map,
 )
 from conecheck.cone.fibres import collision_pairs, decollide
-from conecheck.cone.geometry import unit_vectors
 from conecheck.errors import InputError
+from conecheck.sphere import radec_to_vec as unit_vectors
 
 NO_SECOND = FibreSettings(overlap_fraction=0.0)
 

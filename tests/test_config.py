@@ -9,9 +9,9 @@ import pytest
 from run_helpers import tiny_dict
 
 from conecheck.cli import main
-from conecheck.commands.init import template_text
 from conecheck.config import config_from_dict, load_config, resolved_toml
 from conecheck.config_docs import README_BEGIN, README_END, missing_docs, reference_markdown
+from conecheck.demo import template_text
 from conecheck.errors import InputError
 
 ROOT = Path(__file__).resolve().parent.parent

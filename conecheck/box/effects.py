@@ -1,6 +1,6 @@
 """Box-side observational effects: plane-parallel redshift-space distortions and z errors.
 
-In a periodic box the line of sight is one Cartesian axis (design.md §6).  A galaxy with
+In a periodic box the line of sight is one Cartesian axis (docs/design.md §6).  A galaxy with
 peculiar velocity v_los [km/s] along that axis appears displaced by
 
     Δs = v_los (1 + z) / H(z)          [Mpc/h, comoving]

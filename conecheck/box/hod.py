@@ -52,7 +52,6 @@ from __future__ import annotations
 
 import math
 import os
-import sys
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -63,11 +62,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.special import erf
 
 from ..errors import InputError
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
+from ..loader import build_section, convert, read_toml
 
 #: Concentration–mass relations known by name.
 CONCENTRATION_RELATIONS = ("mass_power_law",)
@@ -345,14 +340,8 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
     if isinstance(source, Mapping):
         data, where = dict(source), "HOD parameters"
     else:
-        path = Path(source)
-        where = str(path)
-        if not path.is_file():
-            raise InputError(f"{path}: HOD parameter file not found")
-        try:
-            data = tomllib.loads(path.read_text(encoding="utf-8"))
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-            raise InputError(f"{path}: not valid TOML ({exc})") from None
+        where = str(source)
+        data = read_toml(source, "HOD parameter file")
     problems = _unknown(data, _TOP_KEYS, where)
     raw_th = data.get("threshold")
     if not isinstance(raw_th, list) or not raw_th:
@@ -371,24 +360,24 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
         if missing:
             problems.append(f"{tw}: missing key(s) {', '.join(missing)}")
             continue
+        found: list[str] = []
+        params = build_section(ZhengParams, {k: th[k] for k in _THRESHOLD_KEYS - {"mag_max"}},
+                               tw, found)
         try:
-            params = ZhengParams(**{k: th[k] for k in _THRESHOLD_KEYS - {"mag_max"}})
-            mag = th["mag_max"]
-            if isinstance(mag, bool) or not isinstance(mag, (int, float)):
-                raise InputError(f"mag_max = {mag!r}: expected a number")
-            thresholds.append(HODThreshold(float(mag), params))
-        except InputError as exc:
-            problems += [f"{tw}: {p}" for p in exc.problems]
+            mag = convert(th["mag_max"], float, f"{tw}: mag_max")
+        except ValueError as exc:
+            found.append(str(exc))
+        problems += found
+        if not found:
+            thresholds.append(HODThreshold(mag, params))
     ab_raw = data.get("assembly_bias", {})
     ab = AssemblyBias()
     if not isinstance(ab_raw, Mapping):
         problems.append(f"{where}: [assembly_bias] must be a table")
     else:
         problems += _unknown(ab_raw, _AB_KEYS, f"{where}: [assembly_bias]")
-        try:
-            ab = AssemblyBias(**{k: v for k, v in ab_raw.items() if k in _AB_KEYS})
-        except InputError as exc:
-            problems += [f"{where}: [assembly_bias] {p}" for p in exc.problems]
+        ab = build_section(AssemblyBias, {k: v for k, v in ab_raw.items() if k in _AB_KEYS},
+                           f"{where}: [assembly_bias]", problems) or ab
     if problems:
         raise InputError("; ".join(problems), problems)
     kwargs = {k: data[k] for k in ("concentration", "satellites_need_central", "bright_tail_mag")

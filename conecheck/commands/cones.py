@@ -13,7 +13,6 @@ import dataclasses
 import logging
 from pathlib import Path
 
-from .. import __version__
 from ..cone import write_cones_directory
 from ..cone.build import prepare_box
 from ..config import load_config
@@ -35,6 +34,7 @@ from ..run.tasks import (
     shuffle_distances,
     survey_model,
 )
+from ..version import __version__
 
 log = logging.getLogger(__name__)
 

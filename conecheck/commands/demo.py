@@ -14,6 +14,11 @@ from __future__ import annotations
 
 import argparse
 
+from ..attribution.stages import extensions, with_attribution
+from ..demo import demo_config
+from ..report.attribution_summary import finish_attribution
+from ..run.validate import EXIT_INCOMPLETE, output_dir, print_summary, validate
+
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("-o", "--out", help="run directory (default: reports/demo)")
@@ -28,18 +33,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    from .. import attribution
-    from ..demo import demo_config
-    from ..run.validate import EXIT_INCOMPLETE, output_dir, print_summary, validate
-
     cfg = demo_config(args.quick or args.ladder)
     if args.ladder:
-        cfg = attribution.with_attribution(cfg)
+        cfg = with_attribution(cfg)
     results, code = validate(cfg, args.out, fresh=args.fresh,
                              progress=None if args.verbosity >= 0 else False,
-                             extensions=attribution.extensions(cfg))
+                             extensions=extensions(cfg))
     print_summary(results, output_dir(cfg, args.out))
-    attribution.finish(results, output_dir(cfg, args.out))
+    finish_attribution(results, output_dir(cfg, args.out))
     if code == EXIT_INCOMPLETE:
         return code
     print(f"(demo: `conecheck run` would exit with code {code} for this verdict)")

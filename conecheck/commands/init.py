@@ -11,14 +11,8 @@ import argparse
 from pathlib import Path
 
 from ..atomic import write_text_atomic
+from ..demo import template_text
 from ..errors import InputError
-
-TEMPLATE_PATH = Path(__file__).resolve().parent.parent / "data" / "template.toml"
-
-
-def template_text() -> str:
-    """The commented configuration template."""
-    return TEMPLATE_PATH.read_text(encoding="utf-8")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

@@ -13,7 +13,10 @@ from __future__ import annotations
 
 import argparse
 
+from ..attribution.stages import extensions, with_attribution
 from ..config import load_config
+from ..report.attribution_summary import finish_attribution
+from ..run.validate import output_dir, print_summary, validate
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -36,17 +39,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def main(args: argparse.Namespace) -> int:
-    from .. import attribution
-    from ..run.validate import output_dir, print_summary, validate
-
     cfg = load_config(args.config)
     if args.ladder:
-        cfg = attribution.with_attribution(cfg)
+        cfg = with_attribution(cfg)
     results, code = validate(cfg, args.out, fresh=args.fresh, scheduler=args.scheduler,
                              workers=args.workers,
                              progress=None if args.verbosity >= 0 else False,
                              config_path=args.config,
-                             extensions=attribution.extensions(cfg), force=args.force)
+                             extensions=extensions(cfg), force=args.force)
     print_summary(results, output_dir(cfg, args.out))
-    attribution.finish(results, output_dir(cfg, args.out))
+    finish_attribution(results, output_dir(cfg, args.out))
     return code

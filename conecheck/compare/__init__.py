@@ -1,4 +1,4 @@
-"""Comparison stage: offsets, error budgets, χ² and verdicts (design.md §8).
+"""Comparison stage: offsets, error budgets, χ² and verdicts (docs/design.md §8).
 
 Everything here works from :class:`~conecheck.stats.base.Measurement` objects (one
 statistic) and from the results dictionary (roll-up), never from catalogues. The verdict

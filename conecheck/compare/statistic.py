@@ -1,4 +1,4 @@
-"""Box versus cones for one sample, redshift cut and statistic (design.md §8).
+"""Box versus cones for one sample, redshift cut and statistic (docs/design.md §8).
 
 :func:`compare_statistic` works from :class:`~conecheck.stats.base.Measurement` objects
 only, so it never needs to know which statistic it holds. The quantities and the verdict

@@ -1,6 +1,6 @@
 """Build light cones from a periodic galaxy box.
 
-One cone, in order (design.md §4): replicate the box around the observer and rotate
+One cone, in order (docs/design.md §4): replicate the box around the observer and rotate
 it → sky coordinates and cosmological redshift → footprint sampling → radial RSD →
 redshift errors → flux limit (the *target* list) → fibre-collision emulator →
 correction → cut to the shell in observed redshift.  Footprint sampling is applied
@@ -35,7 +35,14 @@ from scipy.spatial.transform import Rotation
 from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
-from .corrections import CORRECTIONS, ZFLAG_COLLIDED, ZFLAG_OWN_FIBRE, ZFLAG_SECOND_PASS
+from ..footprint.protocols import SkyFootprint
+from .corrections import (
+    CORRECTIONS,
+    ZFLAG_COLLIDED,
+    ZFLAG_OWN_FIBRE,
+    ZFLAG_SECOND_PASS,
+    correction_problem,
+)
 from .fibres import OverlapMap, assign_fibres, load_overlap_map, no_fibres
 from .geometry import (
     BoxCells,
@@ -93,7 +100,7 @@ class SurveyModel:
 
     cosmology: Cosmology = field(default_factory=Cosmology)
     shell: SurveyShell = field(default_factory=SurveyShell)
-    footprint: Any = None
+    footprint: SkyFootprint | None = None
     effects: EffectSwitches = field(default_factory=EffectSwitches)
     fibres: FibreSettings = field(default_factory=FibreSettings)
     correction: CorrectionSettings = field(default_factory=CorrectionSettings)
@@ -231,9 +238,9 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     streams = _stage_rngs(rng)
     cosmo, shell, fx = survey.cosmology, survey.shell, survey.effects
     flux = _check_flux_inputs(box, survey)
-    if survey.correction.name not in CORRECTIONS:
-        raise InputError(f"correction.name = {survey.correction.name!r}: expected one of "
-                         + ", ".join(sorted(CORRECTIONS)))
+    problem = correction_problem(survey.correction.name, "correction.name")
+    if problem:
+        raise InputError(problem)
     chi_min = float(cosmo.comoving_distance(shell.z_min))
     chi_max = float(cosmo.comoving_distance(shell.z_max))
     margin = shell_margin(box, survey)
@@ -373,7 +380,7 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     return cone, info
 
 
-def build_all_cones(box: GalaxyBox, footprint: Any, shell: SurveyShell,
+def build_all_cones(box: GalaxyBox, footprint: SkyFootprint | None, shell: SurveyShell,
                     observers: ObserverSettings, effects: EffectSwitches, fibres: FibreSettings,
                     correction: CorrectionSettings, redshift_errors: RedshiftErrorSettings,
                     cosmology: Cosmology, n_cones: int, seed: int,

@@ -32,7 +32,7 @@ from numpy.typing import NDArray
 from scipy.spatial import cKDTree
 
 from ..cosmology import Cosmology
-from .geometry import unit_vectors
+from ..sphere import radec_to_vec
 
 ZFLAG_OWN_FIBRE = 0
 ZFLAG_SECOND_PASS = 1
@@ -51,6 +51,14 @@ Correction = Callable[[Table, NDArray[np.bool_], np.random.Generator, Cosmology]
 CORRECTIONS: dict[str, Correction] = {}
 
 
+def correction_problem(name: object, key: str = "name") -> str | None:
+    """Why ``name`` is not a fibre-collision correction (None when it is): the one rule
+    every settings section and the cone builder use."""
+    if isinstance(name, str) and name in CORRECTIONS:
+        return None
+    return f"{key} = {name!r}: expected one of {', '.join(sorted(CORRECTIONS))}"
+
+
 def register_correction(name: str) -> Callable[[Correction], Correction]:
     """Decorator adding a correction to :data:`CORRECTIONS` under ``name``."""
     def deco(func: Correction) -> Correction:
@@ -66,7 +74,7 @@ def nearest_fibred(table: Table, fibred: NDArray[np.bool_]
     Returns the indices (into ``table``) and the separations [arcsec], one per row
     where ``fibred`` is False, in row order.
     """
-    xyz = unit_vectors(table["ra"], table["dec"])
+    xyz = radec_to_vec(table["ra"], table["dec"])
     fib = np.flatnonzero(fibred)
     lost = np.flatnonzero(~fibred)
     if lost.size == 0 or fib.size == 0:

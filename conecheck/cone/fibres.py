@@ -42,7 +42,7 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
-from .geometry import unit_vectors
+from ..sphere import radec_to_vec
 from .settings import FibreSettings
 
 log = logging.getLogger(__name__)
@@ -292,7 +292,7 @@ def assign_fibres(ra_deg: ArrayLike, dec_deg: ArrayLike, settings: FibreSettings
     dec = np.asarray(dec_deg, dtype=np.float64)
     n = len(ra)
     theta = settings.angle_arcsec * ARCSEC
-    xyz = unit_vectors(ra, dec)
+    xyz = radec_to_vec(ra, dec)
     pairs = collision_pairs(xyz, theta)
     first, groups = decollide(n, pairs, rng, settings.exact_group_max)
     collided = ~first

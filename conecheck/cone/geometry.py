@@ -29,6 +29,7 @@ from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 
 from ..errors import InputError
+from ..footprint.protocols import SkyFootprint
 from .settings import ObserverSettings
 
 log = logging.getLogger(__name__)
@@ -123,14 +124,6 @@ def sky_coordinates(r: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArra
     ra = np.where(ra >= 360.0, ra - 360.0, ra)
     dec = np.degrees(np.arctan2(z, rho))
     return ra, dec, chi
-
-
-def unit_vectors(ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
-    """Unit vectors (N, 3) of equatorial directions RA, Dec [deg]."""
-    ra = np.radians(np.asarray(ra_deg, dtype=np.float64))
-    dec = np.radians(np.asarray(dec_deg, dtype=np.float64))
-    cd = np.cos(dec)
-    return np.column_stack([cd * np.cos(ra), cd * np.sin(ra), np.sin(dec)])
 
 
 # ------------------------------------------------------------------ replication
@@ -256,7 +249,7 @@ class SkyCoverage:
         return chord <= bound
 
 
-def _positive_pixels(footprint: Any, nside: int, eval_rows: int) -> NDArray[np.int64]:
+def _positive_pixels(footprint: SkyFootprint, nside: int, eval_rows: int) -> NDArray[np.int64]:
     """NESTED indices of pixels with completeness > 0 at the footprint's N_side."""
     import healpy as hp
 
@@ -274,7 +267,7 @@ def _positive_pixels(footprint: Any, nside: int, eval_rows: int) -> NDArray[np.i
     return np.concatenate(found)
 
 
-def sky_coverage(footprint: Any, nside_coarse: int = 64,
+def sky_coverage(footprint: SkyFootprint, nside_coarse: int = 64,
                  eval_rows: int = 1 << 21) -> SkyCoverage | None:
     """Coarse coverage of ``footprint`` (None when it covers most of the sky).
 

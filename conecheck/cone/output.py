@@ -26,6 +26,7 @@ from astropy.table import Table
 
 from ..atomic import write_text_atomic
 from ..catalog import write_table
+from ..footprint.protocols import JackknifeRegions
 from .corrections import ZFLAG_MEANING
 
 CONE_COLUMNS = ("ra", "dec", "z_obs", "chi_obs", "weight", "zflag", "abs_mag", "region",
@@ -36,7 +37,7 @@ UNITS = {"ra": "deg", "dec": "deg", "chi_obs": "Mpc/h", "chi_true": "Mpc/h", "ab
          "app_mag": "mag"}
 
 
-def _with_region(table: Table, regions: Any) -> Table:
+def _with_region(table: Table, regions: JackknifeRegions | None) -> Table:
     if regions is None:
         return table
     out = table.copy(copy_data=False)
@@ -84,7 +85,7 @@ def cone_header(info: Mapping[str, Any], manifest: Mapping[str, Any]) -> dict[st
     return head
 
 
-def write_cone(table: Table, path: str | os.PathLike[str], regions: Any = None,
+def write_cone(table: Table, path: str | os.PathLike[str], regions: JackknifeRegions | None = None,
                columns: Sequence[str] = CONE_COLUMNS,
                header: Mapping[str, Any] | None = None) -> None:
     """Write a cone (FITS by default, format from the name), adding ``region`` if given.
@@ -97,7 +98,8 @@ def write_cone(table: Table, path: str | os.PathLike[str], regions: Any = None,
     write_table(out, path)
 
 
-def write_randoms(table: Table, path: str | os.PathLike[str], regions: Any = None) -> None:
+def write_randoms(table: Table, path: str | os.PathLike[str],
+                  regions: JackknifeRegions | None = None) -> None:
     """Write a random catalogue, adding ``region`` if ``regions`` is given."""
     write_table(_select(_with_region(table, regions), RANDOM_COLUMNS), path)
 
@@ -123,7 +125,7 @@ def write_cones_directory(outdir: str | os.PathLike[str],
                           cones: Sequence[Table | tuple[Table, Mapping[str, Any]]],
                           randoms: Mapping[str, Table] | None = None,
                           manifest: Mapping[str, Any] | None = None,
-                          regions: Any = None) -> Path:
+                          regions: JackknifeRegions | None = None) -> Path:
     """Write every cone, every random catalogue and ``manifest.json`` into ``outdir``.
 
     Parameters

@@ -7,7 +7,7 @@ the pipeline builds them once per sample and cut and shares them between cones.
 from __future__ import annotations
 
 import logging
-from typing import Any, Literal
+from typing import Literal
 
 import numpy as np
 from astropy.table import Table
@@ -15,6 +15,7 @@ from numpy.typing import ArrayLike
 
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..footprint.protocols import SkyFootprint
 from .selection import FullSky
 
 log = logging.getLogger(__name__)
@@ -25,7 +26,7 @@ def n_randoms(n_data: float, multiple: float) -> int:
     return max(1, int(round(n_data * multiple)))
 
 
-def make_randoms(footprint: Any, chi_min: float, chi_max: float, n: int,
+def make_randoms(footprint: SkyFootprint | None, chi_min: float, chi_max: float, n: int,
                  rng: np.random.Generator, radial: Literal["volume", "shuffle"] = "volume",
                  data_chi: ArrayLike | None = None,
                  cosmology: Cosmology | None = None) -> Table:

@@ -22,6 +22,7 @@ from scipy.optimize import brentq
 
 from ..cosmology import FULL_SKY_DEG2, Cosmology
 from ..errors import InputError
+from ..footprint.protocols import SkyFootprint
 from .settings import SampleCut, SurveyShell
 
 log = logging.getLogger(__name__)
@@ -52,8 +53,9 @@ class FullSky:
         return ra, dec
 
 
-def footprint_keep(ra_deg: NDArray[np.float64], dec_deg: NDArray[np.float64], footprint: Any,
-                   rng: np.random.Generator) -> tuple[NDArray[np.bool_], NDArray[np.float64]]:
+def footprint_keep(ra_deg: NDArray[np.float64], dec_deg: NDArray[np.float64],
+                   footprint: SkyFootprint | None, rng: np.random.Generator
+                   ) -> tuple[NDArray[np.bool_], NDArray[np.float64]]:
     """Keep each galaxy with probability equal to the completeness at its pixel.
 
     Returns the boolean keep mask and the completeness of every input galaxy.
@@ -184,7 +186,7 @@ def volume_limits_report(shell: SurveyShell, cuts: list[SampleCut],
     return out
 
 
-def effective_area_deg2(footprint: Any) -> float:
+def effective_area_deg2(footprint: SkyFootprint | None) -> float:
     """Σ completeness × pixel area [deg²] (the footprint's ``area_deg2``)."""
     area = float(getattr(footprint, "area_deg2", math.nan))
     if not math.isfinite(area) or area <= 0:

@@ -15,7 +15,9 @@ import math
 from dataclasses import dataclass
 from typing import Any, Literal
 
+from ..cosmology import C_KMS
 from ..errors import InputError
+from .corrections import correction_problem
 
 Triple = tuple[float, float, float]
 
@@ -74,7 +76,6 @@ class ObserverSettings:
         Hard cap on the number of periodic replicas a cone may touch (time guard);
         exceeding it is always an InputError.
     """
-
     placement: Literal["random", "grid", "given"] = "random"
     positions: tuple[Triple, ...] = ()
     rotation: Literal["random", "none", "given"] = "random"
@@ -119,7 +120,6 @@ class RedshiftErrorSettings:
     sigma_z0 : float
         σ_z0 of the ``sigma_z`` model (dimensionless).
     """
-
     model: Literal["velocity", "sigma_z"] = "velocity"
     sigma_v_kms: float = 30.0
     sigma_z0: float = 0.0
@@ -137,8 +137,6 @@ class RedshiftErrorSettings:
 
     def sigma_z(self, z_cos: Any) -> Any:
         """Redshift error σ_z at cosmological redshift ``z_cos`` (array-friendly)."""
-        from ..cosmology import C_KMS
-
         if self.model == "velocity":
             return (1.0 + z_cos) * self.sigma_v_kms / C_KMS
         return (1.0 + z_cos) * self.sigma_z0
@@ -169,7 +167,6 @@ class FibreSettings:
         Largest collision group (number of targets) decollided exactly (maximum
         independent set by enumeration, 2^k subsets); larger groups use a greedy rule.
     """
-
     angle_arcsec: float = 55.0
     overlap_map: str | None = None
     overlap_map_nest: bool = False
@@ -204,15 +201,12 @@ class CorrectionSettings:
         its nearest fibred angular neighbour) or ``nearest_upweight`` (drop it and add its
         weight to that neighbour).
     """
-
     name: str = "nearest_redshift"
 
     def __post_init__(self) -> None:
-        from .corrections import CORRECTIONS
-
-        if self.name not in CORRECTIONS:
-            _raise("correction", [f"name = {self.name!r}: expected one of "
-                                  + ", ".join(sorted(CORRECTIONS))])
+        problem = correction_problem(self.name)
+        if problem:
+            _raise("correction", [problem])
 
 
 @dataclass(frozen=True)
@@ -232,7 +226,6 @@ class EffectSwitches:
     fibres : bool
         Emulate fibre collisions (off: every target gets a fibre).
     """
-
     rsd: bool = True
     redshift_errors: bool = True
     footprint: bool = True
@@ -265,7 +258,6 @@ class SurveyShell:
         RSD and redshift errors can move galaxies into it.  None: automatic, from the
         box's largest speed plus five redshift-error sigmas at z_max.
     """
-
     z_min: float = 0.02
     z_max: float = 0.1
     m_lim: float | None = None
@@ -319,7 +311,6 @@ class SampleCut:
     z_min, z_max : float or None
         Keep z_min <= z_obs < z_max (None: no limit on that side).
     """
-
     label: str = "all"
     mag_max: float | None = None
     z_min: float | None = None
@@ -353,7 +344,6 @@ class RandomSettings:
         ``volume``: χ uniform in comoving volume between the cut's limits;
         ``shuffle``: χ drawn (with replacement) from the data's observed distances.
     """
-
     multiple: float = 20.0
     radial: Literal["volume", "shuffle"] = "volume"
 

@@ -20,6 +20,7 @@ from ..errors import InputError
 from .from_randoms import mask_from_randoms
 from .jackknife import jackknife_regions
 from .maps import Footprint
+from .plot import save_footprint_plot
 from .regions import DEFAULT_OVERSAMPLE, build_mask
 from .summary import format_summary, summarize
 
@@ -108,8 +109,6 @@ def _cmd_info(args: argparse.Namespace) -> int:
 
 
 def _cmd_plot(args: argparse.Namespace) -> int:
-    from .plot import save_footprint_plot  # matplotlib only when plotting
-
     fp = Footprint.from_fits(args.mask, vetoes=args.veto)
     regions = None
     if args.regions is not None:

@@ -23,18 +23,14 @@ Only centres near edges and holes go through ``query_disc``.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import healpy as hp
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
-from ._sphere import check_radec, chord_to_angle, radec_to_vec
-
-if TYPE_CHECKING:  # pragma: no cover
-    from .maps import Footprint
+from ..sphere import check_radec, chord_to_angle, radec_to_vec
+from .protocols import HealpixMap
 
 #: Largest sub-pixel N_side used (healpy's limit).
 MAX_NSIDE = 2**29
@@ -42,7 +38,7 @@ MAX_NSIDE = 2**29
 BATCH_PIXELS = 4_000_000
 
 
-def _boundary_tree(fp: Footprint) -> cKDTree | None:
+def _boundary_tree(fp: HealpixMap) -> cKDTree | None:
     """KD-tree of unit vectors of pixels that have a neighbour of different value."""
     cached = getattr(fp, "_boundary_tree_cache", None)
     if cached is not None:
@@ -72,7 +68,7 @@ def _query_level(nside: int, radius_rad: NDArray[np.float64], samples_per_radius
     return np.clip(np.ceil(need), 0, kmax).astype(np.int64)
 
 
-def disc_fraction(fp: Footprint, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_deg: ArrayLike,
+def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_deg: ArrayLike,
                   samples_per_radius: float = 10.0) -> NDArray[np.float64]:
     """Completeness-weighted fraction of each disc inside the footprint.
 

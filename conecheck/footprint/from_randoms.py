@@ -42,7 +42,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from ..errors import InputError
-from ._sphere import check_radec
+from ..sphere import check_radec
 from .maps import Footprint
 
 log = logging.getLogger(__name__)

@@ -1,6 +1,6 @@
 """Jackknife sky regions: K pieces of a footprint with near-equal effective area.
 
-Method (design.md §7):
+Method (docs/design.md §7):
 
 1. Weighted spherical k-means (Lloyd 1982, IEEE Trans. Inf. Theory 28, 129) on the
    unit vectors of the occupied pixels, weights completeness × Ω_pix, seeded with
@@ -40,7 +40,7 @@ from scipy.spatial import cKDTree
 from ..atomic import atomic_path
 from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
-from ._sphere import check_radec, vec_to_radec
+from ..sphere import check_radec, vec_to_radec
 from .maps import Footprint
 from .summary import connected_pieces
 

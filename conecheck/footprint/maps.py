@@ -4,7 +4,7 @@ A :class:`Footprint` holds one value per HEALPix pixel, the *completeness*: the
 probability that a galaxy at that position is in the survey (0 outside, 1 fully
 observed).  Veto maps multiply it.  Areas are effective areas,
 Ω_eff = Σ_pixels completeness × Ω_pix with Ω_pix = 4π / (12 N_side²)
-(Górski et al. 2005, ApJ 622, 759), the quantity design.md §6 divides by.
+(Górski et al. 2005, ApJ 622, 759), the quantity docs/design.md §6 divides by.
 
 Ordering is RING or NESTED as the FITS header (or the caller) says; the map is
 kept in its own ordering and healpy is told which on every call.
@@ -24,7 +24,8 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
-from ._sphere import check_radec
+from ..sphere import check_radec
+from .discs import disc_fraction
 from .fitsio import read_healpix, write_healpix
 
 log = logging.getLogger(__name__)
@@ -109,6 +110,11 @@ class Footprint:
         arr = np.asarray(values)
         dtype = np.float32 if arr.dtype == np.float32 else np.float64
         return cls(arr, nest=nest, source=source, file_dtype=dtype)
+
+    @classmethod
+    def full_sky(cls, nside: int = 32) -> Footprint:
+        """The whole sky at completeness 1 (RING ordering, N_side ``nside``)."""
+        return cls.from_map(np.ones(hp.nside2npix(nside)), source="full sky")
 
     @classmethod
     def from_fits(cls, path: str | os.PathLike[str],
@@ -286,8 +292,6 @@ class Footprint:
 
         See :func:`conecheck.footprint.discs.disc_fraction`.
         """
-        from .discs import disc_fraction
-
         return disc_fraction(self, ra_deg, dec_deg, radius_deg,
                              samples_per_radius=samples_per_radius)
 

@@ -2,7 +2,7 @@
 
 Spectrographs observe the sky through circular tiles (fields); targets in regions
 covered by ≥ 2 tiles get a second fibre pass, which rescues some fibre collisions
-(design.md §4).  This module turns a list of tile centres into a HEALPix map of
+(docs/design.md §4).  This module turns a list of tile centres into a HEALPix map of
 that overlap fraction, computed on 4^oversample sub-pixels per pixel.
 """
 
@@ -13,7 +13,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..errors import InputError
-from ._sphere import check_radec, radec_to_vec
+from ..sphere import check_radec, radec_to_vec
 from .maps import Footprint
 
 

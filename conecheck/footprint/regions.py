@@ -55,11 +55,9 @@ from __future__ import annotations
 
 import logging
 import os
-import sys
 from abc import ABC, abstractmethod
 from collections.abc import Mapping
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import healpy as hp
@@ -67,13 +65,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ._sphere import radec_to_vec
+from ..loader import read_toml
+from ..sphere import radec_to_vec
 from .maps import SAMPLE_NSIDE, Footprint
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
 
 log = logging.getLogger(__name__)
 
@@ -414,14 +408,8 @@ def load_regions(spec: str | os.PathLike[str] | Mapping[str, Any]
     if isinstance(spec, Mapping):
         data, source = spec, "regions"
     else:
-        path = Path(spec)
-        source = str(path)
-        if not path.is_file():
-            raise InputError(f"{path}: region file not found")
-        try:
-            data = tomllib.loads(path.read_text(encoding="utf-8"))
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-            raise InputError(f"{path}: not valid TOML ({exc})") from None
+        source = str(spec)
+        data = read_toml(spec, "region file")
     problems: list[str] = []
     unknown = set(data) - {"mask", "region"}
     if unknown:

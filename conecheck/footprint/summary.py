@@ -10,7 +10,7 @@ from numpy.typing import NDArray
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from ._sphere import vec_to_radec
+from ..sphere import vec_to_radec
 from .maps import Footprint
 
 #: Completeness histogram bin edges (the last bin holds exactly 1).

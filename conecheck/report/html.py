@@ -18,8 +18,8 @@ from typing import Any
 
 import matplotlib
 
-from .. import __version__
 from ..atomic import write_text_atomic
+from ..version import __version__
 from . import access as ac
 from . import style as st
 from .pages_summary import overall_answer

@@ -15,7 +15,7 @@ import numpy as np
 
 from . import access as ac
 from . import style as st
-from .layout import Cell, Column, Page, draw_table, shorten, wrap
+from .layout import Cell, Column, Page, draw_table, shorten, text_width, wrap
 from .pagespec import PageSpec
 
 PER_PAGE = 5
@@ -39,7 +39,6 @@ def _title(page: Page, x: float, y: float, w: float, name: str, d: dict[str, Any
     v = d.get("verdict")
     tag = str(v or "no verdict").upper()
     page.text(x + w, y, tag, st.BODY, bold=True, colour=st.verdict_colour(v), ha="right")
-    from .layout import text_width
 
     room = w - text_width(tag, st.BODY, bold=True) - 0.15
     page.text(x, y, shorten(ac.stat_title(name), room, st.BODY + 1, bold=True), st.BODY + 1,

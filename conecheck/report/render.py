@@ -1,4 +1,4 @@
-"""The PDF report, built from the results dictionary alone (design.md §9).
+"""The PDF report, built from the results dictionary alone (docs/design.md §9).
 
 Page order: the verdict summary ("may I fit this?"), findings, how the verdicts are made,
 provenance, footprint with jackknife regions, n(z) of the cones, one page per sample and
@@ -18,8 +18,8 @@ from typing import Any
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
-from .. import __version__
 from ..atomic import atomic_path
+from ..version import __version__
 from .layout import Page, decorate, new_figure
 from .pages_attribution import attribution_pages
 from .pages_cuts import cut_pages

@@ -1,6 +1,6 @@
 """results.json: writing (atomic, NaN → null) and reading with schema checks.
 
-Schema (the lead's pipeline fills the top levels; see design.md §8–9)::
+Schema (the lead's pipeline fills the top levels; see docs/design.md §8–9)::
 
     {"conecheck_version", "config_hash", "overall",
      "samples": {SAMPLE: {"mag_max", "volume_limit_zmax", "verdict", "fibres": {...},

@@ -34,8 +34,8 @@ from typing import Any
 
 import numpy as np
 
-from .. import __version__
 from ..atomic import atomic_path, write_text_atomic
+from ..version import __version__
 from .serialize import pack, unpack
 
 log = logging.getLogger("conecheck.run")

@@ -174,7 +174,7 @@ def header_disagreements(cfg: RunConfig, meta: dict[str, Any]) -> list[str]:
 def load_footprint(cfg: RunConfig) -> Footprint:
     """The survey footprint in RING ordering, or the full sky when the footprint effect is off."""
     if not cfg.effects.footprint:
-        return Footprint.from_map(np.ones(hp.nside2npix(FULL_SKY_NSIDE)), source="full sky")
+        return Footprint.full_sky(FULL_SKY_NSIDE)
     mask = _existing(cfg, cfg.survey.mask, "survey.mask")
     vetoes = [_existing(cfg, v, f"survey.vetoes[{i}]") for i, v in enumerate(cfg.survey.vetoes)]
     # One canonical ordering: random positions, sphere centres and the k-means of the sky

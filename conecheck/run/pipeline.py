@@ -1,4 +1,4 @@
-"""The whole validation: box, randoms, cones, comparison, outputs (design.md §2, §10).
+"""The whole validation: box, randoms, cones, comparison, outputs (docs/design.md §2, §10).
 
 Stages, each a list of independent tasks run by an :class:`~conecheck.run.execute.Executor`
 and cached by :class:`~conecheck.run.cache.TaskCache`:
@@ -21,7 +21,6 @@ from typing import Any
 
 import numpy as np
 
-from .. import __version__
 from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
 from ..box.sensitivity import DEFAULT_STEPS
@@ -29,6 +28,7 @@ from ..catalog import GalaxyBox
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig
 from ..footprint import Footprint, SkyRegions
+from ..footprint.protocols import SkyFootprint
 from .cache import TaskCache, content_digest, spec_key
 from .execute import Executor, Task
 from .inputs import (
@@ -278,7 +278,8 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
 
 
 # --------------------------------------------------------------------------- helpers
-def nz_expected(cfg: RunConfig, footprint: Any, cut: Any, density: float) -> dict[str, Any]:
+def nz_expected(cfg: RunConfig, footprint: SkyFootprint, cut: SampleCut,
+                density: float) -> dict[str, Any]:
     """Expected n(z) of a cut: n_box × Ω_eff × shell volume per bin (no evolution)."""
     cosmo = cosmology_of(cfg)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
@@ -311,5 +312,5 @@ def prepare_inputs(cfg: RunConfig, executor: Executor, cache: TaskCache | None,
                      halos=halos, hod=hod, overlap=overlap_input(cfg))
 
 
-__all__ = ["CutPiece", "RunInputs", "__version__", "all_pieces", "box_stage", "cone_stage",
+__all__ = ["CutPiece", "RunInputs", "all_pieces", "box_stage", "cone_stage",
            "nz_expected", "prepare_inputs", "randoms_stage", "sensitivity_stage"]

@@ -75,7 +75,7 @@ def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
         if name in LOS_DEPENDENT:
             # The cones see the box along every direction, the box estimator along one axis:
             # the spread over the three axes measures that part of the box value which no
-            # cone shares (design: the offset's own error).
+            # cone shares (docs/design.md §8: the offset's own error).
             values = np.array([m.value] + [o[name].value for o in others], dtype=np.float64)
             m.extra[LOS_VARIANCE] = values.var(axis=0, ddof=1).tolist()
     return {"measurements": out, "n_galaxies": int(keep.sum()),

@@ -20,7 +20,6 @@ from typing import Any
 
 import numpy as np
 
-from .. import __version__
 from ..atomic import remove_partial_files, write_text_atomic
 from ..compare import compare_statistic, exit_code, rollup_verdicts
 from ..compare.fisher import shifts_for_cut
@@ -35,6 +34,7 @@ from ..report import (
     summary_table,
     write_statistic_tables,
 )
+from ..version import __version__
 from .cache import TaskCache
 from .execute import make_executor
 from .inputs import cosmology_of

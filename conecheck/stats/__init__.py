@@ -1,4 +1,4 @@
-"""Statistics measured identically on periodic boxes and light cones (design.md §6).
+"""Statistics measured identically on periodic boxes and light cones (docs/design.md §6).
 
 Every statistic returns a :class:`Measurement` (vector, bin labels and, on request, the
 jackknife delete-one vectors).  :data:`STATISTICS` maps the configured names to objects

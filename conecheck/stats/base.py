@@ -14,6 +14,9 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..cosmology import DEG2_PER_SR, Cosmology
+from ..errors import InputError
+from ..footprint.protocols import JackknifeRegions, SkyFootprint
+from ..jackknife import BoxRegions, jackknife_covariance
 
 #: Key of ``Measurement.extra`` holding, per bin, the variance of a box value that comes from
 #: the box estimator's own random sampling (e.g. random sphere centres), which the cones do
@@ -56,7 +59,6 @@ class Measurement:
         Statistic-specific diagnostics (pair counts, number of centres kept, …);
         only JSON-friendly values.
     """
-
     name: str
     bins: NDArray[np.float64]
     value: NDArray[np.float64]
@@ -74,8 +76,6 @@ class Measurement:
     @property
     def covariance(self) -> NDArray[np.float64]:
         """Jackknife covariance (K−1)/K Σ_k (x_k − x̄)(x_k − x̄)ᵀ, shape (p, p)."""
-        from ..jackknife import jackknife_covariance
-
         if self.delete_one is None:
             raise ValueError(f"{self.name}: no jackknife delete-one vectors were measured")
         return jackknife_covariance(self.delete_one)
@@ -83,8 +83,6 @@ class Measurement:
 
 # --------------------------------------------------------------------------- inputs
 def _as_float(a: Any, name: str, n: int | None = None) -> NDArray[np.float64]:
-    from ..errors import InputError
-
     try:
         x = np.ascontiguousarray(a, dtype=np.float64)
     except (TypeError, ValueError) as exc:
@@ -98,8 +96,6 @@ def _as_float(a: Any, name: str, n: int | None = None) -> NDArray[np.float64]:
 
 
 def _as_regions(region: Any, n_regions: int, n: int, name: str) -> NDArray[np.int64] | None:
-    from ..errors import InputError
-
     if n_regions < 0:
         raise InputError(f"{name}: n_regions must be ≥ 0, got {n_regions}")
     if region is None:
@@ -139,7 +135,6 @@ class BoxSample:
         The sub-volume layout the labels came from; needed to place random VPF spheres
         in regions and for the exact delete-one RR of wp (see :mod:`.wp`).
     """
-
     position: NDArray[np.float64]
     box_size: float
     los_axis: int = 2
@@ -149,8 +144,6 @@ class BoxSample:
     layout: Any = None
 
     def __post_init__(self) -> None:
-        from ..errors import InputError
-
         pos = _as_float(self.position, "box sample positions")
         if pos.ndim != 2 or pos.shape[1] != 3:
             raise InputError(f"box sample positions must have shape (N, 3), got {pos.shape}")
@@ -174,8 +167,6 @@ class BoxSample:
 
         ``n_side = 0`` builds a sample without jackknife regions.
         """
-        from ..jackknife import BoxRegions
-
         pos = np.asarray(position, dtype=np.float64)
         w = None if weight is None else np.asarray(weight, dtype=np.float64)
         if not n_side:
@@ -214,7 +205,6 @@ class ConeSample:
     n_regions : int
         Number of sky regions (0: no jackknife).
     """
-
     ra: NDArray[np.float64]
     dec: NDArray[np.float64]
     chi: NDArray[np.float64]
@@ -223,8 +213,6 @@ class ConeSample:
     n_regions: int = 0
 
     def __post_init__(self) -> None:
-        from ..errors import InputError
-
         ra = _as_float(self.ra, "cone sample ra").ravel()
         n = ra.size
         dec = _as_float(self.dec, "cone sample dec", n).ravel()
@@ -284,16 +272,13 @@ class ConeGeometry:
         Comoving volume per steradian between the limits [(Mpc/h)³], from the run's
         cosmology (curvature included); flat space when omitted.
     """
-
-    footprint: Any
+    footprint: SkyFootprint
     chi_min: float
     chi_max: float
-    regions: Any = None
+    regions: JackknifeRegions | None = None
     volume_per_sr: float | None = None
 
     def __post_init__(self) -> None:
-        from ..errors import InputError
-
         if not (np.isfinite(self.chi_min) and np.isfinite(self.chi_max)
                 and 0 <= self.chi_min < self.chi_max):
             raise InputError(f"cone geometry: need 0 ≤ chi_min < chi_max, got "

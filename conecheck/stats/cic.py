@@ -1,4 +1,4 @@
-"""Counts in cylinders P(N_c) (design.md §6): for each galaxy the weighted number of other
+"""Counts in cylinders P(N_c) (docs/design.md §6): for each galaxy the weighted number of other
 galaxies with r_p < R_cyl and |π| < H, histogrammed over centres.
 
 See :mod:`._count_distribution` for the weighting, the normalisation, the cone edge

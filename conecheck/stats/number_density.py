@@ -1,4 +1,4 @@
-"""Number density (design.md §6): box Σw/L³; cone Σw/V_eff, V_eff = (Ω_eff/3)(χ_max³ − χ_min³).
+"""Number density (docs/design.md §6): box Σw/L³; cone Σw/V_eff, V_eff = (Ω_eff/3)(χ_max³ − χ_min³).
 
 Jackknife: delete-one densities from per-region Σw over the remaining volume — equal
 sub-volumes in a box, (Ω_eff − Ω_k)/3 (χ_max³ − χ_min³) on a cone with Ω_k the region's

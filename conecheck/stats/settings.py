@@ -1,19 +1,20 @@
 """Frozen settings of each statistic; field names mirror the config's ``[statistics.*]`` keys.
 
-Defaults follow design.md §6 (π_max = 40 Mpc/h, Δπ = 1 Mpc/h, cylinders R = 2 Mpc/h,
+Defaults follow docs/design.md §6 (π_max = 40 Mpc/h, Δπ = 1 Mpc/h, cylinders R = 2 Mpc/h,
 half-length 10 Mpc/h: common practice).  Every error names the config key.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
+from ..loader import build_or_raise
 from ..pairs.binning import RpPiBins, check_rp_edges, make_bins
 
 EDGE_TREATMENTS = ("none", "drop")
@@ -268,14 +269,4 @@ def make_settings(name: str, values: Mapping[str, Any] | None = None) -> Any:
     if name not in SETTINGS_TYPES:
         raise InputError(f"statistics: unknown statistic {name!r}; expected one of "
                          f"{sorted(SETTINGS_TYPES)}")
-    cls = SETTINGS_TYPES[name]
-    allowed = {f.name for f in fields(cls)}
-    values = dict(values or {})
-    unknown = sorted(set(values) - allowed)
-    if unknown:
-        raise InputError(f"statistics.{name}: unknown key(s) {unknown}; allowed: "
-                         f"{sorted(allowed)}")
-    for k, v in values.items():
-        if isinstance(v, list):
-            values[k] = tuple(v)
-    return cls(**values)
+    return build_or_raise(SETTINGS_TYPES[name], dict(values or {}), f"statistics.{name}")

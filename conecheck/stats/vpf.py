@@ -1,5 +1,5 @@
 """Void probability function P₀(R): the fraction of random spheres of radius R holding no
-galaxy (design.md §6).
+galaxy (docs/design.md §6).
 
 Box: centres uniform in the periodic box.  Cone: centres drawn on the sky with
 ``footprint.sample`` (uniform per solid angle, thinned by completeness) and uniform in

@@ -1,4 +1,4 @@
-"""Projected correlation function wp(r_p) = 2 Σ_π ξ(r_p, π) Δπ up to π_max (design.md §6).
+"""Projected correlation function wp(r_p) = 2 Σ_π ξ(r_p, π) Δπ up to π_max (docs/design.md §6).
 
 Box (periodic): the natural estimator with the analytic random-pair fraction,
 ξ = DD / (N_pairs · V_bin / L³) − 1, where N_pairs = ((Σw)² − Σw²)/2 counts distinct

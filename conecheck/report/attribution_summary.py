@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import sys
+from pathlib import Path
 from typing import Any
 
-from ..report import access as ac
+from . import access as ac
+from .attribution_tables import write_attribution_tables
 
 
 def _ladder_lines(ladder: dict[str, Any]) -> list[str]:
@@ -80,4 +83,13 @@ def attribution_summary(results: dict[str, Any]) -> str:
     return "\n".join(out)
 
 
-__all__ = ["attribution_summary"]
+__all__ = ["attribution_summary", "finish_attribution"]
+
+
+def finish_attribution(results: dict[str, Any], run_dir: str | Path, stream: Any = None) -> None:
+    """After a run: write the attribution tables and print their summary (if any ran)."""
+    text = attribution_summary(results)
+    if not text:
+        return
+    write_attribution_tables(results, Path(run_dir) / "tables")
+    print("\n" + text, file=stream or sys.stdout)

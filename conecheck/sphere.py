@@ -1,7 +1,7 @@
-"""Small spherical-geometry helpers shared by the footprint modules.
+"""Small spherical-geometry helpers shared by the footprint and cone modules.
 
 Angles are degrees at the interface and radians inside, as everywhere in conecheck
-(design.md §3).  Unit vectors follow HEALPix: θ = 90° − Dec, φ = RA.
+(docs/design.md §3).  Unit vectors follow HEALPix: θ = 90° − Dec, φ = RA.
 """
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from ..errors import InputError
+from .errors import InputError
 
 
 def radec_to_vec(ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:

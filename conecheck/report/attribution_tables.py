@@ -25,8 +25,8 @@ from astropy.table import Table
 
 from ..atomic import atomic_path
 from ..compare.jsonsafe import as_float_array
-from ..report.access import ordered_stats
-from ..report.tables import table_name, write_statistic_tables
+from .access import ordered_stats
+from .tables import table_name, write_statistic_tables
 
 
 def _safe(name: str) -> str:
