@@ -10,7 +10,7 @@ a notebook the same steps one by one, on objects in memory, writing nothing unle
     cones = cc.build_cones(box, cfg, n=2)       # astropy Tables, one per cone
     on_box = cc.measure_box(box, "wp", config=cfg, sample="broad")
     on_cones = [cc.measure_cone(c, "wp", config=cfg, sample="broad") for c in cones]
-    print(cc.compare(on_box, on_cones, config=cfg)["verdict"])
+    print(cc.compare(on_box, on_cones, config=cfg).verdict)
     results, code = cc.validate(cfg)            # the whole run, in a temporary directory
 
 Each measurement is a :class:`~conecheck.stats.Measurement` (value, bins, jackknife
@@ -32,7 +32,7 @@ import numpy as np
 from astropy.table import Table
 
 from .catalog import GalaxyBox
-from .compare import compare_statistic
+from .compare import Comparison, compare_statistic
 from .compare.rules import VerdictRules
 from .cone import make_randoms, n_randoms, select_cut
 from .cone.build import prepare_box
@@ -42,7 +42,6 @@ from .config import (
     CosmologyConfig,
     JackknifeConfig,
     RunConfig,
-    SampleConfig,
     config_from_dict,
     load_config,
 )
@@ -185,7 +184,7 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
     box = galaxy_box(box, box_size=box_size)
     if config is not None:
         cfg = _config(config)
-        spec = box_spec(cfg, _sample(cfg, sample), content_digest(box))
+        spec = box_spec(cfg, cfg.sample(sample), content_digest(box))
         if settings is not None:
             spec = dataclasses.replace(spec, statistics=dataclasses.replace(
                 spec.statistics, measure=(statistic,),
@@ -231,8 +230,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     table = _cone_table(cone)
     if config is not None:
         cfg = _config(config)
-        s = _sample(cfg, sample)
-        the_cut = _cut(s, cut)
+        the_cut = cfg.sample(sample).cut(cut)
         cosmo_cfg = cfg.cosmology
         if footprint is None:
             fp, default_regions = survey_sky(cfg)
@@ -281,11 +279,12 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
 # --------------------------------------------------------------------------- compare, run
 def compare(box: Measurement, cones: Sequence[Measurement], *,
             config: RunConfig | None = None, rules: VerdictRules | None = None,
-            where: str = "") -> dict[str, Any]:
+            where: str = "") -> Comparison:
     """The verdict of one statistic: box against cones, with the offset's error budget.
 
-    ``rules`` default to the configuration's ``[verdict]`` (or the defaults). Returns the
-    statistic's entry of results.json (``verdict``, ``reasons``, ``offset``, ``z``, …).
+    ``rules`` default to the configuration's ``[verdict]`` (or the defaults). Returns a
+    :class:`~conecheck.compare.Comparison` (``verdict``, ``reasons``, ``offset``, ``z``,
+    ``max_abs_z``, …; ``to_dict()`` is the statistic's entry of results.json).
     """
     if isinstance(cones, Measurement):
         raise InputError("cones: expected a sequence of Measurements, one per cone; got one")
@@ -363,26 +362,6 @@ def _config(config: Any) -> RunConfig:
 def _check_statistic(name: str) -> None:
     if name not in STATISTICS:
         raise InputError(f"statistic {name!r}: expected one of {', '.join(STATISTICS)}")
-
-
-def _sample(cfg: RunConfig, name: str | None) -> SampleConfig:
-    if name is None:
-        return cfg.samples[0]
-    for s in cfg.samples:
-        if s.name == name:
-            return s
-    raise InputError(f"sample {name!r}: the configuration has "
-                     f"{', '.join(s.name for s in cfg.samples)}")
-
-
-def _cut(sample: SampleConfig, label: str | None) -> SampleCut:
-    if label is None:
-        return sample.cuts[0]
-    for c in sample.cuts:
-        if c.label == label:
-            return c
-    raise InputError(f"cut {label!r}: sample '{sample.name}' has "
-                     f"{', '.join(c.label for c in sample.cuts)}")
 
 
 def _footprint(fp: Footprint | str | os.PathLike[str] | None) -> Footprint:

@@ -254,6 +254,17 @@ class SampleConfig:
         return (first,) + tuple(dataclasses.replace(c, mag_max=self.mag_max)
                                 for c in self.alt_cuts)
 
+    def cut(self, label: str | None = None) -> SampleCut:
+        """The cut labelled ``label`` (default: the primary cut)."""
+        cuts = self.cuts
+        if label is None:
+            return cuts[0]
+        for c in cuts:
+            if c.label == label:
+                return c
+        raise InputError(f"cut {label!r}: sample '{self.name}' has "
+                         f"{', '.join(c.label for c in cuts)}")
+
 
 @dataclass(frozen=True)
 class StatisticsConfig:
@@ -482,6 +493,16 @@ class RunConfig:
     def resolve_path(self, value: str | None) -> Path | None:
         """Absolute path of a configured file (``builtin:`` names → shipped data)."""
         return resolve_path(value, self.base_dir)
+
+    def sample(self, name: str | None = None) -> SampleConfig:
+        """The sample called ``name`` (default: the first)."""
+        if name is None:
+            return self.samples[0]
+        for s in self.samples:
+            if s.name == name:
+                return s
+        raise InputError(f"sample {name!r}: the configuration has "
+                         f"{', '.join(s.name for s in self.samples)}")
 
     def to_dict(self) -> dict[str, Any]:
         """The resolved configuration as plain TOML-ready data (None values dropped)."""

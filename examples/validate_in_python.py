@@ -14,8 +14,8 @@ for statistic in ("number_density", "wp"):
     on_cones = [cc.measure_cone(cone, statistic, config=cfg, sample="broad")
                 for cone in cones]
     verdict = cc.compare(on_box, on_cones, config=cfg)
-    print(f"{statistic:15s} {verdict['verdict']:5s} largest |offset| / error "
-          f"{verdict['max_abs_z']:.2f}")
+    print(f"{statistic:15s} {verdict.verdict:5s} largest |offset| / error "
+          f"{verdict.max_abs_z:.2f}")
 
 results, exit_code = cc.validate(cfg)  # every sample, cut and statistic; nothing written
 print("whole run:", results["overall"], "- exit code", exit_code)

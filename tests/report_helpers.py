@@ -83,8 +83,8 @@ def make_results(run_dir: Path, seed: int = 3, config_lines: int = 12) -> dict:
                 shift = plant.get((sname, cname, stat), 0.0) * mean
                 cones = [_measure(stat, bins, mean + shift, cov, K_CONE, rng, label, vlabel)
                          for _ in range(N_CONES)]
-                statistics[stat] = compare_statistic(box, cones, rules,
-                                                     where=f"{sname}/{cname}/{stat}")
+                statistics[stat] = compare_statistic(
+                    box, cones, rules, where=f"{sname}/{cname}/{stat}").to_dict()
             edges = np.linspace(zmin, zmax, 11)
             expected = 2000 * np.diff(edges ** 3) / np.diff(edges ** 3).mean() / 10
             cuts[cname] = {"z_min": zmin, "z_max": zmax, "primary": primary,

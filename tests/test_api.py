@@ -45,7 +45,9 @@ def test_steps_from_python_equal_the_run(tmp_path):
     # the same box, the same cones and the same estimator as the run: equal numbers
     np.testing.assert_array_equal(np.ravel(on_box.value), stat["box"])
     np.testing.assert_array_equal([np.ravel(m.value) for m in on_cones], stat["cones"])
-    assert cc.compare(on_box, on_cones, config=cfg)["verdict"] == stat["verdict"]
+    result = cc.compare(on_box, on_cones, config=cfg)
+    assert result.verdict == stat["verdict"]
+    assert result.to_dict() == stat  # the run stores exactly this entry
     assert not list(tmp_path.iterdir())  # validate() without a directory writes nothing
 
 

@@ -55,7 +55,7 @@ def test_chi2_worked_example():
     rng = np.random.default_rng(0)
     box = exact_measurement([10.0, 20.0], C_PAIR, 12, rng)
     cones = [exact_measurement([11.0, 21.0], C_PAIR, 10, rng) for _ in range(2)]
-    r = compare_statistic(box, cones, VerdictRules())
+    r = compare_statistic(box, cones, VerdictRules()).to_dict()
     assert r["n_regions"] == 10
     assert r["hartlap_factor"] == pytest.approx(2 / 3)
     assert r["chi2"] == pytest.approx(16 / 21, rel=1e-10)
@@ -162,7 +162,7 @@ def test_hartlap_refusal_names_the_minimum():
     # n = p + 3 is accepted.
     box = noisy_measurement(mu, cov, 8, rng)
     cones = [noisy_measurement(mu, cov, 8, rng) for _ in range(3)]
-    assert compare_statistic(box, cones)["hartlap_factor"] == pytest.approx(1 / 7)
+    assert compare_statistic(box, cones).to_dict()["hartlap_factor"] == pytest.approx(1 / 7)
 
 
 # --------------------------------------------------------------------------- verdicts
@@ -185,7 +185,7 @@ def _shared_box_run(seed: int, n_cones: int = 8, k: int = 30, shift=None,
         e = scatter * np.linalg.cholesky(cov) @ rng.normal(size=mu.size)
         c.value = mu + f + e + (0 if shift is None else shift)
         cones.append(c)
-    return compare_statistic(box, cones, VerdictRules())
+    return compare_statistic(box, cones, VerdictRules()).to_dict()
 
 
 def test_null_setup_is_calibrated_and_rarely_fails():
@@ -244,7 +244,7 @@ def test_noisy_offset_warns_with_advice():
     wiggle = np.array([-1.0, 1.0, -1.0, 1.0]) * 3 * math.sqrt(2) * math.sqrt(3 / 4)
     cones = [exact_measurement([10.0 + 0.01 * w, 10.0 + 1.5 * math.sqrt(2) + w, 10.0],
                                cov, 30, rng) for w in wiggle]
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["verdict"] == "warn"
     assert r["noisy_bins"] == [1]
     assert r["cone_scatter"][1] == pytest.approx(3 * math.sqrt(2))
@@ -258,10 +258,10 @@ def test_chi2_rule_alone():
     cov = np.eye(10) * 0.5
     box = exact_measurement(np.full(10, 5.0), cov, 200, rng)
     cones = [exact_measurement(np.full(10, 7.0), cov, 200, rng) for _ in range(3)]
-    r = compare_statistic(box, cones, VerdictRules(z_fail=10.0))
+    r = compare_statistic(box, cones, VerdictRules(z_fail=10.0)).to_dict()
     assert r["verdict"] == "fail" and r["p_value"] < 1e-3
     assert any("bias χ²" in s for s in r["reasons"])
-    r = compare_statistic(box, cones, VerdictRules(z_fail=10.0, check_chi2=False))
+    r = compare_statistic(box, cones, VerdictRules(z_fail=10.0, check_chi2=False)).to_dict()
     assert r["verdict"] == "pass"
 
 
@@ -274,10 +274,10 @@ def test_sigma_offset_forms():
     cbox = box.covariance
     ccone = np.mean([c.covariance for c in cones], axis=0)
     s = np.cov(np.array([c.value for c in cones]), rowvar=False)
-    r = compare_statistic(box, cones, cones_independent=True)
+    r = compare_statistic(box, cones, cones_independent=True).to_dict()
     assert r["sigma_offset"] == pytest.approx(np.sqrt(np.diag(cbox) + np.diag(s) / 5))
     assert r["sigma_offset_method"].startswith("independent")
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["sigma_offset"] == pytest.approx(np.sqrt(np.diag(s) / 5))
     assert r["sigma_offset_dof"] == [4.0, 4.0, 4.0]
     assert r["sigma_offset_independent"] == pytest.approx(
@@ -290,14 +290,14 @@ def test_sigma_offset_forms():
     assert r["cone_scatter"] == pytest.approx(np.sqrt(np.diag(s)))
     # the box estimator's own sampling variance is added (VPF spheres), as a known term
     box.extra["sampling_variance"] = [0.01, 0.02, 0.03]
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["sigma_offset"] == pytest.approx(np.sqrt([0.01, 0.02, 0.03] + np.diag(s) / 5))
     # the line-of-sight spread over the box's three axes is added with 2 degrees of freedom:
     # Welch–Satterthwaite ν = (a + b)² / (a²/4 + b²/2) for a = S/N (4 dof) and b = τ² (2 dof)
     del box.extra["sampling_variance"]
     tau2 = np.array([0.002, 0.0, 0.001])
     box.extra["los_variance"] = tau2.tolist()
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     a_ = np.diag(s) / 5
     assert r["sigma_offset"] == pytest.approx(np.sqrt(a_ + tau2))
     assert r["sigma_offset_dof"] == pytest.approx((a_ + tau2) ** 2 / (a_ ** 2 / 4 + tau2 ** 2 / 2))
@@ -310,12 +310,12 @@ def test_single_cone_warns_and_falls_back():
     cov = correlated_cov(0.1 * mu)
     box = noisy_measurement(mu, cov, 20, rng)
     cone = exact_measurement(box.value, cov, 20, rng)  # no offset at all
-    r = compare_statistic(box, [cone], cones_independent=True)
+    r = compare_statistic(box, [cone], cones_independent=True).to_dict()
     assert r["verdict"] == "warn"
     assert r["cone_scatter"] is None and r["sigma_offset_independent"] is None
     assert r["sigma_offset_method"].startswith("one cone")
     assert any("one cone" in n for n in r["notes"])
-    r = compare_statistic(box, [cone], VerdictRules(effective_cones=1.0))
+    r = compare_statistic(box, [cone], VerdictRules(effective_cones=1.0)).to_dict()
     assert r["sigma_offset"] == pytest.approx(np.sqrt(np.diag(box.covariance)
                                                       + np.diag(cone.covariance)))
 
@@ -329,14 +329,14 @@ def test_zero_variance_bins():
         m.value = np.append(m.value, 0.0)
         m.bins = np.append(m.bins, 3.0)
         m.delete_one = np.column_stack([m.delete_one, np.zeros(20)])
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["dof"] == 2 and r["chi2_bins"] == [0, 1]
     assert r["z"][2] is None and r["fractional_offset"][2] is None
     assert any("dropped from the χ²" in n for n in r["notes"])
     assert r["verdict"] == "pass"
     for c in cones:  # now the cones differ in the error-free bin: warn, infinite z
         c.value[2] = 0.5
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["verdict"] == "warn" and r["max_abs_z"] is None
     json.dumps(r, allow_nan=False)
 
@@ -350,7 +350,7 @@ def test_ill_conditioned_covariance_uses_pseudo_inverse():
         return Measurement("wp", np.array([1.0, 2.0, 3.0]), np.array(v, float),
                            delete_one=np.array(v, float) + 0.1 * d)
 
-    r = compare_statistic(meas([1.0, 1.0, 1.0]), [meas([1.01, 1.01, 1.0])] * 2)
+    r = compare_statistic(meas([1.0, 1.0, 1.0]), [meas([1.01, 1.01, 1.0])] * 2).to_dict()
     assert r["pseudo_inverse"] is True and r["dof"] == 2
     assert any("pseudo-inverse" in n for n in r["notes"])
 
@@ -379,7 +379,7 @@ def test_output_is_json_safe_with_the_agreed_keys():
     rng = np.random.default_rng(12)
     box = exact_measurement([0.0, 2.0], C_PAIR, 10, rng)  # b = 0 in bin 0
     cones = [exact_measurement([0.1, 2.0], C_PAIR, 10, rng) for _ in range(2)]
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     text = json.dumps(r, allow_nan=False)
     assert json.loads(text) == r
     for key in ("verdict", "bins", "box", "cone_mean", "cones", "sigma_box", "sigma_cone",
@@ -440,7 +440,7 @@ def test_bins_where_every_cone_agrees_fall_back_to_the_upper_bound():
         c = exact_measurement([v, 0.0], np.diag([1e-2, 1e-12]), 20, rng)
         c.delete_one[:, 1] = 0.0  # empty in every region
         cones.append(c)
-    r = compare_statistic(box, cones)
+    r = compare_statistic(box, cones).to_dict()
     assert r["verdict"] == "warn" and r["noisy_bins"] == [1]
     assert r["sigma_offset"][1] == pytest.approx(math.sqrt(1e-6))
     assert abs(r["significance"][1]) == pytest.approx(1.5)  # Gaussian, not Student t
@@ -465,3 +465,31 @@ def test_singular_covariance_messages_say_what_to_do(caplog):
         inv = inverse_covariance(np.cov(y, rowvar=False), 40, "wp")
     assert inv.rank == 3 and "use more regions" in inv.notes[0]
     assert [r for r in caplog.records if r.levelno == logging.WARNING]
+
+
+def test_the_typed_comparison_round_trips_through_results_json():
+    # the statistic's entry of results.json is Comparison.to_dict(); reading it back gives
+    # the same typed object, whose entry is the same again (no key or value lost)
+    import json
+
+    from conecheck.compare import Comparison, comparison_keys
+    from conecheck.report import REQUIRED_STATISTIC_KEYS
+
+    rng = np.random.default_rng(3)
+    mu = np.array([100.0, 50.0, 20.0, 8.0])
+    cov = correlated_cov(0.05 * mu, 0.4)
+    box = noisy_measurement(mu, cov, 30, rng)
+    cones = [noisy_measurement(mu * 1.02, cov, 30, rng) for _ in range(5)]
+    c = compare_statistic(box, cones)
+    entry = json.loads(json.dumps(c.to_dict(), allow_nan=False))
+    assert tuple(entry) == comparison_keys()
+    back = Comparison.from_dict(entry)
+    assert back.to_dict() == entry
+    assert back.verdict == c.verdict and back.max_abs_z == pytest.approx(c.max_abs_z)
+    np.testing.assert_array_equal(back.failing_bins, c.failing_bins)
+    assert back.cones.shape == (len(cones), c.n_bins)
+    # the report's schema check asks only for keys the comparison writes
+    assert set(REQUIRED_STATISTIC_KEYS) <= set(comparison_keys())
+    # a damaged entry reads as missing values, not an exception
+    broken = Comparison.from_dict({**entry, "cones": [[1.0], [1.0, 2.0]], "chi2": "x"})
+    assert broken.cones.size == 0 and np.isnan(broken.chi2)

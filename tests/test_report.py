@@ -352,9 +352,9 @@ def test_html_report_is_self_contained_and_complete(run, tmp_path):
     # the filters offer exactly the values of the table
     assert set(page.selects) == {"sample", "cut", "statistic", "verdict"}
     assert set(page.selects["sample"]) == {s for s, *_ in stats}
-    assert set(page.selects["verdict"]) == {d["verdict"] for *_, d in stats}
+    assert set(page.selects["verdict"]) == {c.verdict for *_, c in stats}
     text = " ".join(page.text)
-    first_reason = stats[0][3]["reasons"][0]
+    first_reason = stats[0][3].reasons[0]
     assert first_reason in text
     assert "Provenance" in text and "seed" in text
 

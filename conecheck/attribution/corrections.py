@@ -87,12 +87,12 @@ def run_corrections(variants: ConeVariants) -> dict[str, Any]:
                 d = paired_difference(
                     [c["measurements"][s.name][cut.label][stat] for c in cones],
                     [c["measurements"][s.name][cut.label][stat] for c in truth_cones],
-                    reference=ref["cone_mean"], sigma_total=ref["sigma_total"],
+                    reference=ref.cone_mean, sigma_total=ref.sigma_total,
                     same_regions=True, rules=cfg.verdict,
                     cones_independent=cfg.cones.independent,
                     where=f"correction {name}, sample {s.name}, cut {cut.label}, "
                           f"statistic {stat}")
-                d["verdict_vs_box"] = statistic(tree, s.name, cut.label, stat)["verdict"]
+                d["verdict_vs_box"] = statistic(tree, s.name, cut.label, stat).verdict
                 entry = (section["against_truth"].setdefault(s.name, {})
                          .setdefault(cut.label, {}).setdefault(stat, {"corrections": {}}))
                 entry["corrections"][name] = d

@@ -38,6 +38,7 @@ from typing import Any
 
 import numpy as np
 
+from ..compare import Comparison, jsonable
 from ..cone.settings import EffectSwitches
 from ..config import RunConfig
 from .paired import INCREMENT_ERROR_TEXT, paired_difference
@@ -137,29 +138,30 @@ def plan_ladder(cfg: RunConfig) -> tuple[list[Rung], list[dict[str, str]]]:
     return rungs, skipped
 
 
-def _attribution(names: list[str], records: list[dict[str, Any]],
+def _attribution(names: list[str], records: list[Comparison],
                  increments: list[dict[str, Any]]) -> dict[str, Any]:
     """Per statistic: the increments of every rung, the identity check, the verdicts."""
-    total = np.asarray(records[-1]["offset"], dtype=np.float64)
+    last = records[-1]
+    total = last.offset
     inc = np.array([np.asarray(i["increment"], dtype=np.float64) for i in increments])
     summed = inc.sum(axis=0)
     scale = np.maximum(np.abs(total), np.max(np.abs(inc), axis=0))
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.where(scale > 0, np.abs(summed - total) / np.where(scale > 0, scale, 1), 0.0)
-    sig_tot = np.asarray(records[-1]["sigma_total"], dtype=np.float64)
+    sig_tot = last.sigma_total
     with np.errstate(divide="ignore", invalid="ignore"):
         size = [float(np.nansum(np.where(sig_tot > 0, (i / np.where(sig_tot > 0, sig_tot, 1))
                                          ** 2, 0.0))) for i in inc]
-    verdicts = [r["verdict"] for r in records]
-    return {
-        "bins": records[-1]["bins"],
-        "bin_label": records[-1].get("bin_label", ""),
-        "value_label": records[-1].get("value_label", ""),
-        "box": records[-1]["box"],
+    verdicts = [r.verdict for r in records]
+    return jsonable({
+        "bins": last.bins,
+        "bin_label": last.bin_label,
+        "value_label": last.value_label,
+        "box": last.box,
         "rungs": names,
         "verdicts": dict(zip(names, verdicts, strict=True)),
-        "max_abs_z": {n: r["max_abs_z"] for n, r in zip(names, records, strict=True)},
-        "chi2_per_dof": {n: r["chi2_per_dof"] for n, r in zip(names, records, strict=True)},
+        "max_abs_z": {n: r.max_abs_z for n, r in zip(names, records, strict=True)},
+        "chi2_per_dof": {n: r.chi2_per_dof for n, r in zip(names, records, strict=True)},
         "total_offset": total.tolist(),
         "sigma_total": sig_tot.tolist(),
         "sum_of_increments": summed.tolist(),
@@ -170,7 +172,7 @@ def _attribution(names: list[str], records: list[dict[str, Any]],
         "increment_size_in_total_sigma": dict(zip(names, [float(np.sqrt(s)) for s in size],
                                                   strict=True)),
         "increments": dict(zip(names, increments, strict=True)),
-    }
+    })
 
 
 def run_ladder(variants: ConeVariants) -> dict[str, Any]:
@@ -194,13 +196,13 @@ def run_ladder(variants: ConeVariants) -> dict[str, Any]:
         for stat in cfg.statistics.measure:
             where = f"ladder, sample {s.name}, cut {cut.label}, statistic {stat}"
             records = [statistic(t, s.name, cut.label, stat) for t in trees]
-            b = np.asarray(records[0]["box"], dtype=np.float64)
+            b = records[0].box
             incs = [_offset_as_increment(records[0], b)]
             for k in range(1, len(rungs)):
                 incs.append(paired_difference(
                     [c["measurements"][s.name][cut.label][stat] for c in cones[k]],
                     [c["measurements"][s.name][cut.label][stat] for c in cones[k - 1]],
-                    reference=b, sigma_total=records[-1]["sigma_total"],
+                    reference=b, sigma_total=records[-1].sigma_total,
                     same_regions=(rungs[k].variant.effects.footprint
                                   == rungs[k - 1].variant.effects.footprint),
                     rules=cfg.verdict, cones_independent=cfg.cones.independent,
@@ -221,14 +223,12 @@ def run_ladder(variants: ConeVariants) -> dict[str, Any]:
     }
 
 
-def _offset_as_increment(record: dict[str, Any], box: np.ndarray) -> dict[str, Any]:
+def _offset_as_increment(record: Comparison, box: np.ndarray) -> dict[str, Any]:
     """Rung 0's increment: its offset from the box, with the offset's own error σ_Δ."""
-    off = np.asarray(record["offset"], dtype=np.float64)
-    sig = np.asarray(record["sigma_offset"], dtype=np.float64)
-    tot = np.asarray(record["sigma_total"], dtype=np.float64)
-    cones = np.asarray(record["cones"], dtype=np.float64) - box[None, :]
+    off, sig, tot = record.offset, record.sigma_offset, record.sigma_total
+    cones = record.cones - box[None, :]
     # the record's significance is already the Gaussian equivalent of Δ/σ_Δ (t law)
-    signif = np.array([np.nan if x is None else x for x in record["significance"]], float)
+    signif = record.significance
     with np.errstate(divide="ignore", invalid="ignore"):
         frac = np.where(box != 0, off / np.abs(np.where(box != 0, box, 1)), np.nan)
         zt = np.where(tot > 0, off / np.where(tot > 0, tot, 1), np.nan)
@@ -238,14 +238,14 @@ def _offset_as_increment(record: dict[str, Any], box: np.ndarray) -> dict[str, A
             "cones": cones.tolist(), "sigma_increment": _nan_none(sig),
             "sigma_increment_jackknife": None, "sigma_increment_scatter": None,
             "sigma_increment_method": "offset from the box, σ_Δ (" +
-            str(record.get("sigma_offset_method", "")) + ")",
+            str(record.sigma_offset_method or "") + ")",
             "significance": _nan_none(signif),
             "max_abs_significance": float(fin.max()) if fin.size else None,
-            "consistent_with_zero": record["verdict"] != "fail" and not bool(
-                record.get("failing_bins")),
+            "consistent_with_zero": record.verdict != "fail"
+            and not record.failing_bins.size,
             "in_total_sigma": _nan_none(zt),
             "max_abs_in_total_sigma": float(fz.max()) if fz.size else None,
-            "n_cones": int(record.get("n_cones", len(cones)))}
+            "n_cones": int(record.n_cones or len(cones))}
 
 
 def _nan_none(a: np.ndarray) -> list[float | None]:

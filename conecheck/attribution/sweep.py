@@ -16,11 +16,13 @@ instead (its statistics pass or cannot be decided by this run).
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..compare import Comparison
 from ..cone import volume_limit_zmax
 from ..cone.settings import SampleCut
 from ..config import RunConfig, SampleConfig
@@ -143,11 +145,12 @@ def run_sweep(variants: ConeVariants) -> dict[str, Any]:
         for c in cs:
             rec = entry["cuts"][c.cut.label]
             stats = rec["statistics"]
-            zs = [stats[k]["max_abs_z"] for k in stats]
+            zs = [Comparison.from_dict(stats[k]).max_abs_z for k in stats]
             rec["source"] = c.source
             rec["volume_per_sr"] = _volume(cfg, c.cut)
-            rec["max_abs_z"] = (None if any(z is None for z in zs)
-                                else max(zs) if zs else None)
+            # an infinite or missing max |z| (null in results.json) makes the cut's null too
+            rec["max_abs_z"] = (None if not zs or not all(math.isfinite(z) for z in zs)
+                                else max(zs))
         entry["order"] = [c.cut.label for c in cs]
         entry["widest_passing"] = _widest(entry["cuts"], ("pass",))
         entry["widest_not_failing"] = _widest(entry["cuts"], ("pass", "warn"))

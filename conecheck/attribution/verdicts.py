@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from ..compare import compare_statistic, rollup_verdicts
+from ..compare import Comparison, compare_statistic, rollup_verdicts
 from ..config import RunConfig
 from .variants import Piece
 
@@ -44,7 +44,7 @@ def compare_variant(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, A
             stats[name] = compare_statistic(
                 box[s.name]["measurements"][name],
                 [c["measurements"][s.name][cut.label][name] for c in cones],
-                cfg.verdict, cfg.cones.independent, where=where)
+                cfg.verdict, cfg.cones.independent, where=where).to_dict()
         entry = samples.setdefault(s.name, {"mag_max": s.mag_max, "cuts": {}})
         entry["cuts"][cut.label] = {
             "z_min": cut.z_min, "z_max": cut.z_max, "primary": cut.label == s.label,
@@ -55,9 +55,9 @@ def compare_variant(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, A
     return tree
 
 
-def statistic(tree: dict[str, Any], sample: str, cut: str, stat: str) -> dict[str, Any]:
-    """The record of one statistic in a variant tree."""
-    return tree["samples"][sample]["cuts"][cut]["statistics"][stat]
+def statistic(tree: dict[str, Any], sample: str, cut: str, stat: str) -> Comparison:
+    """The comparison of one statistic in a variant tree, typed."""
+    return Comparison.from_dict(tree["samples"][sample]["cuts"][cut]["statistics"][stat])
 
 
 def first_failing(names: Sequence[str], verdicts: Sequence[str]) -> str | None:

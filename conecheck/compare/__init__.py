@@ -6,6 +6,7 @@ rules are documented in :mod:`conecheck.compare.rules` (:data:`VERDICT_RULES_TEX
 """
 
 from .chi2 import MAX_CONDITION, Chi2Result, bias_chi2, hartlap_factor, min_regions_needed
+from .comparison import Comparison, comparison_keys
 from .jsonsafe import as_float, as_float_array, jsonable
 from .offset_error import (
     SIGMA_OFFSET_INDEPENDENT,
@@ -29,9 +30,10 @@ from .rules import (
     exit_code,
     worst_verdict,
 )
-from .statistic import compare_statistic
+from .statistic import Decision, ErrorBudget, compare_statistic, decide, error_budget
 
 __all__ = [
+    "Comparison", "Decision", "ErrorBudget", "comparison_keys", "decide", "error_budget",
     "FAIL", "MAX_CONDITION", "PASS", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SCATTER",
     "SIGMA_OFFSET_SHARED", "OffsetError", "cones_needed", "critical_t", "gaussian_equivalent",
     "offset_error",

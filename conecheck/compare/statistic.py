@@ -10,6 +10,7 @@ from __future__ import annotations
 import logging
 import re
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -18,6 +19,7 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..stats.base import LOS_VARIANCE, SAMPLING_TRIALS, SAMPLING_VARIANCE, Measurement
 from .chi2 import bias_chi2
+from .comparison import Comparison
 from .jsonsafe import jsonable
 from .offset_error import OffsetError, cones_needed, offset_error
 from .rules import FAIL, PASS, WARN, VerdictRules
@@ -80,9 +82,61 @@ def _correlation(cov: np.ndarray) -> np.ndarray:
         return np.where(np.outer(sd, sd) > 0, cov / np.outer(sd, sd), np.nan)
 
 
+@dataclass
+class ErrorBudget:
+    """Every number of a comparison before its verdict (see :mod:`.rules`).
+
+    Arrays are per bin; ``cones`` is (N, p). ``dead`` bins have neither variance nor offset,
+    ``hard`` bins an offset with zero variance.
+    """
+
+    box: NDArray[np.float64]
+    bins: NDArray[np.float64]
+    cones: NDArray[np.float64]
+    cone_mean: NDArray[np.float64]
+    cov_box: NDArray[np.float64]
+    cov_cone: NDArray[np.float64]
+    offset: NDArray[np.float64]
+    fractional_offset: NDArray[np.float64]
+    sigma_box: NDArray[np.float64]
+    sigma_cone: NDArray[np.float64]
+    sigma_total: NDArray[np.float64]
+    scatter: NDArray[np.float64] | None
+    z: NDArray[np.float64]
+    dead: NDArray[np.bool_]
+    hard: NDArray[np.bool_]
+    offset_error: OffsetError
+    offset_t: NDArray[np.float64]
+    significance: NDArray[np.float64]
+    detectable: NDArray[np.float64]
+    detectable_fraction: NDArray[np.float64]
+    uniform_fraction: float
+    chi: Any
+    n_regions_box: int
+    n_regions_cone: int
+    notes: list[str]
+
+    @property
+    def n_cones(self) -> int:
+        return int(self.cones.shape[0])
+
+
+@dataclass
+class Decision:
+    """The verdict of an :class:`ErrorBudget` under the rules, with the bins behind it."""
+
+    verdict: str
+    reasons: list[str]
+    failing_bins: NDArray[np.int64]
+    noisy_bins: NDArray[np.int64]
+    real_small_bins: NDArray[np.int64]
+    chi2_fail: bool
+    cones_needed: int | None
+
+
 def compare_statistic(box: Measurement, cones: Sequence[Measurement],
                       rules: VerdictRules | None = None, cones_independent: bool = False, *,
-                      where: str = "") -> dict[str, Any]:
+                      where: str = "") -> Comparison:
     """Compare one statistic measured on the box and on N cones; give it a verdict.
 
     Parameters
@@ -101,30 +155,10 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
 
     Returns
     -------
-    dict
-        JSON-safe (lists of floats, NaN → None). Keys: ``verdict``, ``reasons``, ``notes``,
-        ``name``, ``bins``, ``bin_edges``, ``bin_label``, ``value_label``, ``box``,
-        ``cone_mean``, ``cones`` (N × p), ``offset`` (Δ = c̄ − b), ``fractional_offset``
-        (Δ/b), ``sigma_box`` (√diag C_box), ``sigma_cone`` (√diag C_cone, the mean single-
-        cone jackknife), ``sigma_total`` (√diag C_tot), ``cone_scatter`` (√diag S, None with
-        one cone), ``cone_scatter_ratio`` (diag S / diag C_cone), ``z`` (Δ/σ_tot),
-        ``max_abs_z``, ``chi2`` (Hartlap-corrected), ``dof``, ``chi2_per_dof``, ``p_value``
-        (Hotelling's law), ``hartlap_factor``, ``n_regions``, ``n_regions_box``,
-        ``n_regions_cone``, ``chi2_bins``, ``condition_number``, ``pseudo_inverse``,
-        ``sigma_offset`` (σ_Δ), ``sigma_offset_method``, ``sigma_offset_dof`` (per bin: N − 1,
-        fewer where the box's line-of-sight spread weighs in, None for the one-cone bound),
-        ``sigma_offset_los`` (that spread's part of σ_Δ), ``sigma_offset_independent``
-        (diag(C_box) + diag(S)/N, for reference), ``n_eff_cones``, ``offset_t`` (Δ/σ_Δ),
-        ``significance`` (its Gaussian equivalent, what the rules threshold),
-        ``detectable_offset`` (per bin, the smallest |Δ| that would fail: the larger of
-        z_fail σ_tot and the significance threshold),
-        ``detectable_fractional_offset`` (its ratio to |b|),
-        ``detectable_uniform_fraction`` (the smallest fractional bias common to every bin
-        that would fail), ``failing_bins``, ``noisy_bins`` (outside the error bar, not
-        significant), ``real_small_bins`` (significant, inside the error bar),
-        ``cones_needed`` (cones that would settle the noisy bins, None when none would),
-        ``n_cones``, ``cones_independent``, ``correlation_box`` and ``correlation_cone``
-        (p × p correlation matrices of C_box and C_cone; None where a bin has no variance).
+    Comparison
+        Every quantity of the comparison and the verdict, typed (see
+        :class:`~conecheck.compare.comparison.Comparison`); ``to_dict()`` gives the
+        statistic's entry of results.json.
 
     Raises
     ------
@@ -134,6 +168,15 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     """
     rules = rules or VerdictRules()
     where = where or f"statistic {box.name}"
+    budget = error_budget(box, cones, rules, cones_independent, where)
+    decision = decide(budget, rules, box.bin_label)
+    return _comparison(box, budget, decision, rules, cones_independent)
+
+
+def error_budget(box: Measurement, cones: Sequence[Measurement], rules: VerdictRules,
+                 cones_independent: bool, where: str) -> ErrorBudget:
+    """Offset, total error, the offset's own error σ_Δ, detectable offsets and the bias χ²
+    of one statistic (no verdict yet)."""
     cones = list(cones)
     if not cones:
         raise InputError(f"{where}: no cone measurements to compare with the box")
@@ -199,10 +242,6 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
         notes.append(f"bins {np.flatnonzero(err.fallback).tolist()}: every cone gives the same "
                      f"value, so their scatter says nothing; σ_Δ there is the one-cone upper "
                      f"bound √(C_box + C_cone/N_eff)")
-    s_indep = None if scatter is None else np.diag(cbox) + np.diag(scatter) / n_cones
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = (None if scatter is None else
-                 np.where(np.diag(ccone) > 0, np.diag(scatter) / np.diag(ccone), np.nan))
     detect = np.fmax(rules.z_fail * sig_tot, err.smallest_significant(rules.n_sigma_offset))
     with np.errstate(divide="ignore", invalid="ignore"):
         detect_frac = np.where(b != 0, detect / np.abs(np.where(b != 0, b, 1.0)), np.nan)
@@ -212,76 +251,77 @@ def compare_statistic(box: Measurement, cones: Sequence[Measurement],
     n_regions = int(min([k_box, *k_cones]))
     chi = bias_chi2(delta, ctot, n_regions, use=~zero_var, where=where)
     notes.extend(chi.notes)
+    return ErrorBudget(box=b, bins=bins, cones=cmat, cone_mean=cbar, cov_box=cbox,
+                       cov_cone=ccone, offset=delta, fractional_offset=frac, sigma_box=sig_box,
+                       sigma_cone=sig_cone, sigma_total=sig_tot, scatter=scatter, z=z,
+                       dead=dead, hard=hard, offset_error=err, offset_t=t_off,
+                       significance=signif, detectable=detect, detectable_fraction=detect_frac,
+                       uniform_fraction=uniform, chi=chi, n_regions_box=int(k_box),
+                       n_regions_cone=int(min(k_cones)), notes=notes)
 
+
+def decide(budget: ErrorBudget, rules: VerdictRules, bin_label: str = "") -> Decision:
+    """The verdict of an error budget under ``rules``, with its reasons in words."""
+    z, hard, dead = budget.z, budget.hard, budget.dead
     finite_z = np.isfinite(z)
     outside = (np.abs(np.where(finite_z, z, 0.0)) > rules.z_fail) | hard
-    significant = np.abs(signif) > rules.n_sigma_offset
+    significant = np.abs(budget.significance) > rules.n_sigma_offset
     fail_bins = np.flatnonzero(outside & significant & ~hard)
     noisy_bins = np.flatnonzero(outside & ~significant & ~hard)
     small_bins = np.flatnonzero(~outside & significant & ~dead)
+    chi = budget.chi
     chi2_fail = bool(rules.check_chi2 and np.isfinite(chi.p_value) and chi.p_value < rules.p_fail)
-    needed = _cones_needed(delta, err, noisy_bins, rules, n_cones)
+    needed = _cones_needed(budget.offset, budget.offset_error, noisy_bins, rules,
+                           budget.n_cones)
     verdict, reasons = _verdict(
-        rules, box.bin_label, bins, frac, z, signif, err, n_cones, chi, chi2_fail,
-        fail_bins, noisy_bins, small_bins, hard, needed)
+        rules, bin_label, budget.bins, budget.fractional_offset, z, budget.significance,
+        budget.offset_error, budget.n_cones, chi, chi2_fail, fail_bins, noisy_bins,
+        small_bins, hard, needed)
+    return Decision(verdict, reasons, fail_bins, noisy_bins, small_bins, chi2_fail, needed)
 
-    abs_z = np.abs(z[finite_z])
-    out = {
-        "name": box.name,
-        "verdict": verdict,
-        "reasons": reasons,
-        "notes": notes,
-        "bins": bins,
-        "bin_edges": None if box.bin_edges is None else np.asarray(box.bin_edges, float),
-        "bin_label": box.bin_label,
-        "value_label": box.value_label,
-        "box": b,
-        "cone_mean": cbar,
-        "cones": cmat,
-        "offset": delta,
-        "fractional_offset": frac,
-        "sigma_box": sig_box,
-        "sigma_cone": sig_cone,
-        "sigma_total": sig_tot,
-        "cone_scatter": None if scatter is None else np.sqrt(np.clip(np.diag(scatter), 0, None)),
-        "correlation_box": _correlation(cbox),
-        "correlation_cone": _correlation(ccone),
-        "cone_scatter_ratio": ratio,
-        "z": z,
+
+def _comparison(box: Measurement, bud: ErrorBudget, dec: Decision, rules: VerdictRules,
+                cones_independent: bool) -> Comparison:
+    err, chi, n_cones = bud.offset_error, bud.chi, bud.n_cones
+    scatter = bud.scatter
+    s_indep = None if scatter is None else np.diag(bud.cov_box) + np.diag(scatter) / n_cones
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = (None if scatter is None else
+                 np.where(np.diag(bud.cov_cone) > 0,
+                          np.diag(scatter) / np.diag(bud.cov_cone), np.nan))
+    abs_z = np.abs(bud.z[np.isfinite(bud.z)])
+    return Comparison(
+        name=box.name, verdict=dec.verdict, reasons=dec.reasons, notes=list(bud.notes),
+        bins=bud.bins,
+        bin_edges=None if box.bin_edges is None else np.asarray(box.bin_edges, float),
+        bin_label=box.bin_label, value_label=box.value_label, box=bud.box,
+        cone_mean=bud.cone_mean, cones=bud.cones, offset=bud.offset,
+        fractional_offset=bud.fractional_offset, sigma_box=bud.sigma_box,
+        sigma_cone=bud.sigma_cone, sigma_total=bud.sigma_total,
+        cone_scatter=None if scatter is None else np.sqrt(np.clip(np.diag(scatter), 0, None)),
+        correlation_box=_correlation(bud.cov_box), correlation_cone=_correlation(bud.cov_cone),
+        cone_scatter_ratio=ratio, z=bud.z,
         # Infinite (→ null in JSON) when a bin has an offset with zero error.
-        "max_abs_z": np.inf if hard.any() else float(abs_z.max()) if abs_z.size else np.nan,
-        "chi2": chi.chi2,
-        "dof": int(chi.dof),
-        "chi2_per_dof": chi.chi2 / chi.dof if chi.dof else np.nan,
-        "p_value": chi.p_value,
-        "hartlap_factor": chi.hartlap,
-        "n_regions": n_regions,
-        "n_regions_box": int(k_box),
-        "n_regions_cone": int(min(k_cones)),
-        "chi2_bins": chi.used,
-        "condition_number": chi.condition,
-        "pseudo_inverse": chi.pseudo_inverse,
-        "sigma_offset": err.sigma,
-        "sigma_offset_method": err.method,
-        "sigma_offset_dof": err.dof,
-        "sigma_offset_los": np.sqrt(err.los_var),
-        "sigma_offset_independent": None if s_indep is None
+        max_abs_z=np.inf if bud.hard.any() else float(abs_z.max()) if abs_z.size else np.nan,
+        chi2=chi.chi2, dof=int(chi.dof), chi2_per_dof=chi.chi2 / chi.dof if chi.dof else np.nan,
+        p_value=chi.p_value, hartlap_factor=chi.hartlap,
+        n_regions=int(min(bud.n_regions_box, bud.n_regions_cone)),
+        n_regions_box=bud.n_regions_box, n_regions_cone=bud.n_regions_cone,
+        chi2_bins=np.asarray(chi.used, dtype=np.int64), condition_number=chi.condition,
+        pseudo_inverse=bool(chi.pseudo_inverse), sigma_offset=err.sigma,
+        sigma_offset_method=err.method,
+        sigma_offset_dof=jsonable(err.dof),
+        sigma_offset_los=np.sqrt(err.los_var),
+        sigma_offset_independent=None if s_indep is None
         else np.sqrt(np.clip(s_indep, 0, None)),
-        "n_eff_cones": float(n_cones) if n_cones >= 2 else float(min(rules.effective_cones,
-                                                                       n_cones)),
-        "offset_t": t_off,
-        "significance": signif,
-        "detectable_offset": detect,
-        "detectable_fractional_offset": detect_frac,
-        "detectable_uniform_fraction": uniform,
-        "failing_bins": fail_bins,
-        "noisy_bins": noisy_bins,
-        "real_small_bins": small_bins,
-        "cones_needed": needed,
-        "n_cones": n_cones,
-        "cones_independent": bool(cones_independent),
-    }
-    return jsonable(out)
+        n_eff_cones=float(n_cones) if n_cones >= 2 else float(min(rules.effective_cones,
+                                                                    n_cones)),
+        offset_t=bud.offset_t, significance=bud.significance, detectable_offset=bud.detectable,
+        detectable_fractional_offset=bud.detectable_fraction,
+        detectable_uniform_fraction=bud.uniform_fraction, failing_bins=dec.failing_bins,
+        noisy_bins=dec.noisy_bins, real_small_bins=dec.real_small_bins,
+        cones_needed=dec.cones_needed, n_cones=n_cones,
+        cones_independent=bool(cones_independent))
 
 
 def _extra_variance(box: Measurement, key: str, p: int, where: str

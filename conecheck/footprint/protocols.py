@@ -31,20 +31,9 @@ class HealpixMap(Protocol):
 
 
 @runtime_checkable
-class SkyFootprint(Protocol):
-    """A survey footprint as cones, randoms and statistics use it.
-
-    Areas in deg² and sr, positions in degrees, completeness in [0, 1].
-    """
-
-    @property
-    def nside(self) -> int: ...
-
-    @property
-    def nest(self) -> bool: ...
-
-    @property
-    def values(self) -> NDArray[np.float64]: ...
+class SkyFootprint(HealpixMap, Protocol):
+    """A survey footprint as cones, randoms and statistics use it: a HEALPix map with areas
+    (deg² and sr), completeness look-ups and sampling (positions in degrees)."""
 
     @property
     def area_deg2(self) -> float: ...

@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
+from ..compare.comparison import Comparison
 from ..compare.jsonsafe import as_float, as_float_array
 
 #: Order in which statistics appear; unknown ones follow alphabetically.
@@ -85,13 +86,18 @@ def primary_cut(sample: dict[str, Any]) -> str | None:
     return next(iter(cs), None)
 
 
-def iter_stats(results: dict[str, Any]) -> Iterator[tuple[str, str, str, dict[str, Any]]]:
-    """(sample, cut, statistic, statistic dict) in report order."""
+def iter_stats(results: dict[str, Any]) -> Iterator[tuple[str, str, str, Comparison]]:
+    """(sample, cut, statistic, its typed comparison) over the results, in report order."""
     for sname, sample in samples(results).items():
         for cname, cut in cuts(sample).items():
             stats = statistics(cut)
             for stat in ordered_stats(stats):
-                yield sname, cname, stat, stats[stat]
+                yield sname, cname, stat, comparison(stats[stat])
+
+
+def comparison(d: Mapping[str, Any] | Comparison) -> Comparison:
+    """A statistic's entry of the results, typed (an entry already typed is returned)."""
+    return d if isinstance(d, Comparison) else Comparison.from_dict(d or {})
 
 
 def arr(d: dict[str, Any], key: str) -> NDArray[np.float64]:
@@ -137,36 +143,36 @@ def fmt_pct(x: float) -> str:
     return f"{v:.2g} %" if abs(v) < 10 else f"{v:.0f} %"
 
 
-def max_abs_z(stat: dict[str, Any]) -> float:
+def max_abs_z(stat: Mapping[str, Any] | Comparison) -> float:
     """max |z| of a statistic; ∞ when a flagged bin's z is null (offset with zero error)."""
-    v = num(stat, "max_abs_z")
-    if math.isnan(v):
-        z = arr(stat, "z")
-        flagged = [i for i in stat.get("noisy_bins") or [] if 0 <= int(i) < z.size]
-        if any(not np.isfinite(z[int(i)]) for i in flagged):
+    c = comparison(stat)
+    if math.isnan(c.max_abs_z):
+        z = c.z
+        flagged = [int(i) for i in c.noisy_bins if 0 <= int(i) < z.size]
+        if any(not np.isfinite(z[i]) for i in flagged):
             return math.inf
         z = z[np.isfinite(z)]
         return float(np.abs(z).max()) if z.size else math.nan
-    return v
+    return c.max_abs_z
 
 
-def chi2_per_dof(stat: dict[str, Any]) -> float:
-    chi2, dof = num(stat, "chi2"), num(stat, "dof")
-    return chi2 / dof if dof and math.isfinite(dof) and dof > 0 else math.nan
+def chi2_per_dof(stat: Mapping[str, Any] | Comparison) -> float:
+    c = comparison(stat)
+    return c.chi2 / c.dof if c.dof > 0 else math.nan
 
 
-def detectable_fraction(stat: dict[str, Any]) -> float:
+def detectable_fraction(stat: Mapping[str, Any] | Comparison) -> float:
     """Smallest fractional bias common to every bin that would fail (bins with b = 0 ignored).
 
     Read from ``detectable_uniform_fraction``; older results without it use the minimum of
     the per-bin detectable fractions.
     """
-    v = num(stat, "detectable_uniform_fraction")
-    if math.isfinite(v):
-        return v
-    frac = arr(stat, "detectable_fractional_offset")
+    c = comparison(stat)
+    if math.isfinite(c.detectable_uniform_fraction):
+        return c.detectable_uniform_fraction
+    frac = c.detectable_fractional_offset
     if not frac.size:
-        det, b = arr(stat, "detectable_offset"), arr(stat, "box")
+        det, b = c.detectable_offset, c.box
         if det.size and det.size == b.size:
             with np.errstate(divide="ignore", invalid="ignore"):
                 frac = np.where(b != 0, det / np.abs(b), np.nan)

@@ -15,6 +15,7 @@ Layout under the run's ``tables/`` directory:
 
 from __future__ import annotations
 
+import math
 import os
 import re
 from pathlib import Path
@@ -25,7 +26,7 @@ from astropy.table import Table
 
 from ..atomic import atomic_path
 from ..compare.jsonsafe import as_float_array
-from .access import ordered_stats
+from .access import comparison, ordered_stats
 from .tables import table_name, write_statistic_tables
 
 
@@ -81,7 +82,7 @@ def _corrections(section: dict[str, Any], out: Path) -> list[Path]:
             for stat, entry in stats.items():
                 per = entry.get("corrections", {})
                 ref = section["variants"][section.get("truth", "uncollided")]["samples"]
-                bins = as_float_array(ref[sname]["cuts"][cname]["statistics"][stat]["bins"])
+                bins = comparison(ref[sname]["cuts"][cname]["statistics"][stat]).bins
                 p = bins.size
                 t = Table()
                 t["bin"] = bins
@@ -110,12 +111,11 @@ def _cuts(section: dict[str, Any], out: Path) -> list[Path]:
         t["source"] = [str(cuts[c].get("source", "")) for c in labels]
         t["verdict"] = [str(cuts[c].get("verdict", "")) for c in labels]
         for stat in stats:
-            recs = [cuts[c]["statistics"].get(stat, {}) for c in labels]
-            t[f"verdict_{stat}"] = [str(r.get("verdict", "")) for r in recs]
-            t[f"max_abs_z_{stat}"] = [np.nan if r.get("max_abs_z") is None
-                                      else float(r["max_abs_z"]) for r in recs]
-            t[f"chi2_{stat}"] = [np.nan if r.get("chi2") is None else float(r["chi2"])
-                                 for r in recs]
+            recs = [comparison(cuts[c]["statistics"].get(stat, {})) for c in labels]
+            t[f"verdict_{stat}"] = [r.verdict for r in recs]
+            t[f"max_abs_z_{stat}"] = [r.max_abs_z if math.isfinite(r.max_abs_z) else np.nan
+                                      for r in recs]
+            t[f"chi2_{stat}"] = [r.chi2 for r in recs]
         t.meta.update({"sample": sname, "widest_passing": s.get("widest_passing") or "",
                        "widest_not_failing": s.get("widest_not_failing") or ""})
         written.append(_write(t, out / f"{_safe(sname)}__summary.ecsv"))

@@ -130,13 +130,13 @@ def _svg(results: dict[str, Any], spec: PageSpec, page_no: int, n_pages: int) ->
 def _verdict_rows(results: dict[str, Any],
                   figure_ids: dict[tuple[str, str], list[tuple[str, str]]]) -> list[str]:
     rows = []
-    for i, (sname, cname, stat, d) in enumerate(ac.iter_stats(results)):
-        verdict = str(d.get("verdict") or "none")
-        colour = st.verdict_colour(d.get("verdict"))
+    for i, (sname, cname, stat, c) in enumerate(ac.iter_stats(results)):
+        verdict = c.verdict or "none"
+        colour = st.verdict_colour(c.verdict or None)
         tint = st.VERDICT_TINTS.get(verdict, st.UNKNOWN_TINT)
         cut = ac.cuts(ac.samples(results)[sname])[cname]
-        z, chi, p = ac.max_abs_z(d), ac.chi2_per_dof(d), ac.num(d, "p_value")
-        det = ac.detectable_fraction(d)
+        z, chi, p = ac.max_abs_z(c), ac.chi2_per_dof(c), c.p_value
+        det = ac.detectable_fraction(c)
         links = " · ".join(f'<a href="#{_e(a)}">{_e(label)}</a>'
                            for a, label in figure_ids.get((sname, cname), []))
         rid = f"why-{i}"
@@ -155,8 +155,8 @@ def _verdict_rows(results: dict[str, Any],
         rows.append(f'<tr class="row" data-sample="{_e(sname)}" data-cut="{_e(cname)}" '
                     f'data-statistic="{_e(ac.stat_short(stat))}" data-verdict="{_e(verdict)}" '
                     f'data-reasons="{rid}">' + "".join(cells) + "</tr>")
-        why = "".join(f"<li>{_e(r)}</li>" for r in d.get("reasons") or [])
-        why += "".join(f'<li class="muted">note: {_e(n)}</li>' for n in d.get("notes") or [])
+        why = "".join(f"<li>{_e(r)}</li>" for r in c.reasons)
+        why += "".join(f'<li class="muted">note: {_e(n)}</li>' for n in c.notes)
         rows.append(f'<tr class="reasons" id="{rid}" hidden><td colspan="9"><ul>{why}</ul>'
                     f"</td></tr>")
     return rows
@@ -232,7 +232,7 @@ def render_html(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
         _filter("sample", "sample", [s for s, *_ in stats]),
         _filter("cut", "cut", [c for _, c, *_ in stats]),
         _filter("statistic", "statistic", [ac.stat_short(t) for _, _, t, _ in stats]),
-        _filter("verdict", "verdict", [str(d.get("verdict") or "none") for *_, d in stats]),
+        _filter("verdict", "verdict", [c.verdict or "none" for *_, c in stats]),
         "</div>",
         '<table id="verdicts"><thead><tr>' + "".join(f"<th>{_e(h)}</th>" for h in head)
         + "</tr></thead><tbody>", *_verdict_rows(results, figure_ids), "</tbody></table>",

@@ -51,8 +51,9 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
         for k, n in enumerate(names):
             if n not in stats:
                 continue
-            v = stats[n].get("verdict")
-            z = ac.max_abs_z(stats[n])
+            c = ac.comparison(stats[n])
+            v = c.verdict or None
+            z = ac.max_abs_z(c)
             if not np.isfinite(z):
                 continue
             face = st.verdict_colour(v) if cut.get("primary") else "white"
@@ -81,9 +82,9 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
             if n not in stats:
                 row.append(Cell("not measured"))
                 continue
-            d = stats[n]
-            row.append(Cell(f"{ac.fmt_fixed(ac.max_abs_z(d))} / "
-                            f"{ac.fmt_fixed(ac.chi2_per_dof(d))}", d.get("verdict")))
+            c = ac.comparison(stats[n])
+            row.append(Cell(f"{ac.fmt_fixed(ac.max_abs_z(c))} / "
+                            f"{ac.fmt_fixed(ac.chi2_per_dof(c))}", c.verdict or None))
         rows.append(row)
     ty = top + 0.4 + ax_h + 0.45
     page.text(x0, ty - 0.06, "cells: max |z| / χ²/dof, coloured by verdict; ★ primary cut; "

@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from ..compare.comparison import Comparison
 from . import access as ac
 from . import style as st
 from .layout import Cell, Column, Page, draw_table, shorten, text_width, wrap
@@ -35,8 +36,8 @@ def _z_fail(results: dict[str, Any]) -> float:
     return v if math.isfinite(v) and v > 0 else 1.0
 
 
-def _title(page: Page, x: float, y: float, w: float, name: str, d: dict[str, Any]) -> None:
-    v = d.get("verdict")
+def _title(page: Page, x: float, y: float, w: float, name: str, c: Comparison) -> None:
+    v = c.verdict or None
     tag = str(v or "no verdict").upper()
     page.text(x + w, y, tag, st.BODY, bold=True, colour=st.verdict_colour(v), ha="right")
 
@@ -52,11 +53,11 @@ def _robust_limit(values: np.ndarray, floor: float) -> float:
     return max(floor, 1.25 * float(np.quantile(v, 0.9)), 1.1 * float(np.median(v)))
 
 
-def _z_axes(ax, x: np.ndarray, d: dict[str, Any], z_fail: float, logx: bool,
+def _z_axes(ax, x: np.ndarray, c: Comparison, z_fail: float, logx: bool,
             xlabel: str) -> None:
-    z = ac.arr(d, "z")
-    fail = set(int(i) for i in d.get("failing_bins") or [])
-    noisy = set(int(i) for i in d.get("noisy_bins") or [])
+    z = c.z
+    fail = set(c.failing_bins.tolist())
+    noisy = set(c.noisy_bins.tolist())
     ax.axhspan(-z_fail, z_fail, color=st.BAND, lw=0)
     ax.axhline(0, color=st.INK, lw=0.6)
     if z.size == x.size and z.size:
@@ -80,14 +81,10 @@ def _z_axes(ax, x: np.ndarray, d: dict[str, Any], z_fail: float, logx: bool,
     ax.grid(True, axis="y")
 
 
-def _curve_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float) -> list[str]:
+def _curve_cell(page: Page, i: int, name: str, c: Comparison, z_fail: float) -> list[str]:
     x0, y0, cw, ch = _cell_geometry(page, i)
-    _title(page, x0, y0 + 0.2, cw, name, d)
-    x = ac.arr(d, "bins")
-    b = ac.arr(d, "box")
-    cones = ac.as_float_array(d.get("cones") or [])
-    mean = ac.arr(d, "cone_mean")
-    tot = ac.arr(d, "sigma_total")
+    _title(page, x0, y0 + 0.2, cw, name, c)
+    x, b, cones, mean, tot = c.bins, c.box, c.cones, c.cone_mean, c.sigma_total
     ok = x.size and b.size == x.size and mean.size == x.size and tot.size == x.size
     if not ok:
         page.text(x0, y0 + 0.6, "record incomplete: bins, box, cone_mean or sigma_total "
@@ -102,12 +99,12 @@ def _curve_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float)
         frac_mean = np.where(nz, mean / np.where(nz, b, 1) - 1, np.nan)
         band = np.where(nz, tot / np.abs(np.where(nz, b, 1)), np.nan)
         if cones.ndim == 2 and cones.shape[1] == x.size:
-            for c in cones:
-                ax.plot(x, np.where(nz, c / np.where(nz, b, 1) - 1, np.nan),
+            for one in cones:
+                ax.plot(x, np.where(nz, one / np.where(nz, b, 1) - 1, np.nan),
                         color=st.CONE_FAINT, lw=0.6)
     ax.fill_between(x, -band, band, color=st.TOTAL_BAND, lw=0, label="±σ_tot/|b|")
     ax.axhline(0, color=st.INK, lw=0.6)
-    sig_off = ac.arr(d, "sigma_offset")
+    sig_off = c.sigma_offset
     if sig_off.size == x.size:
         # the offset's own error: how well this run knows the mean (beside the data's error)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -128,26 +125,25 @@ def _curve_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float)
     ax.tick_params(labelbottom=False)
     ax.grid(True, axis="y")
     zax = page.axes(ax_x, y0 + 0.4 + main_h, ax_w, ch * 0.2, f"{name}:z", sharex=ax)
-    _z_axes(zax, x, d, z_fail, False, d.get("bin_label") or "bin")
+    _z_axes(zax, x, c, z_fail, False, c.bin_label or "bin")
     if logx:
         zax.set_xscale("log")
     return [f"{name}:offset", f"{name}:z"]
 
 
-def _density_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: float
+def _density_cell(page: Page, i: int, name: str, c: Comparison, z_fail: float
                   ) -> list[str]:
     x0, y0, cw, ch = _cell_geometry(page, i)
-    _title(page, x0, y0 + 0.2, cw, name, d)
-    b = ac.arr(d, "box")
-    cones = ac.as_float_array(d.get("cones") or []).ravel()
+    _title(page, x0, y0 + 0.2, cw, name, c)
+    b = c.box
+    cones = c.cones.ravel()
     if b.size != 1 or not cones.size or not np.isfinite(b[0]):
         page.text(x0, y0 + 0.6, "record incomplete: box value or cone values missing",
                   st.SMALL, colour=st.MUTED)
         return []
     b0 = float(b[0])
     scale = 10.0 ** math.floor(math.log10(abs(b0))) if b0 != 0 else 1.0
-    sb = ac.arr(d, "sigma_box")
-    stot = ac.arr(d, "sigma_total")
+    sb, stot = c.sigma_box, c.sigma_total
     ax_x, ax_w = x0 + 0.62, cw - 0.68
     main_h = ch * 0.52
     ax = page.axes(ax_x, y0 + 0.35, ax_w, main_h, f"{name}:histogram")
@@ -174,17 +170,16 @@ def _density_cell(page: Page, i: int, name: str, d: dict[str, Any], z_fail: floa
               facecolor="white", edgecolor="none", framealpha=0.9)
     zax = page.axes(ax_x, y0 + 0.62 + main_h + 0.15, ax_w, ch * 0.13, f"{name}:z")
     zax.set_xlim(-1, 1)
-    _z_axes(zax, np.array([0.0]), d, z_fail, False, "")
+    _z_axes(zax, np.array([0.0]), c, z_fail, False, "")
     zax.set_xticks([])
     page.text(ax_x + ax_w, y0 + 0.62 + main_h + 0.15 + ch * 0.13 + 0.17,
-              f"z = {ac.fmt_fixed(_first(d, 'z'))}, offset Δ/b = "
-              f"{ac.fmt_pct(_first(d, 'fractional_offset'))}",
+              f"z = {ac.fmt_fixed(_first(c.z))}, offset Δ/b = "
+              f"{ac.fmt_pct(_first(c.fractional_offset))}",
               st.SMALL, colour=st.MUTED, ha="right")
     return [f"{name}:histogram", f"{name}:z"]
 
 
-def _first(d: dict[str, Any], key: str) -> float:
-    v = ac.arr(d, key)
+def _first(v: np.ndarray) -> float:
     return float(v[0]) if v.size else math.nan
 
 
@@ -192,24 +187,24 @@ def _glance_cell(page: Page, i: int, results: dict[str, Any], sname: str, cname:
                  cut: dict[str, Any], names: list[str]) -> None:
     x0, y0, cw, ch = _cell_geometry(page, i)
     page.text(x0, y0 + 0.2, "This cut at a glance", st.BODY + 1, bold=True)
-    stats = ac.statistics(cut)
+    stats = {n: ac.comparison(d) for n, d in ac.statistics(cut).items()}
     cols = [Column("statistic", cw * 0.38), Column("verdict", cw * 0.2, "center"),
             Column("max |z|", cw * 0.2, "right"), Column("χ²/dof", cw * 0.22, "right")]
     rows = [[Cell(ac.stat_short(n)),
-             Cell(str(stats[n].get("verdict") or "—").upper(), stats[n].get("verdict")),
+             Cell((stats[n].verdict or "—").upper(), stats[n].verdict or None),
              Cell(ac.fmt_fixed(ac.max_abs_z(stats[n]))),
              Cell(ac.fmt_fixed(ac.chi2_per_dof(stats[n])))] for n in names]
     y = draw_table(page, x0, y0 + 0.32, cols, rows, size=st.SMALL, row_h=0.2)
-    first = stats[names[0]] if names else {}
+    first = stats[names[0]] if names else None
     lines = []
     if cut.get("z_min") is not None and cut.get("z_max") is not None:
         lines.append(f"{ac.fmt(ac.num(cut, 'z_min'))} < z < {ac.fmt(ac.num(cut, 'z_max'))}"
                      + (", primary cut" if cut.get("primary") else ", alternative cut"))
-    if first:
-        lines.append(f"{first.get('n_cones', '—')} cones, {first.get('n_regions', '—')} "
+    if first is not None:
+        lines.append(f"{first.n_cones or '—'} cones, {first.n_regions or '—'} "
                      f"jackknife regions (Hartlap n)")
-        if first.get("sigma_offset_method"):
-            lines.append(f"σ_Δ: {first['sigma_offset_method']}")
+        if first.sigma_offset_method:
+            lines.append(f"σ_Δ: {first.sigma_offset_method}")
     y += 0.08
     for text in lines:
         for line in wrap(text, cw, st.SMALL):
@@ -250,9 +245,9 @@ def statistics_pages(results: dict[str, Any]) -> list[PageSpec]:
                          stats=stats) -> None:
                     for i, n in enumerate(chunk):
                         if n == "number_density":
-                            _density_cell(page, i, n, stats[n], z_fail)
+                            _density_cell(page, i, n, ac.comparison(stats[n]), z_fail)
                         else:
-                            _curve_cell(page, i, n, stats[n], z_fail)
+                            _curve_cell(page, i, n, ac.comparison(stats[n]), z_fail)
                     if not chunk:
                         page.text(st.MARGIN_X, 1.3, "No statistics measured for this cut.")
                     _glance_cell(page, 5, results, sname, cname, cut, ac.ordered_stats(stats))

@@ -23,23 +23,23 @@ _CONT_TOP = 1.15
 
 def _rows(results: dict[str, Any]) -> list[list[Cell]]:
     rows = []
-    for sname, cname, stat, d in ac.iter_stats(results):
+    for sname, cname, stat, c in ac.iter_stats(results):
         cut = ac.cuts(ac.samples(results)[sname])[cname]
-        verdict = d.get("verdict")
+        verdict = c.verdict or None
         rows.append([Cell(sname, middle=True),
                      Cell(cname + (PRIMARY_MARK if cut.get("primary") else ""), middle=True),
                      Cell(ac.stat_short(stat)),
                      Cell(str(verdict or "—").upper(), verdict=verdict),
-                     Cell(ac.fmt_fixed(ac.max_abs_z(d))),
-                     Cell(ac.fmt_fixed(ac.chi2_per_dof(d))),
-                     Cell(ac.fmt_p(ac.num(d, "p_value"))),
-                     Cell(ac.fmt_pct(ac.detectable_fraction(d)))])
+                     Cell(ac.fmt_fixed(ac.max_abs_z(c))),
+                     Cell(ac.fmt_fixed(ac.chi2_per_dof(c))),
+                     Cell(ac.fmt_p(c.p_value)),
+                     Cell(ac.fmt_pct(ac.detectable_fraction(c)))])
     return rows
 
 
 def overall_answer(results: dict[str, Any]) -> str:
     """The answer to "may I fit this?" in a sentence or two (PDF page 1 and the HTML)."""
-    verdicts = [(s, c, t, d.get("verdict")) for s, c, t, d in ac.iter_stats(results)]
+    verdicts = [(s, c, t, cmp.verdict) for s, c, t, cmp in ac.iter_stats(results)]
     n = len(verdicts)
     fails = [f"{t} ({s}, {c})" for s, c, t, v in verdicts if v == "fail"]
     warns = [v for *_, v in verdicts if v == "warn"]
@@ -76,7 +76,7 @@ def _legend(results: dict[str, Any]) -> str:
 
 
 def _counts(results: dict[str, Any]) -> str:
-    vs = [d.get("verdict") for *_, d in ac.iter_stats(results)]
+    vs = [c.verdict for *_, c in ac.iter_stats(results)]
     return " · ".join(f"{vs.count(v)} {v}" for v in ("pass", "warn", "fail"))
 
 

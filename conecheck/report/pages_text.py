@@ -43,7 +43,7 @@ def findings_pages(results: dict[str, Any]) -> list[PageSpec]:
         ("muted", "For every sample, redshift cut and statistic: the verdict, the reasons the "
                   "rules gave, and notes from the comparison (dropped bins, fall-backs).")]
     last = None
-    for sname, cname, stat, d in ac.iter_stats(results):
+    for sname, cname, stat, c in ac.iter_stats(results):
         if (sname, cname) != last:
             cut = ac.cuts(ac.samples(results)[sname])[cname]
             zr = ""
@@ -51,18 +51,18 @@ def findings_pages(results: dict[str, Any]) -> list[PageSpec]:
                 zr = f" ({ac.fmt(ac.num(cut, 'z_min'))} < z < {ac.fmt(ac.num(cut, 'z_max'))})"
             blocks.append(("h2", f"{sname} · {cname}{zr}" + (" · primary cut"
                                                               if cut.get("primary") else "")))
-            method = d.get("sigma_offset_method")
+            method = c.sigma_offset_method
             if method:
-                blocks.append(("muted", f"{d.get('n_cones', '—')} cones, "
-                                        f"{d.get('n_regions', '—')} jackknife regions; "
-                                        f"σ_Δ = √({method.split(': ', 1)[-1]})"))
+                blocks.append(("muted", f"{c.n_cones or '—'} cones, "
+                                        f"{c.n_regions or '—'} jackknife regions; "
+                                        f"σ_Δ = √({str(method).split(': ', 1)[-1]})"))
             last = (sname, cname)
-        v = d.get("verdict")
+        v = c.verdict or None
         blocks.append(("h3", f"{ac.stat_title(stat)}: {str(v or 'no verdict').upper()}",
                        st.verdict_colour(v)))
-        for r in d.get("reasons") or []:
+        for r in c.reasons:
             blocks.append(("body", f"• {r}"))
-        for n in d.get("notes") or []:
+        for n in c.notes:
             blocks.append(("muted", f"note: {n}"))
     if last is None:
         blocks.append(("body", "No statistics in these results."))

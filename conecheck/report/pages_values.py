@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from ..compare.comparison import Comparison
 from . import access as ac
 from . import style as st
 from .layout import Page, shorten
@@ -37,12 +38,9 @@ def _panel_geometry(page: Page, i: int) -> tuple[float, float, float, float]:
     return x, y, cw - 0.6, _PANEL_H - 0.35
 
 
-def _values(name: str, d: dict[str, Any]) -> tuple[np.ndarray, ...] | None:
+def _values(name: str, c: Comparison) -> tuple[np.ndarray, ...] | None:
     """(x, box, σ_box, cones (N × p), mean, σ_cone, y label) scaled for display."""
-    x = ac.arr(d, "bins")
-    b, sb = ac.arr(d, "box"), ac.arr(d, "sigma_box")
-    mean, sc = ac.arr(d, "cone_mean"), ac.arr(d, "sigma_cone")
-    cones = ac.as_float_array(d.get("cones") or [])
+    x, b, sb, mean, sc, cones = c.bins, c.box, c.sigma_box, c.cone_mean, c.sigma_cone, c.cones
     if not (x.size and b.size == x.size == mean.size == sb.size == sc.size):
         return None
     if cones.ndim != 2 or cones.shape[1] != x.size:
@@ -51,17 +49,18 @@ def _values(name: str, d: dict[str, Any]) -> tuple[np.ndarray, ...] | None:
     return x, b * scale, sb * scale, cones * scale, mean * scale, sc * scale
 
 
-def _y_label(name: str, d: dict[str, Any]) -> str:
+def _y_label(name: str, c: Comparison) -> str:
     if name == "wp":
         return "r_p·w_p [(Mpc/h)²]"
-    return str(d.get("value_label") or "value")
+    return c.value_label or "value"
 
 
 def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool) -> None:
+    c = ac.comparison(d)
     x0, y0, w, h = _panel_geometry(page, i)
     page.text(x0 - 0.55, y0 - 0.12, shorten(ac.stat_title(name), w + 0.5, st.BODY + 1,
                                             bold=True), st.BODY + 1, bold=True)
-    vals = _values(name, d)
+    vals = _values(name, c)
     if vals is None:
         page.text(x0 - 0.55, y0 + 0.3, "record incomplete: bins, box, cone_mean or the "
                                        "errors missing", st.SMALL, colour=st.MUTED)
@@ -78,8 +77,9 @@ def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool)
         ax.set_xlim(-0.6, 1.6)
         ax.set_xticks([0.0, 1.0], ["box", "cones"])
     else:
-        for k, c in enumerate(cones):
-            ax.plot(x, c, color=st.CONE_FAINT, lw=0.6, label="single cones" if k == 0 else None)
+        for k, one in enumerate(cones):
+            ax.plot(x, one, color=st.CONE_FAINT, lw=0.6,
+                    label="single cones" if k == 0 else None)
         ax.fill_between(x, b - sb, b + sb, color=st.BOX_BAND, lw=0, label="box ±σ_box")
         ax.plot(x, b, color=st.BOX, lw=1.6, label="box")
         ax.errorbar(x, mean, yerr=sc, fmt="o", ms=3, color=st.CONE, capsize=2, elinewidth=0.8,
@@ -88,8 +88,8 @@ def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool)
             ax.set_yscale("log")
         if ac.wants_log_axis(x):
             ax.set_xscale("log")
-        ax.set_xlabel(shorten(str(d.get("bin_label") or "bin"), w, st.BODY))
-    ax.set_ylabel(shorten(_y_label(name, d), h, st.BODY))
+        ax.set_xlabel(shorten(c.bin_label or "bin", w, st.BODY))
+    ax.set_ylabel(shorten(_y_label(name, c), h, st.BODY))
     ax.grid(True, alpha=0.4)
     if legend and x.size > 1:
         ax.legend(loc="best", fontsize=st.SMALL, frameon=False)
@@ -102,7 +102,7 @@ def _matrix_geometry(page: Page, j: int, row: int, top: float) -> tuple[float, f
 
 
 def _matrix(d: dict[str, Any], key: str) -> np.ndarray | None:
-    m = ac.as_float_array(d.get(key) or [])
+    m = getattr(ac.comparison(d), key)
     return m if m.ndim == 2 and m.shape[0] == m.shape[1] and m.shape[0] > 1 else None
 
 

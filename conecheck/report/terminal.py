@@ -10,18 +10,18 @@ from . import access as ac
 def summary_table(results: dict[str, Any]) -> str:
     """Columns sample, cut, statistic, verdict, max|z|, χ²/dof, p; then the overall verdict."""
     # an effect ladder names, for each failing statistic, the rung it fails from
-    ladder = any("first_failing_rung" in d for *_, d in ac.iter_stats(results))
+    ladder = any(c.first_failing_rung is not None for *_, c in ac.iter_stats(results))
     head = ("sample", "cut", "statistic", "verdict", "max|z|", "chi2/dof", "p") + (
         ("fails from",) if ladder else ())
     rows = []
-    for sname, cname, stat, d in ac.iter_stats(results):
+    for sname, cname, stat, c in ac.iter_stats(results):
         cut = ac.cuts(ac.samples(results)[sname])[cname]
         rows.append((sname, cname + ("*" if cut.get("primary") else ""), stat,
-                     str(d.get("verdict") or "-").upper(),
-                     ac.fmt_fixed(ac.max_abs_z(d)).replace("—", "-"),
-                     ac.fmt_fixed(ac.chi2_per_dof(d)).replace("—", "-"),
-                     ac.fmt_p(ac.num(d, "p_value")).replace("—", "-"))
-                    + ((str(d.get("first_failing_rung") or "-"),) if ladder else ()))
+                     (c.verdict or "-").upper(),
+                     ac.fmt_fixed(ac.max_abs_z(c)).replace("—", "-"),
+                     ac.fmt_fixed(ac.chi2_per_dof(c)).replace("—", "-"),
+                     ac.fmt_p(c.p_value).replace("—", "-"))
+                    + ((c.first_failing_rung or "-",) if ladder else ()))
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
               for i, h in enumerate(head)]
     right = {4, 5, 6}
@@ -32,7 +32,7 @@ def summary_table(results: dict[str, Any]) -> str:
 
     out = [line(head), line(["-" * w for w in widths])]
     out += [line(r) for r in rows] or ["(no statistics)"]
-    counts = [str(d.get("verdict")) for *_, d in ac.iter_stats(results)]
+    counts = [c.verdict for *_, c in ac.iter_stats(results)]
     out.append("")
     out.append(f"overall: {str(results.get('overall', 'unknown')).upper()}  "
                f"({counts.count('pass')} pass, {counts.count('warn')} warn, "

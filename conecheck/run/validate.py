@@ -116,7 +116,7 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
                 stats[name] = compare_statistic(
                     box[s.name]["measurements"][name],
                     [c["measurements"][s.name][cut.label][name] for c in cones],
-                    cfg.verdict, cfg.cones.independent, where=where)
+                    cfg.verdict, cfg.cones.independent, where=where).to_dict()
             shifts = _shifts(cfg, box[s.name]["measurements"],
                              [c["measurements"][s.name][cut.label] for c in cones],
                              (derivatives or {}).get(s.name),
