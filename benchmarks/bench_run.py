@@ -320,7 +320,6 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     exact-agreement check."""
     from conecheck.cone import make_randoms, n_randoms
     from conecheck.run.cache import content_digest
-    from conecheck.run.execute import task_rng
     from conecheck.run.inputs import (
         cosmology_of,
         load_box,
@@ -339,6 +338,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     )
     from conecheck.stats import STATISTICS, ConeGeometry, ConeSample
     from conecheck.stats.wp import wp_cone
+    from conecheck.streams import seeded_rng
 
     cfg = make_config(d, work)
     wps = cfg.statistics.get("wp")
@@ -387,7 +387,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
                 n_r = n_randoms(expected_count(cosmo, footprint, cut, density[s.name]),
                                 cfg.randoms.multiple)
                 rt = make_randoms(footprint, lo, hi, n_r,
-                                  task_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label))
+                                  seeded_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label))
                 rand = {"ra": np.ascontiguousarray(rt["ra"], dtype=np.float64),
                         "dec": np.ascontiguousarray(rt["dec"], dtype=np.float64),
                         "chi": np.ascontiguousarray(rt["chi_obs"], dtype=np.float64),
@@ -414,7 +414,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
                     if name == "wp":
                         continue
                     t = time.perf_counter()
-                    rng = task_rng(cfg.seed, "cone", i, s.name, cut.label, name, "")
+                    rng = seeded_rng(cfg.seed, "cone", i, s.name, cut.label, name, "")
                     m = STATISTICS[name].measure_cone(data, None, geometry,
                                                       cfg.statistics.get(name), rng, None,
                                                       jackknife=True)

@@ -51,7 +51,6 @@ from .errors import InputError
 from .footprint import Footprint, SkyRegions, jackknife_regions
 from .report import render_html, render_report, rerender, results_to_json
 from .run.cache import content_digest
-from .run.execute import task_rng
 from .run.inputs import load_box, load_footprint, overlap_input, sky_regions
 from .run.specs import box_spec, cone_build_spec
 from .run.tasks import (
@@ -64,6 +63,7 @@ from .run.tasks import (
 )
 from .run.validate import validate as _validate_run
 from .stats import STATISTICS, BoxSample, ConeGeometry, Measurement
+from .streams import seeded_rng
 
 #: Sky jackknife regions of a cone measured without a configuration.
 DEFAULT_SKY_REGIONS = 16
@@ -195,7 +195,7 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
     jk = JackknifeConfig()
     bs = BoxSample.with_regions(np.asarray(box.position), box.box_size, los_axis,
                                 n_side=jk.box_n_side, layout=jk.box_layout)
-    return STATISTICS[statistic].measure_box(bs, settings, task_rng(seed, "box", statistic),
+    return STATISTICS[statistic].measure_box(bs, settings, seeded_rng(seed, "box", statistic),
                                              jackknife=jackknife)
 
 
@@ -265,7 +265,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     stat = STATISTICS[statistic]
     rand = None
     shared = None
-    rng = task_rng(seed, "api-cone", statistic)
+    rng = seeded_rng(seed, "api-cone", statistic)
     if statistic in NEEDS_RANDOMS:
         rt = make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple), rng,
                           cosmology=cosmo)

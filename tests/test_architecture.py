@@ -19,8 +19,8 @@ PACKAGE = Path(conecheck.__file__).resolve().parent
 
 #: Layers from first to last; a module may import its own layer and earlier ones.
 LAYERS = [
-    ("foundation", ["errors", "atomic", "units", "cosmology", "sphere", "jackknife", "loader",
-                    "version", "pairs", "footprint.protocols"]),
+    ("foundation", ["errors", "atomic", "units", "cosmology", "sphere", "streams", "jackknife",
+                    "loader", "version", "pairs", "footprint.protocols"]),
     ("settings", ["cone.settings", "cone.corrections", "stats.settings", "compare.rules",
                   "attribution.settings"]),
     ("config", ["config", "config_docs", "demo"]),

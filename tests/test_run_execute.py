@@ -31,7 +31,6 @@ from conecheck.run.execute import (
     Task,
     TaskFailed,
     make_executor,
-    task_rng,
 )
 from conecheck.run.progress import Progress
 from conecheck.run.serialize import (
@@ -41,6 +40,7 @@ from conecheck.run.serialize import (
     unpack,
 )
 from conecheck.stats.base import Measurement
+from conecheck.streams import seeded_rng
 
 
 # --------------------------------------------------------------------------- helpers
@@ -124,12 +124,12 @@ def flaky(marker, log_file, seed, i):
         f.write(f"{i}\n")
     if i == 3 and os.path.exists(marker):
         raise RuntimeError("worker lost its scratch disk")
-    return task_rng(seed, "cone", i).normal(size=4)
+    return seeded_rng(seed, "cone", i).normal(size=4)
 
 
 def draw(seed, i, shared, scale=1.0):
     """Task-keyed random numbers, depending on a shared input."""
-    g = task_rng(seed, "cone", i, "bright")
+    g = seeded_rng(seed, "cone", i, "bright")
     return {"u": g.uniform(size=8) * scale + shared.sum(), "n": int(g.poisson(50.0))}
 
 
@@ -221,14 +221,14 @@ def test_task_key_is_stable_and_sensitive():
         task_key("cone", {"thing": object()})
 
 
-def test_task_key_and_task_rng_do_not_depend_on_the_process():
+def test_task_key_and_seeded_rng_do_not_depend_on_the_process():
     code = (
         "import numpy as np\n"
         "from conecheck.run.cache import task_key\n"
-        "from conecheck.run.execute import task_rng\n"
+        "from conecheck.streams import seeded_rng\n"
         "print(task_key('cone', {'labels': {'bright', 'faint', 'all'}, 'x': 0.1,"
         " 'a': np.arange(4.0)}))\n"
-        "print(task_rng(11, 'cone', 3, 'bright').integers(0, 2**62))\n"
+        "print(seeded_rng(11, 'cone', 3, 'bright').integers(0, 2**62))\n"
     )
     outs = []
     for hash_seed in ("1", "2"):
@@ -238,7 +238,7 @@ def test_task_key_and_task_rng_do_not_depend_on_the_process():
         outs.append(run.stdout.split())
     here = [task_key("cone", {"labels": {"bright", "faint", "all"}, "x": 0.1,
                               "a": np.arange(4.0)}),
-            str(task_rng(11, "cone", 3, "bright").integers(0, 2**62))]
+            str(seeded_rng(11, "cone", 3, "bright").integers(0, 2**62))]
     assert outs[0] == outs[1] == here
 
 
@@ -257,23 +257,23 @@ def test_task_key_changes_with_code_version(monkeypatch):
     assert len({k, k_version, k_format, k_source}) == 4
 
 
-# --------------------------------------------------------------------------- task_rng
-def test_task_rng_streams_follow_seedsequence():
-    a = task_rng(5, "cone", 3).normal(size=16)
-    assert np.array_equal(a, task_rng(5, "cone", 3).normal(size=16))
-    others = [task_rng(6, "cone", 3), task_rng(5, "cone", 4), task_rng(5, "cone", "3"),
-              task_rng(5, "cone3"), task_rng(5, 3, "cone")]
+# --------------------------------------------------------------------------- seeded_rng
+def test_seeded_rng_streams_follow_seedsequence():
+    a = seeded_rng(5, "cone", 3).normal(size=16)
+    assert np.array_equal(a, seeded_rng(5, "cone", 3).normal(size=16))
+    others = [seeded_rng(6, "cone", 3), seeded_rng(5, "cone", 4), seeded_rng(5, "cone", "3"),
+              seeded_rng(5, "cone3"), seeded_rng(5, 3, "cone")]
     for g in others:
         assert not np.array_equal(a, g.normal(size=16))
     # The generator is numpy's default bit generator seeded by a SeedSequence rooted at
     # the run seed (numpy.random documentation: SeedSequence with spawn_key).
-    g = task_rng(5, "x")
+    g = seeded_rng(5, "x")
     assert isinstance(g.bit_generator, np.random.PCG64)
     assert g.bit_generator.seed_seq.entropy == 5 and len(g.bit_generator.seed_seq.spawn_key) == 8
     with pytest.raises(InputError, match="seed"):
-        task_rng(-1, "cone")
+        seeded_rng(-1, "cone")
     with pytest.raises(TypeError):
-        task_rng(1, 0.5)
+        seeded_rng(1, 0.5)
 
 
 # --------------------------------------------------------------------------- cache

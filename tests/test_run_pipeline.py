@@ -98,14 +98,24 @@ def test_rerun_hits_the_cache_and_reproduces(demo_run, capsys):
     assert stats["writes"] == 0 and stats["hits"] > 0
 
 
-@pytest.mark.parametrize("seed", [11, 12, 13])
-def test_null_setup_never_fails(tmp_path, seed):
-    """Nothing in the cones that the box lacks: no statistic may fail (warns allowed)."""
-    res, code = _run(tiny_dict(seed=seed, **GEOMETRY_ONLY), tmp_path / "run")
-    v = verdicts(res)
-    fails = [k for k, x in v.items() if x == "fail"]
-    print(f"seed {seed}: false-fail fraction {len(fails)}/{len(v)}; verdicts {v}")
-    assert not fails and code == 0
+def test_null_setup_rarely_fails(tmp_path):
+    """Nothing in the cones that the box lacks but the footprint: false fails stay rare.
+
+    A rate over seeds, not one draw: 3 seeds × 4 statistics = 12 verdicts. The footprint
+    nulls of the calibration (benchmarks/RESULTS.md, 12 boxes × 8 cones) failed 3 of 96
+    verdicts, real integral-constraint offsets rather than error-model alarms; at that rate
+    (p ≈ 0.031) two or more fails among 12 happen with probability 5 %, three or more with
+    probability 0.5 %, so the test allows two.
+    """
+    fails, total = [], 0
+    for seed in (11, 12, 13):
+        res, code = _run(tiny_dict(seed=seed, **GEOMETRY_ONLY), tmp_path / f"run{seed}")
+        v = verdicts(res)
+        total += len(v)
+        fails += [(seed, *k) for k, x in v.items() if x == "fail"]
+        assert code == (1 if any(x == "fail" for x in v.values()) else 0)
+    print(f"false fails {len(fails)}/{total}: {fails}")
+    assert total == 12 and len(fails) <= 2, fails
 
 
 def test_uncorrected_fibre_collisions_fail_wp_and_cic(tmp_path):

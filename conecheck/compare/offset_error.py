@@ -3,10 +3,10 @@
 Why the cone-to-cone scatter
 ----------------------------
 Every cone is cut from the same box with its own observer, rotation and random draws
-(``SeedSequence([seed, i, …])``), so *given the box* the N cones are independent, identically
-distributed draws. Their mean c̄ therefore scatters about its conditional expectation
-μ(box) with covariance S/N, where S is the cone-to-cone sample covariance (N − 1 degrees of
-freedom). The offset Δ = c̄ − b then has
+(streams of the run seed and the cone's index), so *given the box* the N cones are
+independent, identically distributed draws. Their mean c̄ therefore scatters about its
+conditional expectation μ(box) with covariance S/N, where S is the cone-to-cone sample
+covariance (N − 1 degrees of freedom). The offset Δ = c̄ − b then has
 
     Var(Δ) = S/N + Var(μ(box) − b),
 

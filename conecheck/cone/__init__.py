@@ -9,7 +9,7 @@ of a run, seeded per cone), :func:`make_randoms`, :func:`select_sample`,
 """
 
 from .build import (
-    STAGE_CODES,
+    CONE_STAGES,
     SurveyModel,
     build_all_cones,
     build_cone,
@@ -50,7 +50,7 @@ from .settings import (
 )
 
 __all__ = [
-    "CORRECTIONS", "STAGE_CODES", "ZFLAG_COLLIDED", "ZFLAG_MEANING", "ZFLAG_NEAREST_REDSHIFT",
+    "CORRECTIONS", "CONE_STAGES", "ZFLAG_COLLIDED", "ZFLAG_MEANING", "ZFLAG_NEAREST_REDSHIFT",
     "ZFLAG_OWN_FIBRE", "ZFLAG_SECOND_PASS", "CorrectionSettings", "EffectSwitches",
     "FibreResult", "FibreSettings", "FullSky", "ObserverSettings", "OverlapMap",
     "RandomSettings", "RedshiftErrorSettings", "SampleCut", "SurveyModel", "SurveyShell",

@@ -14,8 +14,9 @@ correction.  A galaxy blueshifted to z_obs <= 0 is dropped (no survey shell hold
 Randomness is split into independent streams per stage (footprint, redshift errors,
 fibres, corrections), so switching one effect off leaves the draws of every other
 stage unchanged, and :func:`build_all_cones` derives every cone's streams from
-``SeedSequence([seed, cone_index, stage_code])``: a cone's content depends only on the
-seed and its index, never on the order in which cones are built.
+``seeded_rng(seed, "cone-build", cone_index, stage)`` (:mod:`conecheck.streams`, the one
+scheme of every draw): a cone's content depends only on the seed and its index, never on the
+order in which cones are built.
 """
 
 from __future__ import annotations
@@ -36,6 +37,7 @@ from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint.protocols import SkyFootprint
+from ..streams import seeded_rng
 from .corrections import (
     CORRECTIONS,
     ZFLAG_COLLIDED,
@@ -70,9 +72,10 @@ from .settings import (
 
 log = logging.getLogger(__name__)
 
-#: Stage → code used in ``SeedSequence([seed, cone_index, code])``.
-STAGE_CODES: dict[str, int] = {"observer": 1, "rotation": 2, "footprint": 3,
-                               "redshift_errors": 4, "fibres": 5, "corrections": 6}
+#: The stages of a cone's construction that draw random numbers, each from its own stream
+#: ``seeded_rng(seed, "cone-build", cone_index, stage)`` (:mod:`conecheck.streams`).
+CONE_STAGES: tuple[str, ...] = ("observer", "rotation", "footprint", "redshift_errors",
+                                "fibres", "corrections")
 
 
 @dataclass
@@ -145,10 +148,8 @@ class SurveyModel:
 
 # ------------------------------------------------------------------ randomness
 def cone_rngs(seed: int, cone_index: int) -> dict[str, np.random.Generator]:
-    """One independent Generator per stage, from ``SeedSequence([seed, cone_index, code])``."""
-    return {name: np.random.default_rng(np.random.SeedSequence([int(seed), int(cone_index),
-                                                                code]))
-            for name, code in STAGE_CODES.items()}
+    """One independent generator per stage of cone ``cone_index``, from the run seed."""
+    return {name: seeded_rng(seed, "cone-build", cone_index, name) for name in CONE_STAGES}
 
 
 def _stage_rngs(rng: np.random.Generator | Mapping[str, np.random.Generator]
@@ -158,9 +159,9 @@ def _stage_rngs(rng: np.random.Generator | Mapping[str, np.random.Generator]
         if missing:
             raise ValueError(f"rng mapping lacks streams {sorted(missing)}")
         return rng
-    key = [int(k) for k in rng.integers(0, 2**63 - 1, size=2)]
-    return {name: np.random.default_rng(np.random.SeedSequence([*key, code]))
-            for name, code in STAGE_CODES.items()}
+    # one generator given: it seeds the stage streams (for a cone built outside a run)
+    seed = int(rng.integers(0, 2**63 - 1))
+    return {name: seeded_rng(seed, "cone-build", name) for name in CONE_STAGES}
 
 
 def cone_geometry(observers: ObserverSettings, box_size: float, n_cones: int, seed: int,
@@ -388,7 +389,7 @@ def build_all_cones(box: GalaxyBox, footprint: SkyFootprint | None, shell: Surve
     """Build ``n_cones`` cones from one box (the function ``conecheck cones`` calls).
 
     Cone i's observer, rotation and every stage's draws come from
-    ``SeedSequence([seed, i, stage_code])`` (:func:`cone_rngs`), so any subset of cones
+    ``seeded_rng(seed, "cone-build", i, stage)`` (:func:`cone_rngs`), so any subset of cones
     can be rebuilt alone, in any order, with identical results.
 
     Returns

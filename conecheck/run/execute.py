@@ -1,7 +1,7 @@
 """Running a list of independent tasks, in-process or on a dask.distributed cluster.
 
 Whatever runs the tasks, results come back in task order and are the same numbers:
-every task draws its random numbers from :func:`task_rng` (run seed + the task's own
+every task draws its random numbers from :func:`seeded_rng` (run seed + the task's own
 key), never from a stream shared with other tasks, so neither the back end, the number
 of workers nor the completion order can change a result.  Each result is written to
 the :class:`~conecheck.run.cache.TaskCache` the moment it arrives, so a run that is
@@ -12,8 +12,6 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import hashlib
-import json
 import logging
 import os
 import signal
@@ -37,39 +35,6 @@ log = logging.getLogger("conecheck.run")
 
 _MISSING = object()
 
-
-
-# --------------------------------------------------------------------------- randomness
-def task_rng(run_seed: int, *key_parts: int | str) -> np.random.Generator:
-    """Random generator of one task, fixed by the run seed and the task's key alone.
-
-    Parameters
-    ----------
-    run_seed : int
-        The run's seed (config), a non-negative integer.
-    *key_parts : int or str
-        What identifies the task's stream, e.g. ``("cone", 3, "bright", "primary")``.
-
-    Notes
-    -----
-    The key parts are encoded as JSON (type-tagged, so ``1`` and ``"1"`` differ) and
-    hashed with SHA-256 — not Python's ``hash()``, which is salted per process — and
-    the digest becomes the ``spawn_key`` of a :class:`numpy.random.SeedSequence` rooted
-    at the run seed.  Streams of different keys are therefore independent in the
-    sense SeedSequence guarantees, and identical in every process.
-    """
-    if isinstance(run_seed, (bool, np.bool_)) or not isinstance(run_seed, (int, np.integer)) \
-            or run_seed < 0:
-        raise InputError(f"seed: expected a non-negative integer, got {run_seed!r}")
-    parts = []
-    for p in key_parts:
-        if isinstance(p, (bool, np.bool_)) or not isinstance(p, (int, np.integer, str)):
-            raise TypeError(f"task_rng key parts must be int or str, got "
-                            f"{type(p).__name__} {p!r}")
-        parts.append(["s", p] if isinstance(p, str) else ["i", str(int(p))])
-    digest = hashlib.sha256(json.dumps(parts, separators=(",", ":")).encode()).digest()
-    words = tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 32, 4))
-    return np.random.default_rng(np.random.SeedSequence(int(run_seed), spawn_key=words))
 
 
 # --------------------------------------------------------------------------- tasks

@@ -23,7 +23,7 @@ from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint import Footprint, jackknife_regions
 from ..footprint.jackknife import SkyRegions
-from .execute import task_rng
+from ..streams import seeded_rng
 from .specs import InputFile
 
 log = logging.getLogger(__name__)
@@ -94,7 +94,7 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
     if b.source == "file":
         raise InputError("box.source = 'file': a galaxy catalogue carries no halos or HOD")
     model = hod_model_of(cfg)
-    rng = task_rng(cfg.seed, "box")
+    rng = seeded_rng(cfg.seed, "box")
     if b.source == "halos":
         halos = read_halo_catalog(_existing(cfg, b.path, "box.path"), b.columns or None,
                                   b.box_size, b.redshift, hdf5_path=b.hdf5_path,

@@ -23,7 +23,7 @@ from ..box.sensitivity import (
     varied_model,
 )
 from ..errors import InputError
-from .execute import task_rng
+from ..streams import seeded_rng
 from .specs import DerivativesSpec
 from .tasks import measure_box_sample
 
@@ -73,7 +73,8 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
         lo, hi = step_values(model, threshold, name, step_of[name])
         values = {}
         for side, v in (("lo", lo), ("hi", hi)):
-            rng = task_rng(box_spec.seed, "hod-derivative", sample.name)  # the same draws each time
+            # the same draws each time (common random numbers)
+            rng = seeded_rng(box_spec.seed, "hod-derivative", sample.name)
             box = populate(halos, varied_model(model, threshold, name, v), rng, cosmo)
             keep = np.ones(len(box), dtype=bool)
             values[side] = measure_box_sample(box_spec, box, keep, jackknife=False)

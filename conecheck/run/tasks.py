@@ -4,7 +4,7 @@ Each is a module-level function (so a dask worker can run it) of a frozen spec
 (:mod:`conecheck.run.specs`) and the large in-memory inputs the spec names by content,
 returning a structure :mod:`conecheck.run.serialize` can store (dicts, arrays, numbers,
 Measurements), so every finished task can be cached under the hash of its spec. Every
-random draw comes from :func:`~conecheck.run.execute.task_rng` keyed by the run seed and
+random draw comes from :func:`~conecheck.streams.seeded_rng` keyed by the run seed and
 the task's own names, never from execution order.
 """
 
@@ -26,7 +26,7 @@ from ..footprint import Footprint, SkyRegions
 from ..pairs.counts import PairCounts
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
 from ..stats.base import LOS_VARIANCE
-from .execute import task_rng
+from ..streams import seeded_rng
 from .specs import BoxSpec, ConeBuildSpec, ConeSpec, CutSpec, RandomsSpec, SampleThreshold
 
 #: Number of redshift bins of the n(z) diagnostic per cut.
@@ -44,7 +44,7 @@ def box_redshift_space(spec: BoxSpec, box: GalaxyBox, axis: int | None = None) -
     pos = apply_box_rsd(box, axis, cosmo) if eff.rsd else np.array(box.position)
     if eff.redshift_scatter_kms > 0:
         pos = apply_box_redshift_scatter(pos, axis, eff.redshift_scatter_kms, box.redshift,
-                                         cosmo, task_rng(spec.seed, "box-scatter"),
+                                         cosmo, seeded_rng(spec.seed, "box-scatter"),
                                          box.box_size)
     return pos
 
@@ -105,7 +105,7 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
     for name in spec.statistics.measure:
         if statistics is not None and name not in statistics:
             continue
-        rng = task_rng(spec.seed, "box", sample.name, name)
+        rng = seeded_rng(spec.seed, "box", sample.name, name)
         out[name] = STATISTICS[name].measure_box(bs, spec.statistics.get(name), rng,
                                                  jackknife=jackknife)
     return out
@@ -159,7 +159,7 @@ def cut_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
     n = n_randoms(spec.n_expected, spec.randoms.multiple)
-    rng = task_rng(spec.seed, "randoms", spec.sample_name, spec.cut.label)
+    rng = seeded_rng(spec.seed, "randoms", spec.sample_name, spec.cut.label)
     return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo)
 
 
@@ -183,7 +183,7 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
         s = STATISTICS[name].prepare_cone(
             rand, geometry, spec.statistics.get(name),
             n_data=max(int(round(spec.n_expected)), 1),
-            rng=task_rng(spec.seed, "shared", spec.sample_name, spec.cut.label, name))
+            rng=seeded_rng(spec.seed, "shared", spec.sample_name, spec.cut.label, name))
         if isinstance(s, PairCounts):
             shared[name] = {"pair_counts": _pair_counts_to_dict(s)}
         elif isinstance(s, dict):
@@ -257,7 +257,7 @@ def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
     stats = cut_spec.statistics
     out = {}
     for name in stats.measure:
-        rng = task_rng(build.seed, "cone", build.index, cut_spec.sample_name, cut.label, name,
+        rng = seeded_rng(build.seed, "cone", build.index, cut_spec.sample_name, cut.label, name,
                        cut_spec.tag)
         out[name] = STATISTICS[name].measure_cone(data, rand, geometry, stats.get(name), rng,
                                                   shared.get(name), jackknife=True)
