@@ -21,6 +21,7 @@ from conecheck.compare import (
     gaussian_equivalent,
     hartlap_factor,
     min_regions_needed,
+    rollup,
     rollup_verdicts,
     worst_verdict,
 )
@@ -421,6 +422,13 @@ def test_rollup_and_exit_codes():
     assert results["samples"]["a"]["cuts"]["c2"]["verdict"] == "warn"  # nothing checked
     assert results["samples"]["b"]["verdict"] == "pass"
     results["samples"]["b"]["cuts"]["c1"]["statistics"]["wp"]["verdict"] = "fail"
+    before = json.dumps(results, sort_keys=True)
+    r = rollup(results)  # typed, and the tree is left as it was
+    assert json.dumps(results, sort_keys=True) == before
+    assert r.overall == "fail" and r.samples == {"a": "warn", "b": "fail"}
+    assert r.cuts[("a", "c2")] == "warn" and r.with_verdict("fail") == [("b", "c1", "wp")]
+    assert (r.count("pass"), r.count("warn"), r.count("fail")) == (1, 1, 1)
+    assert r.counts_text == "1 pass · 1 warn · 1 fail"
     assert rollup_verdicts(results) == "fail"
     assert exit_code("fail") == 1 and exit_code("warn") == 0 and exit_code("pass") == 0
     assert exit_code("warn", warn_is_failure=True) == 1

@@ -18,7 +18,7 @@ from .offset_error import (
     gaussian_equivalent,
     offset_error,
 )
-from .rollup import rollup_verdicts
+from .rollup import Rollup, rollup, rollup_verdicts
 from .rules import (
     FAIL,
     PASS,
@@ -33,7 +33,8 @@ from .rules import (
 from .statistic import Decision, ErrorBudget, compare_statistic, decide, error_budget
 
 __all__ = [
-    "Comparison", "Decision", "ErrorBudget", "comparison_keys", "decide", "error_budget",
+    "Comparison", "Decision", "ErrorBudget", "Rollup", "comparison_keys", "decide",
+    "error_budget", "rollup",
     "FAIL", "MAX_CONDITION", "PASS", "SIGMA_OFFSET_INDEPENDENT", "SIGMA_OFFSET_SCATTER",
     "SIGMA_OFFSET_SHARED", "OffsetError", "cones_needed", "critical_t", "gaussian_equivalent",
     "offset_error",

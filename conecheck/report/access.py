@@ -11,6 +11,7 @@ from numpy.typing import NDArray
 
 from ..compare.comparison import Comparison
 from ..compare.jsonsafe import as_float, as_float_array
+from ..compare.rollup import Rollup, rollup
 
 #: Order in which statistics appear; unknown ones follow alphabetically.
 STAT_ORDER = ("number_density", "wp", "cic", "vpf", "annuli")
@@ -93,6 +94,11 @@ def iter_stats(results: dict[str, Any]) -> Iterator[tuple[str, str, str, Compari
             stats = statistics(cut)
             for stat in ordered_stats(stats):
                 yield sname, cname, stat, comparison(stats[stat])
+
+
+def verdicts(results: dict[str, Any]) -> Rollup:
+    """Every verdict of the results, typed (statistics, cuts, samples, overall)."""
+    return rollup(results)
 
 
 def comparison(d: Mapping[str, Any] | Comparison) -> Comparison:

@@ -39,10 +39,10 @@ def _rows(results: dict[str, Any]) -> list[list[Cell]]:
 
 def overall_answer(results: dict[str, Any]) -> str:
     """The answer to "may I fit this?" in a sentence or two (PDF page 1 and the HTML)."""
-    verdicts = [(s, c, t, cmp.verdict) for s, c, t, cmp in ac.iter_stats(results)]
-    n = len(verdicts)
-    fails = [f"{t} ({s}, {c})" for s, c, t, v in verdicts if v == "fail"]
-    warns = [v for *_, v in verdicts if v == "warn"]
+    r = ac.verdicts(results)
+    n = len(r.statistics)
+    fails = [f"{t} ({s}, {c})" for s, c, t in r.with_verdict("fail")]
+    warns = r.with_verdict("warn")
     overall = results.get("overall")
     if not n:
         return "No statistic was compared: the results hold no sample, cut or statistic."
@@ -76,8 +76,7 @@ def _legend(results: dict[str, Any]) -> str:
 
 
 def _counts(results: dict[str, Any]) -> str:
-    vs = [c.verdict for *_, c in ac.iter_stats(results)]
-    return " · ".join(f"{vs.count(v)} {v}" for v in ("pass", "warn", "fail"))
+    return ac.verdicts(results).counts_text
 
 
 def _draw_head(page: Page, results: dict[str, Any]) -> None:

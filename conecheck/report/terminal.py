@@ -32,9 +32,9 @@ def summary_table(results: dict[str, Any]) -> str:
 
     out = [line(head), line(["-" * w for w in widths])]
     out += [line(r) for r in rows] or ["(no statistics)"]
-    counts = [c.verdict for *_, c in ac.iter_stats(results)]
+    r = ac.verdicts(results)
     out.append("")
     out.append(f"overall: {str(results.get('overall', 'unknown')).upper()}  "
-               f"({counts.count('pass')} pass, {counts.count('warn')} warn, "
-               f"{counts.count('fail')} fail; * primary cut)")
+               f"({r.count('pass')} pass, {r.count('warn')} warn, "
+               f"{r.count('fail')} fail; * primary cut)")
     return "\n".join(out)
