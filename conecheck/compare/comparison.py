@@ -159,11 +159,6 @@ class Comparison:
         """Number of bins p."""
         return int(np.size(self.box))
 
-    @property
-    def passed(self) -> bool:
-        """True when the verdict is ``pass``."""
-        return self.verdict == "pass"
-
 
 def comparison_keys() -> tuple[str, ...]:
     """The keys of a statistic's entry in results.json (without the ladder's annotations)."""

@@ -16,8 +16,7 @@ else.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
-from typing import Any
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -209,11 +208,6 @@ class ConePieceSpec:
     cut: CutSpec
 
 
-def spec_fields(spec: Any) -> dict[str, Any]:
-    """A spec's fields by name (what its cache key hashes)."""
-    return {f.name: getattr(spec, f.name) for f in fields(spec)}
-
-
 # --------------------------------------------------------------------------- builders
 def box_spec(cfg: RunConfig, sample: SampleConfig, box_content: str) -> BoxSpec:
     """The box measurement of ``sample`` under ``cfg``."""
@@ -267,4 +261,4 @@ def measured_statistics(stats: StatisticsConfig) -> StatisticsConfig:
 __all__ = ["BoxEffects", "BoxJackknife", "BoxSpec", "ConeBuildSpec", "ConePieceSpec",
            "ConeSpec", "CutSpec", "DerivativesSpec", "InputFile", "RandomsSpec",
            "SampleThreshold", "box_spec", "cone_build_spec", "cut_spec", "measured_statistics",
-           "randoms_spec", "spec_fields"]
+           "randoms_spec"]
