@@ -25,6 +25,7 @@ from .api import (
     measure_box,
     measure_cone,
     render_run,
+    survey_sky,
     validate,
     write_report,
 )
@@ -39,4 +40,4 @@ from .version import __version__
 __all__ = ["Comparison", "ConecheckError", "Footprint", "GalaxyBox", "InputError", "Measurement",
            "RunConfig", "SkyRegions", "__version__", "build_box", "build_cones", "compare",
            "config_from_dict", "demo_config", "galaxy_box", "load_config", "measure_box",
-           "measure_cone", "render_run", "validate", "write_report"]
+           "measure_cone", "render_run", "survey_sky", "validate", "write_report"]

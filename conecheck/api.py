@@ -45,7 +45,6 @@ from .config import (
     config_from_dict,
     load_config,
 )
-from .cosmology import Cosmology
 from .demo import demo_config
 from .errors import InputError
 from .footprint import Footprint, SkyRegions, jackknife_regions
@@ -393,6 +392,6 @@ def _cone_table(cone: Any) -> Table:
     return t
 
 
-__all__ = ["Cosmology", "build_box", "survey_sky", "build_cones", "compare", "config_from_dict",
-           "demo_config", "galaxy_box", "load_config", "measure_box", "measure_cone",
-           "render_run", "validate", "write_report"]
+__all__ = ["build_box", "build_cones", "compare", "config_from_dict", "demo_config",
+           "galaxy_box", "load_config", "measure_box", "measure_cone", "render_run",
+           "survey_sky", "validate", "write_report"]
