@@ -1,7 +1,9 @@
 """Turn a validated :class:`~conecheck.config.RunConfig` into the run's inputs.
 
-The box catalogue, the footprint, the jackknife sky regions and the survey model are built
-here once per run; everything downstream receives them as arguments.
+The box catalogue (with the halos and HOD it was populated from), the footprint, the
+jackknife sky regions and the digests of the input files are built here once per run;
+everything downstream receives them as arguments (the cone builder's survey model is made
+from a task's spec, :func:`conecheck.run.tasks.survey_model`).
 """
 
 from __future__ import annotations
