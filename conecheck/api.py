@@ -38,7 +38,6 @@ from .cone import make_randoms, n_randoms, select_cut
 from .cone.build import prepare_box
 from .cone.settings import SampleCut
 from .config import (
-    NEEDS_RANDOMS,
     CosmologyConfig,
     JackknifeConfig,
     RunConfig,
@@ -265,13 +264,11 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     rand = None
     shared = None
     rng = seeded_rng(seed, "api-cone", statistic)
-    if statistic in NEEDS_RANDOMS:
+    if stat.needs_randoms:
         rt = make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple), rng,
                           cosmology=cosmo)
         rand = _cone_sample(rt, regions)
-        shared = stat.prepare_cone(rand, geometry, settings, n_data=len(data.ra), rng=rng)
-    elif statistic == "vpf":
-        shared = stat.prepare_cone(None, geometry, settings, rng=rng)
+    shared = stat.prepare_cone(rand, geometry, settings, n_data=len(data.ra), rng=rng)
     return stat.measure_cone(data, rand, geometry, settings, rng, shared, jackknife=True)
 
 

@@ -50,13 +50,13 @@ from .cone.settings import (
 from .cosmology import Cosmology
 from .errors import InputError
 from .loader import build_section, read_toml
-from .stats.settings import SETTINGS_TYPES
+from .stats.registry import SETTINGS_TYPES, STATISTICS
 
 BUILTIN_FILES = {"builtin:kestrel": "kestrel_mask.fits",
                  "builtin:kestrel-overlap": "kestrel_overlap.fits"}
 STATISTIC_NAMES = tuple(SETTINGS_TYPES)
 #: Statistics whose cone estimator needs a random catalogue.
-NEEDS_RANDOMS = ("wp",)
+NEEDS_RANDOMS = tuple(n for n, s in STATISTICS.items() if s.needs_randoms)
 
 
 # --------------------------------------------------------------------------- sections
@@ -273,7 +273,8 @@ class StatisticsConfig:
     Attributes
     ----------
     measure : list of str
-        Statistic names among number_density, wp, cic, vpf, annuli.
+        Names of registered statistics (``conecheck check`` lists them; built in:
+        number_density, wp, cic, vpf, annuli, count_ratio, delta_sigma, multipoles).
     """
 
     measure: tuple[str, ...] = ("number_density", "wp", "cic", "vpf")
@@ -640,11 +641,7 @@ def _statistics(table: Any, problems: list[str]) -> StatisticsConfig | None:
 
 def n_bins(name: str, settings: Any) -> int:
     """Length of statistic ``name``'s data vector with ``settings``."""
-    if name == "number_density":
-        return 1
-    if name == "vpf":
-        return len(settings.radii)
-    return len(settings.edges) - 1
+    return STATISTICS[name].n_bins(settings)
 
 
 #: Randoms per galaxy below which the 2-point statistics carry noticeable random shot noise
@@ -673,8 +670,10 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
             problems.append(f"parameter_shifts.combinations[{i}] = {combo!r}: "
                             f"{', '.join(bad)} not in statistics.measure "
                             f"({', '.join(cfg.statistics.measure)}); join measured names with +")
-    if cfg.randoms.multiple <= 0 and any(s in NEEDS_RANDOMS for s in cfg.statistics.measure):
-        problems.append("randoms.multiple: wp needs randoms on the cones; set multiple > 0")
+    need = [s for s in cfg.statistics.measure if s in NEEDS_RANDOMS]
+    if cfg.randoms.multiple <= 0 and need:
+        problems.append(f"randoms.multiple: {', '.join(need)} need randoms on the cones; set "
+                        "multiple > 0")
     for name in cfg.statistics.measure:
         p = n_bins(name, cfg.statistics.get(name))
         need = p + 3

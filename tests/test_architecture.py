@@ -21,11 +21,11 @@ PACKAGE = Path(conecheck.__file__).resolve().parent
 LAYERS = [
     ("foundation", ["errors", "atomic", "units", "cosmology", "sphere", "streams", "jackknife",
                     "loader", "version", "pairs", "footprint.protocols"]),
-    ("settings", ["cone.settings", "cone.corrections", "stats.settings", "compare.rules",
+    ("statistics", ["stats"]),
+    ("settings", ["cone.settings", "cone.corrections", "compare.rules",
                   "attribution.settings"]),
     ("config", ["config", "config_docs", "demo"]),
     ("catalogues", ["catalog", "box", "footprint", "cone"]),
-    ("measurements", ["stats"]),
     ("comparison", ["compare"]),
     ("pipeline", ["run"]),
     ("attribution", ["attribution"]),

@@ -12,28 +12,23 @@ from numpy.typing import NDArray
 from ..compare.comparison import Comparison
 from ..compare.jsonsafe import as_float, as_float_array
 from ..compare.rollup import Rollup, rollup
-
-#: Order in which statistics appear; unknown ones follow alphabetically.
-STAT_ORDER = ("number_density", "wp", "cic", "vpf", "annuli")
-STAT_TITLES = {
-    "number_density": "number density n",
-    "wp": "projected correlation w_p(r_p)",
-    "cic": "counts in cylinders P(N)",
-    "vpf": "void probability P_0(R)",
-    "annuli": "counts in annuli P(N)",
-}
-
-STAT_SHORT = {"number_density": "number density", "wp": "w_p(r_p)", "cic": "cylinders P(N)",
-              "vpf": "voids P_0(R)", "annuli": "annuli P(N)"}
+from ..stats import STATISTICS, Display
 
 
-STAT_SYMBOL = {"number_density": "n", "wp": "w_p", "cic": "P(N)", "vpf": "P_0",
-               "annuli": "annuli"}
+def display(name: str) -> Display:
+    """How the report names and draws statistic ``name``: the registered statistic's
+    :class:`~conecheck.stats.Display`, or plain names for a statistic this installation
+    does not know (results written where a plug-in was installed)."""
+    stat = STATISTICS.get(name)
+    if stat is not None:
+        return stat.display
+    plain = name.replace("_", " ")
+    return Display(title=plain, short=plain, symbol=plain, order=1_000_000)
 
 
 def stat_symbol(name: str) -> str:
     """The statistic's symbol alone (narrow table columns)."""
-    return STAT_SYMBOL.get(name, name.replace("_", " "))
+    return display(name).symbol
 
 
 #: A positive axis whose values span more than this ratio is drawn logarithmically.
@@ -49,18 +44,17 @@ def wants_log_axis(values: NDArray[np.float64]) -> bool:
 
 def stat_short(name: str) -> str:
     """Short name of a statistic key (tables)."""
-    return STAT_SHORT.get(name, name.replace("_", " "))
+    return display(name).short
 
 
 def stat_title(name: str) -> str:
     """Readable name of a statistic key."""
-    return STAT_TITLES.get(name, name.replace("_", " "))
+    return display(name).title
 
 
 def ordered_stats(stats: dict[str, Any]) -> list[str]:
-    """Statistic keys in report order."""
-    known = [s for s in STAT_ORDER if s in stats]
-    return known + sorted(s for s in stats if s not in STAT_ORDER)
+    """Statistic keys in report order (unknown ones last, alphabetically)."""
+    return sorted(stats, key=lambda s: (display(s).order, s))
 
 
 def samples(results: dict[str, Any]) -> dict[str, Any]:
@@ -99,6 +93,11 @@ def iter_stats(results: dict[str, Any]) -> Iterator[tuple[str, str, str, Compari
 def verdicts(results: dict[str, Any]) -> Rollup:
     """Every verdict of the results, typed (statistics, cuts, samples, overall)."""
     return rollup(results)
+
+
+def single_bin(d: Mapping[str, Any] | Comparison) -> bool:
+    """True for a statistic that is one number (drawn as box against cones, no curve)."""
+    return comparison(d).bins.size == 1
 
 
 def comparison(d: Mapping[str, Any] | Comparison) -> Comparison:

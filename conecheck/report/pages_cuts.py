@@ -71,7 +71,7 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     ax.set_ylabel("max |z| over bins")
     ax.grid(True, axis="y")
     ax.legend(loc="upper left", ncol=min(n_rows, 3), fontsize=st.SMALL)
-    heads = ["density n" if n == "number_density" else ac.stat_short(n) for n in names]
+    heads = [ac.stat_short(n) for n in names]
     cols = [Column("cut", 1.6)] + [Column(h, 1.0, "center") for h in heads]
     cols = fit_columns(cols, w)
     rows = []

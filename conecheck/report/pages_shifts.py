@@ -34,7 +34,7 @@ def _rows(results: dict[str, Any], params: list[str]) -> list[list[Cell]]:
                 if alone:
                     shifts = rec.get("conditional_shift_in_sigma")
                 cells = [Cell(sname, middle=True), Cell(cname, middle=True),
-                         Cell(combo.replace("number_density", "n"), middle=True),
+                         Cell("+".join(ac.stat_symbol(p) for p in combo.split("+")), middle=True),
                          Cell("alone" if alone and shifts else
                               ("joint" if shifts else "—"))]
                 vals = list(shifts or [])

@@ -236,7 +236,7 @@ def statistics_pages(results: dict[str, Any]) -> list[PageSpec]:
             for k, chunk in enumerate(chunks):
                 axes = []
                 for n in chunk:
-                    if n == "number_density":
+                    if ac.single_bin(stats[n]):
                         axes += [f"{n}:histogram", f"{n}:z"]
                     else:
                         axes += [f"{n}:offset", f"{n}:z"]
@@ -244,7 +244,7 @@ def statistics_pages(results: dict[str, Any]) -> list[PageSpec]:
                 def draw(page: Page, chunk=chunk, sname=sname, cname=cname, cut=cut,
                          stats=stats) -> None:
                     for i, n in enumerate(chunk):
-                        if n == "number_density":
+                        if ac.single_bin(stats[n]):
                             _density_cell(page, i, n, ac.comparison(stats[n]), z_fail)
                         else:
                             _curve_cell(page, i, n, ac.comparison(stats[n]), z_fail)

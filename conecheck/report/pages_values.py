@@ -45,13 +45,15 @@ def _values(name: str, c: Comparison) -> tuple[np.ndarray, ...] | None:
         return None
     if cones.ndim != 2 or cones.shape[1] != x.size:
         cones = np.empty((0, x.size))
-    scale = x if name == "wp" else np.ones_like(x)  # r_p·w_p flattens the power law
+    # e.g. r_p·w_p, which flattens the power law
+    scale = x if ac.display(name).scale_by_bins else np.ones_like(x)
     return x, b * scale, sb * scale, cones * scale, mean * scale, sc * scale
 
 
 def _y_label(name: str, c: Comparison) -> str:
-    if name == "wp":
-        return "r_p·w_p [(Mpc/h)²]"
+    shown = ac.display(name)
+    if shown.scale_by_bins and shown.scaled_label:
+        return shown.scaled_label
     return c.value_label or "value"
 
 
@@ -114,7 +116,7 @@ def _correlations(page: Page, names: list[str], stats: dict[str, Any], top: floa
                                        "cone's jackknife averaged over cones (lower row); "
                                        "bins as in the panels above",
               st.SMALL, colour=st.MUTED)
-    names = [n for n in names if n != "number_density"]  # one bin: nothing to correlate
+    names = [n for n in names if not ac.single_bin(stats[n])]  # nothing to correlate
     if not names:
         page.text(st.MARGIN_X, top + 0.3, "No statistic on this page has more than one bin.",
                   st.SMALL, colour=st.MUTED)
@@ -160,7 +162,7 @@ def values_pages(results: dict[str, Any]) -> list[PageSpec]:
 
                 def draw(page: Page, chunk: list[str] = chunk,
                          stats: dict[str, Any] = stats) -> None:
-                    multi = [n for n in chunk if n != "number_density"]
+                    multi = [n for n in chunk if not ac.single_bin(stats[n])]
                     for i, n in enumerate(chunk):
                         _value_panel(page, i, n, stats[n], legend=bool(multi) and n == multi[0])
                     rows = (len(chunk) + 1) // 2

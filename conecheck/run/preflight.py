@@ -31,6 +31,7 @@ from ..cone.geometry import check_observer, replica_offsets
 from ..config import SYNTHETIC_REDSHIFT, RunConfig
 from ..errors import InputError
 from ..footprint import Footprint
+from ..stats import STATISTICS
 from .inputs import cosmology_of
 
 #: Cones above this many are refused without ``--force``: a validation needs tens, and a
@@ -40,8 +41,6 @@ MAX_CONES = 10_000
 MEMORY_FRACTION = 0.5
 #: Bytes per row of a cone or random catalogue in memory (about 20 float64 columns).
 BYTES_PER_CONE_ROW = 160
-#: Bytes per VPF sphere and radius (centre, counts and inside test, float64).
-BYTES_PER_SPHERE_RADIUS = 48
 #: Pairs the engine examines per core-second: the cone DD and DR rows of
 #: benchmarks/RESULTS.md (≈ 5·10⁷ pairs/s on 2 threads), so ≈ 2.5·10⁷ per core.
 PAIRS_PER_CORE_SECOND = 2.5e7
@@ -252,27 +251,18 @@ def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, fl
               L: float) -> float:
     """Pairs the run's estimators examine, an order-of-magnitude count.
 
-    Each galaxy (or random, or VPF sphere) meets the ``n × V`` neighbours inside its search
-    volume V: the wp cylinder (r_p,max, ±π_max) with (1 + randoms multiple)² for DD, DR and
-    RR in every cone and three line-of-sight axes in the box; the counts-in-cylinders and
-    annuli cylinders; the largest VPF sphere.  HOD boxes add two box runs per derivative.
+    Each galaxy (or random, or a statistic's own centre such as a VPF sphere) meets the
+    ``n × V`` neighbours inside its search volume V, which each statistic states
+    (:meth:`~conecheck.stats.Statistic.cost`; e.g. the wp cylinder (r_p,max, ±π_max) with
+    (1 + randoms multiple)² for DD, DR and RR in every cone and three line-of-sight axes in
+    the box).  HOD boxes add two box runs per derivative.
     Clustering raises DD above this by 1 + ξ̄, a factor of order one at these scales.
     """
     stats = cfg.statistics
-    measured = set(stats.measure)
-    search = 0.0  # Σ over cone estimators of the search volume [(Mpc/h)³]
-    box_search = 0.0
-    if "wp" in measured:
-        wp = stats.get("wp")
-        cyl = math.pi * wp.rp_max**2 * 2.0 * wp.pi_max
-        search += (1.0 + cfg.randoms.multiple) ** 2 * cyl
-        box_search += 3.0 * cyl
-    for name, radius in (("cic", "r_cyl"), ("annuli", "r_outer")):
-        if name in measured:
-            st = stats.get(name)
-            cyl = math.pi * getattr(st, radius) ** 2 * 2.0 * st.half_length
-            search += cyl
-            box_search += cyl
+    costs = [STATISTICS[n].cost(stats.get(n), cfg.randoms.multiple) for n in stats.measure]
+    search = sum(c.cone_volume + c.tracer_volume for c in costs)  # per cone galaxy [(Mpc/h)³]
+    box_search = sum(c.box_volume + c.tracer_volume for c in costs)
+    centres = sum(c.centre_volume for c in costs)  # the statistics' own centres
     volumes = _cut_volumes(cfg, footprint)
     box_runs = 1 + (2 * len(DEFAULT_STEPS) if cfg.parameter_shifts.enabled
                     and cfg.box.source != "file" else 0)
@@ -282,21 +272,16 @@ def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, fl
         n_cone = sum(n * v for v in volumes[s.name])
         total += cfg.cones.n_cones * n_cone * n * search
         total += box_runs * n * L**3 * n * box_search
-        if "vpf" in measured:
-            vpf = stats.get("vpf")
-            sphere = 4.0 / 3.0 * math.pi * max(vpf.radii) ** 3
-            spheres = vpf.n_spheres * len(volumes[s.name])
-            total += (cfg.cones.n_cones + box_runs) * spheres * n * sphere
+        total += (cfg.cones.n_cones + box_runs) * centres * len(volumes[s.name]) * n
     return total
 
 
 def _largest_task_bytes(cfg: RunConfig, footprint: Footprint,
                         density: dict[str | None, float] | None) -> float | None:
-    """Estimated peak memory of the largest task [bytes]: randoms or VPF spheres of a cone."""
-    total = 0.0
-    vpf = cfg.statistics.get("vpf") if "vpf" in cfg.statistics.measure else None
-    if vpf is not None:
-        total += float(vpf.n_spheres) * len(vpf.radii) * BYTES_PER_SPHERE_RADIUS
+    """Estimated peak memory of the largest task [bytes]: a cone's randoms and what its
+    statistics hold (e.g. VPF spheres)."""
+    total = sum(STATISTICS[n].cost(cfg.statistics.get(n), cfg.randoms.multiple).task_bytes
+                for n in cfg.statistics.measure)
     if density is not None:
         volume = float(cosmology_of(cfg).shell_volume(cfg.shell.z_min, cfg.shell.z_max,
                                                       footprint.area_deg2))

@@ -23,7 +23,6 @@ from ..cone.settings import SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
 from ..footprint import Footprint, SkyRegions
-from ..pairs.counts import PairCounts
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
 from ..stats.base import LOS_VARIANCE
 from ..streams import seeded_rng
@@ -31,8 +30,6 @@ from .specs import BoxSpec, ConeBuildSpec, ConeSpec, CutSpec, RandomsSpec, Sampl
 
 #: Number of redshift bins of the n(z) diagnostic per cut.
 NZ_BINS = 12
-#: Statistics whose box estimator depends on the line-of-sight axis (number density does not).
-LOS_DEPENDENT = ("wp", "cic", "vpf", "annuli")
 
 
 # --------------------------------------------------------------------------- box
@@ -68,11 +65,12 @@ def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
     """
     keep = sample_mask(box, spec.sample)
     out = measure_box_sample(spec, box, keep, jackknife=True)
+    los_dependent = tuple(n for n in out if STATISTICS[n].los_dependent)
     others = [measure_box_sample(spec, box, keep, jackknife=False, axis=a,
-                                 statistics=LOS_DEPENDENT)
-              for a in range(3) if a != spec.effects.los_axis]
+                                 statistics=los_dependent)
+              for a in range(3) if a != spec.effects.los_axis] if los_dependent else []
     for name, m in out.items():
-        if name in LOS_DEPENDENT:
+        if name in los_dependent:
             # The cones see the box along every direction, the box estimator along one axis:
             # the spread over the three axes measures that part of the box value which no
             # cone shares (docs/design.md §8: the offset's own error).
@@ -136,10 +134,6 @@ def expected_count(cosmology: Cosmology, footprint: Footprint, cut: SampleCut,
     return density * footprint.area_sr * cut_volume_per_sr(cosmology, cut)
 
 
-def _pair_counts_to_dict(pc: PairCounts) -> dict[str, Any]:
-    return {f.name: getattr(pc, f.name) for f in dataclasses.fields(pc)}
-
-
 def shuffle_distances(table: Any, cut: SampleCut, survey: SurveyModel,
                       sample_name: str) -> np.ndarray:
     """Observed distances [Mpc/h] of a cone's galaxies in a cut: the ``shuffle`` source."""
@@ -165,14 +159,14 @@ def cut_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
 
 def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
                  ) -> dict[str, Any]:
-    """The randoms of one sample and cut with everything every cone shares (wp's RR).
+    """The randoms of one sample and cut with everything every cone shares.
 
     Returns
     -------
     dict
         ``ra``, ``dec`` [deg], ``chi`` [Mpc/h], ``weight``, ``region`` arrays and ``shared``
-        (statistic → ``{"pair_counts": …}`` for wp's RR or ``{"arrays": …}`` for the VPF's
-        sphere centres).
+        (statistic → its :meth:`~conecheck.stats.Statistic.pack_shared` mapping, e.g. wp's
+        RR counts or the VPF's sphere centres).
     """
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
@@ -184,10 +178,8 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
             rand, geometry, spec.statistics.get(name),
             n_data=max(int(round(spec.n_expected)), 1),
             rng=seeded_rng(spec.seed, "shared", spec.sample_name, spec.cut.label, name))
-        if isinstance(s, PairCounts):
-            shared[name] = {"pair_counts": _pair_counts_to_dict(s)}
-        elif isinstance(s, dict):
-            shared[name] = {"arrays": s}
+        if s is not None:
+            shared[name] = STATISTICS[name].pack_shared(s)
     return {"ra": rand.ra, "dec": rand.dec, "chi": rand.chi, "weight": rand.w,
             "region": rand.region, "shared": shared}
 
@@ -200,10 +192,8 @@ def randoms_sample(payload: dict[str, Any], regions: SkyRegions) -> ConeSample:
 
 def shared_counts(payload: dict[str, Any]) -> dict[str, Any]:
     """What every cone of a cut shares, per statistic (pair counts, sphere centres)."""
-    out: dict[str, Any] = {}
-    for k, v in payload.get("shared", {}).items():
-        out[k] = PairCounts(**v["pair_counts"]) if "pair_counts" in v else v["arrays"]
-    return out
+    return {k: STATISTICS[k].unpack_shared(v) for k, v in payload.get("shared", {}).items()
+            if k in STATISTICS}
 
 
 # --------------------------------------------------------------------------- cones

@@ -1,31 +1,32 @@
 """Statistics measured identically on periodic boxes and light cones (docs/design.md §6).
 
-Every statistic returns a :class:`Measurement` (vector, bin labels and, on request, the
-jackknife delete-one vectors).  :data:`STATISTICS` maps the configured names to objects
-with ``measure_box`` / ``prepare_cone`` / ``measure_cone``.
+Each statistic is one module with one :class:`Statistic` subclass (settings, bins,
+estimators, display); :data:`STATISTICS` maps the names to them, built-in and installed
+alike (:mod:`.registry`). Every statistic returns a :class:`Measurement` (vector, bin
+labels and, on request, the jackknife delete-one vectors).
 """
 
-from .annuli import annuli_box, annuli_cone
+from .annuli import AnnuliSettings, annuli_box, annuli_cone
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .cic import cic_box, cic_cone
-from .number_density import number_density_box, number_density_cone
-from .registry import STATISTICS, Statistic
-from .settings import (
+from .cic import CicSettings, cic_box, cic_cone
+from .number_density import NumberDensitySettings, number_density_box, number_density_cone
+from .registry import (
+    ENTRY_POINT_GROUP,
+    LOAD_PROBLEMS,
     SETTINGS_TYPES,
-    AnnuliSettings,
-    CicSettings,
-    NumberDensitySettings,
-    VpfSettings,
-    WpSettings,
+    STATISTICS,
     make_settings,
+    statistic,
 )
-from .vpf import vpf_box, vpf_cone
-from .wp import count_rr_cone, wp_box, wp_cone
+from .statistic import Cost, Display, Statistic
+from .vpf import VpfSettings, vpf_box, vpf_cone
+from .wp import WpSettings, count_rr_cone, wp_box, wp_cone
 
 __all__ = [
-    "SETTINGS_TYPES", "STATISTICS", "AnnuliSettings", "BoxSample", "CicSettings",
-    "ConeGeometry", "ConeSample", "Measurement", "NumberDensitySettings", "Statistic",
-    "VpfSettings", "WpSettings", "annuli_box", "annuli_cone", "cic_box", "cic_cone",
-    "count_rr_cone", "make_settings", "number_density_box", "number_density_cone",
-    "vpf_box", "vpf_cone", "wp_box", "wp_cone",
+    "ENTRY_POINT_GROUP", "LOAD_PROBLEMS", "SETTINGS_TYPES", "STATISTICS", "AnnuliSettings",
+    "BoxSample", "CicSettings", "ConeGeometry", "ConeSample", "Cost", "Display",
+    "Measurement", "NumberDensitySettings", "Statistic", "VpfSettings", "WpSettings",
+    "annuli_box", "annuli_cone", "cic_box", "cic_cone", "count_rr_cone", "make_settings",
+    "number_density_box", "number_density_cone", "statistic", "vpf_box", "vpf_cone",
+    "wp_box", "wp_cone",
 ]

@@ -7,15 +7,22 @@ effective (completeness-weighted) area.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from ..errors import InputError
 from ._common import check_filled, want_jackknife
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import NumberDensitySettings
+from .statistic import Display, Statistic
 
 NAME = "number_density"
 _LABEL = "n [(h/Mpc)^3]"
+
+
+@dataclass(frozen=True)
+class NumberDensitySettings:
+    """Number density has no settings; kept for a uniform interface."""
 
 
 def number_density_box(sample: BoxSample, settings: NumberDensitySettings | None = None, *,
@@ -57,3 +64,25 @@ def number_density_cone(sample: ConeSample, geometry: ConeGeometry,
                        delete_one=delete_one, value_label=_LABEL,
                        extra={"sum_w": float(w.sum()), "n_objects": len(sample),
                               "volume": float(vol)})
+
+
+class NumberDensity(Statistic):
+    """Weighted number density of the sample."""
+
+    name = NAME
+    settings_type = NumberDensitySettings
+    display = Display(title="number density n", short="number density", symbol="n", order=0)
+    los_dependent = False
+
+    def n_bins(self, settings=None):
+        return 1
+
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+        return number_density_box(sample, settings, jackknife=jackknife)
+
+    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
+                     jackknife=None, tracers=None):
+        return number_density_cone(sample, geometry, settings, jackknife=jackknife)
+
+
+STATISTIC = NumberDensity()

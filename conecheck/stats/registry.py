@@ -1,125 +1,124 @@
-"""One interface over every statistic, so the pipeline can loop over configured names.
+"""Finding the statistics: conecheck's own modules and those of installed packages.
 
-Each entry of :data:`STATISTICS` has
+Built-in statistics are the modules of this package that define ``STATISTIC`` (a
+:class:`~conecheck.stats.statistic.Statistic` instance); adding a file is enough.
 
-* ``name`` and ``settings_type`` (the frozen settings dataclass of ``[statistics.<name>]``);
-* ``measure_box(sample, settings, rng, *, jackknife=None) -> Measurement``;
-* ``prepare_cone(randoms, geometry, settings, *, n_data=None, rng=None)`` → the work shared
-  by every cone of one sample and cut (wp: the RR counts; VPF: the sphere centres and their
-  inside-the-survey test, drawn with ``rng``; others: ``None``);
-* ``measure_cone(sample, randoms, geometry, settings, rng, shared=None, *, jackknife=None)``.
+Users' own statistics come from installed packages through the entry-point group
+:data:`ENTRY_POINT_GROUP`. In the package's ``pyproject.toml``::
+
+    [project.entry-points."conecheck.statistics"]
+    my_ratio = "my_package.my_ratio:STATISTIC"
+
+The entry's name must equal the statistic's ``name``; the object may be a Statistic
+instance, a Statistic subclass (instantiated without arguments) or a module with
+``STATISTIC``. Because entry points are package metadata, every process that imports
+conecheck — dask workers included — finds the same statistics. A statistic that fails to
+load is left out and its problem is kept in :data:`LOAD_PROBLEMS` (``conecheck check``
+prints it); a third-party statistic cannot replace a built-in one of the same name.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import importlib
+import pkgutil
+from importlib.metadata import entry_points
+from types import ModuleType
 from typing import Any
 
-import numpy as np
+from ..errors import InputError
+from .statistic import Statistic
 
-from .annuli import annuli_box, annuli_cone
-from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .cic import cic_box, cic_cone
-from .number_density import number_density_box, number_density_cone
-from .settings import (
-    AnnuliSettings,
-    CicSettings,
-    NumberDensitySettings,
-    VpfSettings,
-    WpSettings,
-)
-from .vpf import vpf_box, vpf_cone, vpf_cone_centres
-from .wp import count_rr_cone, wp_box, wp_cone
+#: Entry-point group of third-party statistics.
+ENTRY_POINT_GROUP = "conecheck.statistics"
+#: Modules of this package that are infrastructure, not statistics.
+_NOT_STATISTICS = {"base", "statistic", "registry", "settings"}
+
+#: Problems met while loading statistics ("<where>: <what>"), for ``conecheck check``.
+LOAD_PROBLEMS: list[str] = []
+#: Statistic name -> where it came from ("conecheck" or the distribution's name).
+ORIGINS: dict[str, str] = {}
 
 
-@dataclass(frozen=True)
-class Statistic:
-    """Base of the registry entries (see the module notes)."""
-
-    name: str
-    settings_type: type
-
-    def settings_or_default(self, settings: Any) -> Any:
-        return self.settings_type() if settings is None else settings
-
-    def prepare_cone(self, randoms: ConeSample, geometry: ConeGeometry, settings: Any = None,
-                     *, n_data: int | None = None, rng: np.random.Generator | None = None
-                     ) -> Any:
-        """Work shared by all cones of one sample and cut (none by default)."""
-        return None
-
-    def measure_box(self, sample: BoxSample, settings: Any = None,
-                    rng: np.random.Generator | None = None, *,
-                    jackknife: bool | None = None) -> Measurement:
-        raise NotImplementedError
-
-    def measure_cone(self, sample: ConeSample, randoms: ConeSample | None,
-                     geometry: ConeGeometry, settings: Any = None,
-                     rng: np.random.Generator | None = None, shared: Any = None, *,
-                     jackknife: bool | None = None) -> Measurement:
-        raise NotImplementedError
+def _as_statistic(obj: Any, where: str) -> Statistic:
+    if isinstance(obj, ModuleType):
+        obj = getattr(obj, "STATISTIC", None)
+    if isinstance(obj, type) and issubclass(obj, Statistic):
+        obj = obj()
+    if not isinstance(obj, Statistic):
+        raise TypeError(f"{where}: expected a conecheck.stats.Statistic instance or subclass, "
+                        f"got {type(obj).__name__}")
+    if not obj.name or not obj.name.isidentifier():
+        raise TypeError(f"{where}: the statistic's name must be an identifier, got "
+                        f"{obj.name!r}")
+    for attr in ("settings_type", "display"):
+        if not hasattr(obj, attr):
+            raise TypeError(f"{where}: statistic {obj.name!r} has no {attr}")
+    return obj
 
 
-class _NumberDensity(Statistic):
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
-        return number_density_box(sample, settings, jackknife=jackknife)
-
-    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None):
-        return number_density_cone(sample, geometry, settings, jackknife=jackknife)
-
-
-class _Wp(Statistic):
-    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
-        return count_rr_cone(randoms, geometry, self.settings_or_default(settings),
-                             n_data=n_data)
-
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
-        return wp_box(sample, settings, jackknife=jackknife)
-
-    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None):
-        return wp_cone(sample, randoms, geometry, settings, rr=shared, jackknife=jackknife)
+def _builtin() -> dict[str, Statistic]:
+    out: dict[str, Statistic] = {}
+    for info in pkgutil.iter_modules(_package_path()):
+        if info.name.startswith("_") or info.name in _NOT_STATISTICS:
+            continue
+        module = importlib.import_module(f"{__package__}.{info.name}")
+        if hasattr(module, "STATISTIC"):
+            stat = _as_statistic(module, f"{__package__}.{info.name}")
+            out[stat.name] = stat
+            ORIGINS[stat.name] = "conecheck"
+    return out
 
 
-class _Cic(Statistic):
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
-        return cic_box(sample, settings, jackknife=jackknife)
-
-    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None):
-        return cic_cone(sample, geometry, settings, jackknife=jackknife)
+def _package_path() -> list[str]:
+    return list(importlib.import_module(__package__).__path__)
 
 
-class _Vpf(Statistic):
-    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
-        # sphere centres and their inside-the-survey test depend on the geometry only
-        if rng is None:
-            return None
-        return vpf_cone_centres(geometry, self.settings_or_default(settings), rng)
-
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
-        return vpf_box(sample, settings, rng, jackknife=jackknife)
-
-    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None):
-        return vpf_cone(sample, geometry, settings, rng, jackknife=jackknife, centres=shared)
-
-
-class _Annuli(Statistic):
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
-        return annuli_box(sample, settings, jackknife=jackknife)
-
-    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None):
-        return annuli_cone(sample, geometry, settings, jackknife=jackknife)
+def _third_party(known: dict[str, Statistic]) -> dict[str, Statistic]:
+    out: dict[str, Statistic] = {}
+    for ep in entry_points(group=ENTRY_POINT_GROUP):
+        dist = getattr(ep.dist, "name", None) or "an installed package"
+        where = f"entry point {ep.name!r} of {dist} ({ep.value})"
+        try:
+            stat = _as_statistic(ep.load(), where)
+        except Exception as exc:  # a broken plug-in must not stop the others
+            LOAD_PROBLEMS.append(f"{where}: {type(exc).__name__}: {exc}")
+            continue
+        if stat.name != ep.name:
+            LOAD_PROBLEMS.append(f"{where}: the entry's name differs from the statistic's "
+                                 f"name {stat.name!r}")
+        elif stat.name in known or stat.name in out:
+            LOAD_PROBLEMS.append(f"{where}: a statistic named {stat.name!r} is already "
+                                 f"registered by {ORIGINS.get(stat.name, 'conecheck')}")
+        else:
+            out[stat.name] = stat
+            ORIGINS[stat.name] = dist
+    return out
 
 
-#: Statistic name -> registry entry.
-STATISTICS: dict[str, Statistic] = {
-    "number_density": _NumberDensity("number_density", NumberDensitySettings),
-    "wp": _Wp("wp", WpSettings),
-    "cic": _Cic("cic", CicSettings),
-    "vpf": _Vpf("vpf", VpfSettings),
-    "annuli": _Annuli("annuli", AnnuliSettings),
-}
+def _load() -> dict[str, Statistic]:
+    found = _builtin()
+    found.update(_third_party(found))
+    order = sorted(found, key=lambda n: (found[n].display.order, n))
+    return {n: found[n] for n in order}
+
+
+#: Statistic name -> Statistic, in display order.
+STATISTICS: dict[str, Statistic] = _load()
+#: Statistic name -> its settings dataclass.
+SETTINGS_TYPES: dict[str, type] = {n: s.settings_type for n, s in STATISTICS.items()}
+
+
+def statistic(name: str) -> Statistic:
+    """The registered statistic ``name``, or an error listing the known ones."""
+    try:
+        return STATISTICS[name]
+    except KeyError:
+        hint = ("; problems loading statistics: " + "; ".join(LOAD_PROBLEMS)
+                if LOAD_PROBLEMS else "")
+        raise InputError(f"statistics: unknown statistic {name!r}; expected one of "
+                         f"{', '.join(STATISTICS)}{hint}") from None
+
+
+def make_settings(name: str, values: dict[str, Any] | None = None) -> Any:
+    """Settings of statistic ``name`` from a config mapping (unknown keys are an error)."""
+    return statistic(name).make_settings(values)

@@ -15,6 +15,8 @@ spheres centred in region k.
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -22,6 +24,7 @@ from numpy.typing import NDArray
 
 from ..errors import InputError
 from ..pairs import neighbours_box, neighbours_cone
+from ..pairs.binning import check_rp_edges
 from ._common import check_filled, want_jackknife
 from .base import (
     SAMPLING_TRIALS,
@@ -31,9 +34,43 @@ from .base import (
     ConeSample,
     Measurement,
 )
-from .settings import VpfSettings
+from .settings import fraction
+from .statistic import Cost, Display, Statistic
 
 NAME = "vpf"
+#: Bytes per sphere and radius a task holds (centre, counts and inside test, float64).
+BYTES_PER_SPHERE_RADIUS = 48
+
+
+@dataclass(frozen=True)
+class VpfSettings:
+    """Void probability function P₀(R).
+
+    Attributes
+    ----------
+    radii : tuple of float
+        Sphere radii [Mpc/h], increasing.
+    n_spheres : int
+        Random sphere centres drawn per catalogue (a cone keeps those wholly inside).
+    min_inside_fraction : float
+        Cone only: a sphere counts as inside when its disc's footprint fraction reaches this
+        and χ ± R lies inside the shell.
+    """
+
+    radii: tuple[float, ...] = (2.0, 4.0, 6.0, 8.0, 10.0, 12.0, 14.0, 16.0)
+    n_spheres: int = 100_000
+    min_inside_fraction: float = 0.99
+
+    def __post_init__(self) -> None:
+        key = "statistics.vpf"
+        r = check_rp_edges(self.radii, f"{key}.radii")
+        if r[0] <= 0:
+            raise InputError(f"{key}.radii: radii must be > 0 Mpc/h, got {r.tolist()}")
+        object.__setattr__(self, "radii", tuple(float(x) for x in r))
+        if not (isinstance(self.n_spheres, (int, np.integer)) and self.n_spheres >= 1):
+            raise InputError(f"{key}.n_spheres: expected a positive integer, "
+                             f"got {self.n_spheres!r}")
+        fraction(self.min_inside_fraction, f"{key}.min_inside_fraction")
 
 
 def _p0(empty: NDArray[np.bool_], use: NDArray[np.bool_], region: NDArray[np.int64] | None,
@@ -195,3 +232,37 @@ def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings |
         use[outside] = False
         region = np.where(outside, 0, region)
     return _p0(_empty(counts), use, region, k, radii, {"geometry": "cone"})
+
+
+class VoidProbability(Statistic):
+    """P₀(R) from random spheres; on cones the centres are shared by every cone of a cut."""
+
+    name = NAME
+    settings_type = VpfSettings
+    display = Display(title="void probability P_0(R)", short="voids P_0(R)", symbol="P_0",
+                      order=30)
+
+    def n_bins(self, settings=None):
+        return len(self.settings_or_default(settings).radii)
+
+    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
+        # sphere centres and their inside-the-survey test depend on the geometry only
+        if rng is None:
+            return None
+        return vpf_cone_centres(geometry, self.settings_or_default(settings), rng)
+
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+        return vpf_box(sample, settings, rng, jackknife=jackknife)
+
+    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
+                     jackknife=None, tracers=None):
+        return vpf_cone(sample, geometry, settings, rng, jackknife=jackknife, centres=shared)
+
+    def cost(self, settings, randoms_multiple):
+        s = self.settings_or_default(settings)
+        sphere = 4.0 / 3.0 * math.pi * max(s.radii) ** 3
+        return Cost(centre_volume=s.n_spheres * sphere,
+                    task_bytes=float(s.n_spheres) * len(s.radii) * BYTES_PER_SPHERE_RADIUS)
+
+
+STATISTIC = VoidProbability()

@@ -39,21 +39,101 @@ the one-pass region bookkeeping of :mod:`conecheck.pairs`.
 
 from __future__ import annotations
 
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
 import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
 from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_cone
+from ..pairs.binning import check_rp_edges, make_bins
 from ._common import check_filled, want_jackknife
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import WpSettings
+from .settings import RR_METHODS, positive
+from .statistic import Cost, Display, Statistic
 
 NAME = "wp"
 
-
-
 #: Smallest random subset of the split RR method (fewer subsets are used below it).
 MIN_SPLIT_SUBSET = 20_000
+
+
+@dataclass(frozen=True)
+class WpSettings:
+    """Projected correlation function wp(r_p).
+
+    Attributes
+    ----------
+    rp_min, rp_max : float
+        Range of the r_p bins [Mpc/h] (ignored when ``rp_edges`` is given).
+    n_rp : int
+        Number of r_p bins.
+    rp_spacing : {"log", "linear"}
+        Spacing of the generated r_p bins.
+    rp_edges : tuple of float or None
+        Explicit r_p bin edges [Mpc/h], overriding the three above.
+    pi_max : float
+        Line-of-sight integration limit [Mpc/h] (a whole multiple of ``dpi``).
+    dpi : float
+        |π| bin width [Mpc/h].
+    rr_method : {"full", "split"}
+        RR from all random pairs, or only from pairs inside disjoint random subsets
+        (Keihänen et al. 2019, A&A 631, A73).
+    split_factor : float
+        Size of each random subset of the split method, in units of the data size.
+    """
+
+    rp_min: float = 0.1
+    rp_max: float = 30.0
+    n_rp: int = 14
+    rp_spacing: str = "log"
+    rp_edges: tuple[float, ...] | None = None
+    pi_max: float = 40.0
+    dpi: float = 1.0
+    rr_method: str = "full"
+    split_factor: float = 1.0
+
+    def __post_init__(self) -> None:
+        key = "statistics.wp"
+        if self.rp_edges is None:
+            if self.rp_spacing not in ("log", "linear"):
+                raise InputError(f"{key}.rp_spacing: expected 'log' or 'linear', "
+                                 f"got {self.rp_spacing!r}")
+            if not (isinstance(self.n_rp, (int, np.integer)) and self.n_rp >= 1):
+                raise InputError(f"{key}.n_rp: expected a positive integer, got {self.n_rp!r}")
+            lo = positive(self.rp_min, f"{key}.rp_min")
+            hi = positive(self.rp_max, f"{key}.rp_max")
+            if hi <= lo:
+                raise InputError(f"{key}: rp_max = {hi} must exceed rp_min = {lo} Mpc/h")
+        else:
+            object.__setattr__(self, "rp_edges", tuple(float(x) for x in
+                                                       check_rp_edges(self.rp_edges,
+                                                                      f"{key}.rp_edges")))
+        if self.rr_method not in RR_METHODS:
+            raise InputError(f"{key}.rr_method: expected one of {RR_METHODS}, "
+                             f"got {self.rr_method!r}")
+        positive(self.split_factor, f"{key}.split_factor")
+        try:
+            self.bins  # noqa: B018 — validates pi_max / dpi
+        except InputError as exc:
+            raise InputError(f"{key}: {exc}") from exc
+
+    @property
+    def edges(self) -> NDArray[np.float64]:
+        """r_p bin edges [Mpc/h]."""
+        if self.rp_edges is not None:
+            return np.asarray(self.rp_edges, dtype=np.float64)
+        if self.rp_spacing == "log":
+            return np.geomspace(self.rp_min, self.rp_max, self.n_rp + 1)
+        return np.linspace(self.rp_min, self.rp_max, self.n_rp + 1)
+
+    @property
+    def bins(self) -> RpPiBins:
+        return make_bins(self.edges, self.pi_max, self.dpi)
+
 
 def _overlap_perp(e: NDArray[np.float64], a: float) -> NDArray[np.float64]:
     """∫ (a − |s_x|)(a − |s_y|) d²s_perp over each r_p annulus [(Mpc/h)⁴]."""
@@ -326,3 +406,40 @@ def wp_cone(data: ConeSample, randoms: ConeSample, geometry: ConeGeometry | None
              "rr_pairs": rr.total.sum(axis=1).tolist(),
              "rr_subsets": rr.n_subsets, "estimator": "Landy-Szalay"}
     return _measurement(bins, _wp_from_xi(xi, bins.dpi), delete_one, extra)
+
+
+class ProjectedCorrelation(Statistic):
+    """wp(r_p): box with analytic randoms, cones with Landy–Szalay and the cut's shared RR."""
+
+    name = NAME
+    settings_type = WpSettings
+    display = Display(title="projected correlation w_p(r_p)", short="w_p(r_p)", symbol="w_p",
+                      order=10, scale_by_bins=True, scaled_label="r_p·w_p [(Mpc/h)²]",
+                      log_bins=True)
+    needs_randoms = True
+
+    def n_bins(self, settings=None):
+        return len(self.settings_or_default(settings).edges) - 1
+
+    def prepare_cone(self, randoms, geometry, settings=None, *, n_data=None, rng=None):
+        return count_rr_cone(randoms, geometry, self.settings_or_default(settings),
+                             n_data=n_data)
+
+    def unpack_shared(self, payload: Mapping[str, Any]) -> PairCounts:
+        return PairCounts(**payload)
+
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+        return wp_box(sample, settings, jackknife=jackknife)
+
+    def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
+                     jackknife=None, tracers=None):
+        return wp_cone(sample, randoms, geometry, settings, rr=shared, jackknife=jackknife)
+
+    def cost(self, settings, randoms_multiple):
+        s = self.settings_or_default(settings)
+        cyl = math.pi * s.rp_max ** 2 * 2.0 * s.pi_max
+        # DD, DR and RR in every cone; three line-of-sight axes in the box
+        return Cost(cone_volume=(1.0 + randoms_multiple) ** 2 * cyl, box_volume=3.0 * cyl)
+
+
+STATISTIC = ProjectedCorrelation()
