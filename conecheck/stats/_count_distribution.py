@@ -28,9 +28,11 @@ from ._common import check_filled, want_jackknife, weighted_histograms
 from .base import SAMPLING_TRIALS, BoxSample, ConeGeometry, ConeSample, Measurement
 
 
-def _distribution(name: str, counts: NDArray[np.float64], w: NDArray[np.float64],
+def distribution(name: str, counts: NDArray[np.float64], w: NDArray[np.float64],
                   region: NDArray[np.int64] | None, n_regions: int,
-                  edges: NDArray[np.float64], extra: dict) -> Measurement:
+                  edges: NDArray[np.float64], extra: dict,
+                  bin_label: str = "N (weighted neighbour count)",
+                  value_label: str = "P(N)") -> Measurement:
     wsum = w.sum()
     if not wsum > 0:
         raise InputError(f"{name}: no centres with positive weight")
@@ -48,8 +50,8 @@ def _distribution(name: str, counts: NDArray[np.float64], w: NDArray[np.float64]
                   "overflow_fraction": float(w[~inside].sum() / wsum)})
     return Measurement(name=name, bins=0.5 * (edges[:-1] + edges[1:]),
                        value=hist / (wsum * width), delete_one=delete_one,
-                       bin_edges=edges.copy(), bin_label="N (weighted neighbour count)",
-                       value_label="P(N)", extra=extra)
+                       bin_edges=edges.copy(), bin_label=bin_label,
+                       value_label=value_label, extra=extra)
 
 
 def distribution_box(name: str, sample: BoxSample, r_in: float, r_out: float,
@@ -63,8 +65,26 @@ def distribution_box(name: str, sample: BoxSample, r_in: float, r_out: float,
     counts = neighbours_box(sample.position, weights=sample.w, box_size=sample.box_size,
                             los_axis=sample.los_axis, edges=[r_in, r_out],
                             half_length=half_length)[:, 0]
-    return _distribution(name, counts, sample.w, sample.region if jk else None, k, edges,
+    return distribution(name, counts, sample.w, sample.region if jk else None, k, edges,
                          {"geometry": "box"})
+
+
+def kept_centres(name: str, sample: ConeSample, geometry: ConeGeometry | None, radius: float,
+                 half_length: float, edge_treatment: str, min_inside_fraction: float
+                 ) -> NDArray[np.bool_]:
+    """Centres a cone estimator keeps: all, or (``drop``) those whose cylinder of
+    ``radius`` and ``half_length`` [Mpc/h] lies at least ``min_inside_fraction`` inside the
+    survey (:meth:`ConeGeometry.inside_fraction`)."""
+    keep = np.ones(len(sample), dtype=bool)
+    if edge_treatment == "drop":
+        if geometry is None:
+            raise InputError(f"{name}: edge_treatment = 'drop' needs the survey geometry")
+        frac = geometry.inside_fraction(sample.ra, sample.dec, sample.chi, radius, half_length)
+        keep = frac >= min_inside_fraction
+        if not keep.any():
+            raise InputError(f"{name}: no centre has its cylinder ≥ {min_inside_fraction:g} "
+                             "inside the survey; lower min_inside_fraction")
+    return keep
 
 
 def distribution_cone(name: str, sample: ConeSample, geometry: ConeGeometry | None,
@@ -82,19 +102,12 @@ def distribution_cone(name: str, sample: ConeSample, geometry: ConeGeometry | No
     w = sample.w
     counts = neighbours_cone(sample.xyz, weights=w, edges=[r_in, r_out],
                              half_length=half_length)[:, 0]
-    keep = np.ones(len(sample), dtype=bool)
-    if edge_treatment == "drop":
-        if geometry is None:
-            raise InputError(f"{name}: edge_treatment = 'drop' needs the survey geometry")
-        frac = geometry.inside_fraction(sample.ra, sample.dec, sample.chi, r_out, half_length)
-        keep = frac >= min_inside_fraction
-        if not keep.any():
-            raise InputError(f"{name}: no centre has its cylinder ≥ {min_inside_fraction:g} "
-                             "inside the survey; lower min_inside_fraction")
+    keep = kept_centres(name, sample, geometry, r_out, half_length, edge_treatment,
+                        min_inside_fraction)
     region = None
     if jk:
         region = sample.region[keep]
         check_filled(region, k, "kept centres")
-    return _distribution(name, counts[keep], w[keep], region, k, edges,
+    return distribution(name, counts[keep], w[keep], region, k, edges,
                          {"geometry": "cone", "edge_treatment": edge_treatment,
                           "kept_fraction": float(keep.mean()) if keep.size else 0.0})
