@@ -7,7 +7,8 @@ computing are made (observers, replicas, each sample's threshold against the box
 in a file box, expected from the HOD otherwise —, the memory of the largest task, the number
 of cones and the pair-counting work, refused above their limits unless --force), and the
 resolved settings — every default filled in — are
-printed as TOML.
+printed as TOML, followed by the registered statistics (built in and from installed plug-ins,
+with any plug-in that failed to load).
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ from ..run.inputs import (
     load_footprint,
 )
 from ..run.preflight import box_size_of, preflight, raise_problems
+from ..stats.registry import LOAD_PROBLEMS, ORIGINS, STATISTICS
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -79,6 +81,14 @@ def main(args: argparse.Namespace) -> int:
                 flag = "" if cut.z_max <= zlim + 1e-12 else "  NOT volume limited"
                 print(f"# sample {s.name} cut {cut.label}: z {cut.z_min}–{cut.z_max}, "
                       f"volume limit z = {zlim:.4f}{flag}", file=out)
+    by_origin: dict[str, list[str]] = {}
+    for name in STATISTICS:
+        by_origin.setdefault(ORIGINS.get(name, "?"), []).append(name)
+    print("# statistics registered: " + "; ".join(f"{', '.join(names)} ({origin})"
+                                                  for origin, names in by_origin.items()),
+          file=out)
+    for problem in LOAD_PROBLEMS:
+        print(f"# warning: statistic plug-in not loaded: {problem}", file=out)
     for w in (*config_warnings(cfg), *header_notes):
         print(f"# warning: {w}", file=out)
     print(f"# {args.config}: configuration OK", file=out)

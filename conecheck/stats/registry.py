@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import importlib
 import pkgutil
+from collections.abc import Callable, Iterator, Mapping
 from importlib.metadata import entry_points
 from types import ModuleType
 from typing import Any
@@ -102,10 +103,49 @@ def _load() -> dict[str, Statistic]:
     return {n: found[n] for n in order}
 
 
+class _Registry(Mapping[str, Any]):
+    """A read-only mapping filled on first use.
+
+    Loading waits for the first look-up so that a plug-in may import ``conecheck.stats``
+    (its base class and samples) while conecheck itself is still being imported.
+    """
+
+    def __init__(self, make: Callable[[dict[str, Statistic]], dict[str, Any]]) -> None:
+        self._make = make
+        self._data: dict[str, Any] | None = None
+
+    def _get(self) -> dict[str, Any]:
+        if self._data is None:
+            self._data = self._make(_statistics())
+        return self._data
+
+    def __getitem__(self, key: str) -> Any:
+        return self._get()[key]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._get())
+
+    def __len__(self) -> int:
+        return len(self._get())
+
+    def __repr__(self) -> str:
+        return repr(self._get())
+
+
+_LOADED: dict[str, Statistic] = {}
+
+
+def _statistics() -> dict[str, Statistic]:
+    if not _LOADED:
+        _LOADED.update(_load())
+    return _LOADED
+
+
 #: Statistic name -> Statistic, in display order.
-STATISTICS: dict[str, Statistic] = _load()
+STATISTICS: Mapping[str, Statistic] = _Registry(dict)
 #: Statistic name -> its settings dataclass.
-SETTINGS_TYPES: dict[str, type] = {n: s.settings_type for n, s in STATISTICS.items()}
+SETTINGS_TYPES: Mapping[str, type] = _Registry(
+    lambda stats: {n: s.settings_type for n, s in stats.items()})
 
 
 def statistic(name: str) -> Statistic:
