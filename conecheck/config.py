@@ -274,7 +274,7 @@ class StatisticsConfig:
     ----------
     measure : list of str
         Names of registered statistics (``conecheck check`` lists them; built in:
-        number_density, wp, cic, vpf, annuli, count_ratio, delta_sigma, multipoles).
+        number_density, wp, cic, vpf, annuli, count_ratio).
     """
 
     measure: tuple[str, ...] = ("number_density", "wp", "cic", "vpf")

@@ -74,6 +74,58 @@ class RpPiBins:
         return np.outer(area, np.full(self.n_pi, 2.0 * self.dpi))
 
 
+@dataclass(frozen=True)
+class SMuBins:
+    """Validated (s, |μ|) binning: s bins by their edges, ``n_mu`` equal bins of |μ| in [0, 1].
+
+    Attributes
+    ----------
+    s_edges : ndarray, shape (n_s + 1,)
+        Bin edges of the 3-d separation s [Mpc/h], strictly increasing, ≥ 0.
+    n_mu : int
+        Number of |μ| bins; bin ``p`` holds p/n_mu ≤ |μ| < (p + 1)/n_mu (|μ| = 1 in the last).
+    """
+
+    s_edges: NDArray[np.float64]
+    n_mu: int
+
+    @property
+    def n_s(self) -> int:
+        return int(self.s_edges.size - 1)
+
+    @property
+    def s_max(self) -> float:
+        return float(self.s_edges[-1])
+
+    @property
+    def mu_edges(self) -> NDArray[np.float64]:
+        """|μ| bin edges, shape (n_mu + 1,)."""
+        return np.linspace(0.0, 1.0, self.n_mu + 1)
+
+    @property
+    def s_centres(self) -> NDArray[np.float64]:
+        """Volume-weighted centres ¾ (s₂⁴ − s₁⁴)/(s₂³ − s₁³) of the s bins [Mpc/h]."""
+        e = self.s_edges
+        return 0.75 * (e[1:] ** 4 - e[:-1] ** 4) / (e[1:] ** 3 - e[:-1] ** 3)
+
+    def shell_volumes(self) -> NDArray[np.float64]:
+        """Volume of each (s, |μ|) bin [(Mpc/h)³], shape (n_s, n_mu):
+        (4π/3)(s₂³ − s₁³) Δμ (a |μ| bin holds both signs of μ)."""
+        e = self.s_edges
+        shell = 4.0 / 3.0 * np.pi * (e[1:] ** 3 - e[:-1] ** 3)
+        return np.outer(shell, np.full(self.n_mu, 1.0 / self.n_mu))
+
+
+def make_smu_bins(s_edges: ArrayLike, n_mu: int, key: str = "") -> SMuBins:
+    """Validate an (s, |μ|) binning (``key`` prefixes the messages, e.g. a config key)."""
+    where = f"{key}." if key else ""
+    e = check_rp_edges(s_edges, f"{where}s_edges")
+    if not (isinstance(n_mu, (int, np.integer)) and not isinstance(n_mu, bool) and n_mu >= 1):
+        raise InputError(f"{where}n_mu: expected a positive integer number of μ bins in "
+                         f"[0, 1], got {n_mu!r}")
+    return SMuBins(s_edges=e, n_mu=int(n_mu))
+
+
 def check_rp_edges(rp_edges: ArrayLike, name: str = "rp_edges") -> NDArray[np.float64]:
     """Validate r_p (or radius) edges: finite, ≥ 0, strictly increasing, at least two."""
     try:

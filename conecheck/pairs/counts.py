@@ -32,7 +32,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..errors import InputError
 from . import _kernels
-from .binning import RpPiBins, check_box_extent, make_bins, rp2_lookup
+from .binning import RpPiBins, SMuBins, check_box_extent, make_bins, rp2_lookup
 from .grid import box_grid, cone_grid, neighbour_offsets, sort_into_grid
 from .points import Points, check_points, region_sums
 
@@ -51,7 +51,8 @@ class PairCounts:
     touch : ndarray, shape (K, n_rp, n_pi) or None
         Weight of the pairs with at least one point in region k.
     rp_edges, pi_edges : ndarray
-        Bin edges [Mpc/h]; the |π| bins start at 0.
+        Bin edges of the two separations: r_p and |π| [Mpc/h] (the |π| bins start at 0),
+        or, for (s, μ) counts, s [Mpc/h] and |μ| in [0, 1].
     is_auto : bool
         Auto count (unordered distinct pairs of one set) or cross count.
     sum_w1, sum_w2, sum_w1_sq, sum_w2_sq : float
@@ -130,8 +131,9 @@ class PairCounts:
             n_subsets=self.n_subsets + other.n_subsets)
 
 
-def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64], bins: RpPiBins,
-              p1: Points, p2: Points | None, n_regions: int) -> PairCounts:
+def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64],
+              bins: RpPiBins | SMuBins, p1: Points, p2: Points | None, n_regions: int
+              ) -> PairCounts:
     auto = p2 is None
     q = p1 if auto else p2
     s1, s1q = float(p1.w.sum()), float((p1.w**2).sum())
@@ -144,8 +146,10 @@ def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64], bins: RpPi
     else:
         norm = s1 * s2
         norm_k = (s1 - r1) * (s2 - r2)
+    first, second = ((bins.s_edges.copy(), bins.mu_edges) if isinstance(bins, SMuBins)
+                     else (bins.rp_edges.copy(), bins.pi_edges))
     return PairCounts(total=total, touch=touch if n_regions > 0 else None,
-                      rp_edges=bins.rp_edges.copy(), pi_edges=bins.pi_edges, is_auto=auto,
+                      rp_edges=first, pi_edges=second, is_auto=auto,
                       sum_w1=s1, sum_w2=s2, sum_w1_sq=s1q, sum_w2_sq=s2q,
                       region_sum_w1=r1, region_sum_w2=r2, region_sum_w1_sq=r1q,
                       region_sum_w2_sq=r2q, norm=norm, norm_delete_one=norm_k)
@@ -282,4 +286,69 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         tasks, offsets, grid.dims, bins.rp_edges**2, bins.pi_max, bins.dpi, bins.n_pi,
         int(n_regions), p2 is None, _n_chunks(tasks.size),
         *_lookup_args(bins), _max_cell(g2.start))
+    return _assemble(total, touch, bins, p1, p2, int(n_regions))
+
+
+def count_smu_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
+                  pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
+                  reg2: ArrayLike | None = None, *, box_size: float, los_axis: int = 2,
+                  bins: SMuBins, n_regions: int = 0, refine: int = 2) -> PairCounts:
+    """Pair counts in (s, |μ|) bins in a periodic box, μ = |Δ_LOS|/s along ``los_axis``.
+
+    Parameters as in :func:`count_rppi_box`, with ``bins`` (:func:`.binning.make_smu_bins`;
+    the largest s must be < L/2). The counts' ``rp_edges`` and ``pi_edges`` hold the s and
+    |μ| edges.
+    """
+    box_size = float(box_size)
+    check_box_extent(bins.s_max, box_size, "largest s edge")
+    los_axis = _check_axis(los_axis)
+    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
+    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    grid = box_grid(box_size, bins.s_max, bins.s_max, refine=max(1, int(refine)))
+    offsets = neighbour_offsets(grid, bins.s_max, bins.s_max, "sphere", half=p2 is None)
+    a = to_box_frame(p1.pos, box_size, los_axis)
+    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
+    if p2 is None:
+        g2 = g1
+    else:
+        b = to_box_frame(p2.pos, box_size, los_axis)
+        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
+    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    total, touch = _kernels.smu_box(
+        g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
+        tasks, offsets, grid.dims, box_size, bins.s_edges**2, bins.n_mu, int(n_regions),
+        p2 is None, _n_chunks(tasks.size))
+    return _assemble(total, touch, bins, p1, p2, int(n_regions))
+
+
+def count_smu_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
+                   pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
+                   reg2: ArrayLike | None = None, *, bins: SMuBins, n_regions: int = 0,
+                   refine: int = 1) -> PairCounts:
+    """Pair counts in (s, |μ|) bins on a light cone, line of sight at the pair midpoint.
+
+    Parameters as in :func:`count_rppi_cone`, with ``bins``; μ = |s·l|/(|s||l|) with
+    l = r₁ + r₂ (Corrfunc's ``DDsmu_mocks`` convention).
+    """
+    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
+    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    n2 = p1.n if p2 is None else p2.n
+    if p1.n == 0 or n2 == 0:
+        shape = (bins.n_s, bins.n_mu)
+        return _assemble(np.zeros(shape), np.zeros((int(n_regions),) + shape), bins, p1, p2,
+                         int(n_regions))
+    sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
+    grid = cone_grid(sets, bins.s_max, refine=max(1, int(refine)))
+    offsets = neighbour_offsets(grid, bins.s_max, bins.s_max, "sphere", half=p2 is None)
+    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
+    if p2 is None:
+        g2 = g1
+    else:
+        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
+    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    total, touch = _kernels.smu_cone(
+        g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
+        g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
+        tasks, offsets, grid.dims, bins.s_edges**2, bins.n_mu, int(n_regions), p2 is None,
+        _n_chunks(tasks.size))
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
