@@ -273,8 +273,8 @@ class StatisticsConfig:
     Attributes
     ----------
     measure : list of str
-        Names of registered statistics (``conecheck check`` lists them; built in:
-        number_density, wp, cic, vpf, annuli, count_ratio).
+        Names of registered statistics (``conecheck check`` lists them, built in and
+        installed; the ``[statistics.<name>]`` tables below are the built-in ones).
     """
 
     measure: tuple[str, ...] = ("number_density", "wp", "cic", "vpf")

@@ -2,10 +2,11 @@
 
 Outside reference: for a Poisson process, the points inside the large cylinder around a
 centre are independently and uniformly placed in it, so given N_large = n the number in
-the small cylinder is Binomial(n, p) with p = V_small/V_large (a textbook property of
-the Poisson process, e.g. Daley & Vere-Jones 2003, *An Introduction to the Theory of Point
-Processes*, §2.4). N_large itself is Poisson with mean n̄ V_large, so the distribution of
-N_small/N_large is the mixture Σ_n Pois(n) Σ_k Binom(k; n, p) [k/n in bin].
+the small cylinder is Binomial(n, p) with p = V_small/V_large (the conditional uniformity
+of a Poisson process, e.g. Daley & Vere-Jones 2003, *An Introduction to the Theory of
+Point Processes*, vol. I; the reference is cited from memory). N_large itself is Poisson
+with mean n̄ V_large, so the distribution of N_small/N_large is the mixture
+Σ_n Pois(n) Σ_k Binom(k; n, p) [k/n in bin].
 """
 
 from __future__ import annotations

@@ -62,14 +62,14 @@ class MeanNeighbours(Statistic):
     def n_bins(self, settings=None):
         return 1
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         s = self.settings_or_default(settings)
         c = neighbours_box(sample.position, weights=sample.w, box_size=sample.box_size,
                            los_axis=sample.los_axis, edges=[0.0, s.radius])[:, 0]
         return _mean(c, sample.w, sample.region, sample.n_regions if jackknife else 0)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         s = self.settings_or_default(settings)
         c = neighbours_cone(sample.xyz, weights=sample.w, edges=[0.0, s.radius])[:, 0]
         return _mean(c, sample.w, sample.region, sample.n_regions if jackknife else 0)

@@ -25,6 +25,7 @@ Conventions
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numba
 import numpy as np
@@ -174,6 +175,32 @@ def _check_axis(los_axis: int) -> int:
     return int(los_axis)
 
 
+def _sorted_box(grid: Any, p1: Points, p2: Points | None, box_size: float, los_axis: int
+                ) -> tuple[Any, Any, NDArray[np.int64]]:
+    """Both point sets in the box frame, sorted into ``grid`` by cell and LOS coordinate,
+    and the non-empty cells of set 1 (the tasks)."""
+    a = to_box_frame(p1.pos, box_size, los_axis)
+    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
+    if p2 is None:
+        g2 = g1
+    else:
+        b = to_box_frame(p2.pos, box_size, los_axis)
+        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
+    return g1, g2, np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+
+
+def _sorted_cone(grid: Any, p1: Points, p2: Points | None
+                 ) -> tuple[Any, Any, NDArray[np.int64]]:
+    """Both point sets sorted into ``grid`` by cell and distance χ [Mpc/h] from the
+    observer, and the non-empty cells of set 1 (the tasks)."""
+    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
+    if p2 is None:
+        g2 = g1
+    else:
+        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
+    return g1, g2, np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+
+
 def to_box_frame(pos: NDArray[np.float64], box_size: float, los_axis: int) -> NDArray[np.float64]:
     """Wrap into [0, L) and permute the axes so the line of sight is the third one."""
     axes = [a for a in range(3) if a != los_axis] + [los_axis]
@@ -227,14 +254,7 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
     p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
     grid = box_grid(box_size, bins.rp_max, bins.pi_max, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, bins.rp_max, bins.pi_max, "cylinder", half=p2 is None)
-    a = to_box_frame(p1.pos, box_size, los_axis)
-    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
-    if p2 is None:
-        g2 = g1
-    else:
-        b = to_box_frame(p2.pos, box_size, los_axis)
-        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
-    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    g1, g2, tasks = _sorted_box(grid, p1, p2, box_size, los_axis)
     total, touch = _kernels.rppi_box(
         g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
         tasks, offsets, grid.dims, box_size, bins.rp_edges**2, bins.pi_max, bins.dpi,
@@ -274,12 +294,7 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
     sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
     grid = cone_grid(sets, bins.r_max, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, bins.r_max, bins.r_max, "sphere", half=p2 is None)
-    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
-    if p2 is None:
-        g2 = g1
-    else:
-        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
-    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    g1, g2, tasks = _sorted_cone(grid, p1, p2)
     total, touch = _kernels.rppi_cone(
         g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
         g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
@@ -306,14 +321,7 @@ def count_smu_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike 
     p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
     grid = box_grid(box_size, bins.s_max, bins.s_max, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, bins.s_max, bins.s_max, "sphere", half=p2 is None)
-    a = to_box_frame(p1.pos, box_size, los_axis)
-    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
-    if p2 is None:
-        g2 = g1
-    else:
-        b = to_box_frame(p2.pos, box_size, los_axis)
-        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
-    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    g1, g2, tasks = _sorted_box(grid, p1, p2, box_size, los_axis)
     total, touch = _kernels.smu_box(
         g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
         tasks, offsets, grid.dims, box_size, bins.s_edges**2, bins.n_mu, int(n_regions),
@@ -340,12 +348,7 @@ def count_smu_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
     sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
     grid = cone_grid(sets, bins.s_max, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, bins.s_max, bins.s_max, "sphere", half=p2 is None)
-    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
-    if p2 is None:
-        g2 = g1
-    else:
-        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
-    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    g1, g2, tasks = _sorted_cone(grid, p1, p2)
     total, touch = _kernels.smu_cone(
         g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
         g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,

@@ -260,8 +260,8 @@ def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, fl
     """
     stats = cfg.statistics
     costs = [STATISTICS[n].cost(stats.get(n), cfg.randoms.multiple) for n in stats.measure]
-    search = sum(c.cone_volume + c.tracer_volume for c in costs)  # per cone galaxy [(Mpc/h)³]
-    box_search = sum(c.box_volume + c.tracer_volume for c in costs)
+    search = sum(c.cone_volume for c in costs)  # per cone galaxy [(Mpc/h)³]
+    box_search = sum(c.box_volume for c in costs)
     centres = sum(c.centre_volume for c in costs)  # the statistics' own centres
     volumes = _cut_volumes(cfg, footprint)
     box_runs = 1 + (2 * len(DEFAULT_STEPS) if cfg.parameter_shifts.enabled

@@ -76,11 +76,11 @@ class CountsInCylinders(Statistic):
     def n_bins(self, settings=None):
         return len(self.settings_or_default(settings).edges) - 1
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return cic_box(sample, settings, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         return cic_cone(sample, geometry, settings, jackknife=jackknife)
 
     def cost(self, settings, randoms_multiple):

@@ -19,6 +19,7 @@ jackknife follow :mod:`._count_distribution`.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -120,6 +121,18 @@ class CountRatioSettings:
                 / (self.r_large ** 2 * self.half_length_large))
 
 
+def _small_large(s: CountRatioSettings,
+                 count: Callable[[list[float], float], NDArray[np.float64]]
+                 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Weighted (N_small, N_large) per centre from a neighbour counter ``count(edges, H)``;
+    one pass over the neighbours when both cylinders have the same half-length."""
+    if s.half_length_small == s.half_length_large:
+        shells = count([0.0, s.r_small, s.r_large], s.half_length_large)
+        return shells[:, 0], shells.sum(axis=1)
+    return (count([0.0, s.r_small], s.half_length_small)[:, 0],
+            count([0.0, s.r_large], s.half_length_large)[:, 0])
+
+
 def _ratios(small: NDArray[np.float64], large: NDArray[np.float64], min_large: float
             ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
     defined = large >= min_large
@@ -151,11 +164,9 @@ def count_ratio_box(sample: BoxSample, settings: CountRatioSettings | None = Non
     s = settings or CountRatioSettings()
     jk = want_jackknife(jackknife, sample.n_regions, NAME)
     k = sample.n_regions if jk else 0
-    kw = {"weights": sample.w, "box_size": sample.box_size, "los_axis": sample.los_axis}
-    small = neighbours_box(sample.position, edges=[0.0, s.r_small],
-                           half_length=s.half_length_small, **kw)[:, 0]
-    large = neighbours_box(sample.position, edges=[0.0, s.r_large],
-                           half_length=s.half_length_large, **kw)[:, 0]
+    small, large = _small_large(s, lambda edges, h: neighbours_box(
+        sample.position, weights=sample.w, box_size=sample.box_size, los_axis=sample.los_axis,
+        edges=edges, half_length=h))
     ratio, use = _ratios(small, large, s.min_large_count)
     return _measure(ratio, sample.w, use, sample.region if jk else None, k, s,
                     {"geometry": "box"})
@@ -169,10 +180,8 @@ def count_ratio_cone(sample: ConeSample, geometry: ConeGeometry | None = None,
     jk = want_jackknife(jackknife, sample.n_regions, NAME)
     k = sample.n_regions if jk else 0
     xyz, w = sample.xyz, sample.w
-    small = neighbours_cone(xyz, weights=w, edges=[0.0, s.r_small],
-                            half_length=s.half_length_small)[:, 0]
-    large = neighbours_cone(xyz, weights=w, edges=[0.0, s.r_large],
-                            half_length=s.half_length_large)[:, 0]
+    small, large = _small_large(s, lambda edges, h: neighbours_cone(
+        xyz, weights=w, edges=edges, half_length=h))
     keep = kept_centres(NAME, sample, geometry, s.r_large, s.half_length_large,
                         s.edge_treatment, s.min_inside_fraction)
     ratio, defined = _ratios(small, large, s.min_large_count)
@@ -192,11 +201,11 @@ class CountRatio(Statistic):
     def n_bins(self, settings=None):
         return len(self.settings_or_default(settings).edges) - 1
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return count_ratio_box(sample, settings, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         return count_ratio_cone(sample, geometry, settings, jackknife=jackknife)
 
     def cost(self, settings, randoms_multiple):

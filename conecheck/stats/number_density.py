@@ -77,11 +77,11 @@ class NumberDensity(Statistic):
     def n_bins(self, settings=None):
         return 1
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return number_density_box(sample, settings, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         return number_density_cone(sample, geometry, settings, jackknife=jackknife)
 
 

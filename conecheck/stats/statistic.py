@@ -8,8 +8,8 @@ module attribute ``STATISTIC``. The class owns
   ``[statistics.<name>]`` and whose numpy-style docstring feeds the generated configuration
   reference; it validates itself and names the key in every error;
 * its **bins and labels** (:meth:`Statistic.n_bins`, the Measurement it returns);
-* what it **needs** besides the galaxies: randoms (``needs_randoms``), other tracers such as
-  matter particles (``tracers``), and work shared by every cone of a sample and cut
+* what it **needs** besides the galaxies: randoms (``needs_randoms``) and work shared by
+  every cone of a sample and cut
   (:meth:`Statistic.prepare_cone`, stored through :meth:`Statistic.pack_shared` and
   :meth:`Statistic.unpack_shared`);
 * its **box and cone measurements** with jackknife delete-one vectors;
@@ -29,7 +29,6 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from ..errors import InputError
 from ..loader import build_or_raise
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
 
@@ -52,8 +51,6 @@ class Display:
         Draw bin × value on the value pages (flattens a power law such as w_p(r_p)).
     scaled_label : str
         Axis label of the scaled value (with units), used when ``scale_by_bins``.
-    log_bins : bool
-        Draw the bin axis logarithmically on the value pages.
     """
 
     title: str
@@ -62,7 +59,6 @@ class Display:
     order: int = 100
     scale_by_bins: bool = False
     scaled_label: str = ""
-    log_bins: bool = False
 
 
 @dataclass(frozen=True)
@@ -79,9 +75,6 @@ class Cost:
     centre_volume : float
         Search volume of the statistic's own centres per catalogue [(Mpc/h)³ × centres]
         (e.g. random spheres), independent of the number of galaxies.
-    tracer_volume : float
-        Search volume per galaxy through another tracer [(Mpc/h)³ × tracer density ratio]
-        (e.g. matter particles around lenses).
     task_bytes : float
         Extra memory a cone task holds for this statistic [bytes].
     """
@@ -89,7 +82,6 @@ class Cost:
     cone_volume: float = 0.0
     box_volume: float = 0.0
     centre_volume: float = 0.0
-    tracer_volume: float = 0.0
     task_bytes: float = 0.0
 
 
@@ -110,8 +102,6 @@ class Statistic:
     needs_randoms: ClassVar[bool] = False
     #: The box estimator depends on which box axis is the line of sight.
     los_dependent: ClassVar[bool] = True
-    #: Other catalogues the estimators need beside the galaxies (e.g. ``("matter",)``).
-    tracers: ClassVar[tuple[str, ...]] = ()
 
     # ------------------------------------------------------------------ settings
     def defaults(self) -> Any:
@@ -129,13 +119,6 @@ class Statistic:
     def n_bins(self, settings: Any = None) -> int:
         """Length of the data vector with ``settings``."""
         raise NotImplementedError
-
-    def check_run(self, settings: Any, context: Mapping[str, Any]) -> list[str]:
-        """Problems of these settings in a run (``context``: ``box_size`` [Mpc/h] or None,
-        ``tracers``: the tracer names the run provides). Each problem names its key."""
-        missing = [t for t in self.tracers if t not in context.get("tracers", ())]
-        return [f"statistics.{self.name}: needs a {t} tracer, which the run does not provide "
-                f"({TRACER_HELP.get(t, 'see the README')})" for t in missing]
 
     # ------------------------------------------------------------------ shared work
     def prepare_cone(self, randoms: ConeSample | None, geometry: ConeGeometry,
@@ -159,17 +142,16 @@ class Statistic:
 
     # ------------------------------------------------------------------ estimators
     def measure_box(self, sample: BoxSample, settings: Any = None,
-                    rng: np.random.Generator | None = None, *, jackknife: bool | None = None,
-                    tracers: Mapping[str, Any] | None = None) -> Measurement:
-        """The statistic of a periodic box sample (``tracers``: name → BoxSample)."""
+                    rng: np.random.Generator | None = None, *, jackknife: bool | None = None
+                    ) -> Measurement:
+        """The statistic of a periodic box sample."""
         raise NotImplementedError
 
     def measure_cone(self, sample: ConeSample, randoms: ConeSample | None,
                      geometry: ConeGeometry, settings: Any = None,
                      rng: np.random.Generator | None = None, shared: Any = None, *,
-                     jackknife: bool | None = None,
-                     tracers: Mapping[str, Any] | None = None) -> Measurement:
-        """The statistic of a cone sample (``tracers``: name → ConeSample)."""
+                     jackknife: bool | None = None) -> Measurement:
+        """The statistic of a cone sample."""
         raise NotImplementedError
 
     # ------------------------------------------------------------------ cost
@@ -179,18 +161,3 @@ class Statistic:
 
     def __repr__(self) -> str:
         return f"<statistic {self.name!r} ({type(self).__module__})>"
-
-
-#: What to do when a tracer is missing, by tracer name.
-TRACER_HELP = {
-    "matter": "give box.particles_path, or use box.source = 'synthetic', whose box draws "
-              "matter particles",
-}
-
-
-def tracer(tracers: Mapping[str, Any] | None, name: str, statistic: str) -> Any:
-    """The tracer ``name`` a statistic needs, or a clear error."""
-    if not tracers or tracers.get(name) is None:
-        raise InputError(f"statistics.{statistic}: needs a {name} tracer "
-                         f"({TRACER_HELP.get(name, 'see the README')})")
-    return tracers[name]

@@ -251,11 +251,11 @@ class VoidProbability(Statistic):
             return None
         return vpf_cone_centres(geometry, self.settings_or_default(settings), rng)
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return vpf_box(sample, settings, rng, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         return vpf_cone(sample, geometry, settings, rng, jackknife=jackknife, centres=shared)
 
     def cost(self, settings, randoms_multiple):

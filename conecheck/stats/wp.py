@@ -414,8 +414,7 @@ class ProjectedCorrelation(Statistic):
     name = NAME
     settings_type = WpSettings
     display = Display(title="projected correlation w_p(r_p)", short="w_p(r_p)", symbol="w_p",
-                      order=10, scale_by_bins=True, scaled_label="r_p·w_p [(Mpc/h)²]",
-                      log_bins=True)
+                      order=10, scale_by_bins=True, scaled_label="r_p·w_p [(Mpc/h)²]")
     needs_randoms = True
 
     def n_bins(self, settings=None):
@@ -428,11 +427,11 @@ class ProjectedCorrelation(Statistic):
     def unpack_shared(self, payload: Mapping[str, Any]) -> PairCounts:
         return PairCounts(**payload)
 
-    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None, tracers=None):
+    def measure_box(self, sample, settings=None, rng=None, *, jackknife=None):
         return wp_box(sample, settings, jackknife=jackknife)
 
     def measure_cone(self, sample, randoms, geometry, settings=None, rng=None, shared=None, *,
-                     jackknife=None, tracers=None):
+                     jackknife=None):
         return wp_cone(sample, randoms, geometry, settings, rr=shared, jackknife=jackknife)
 
     def cost(self, settings, randoms_multiple):
