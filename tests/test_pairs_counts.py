@@ -124,8 +124,9 @@ def treecorr_rppi(p1, w1, p2, w2, edges, pi_max, dpi):
     return np.diff(np.array(cum), axis=0).T
 
 
-def brute_cone(p1, w1, p2, w2, edges, pi_max, dpi):
-    """Midpoint-LOS (r_p, |π|) counts from cKDTree pairs, in float64 (scipy reference)."""
+def brute_cone(p1, w1, p2, w2, edges, pi_max, dpi, los="midpoint"):
+    """Midpoint-LOS (or first point's LOS) (r_p, |π|) counts from cKDTree pairs, in float64
+    (scipy reference)."""
     rmax = np.hypot(edges[-1], pi_max)
     w1 = np.ones(len(p1)) if w1 is None else w1
     if p2 is None:
@@ -136,7 +137,7 @@ def brute_cone(p1, w1, p2, w2, edges, pi_max, dpi):
         sm = cKDTree(p1).sparse_distance_matrix(cKDTree(p2), rmax, output_type="coo_matrix")
         a, b, ww = p1[sm.row], p2[sm.col], w1[sm.row] * w2[sm.col]
     s = a - b
-    ell = 0.5 * (a + b)
+    ell = 0.5 * (a + b) if los == "midpoint" else a
     pi = np.abs(np.sum(s * ell, axis=1)) / np.linalg.norm(ell, axis=1)
     rp = np.sqrt(np.maximum(np.sum(s * s, axis=1) - pi**2, 0.0))
     h, _, _ = np.histogram2d(rp, pi, bins=[edges, np.arange(0, pi_max + dpi / 2, dpi)],
@@ -176,6 +177,21 @@ def test_cone_cross_matches_treecorr(cone_points):
                                rtol=1e-6)
     np.testing.assert_allclose(pw.total, brute_cone(p1, w1, p2, w2, edges, 10.0, 2.0),
                                rtol=1e-10)
+
+
+def test_cone_cross_along_the_first_points_line_of_sight(cone_points):
+    """Around lenses the LOS is each lens's direction: π = s·r̂₁, r_p = |s − π r̂₁|."""
+    p1, w1, p2, w2 = cone_points
+    edges = np.array([0.0, 1.0, 3.0, 8.0])
+    pw = count_rppi_cone(p1, w1, None, p2, w2, rp_edges=edges, pi_max=20.0, dpi=20.0,
+                         los="first")
+    ref = brute_cone(p1, w1, p2, w2, edges, 20.0, 20.0, los="first")
+    assert ref[:, 0].min() > 0
+    np.testing.assert_allclose(pw.total, ref, rtol=1e-10)
+    mid = count_rppi_cone(p1, w1, None, p2, w2, rp_edges=edges, pi_max=20.0, dpi=20.0)
+    assert not np.allclose(mid.total, pw.total)  # the two conventions do differ here
+    with pytest.raises(InputError, match="cross counts"):
+        count_rppi_cone(p1, rp_edges=edges, pi_max=20.0, los="first")
 
 
 @pytest.mark.parametrize("geometry", ["box", "cone"])

@@ -189,12 +189,15 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
 @numba.njit(cache=True)
 def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
                 edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                sbuf, lbuf, fbuf, obuf, jbuf, tot, touch, with_touch):
-    """All pairs between two cells of a cone (observer at the origin), midpoint LOS.
+                sbuf, lbuf, fbuf, obuf, jbuf, tot, touch, with_touch, first_los, window):
+    """All pairs between two cells of a cone (observer at the origin).
 
-    With l = r₁ + r₂: s·l = χ₁² − χ₂² and |l|² = 2χ₁² + 2χ₂² − s², so π² = (s·l)²/|l|²
-    and r_p² |l|² = s²|l|² − (s·l)²; the vectorised pass tests every cut without a
-    division, a compaction keeps the accepted candidates, and only those are binned.
+    Midpoint LOS (``first_los`` False), l = r₁ + r₂: s·l = χ₂² − χ₁² and
+    |l|² = 2χ₁² + 2χ₂² − s²; the LOS of the first point (``first_los``, as around a lens),
+    l = r₁: s·l = s·r₁ and |l|² = χ₁². Then π² = (s·l)²/|l|² and r_p² |l|² = s²|l|² − (s·l)²;
+    the vectorised pass tests every cut without a division, a compaction keeps the accepted
+    candidates, and only those are binned. ``window`` bounds |χ₂ − χ₁| (π_max for the
+    midpoint, where |π| ≥ |χ₂ − χ₁|; the largest separation otherwise).
     """
     n_rp = edges2.size - 1
     rpmin2 = edges2[0]
@@ -207,11 +210,11 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
     jhi = s2
     for i in range(s1, e1):
         ci = c1[i]
-        while jlo < e2 and c2[jlo] <= ci - pi_max:
+        while jlo < e2 and c2[jlo] <= ci - window:
             jlo += 1
         if jhi < jlo:
             jhi = jlo
-        while jhi < e2 and c2[jhi] < ci + pi_max:
+        while jhi < e2 and c2[jhi] < ci + window:
             jhi += 1
         j0 = jlo
         if same and j0 <= i:
@@ -230,9 +233,13 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
             dy = y2[j] - yi
             dz = z2[j] - zi
             s2v = dx * dx + dy * dy + dz * dz
-            sl = cj * cj - ci2
+            if first_los:
+                sl = dx * xi + dy * yi + dz * zi
+                l2 = ci2
+            else:
+                sl = cj * cj - ci2
+                l2 = 2.0 * (ci2 + cj * cj) - s2v
             sl2 = sl * sl
-            l2 = 2.0 * (ci2 + cj * cj) - s2v
             t = s2v * l2 - sl2
             sbuf[q] = s2v
             fbuf[q] = sl2
@@ -269,8 +276,10 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
 @numba.njit(parallel=True, cache=True)
 def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tasks,
               offsets, dims, edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks,
-              lut, nxt, shift, base, scan, max_cell):
-    """Weighted (r_p, |π|) pair counts on a cone (midpoint LOS, observer at origin)."""
+              lut, nxt, shift, base, scan, max_cell, first_los):
+    """Weighted (r_p, |π|) pair counts on a cone (observer at origin; midpoint LOS, or the
+    first point's with ``first_los``)."""
+    window = np.sqrt(edges2[edges2.size - 1] + pi_max * pi_max) if first_los else pi_max
     n_rp = edges2.size - 1
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
@@ -307,7 +316,8 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                 same = auto and o == 0
                 _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2,
                             same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                            sbuf, lbuf, fbuf, obuf, jbuf, tot_c, touch_c, with_touch)
+                            sbuf, lbuf, fbuf, obuf, jbuf, tot_c, touch_c, with_touch,
+                            first_los, window)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 

@@ -266,8 +266,10 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
 def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
                     pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
                     reg2: ArrayLike | None = None, *, rp_edges: ArrayLike, pi_max: float,
-                    dpi: float = 1.0, n_regions: int = 0, refine: int = 1) -> PairCounts:
-    """Pair counts in (r_p, |π|) bins on a light cone, line of sight at the pair midpoint.
+                    dpi: float = 1.0, n_regions: int = 0, refine: int = 1,
+                    los: str = "midpoint") -> PairCounts:
+    """Pair counts in (r_p, |π|) bins on a light cone, line of sight at the pair midpoint
+    (or along the first point's direction).
 
     Parameters
     ----------
@@ -278,14 +280,21 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
     refine : int
         Cells per r_max = √(r_p,max² + π_max²) (speed only; 1 is fastest in
         benchmarks/bench_pairs.py since the χ window already prunes along the LOS).
+    los : {"midpoint", "first"}
+        Line of sight of a pair: through its midpoint (clustering), or through the point of
+        set 1 (a cross count around lenses: projected along each lens's radial direction).
 
     Returns
     -------
     PairCounts
     """
     bins = make_bins(rp_edges, pi_max, dpi)
+    if los not in ("midpoint", "first"):
+        raise InputError(f"los: expected 'midpoint' or 'first', got {los!r}")
     p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
     p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    if los == "first" and p2 is None:
+        raise InputError("los = 'first' is for cross counts (a second point set)")
     n2 = p1.n if p2 is None else p2.n
     if p1.n == 0 or n2 == 0:
         shape = (bins.n_rp, bins.n_pi)
@@ -300,7 +309,7 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
         tasks, offsets, grid.dims, bins.rp_edges**2, bins.pi_max, bins.dpi, bins.n_pi,
         int(n_regions), p2 is None, _n_chunks(tasks.size),
-        *_lookup_args(bins), _max_cell(g2.start))
+        *_lookup_args(bins), _max_cell(g2.start), los == "first")
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
 
 
