@@ -138,10 +138,10 @@ def test_split_random_rr_agrees_with_full(monkeypatch):
     # Δwp ≈ 2Δπ Σ_π (1 + ξ) δRR/RR, bounded the same way.  (From memory, the paper finds
     # the extra variance negligible at this subset size when the data are not much more
     # clustered than the randoms' noise; the strongly clustered case here is the hard one.)
-    import conecheck.stats.wp as wp_module
+    import conecheck.stats._common as common_module
 
     # subsets the size of these small test catalogues (the pipeline keeps them ≥ MIN_SPLIT_SUBSET)
-    monkeypatch.setattr(wp_module, "MIN_SPLIT_SUBSET", 1)
+    monkeypatch.setattr(common_module, "MIN_SPLIT_SUBSET", 1)
     rng, geo, data, rand = _cone_setup(5, n_randoms=20)
     kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}
     rr_full = count_rr_cone(rand, geo, WpSettings(**kw))
@@ -200,7 +200,7 @@ def test_wp_bad_input():
 
 def test_split_rr_keeps_subsets_large_enough():
     """Small catalogues fall back to fewer (here: one) subsets rather than sparse RR bins."""
-    from conecheck.stats.wp import MIN_SPLIT_SUBSET
+    from conecheck.stats._common import MIN_SPLIT_SUBSET
 
     _, geo, data, rand = _cone_setup(5, n_randoms=20)
     assert len(rand) < MIN_SPLIT_SUBSET

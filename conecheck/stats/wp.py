@@ -50,16 +50,12 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_cone
 from ..pairs.binning import check_rp_edges, make_bins
-from ._common import check_filled, want_jackknife
+from ._common import check_filled, count_rr_split, want_jackknife
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
 from .settings import RR_METHODS, positive
 from .statistic import Cost, Display, Statistic
 
 NAME = "wp"
-
-#: Smallest random subset of the split RR method (fewer subsets are used below it).
-MIN_SPLIT_SUBSET = 20_000
-
 
 @dataclass(frozen=True)
 class WpSettings:
@@ -311,28 +307,11 @@ def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
     """
     settings = settings or WpSettings()
     bins = settings.bins
-    xyz = randoms.xyz
-    if settings.rr_method == "full":
-        return count_rppi_cone(xyz, randoms.weight, randoms.region, rp_edges=bins.rp_edges,
-                               pi_max=bins.pi_max, dpi=bins.dpi, n_regions=randoms.n_regions)
-    if n_data is None or n_data < 1:
-        raise InputError("wp: rr_method = 'split' needs the data size (n_data) to size the "
-                         "random subsets")
-    m = max(1, int(round(len(randoms) / (settings.split_factor * n_data))))
-    # Tiny subsets leave the smallest (r_p, π) bins with a handful of random pairs, and a
-    # delete-one region can then empty a bin: keep every subset at least this large.
-    m = max(1, min(m, len(randoms) // MIN_SPLIT_SUBSET))
-    w = randoms.w
-    total: PairCounts | None = None
-    for s in range(m):
-        # strided subsets: disjoint, and each spread over the whole survey whatever the
-        # order the randoms come in
-        sel = slice(s, None, m)
-        reg = None if randoms.region is None else randoms.region[sel]
-        part = count_rppi_cone(xyz[sel], w[sel], reg, rp_edges=bins.rp_edges,
-                               pi_max=bins.pi_max, dpi=bins.dpi, n_regions=randoms.n_regions)
-        total = part if total is None else total + part
-    return total
+    return count_rr_split(
+        randoms, settings.rr_method, settings.split_factor, n_data, "wp",
+        lambda xyz, w, reg: count_rppi_cone(xyz, w, reg, rp_edges=bins.rp_edges,
+                                            pi_max=bins.pi_max, dpi=bins.dpi,
+                                            n_regions=randoms.n_regions))
 
 
 def _check_rr(rr: PairCounts, bins: RpPiBins, k: int) -> None:
