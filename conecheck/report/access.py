@@ -42,6 +42,21 @@ def wants_log_axis(values: NDArray[np.float64]) -> bool:
     return bool(v.size and np.all(v > 0) and v.max() / v.min() > LOG_AXIS_RATIO)
 
 
+def with_breaks(x: NDArray[np.float64], *ys: NDArray[np.float64]
+                ) -> tuple[NDArray[np.float64], ...]:
+    """``x`` and each ``y`` (last axis along x) with NaN inserted where x stops increasing.
+
+    A data vector made of several pieces, each over its own increasing bins (e.g. ξ_0(s)
+    then ξ_2(s)), is then drawn as separate curves instead of one zigzag.
+    """
+    x = np.asarray(x, dtype=float)
+    at = np.flatnonzero(np.diff(x) <= 0) + 1
+    if not at.size:
+        return (x, *ys)
+    return (np.insert(x, at, np.nan),
+            *(np.insert(np.asarray(y, dtype=float), at, np.nan, axis=-1) for y in ys))
+
+
 def stat_short(name: str) -> str:
     """Short name of a statistic key (tables)."""
     return display(name).short

@@ -63,7 +63,7 @@ def _z_axes(ax, x: np.ndarray, c: Comparison, z_fail: float, logx: bool,
     if z.size == x.size and z.size:
         finite = np.isfinite(z)
         zc = np.where(finite, z, np.nan)
-        ax.plot(x, zc, color=st.BOX, lw=0.8)
+        ax.plot(*ac.with_breaks(x, zc), color=st.BOX, lw=0.8)
         colours = [st.VERDICT_COLOURS["fail"] if i in fail else
                    st.VERDICT_COLOURS["warn"] if i in noisy else st.BOX for i in range(z.size)]
         ax.scatter(x[finite], z[finite], c=[c for c, f in zip(colours, finite, strict=True)
@@ -100,9 +100,10 @@ def _curve_cell(page: Page, i: int, name: str, c: Comparison, z_fail: float) -> 
         band = np.where(nz, tot / np.abs(np.where(nz, b, 1)), np.nan)
         if cones.ndim == 2 and cones.shape[1] == x.size:
             for one in cones:
-                ax.plot(x, np.where(nz, one / np.where(nz, b, 1) - 1, np.nan),
+                ax.plot(*ac.with_breaks(x, np.where(nz, one / np.where(nz, b, 1) - 1, np.nan)),
                         color=st.CONE_FAINT, lw=0.6)
-    ax.fill_between(x, -band, band, color=st.TOTAL_BAND, lw=0, label="±σ_tot/|b|")
+    ax.fill_between(*ac.with_breaks(x, -band, band), color=st.TOTAL_BAND, lw=0,
+                    label="±σ_tot/|b|")
     ax.axhline(0, color=st.INK, lw=0.6)
     sig_off = c.sigma_offset
     if sig_off.size == x.size:
@@ -111,7 +112,7 @@ def _curve_cell(page: Page, i: int, name: str, c: Comparison, z_fail: float) -> 
             off_band = np.where(nz, sig_off / np.abs(np.where(nz, b, 1)), np.nan)
         ax.errorbar(x, frac_mean, yerr=off_band, fmt="none", ecolor=st.CONE, elinewidth=0.9,
                     capsize=2, label="±σ_Δ/|b| (offset's own error)")
-    ax.plot(x, frac_mean, color=st.CONE, lw=1.8, label="mean of cones")
+    ax.plot(*ac.with_breaks(x, frac_mean), color=st.CONE, lw=1.8, label="mean of cones")
     ax.plot([], [], color=st.CONE_FAINT, lw=1.0, label="single cones")
     # The mean is always in view (up to ±500 %); the band only robustly (tails where b → 0
     # would otherwise flatten everything).

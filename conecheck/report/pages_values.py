@@ -46,7 +46,8 @@ def _values(name: str, c: Comparison) -> tuple[np.ndarray, ...] | None:
     if cones.ndim != 2 or cones.shape[1] != x.size:
         cones = np.empty((0, x.size))
     # e.g. r_p·w_p, which flattens the power law
-    scale = x if ac.display(name).scale_by_bins else np.ones_like(x)
+    shown = ac.display(name)
+    scale = x ** shown.scale_power if shown.scale_by_bins else np.ones_like(x)
     return x, b * scale, sb * scale, cones * scale, mean * scale, sc * scale
 
 
@@ -79,11 +80,12 @@ def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool)
         ax.set_xlim(-0.6, 1.6)
         ax.set_xticks([0.0, 1.0], ["box", "cones"])
     else:
-        for k, one in enumerate(cones):
-            ax.plot(x, one, color=st.CONE_FAINT, lw=0.6,
+        xl, cl, bl, sbl = ac.with_breaks(x, cones, b, sb)  # lines: one per piece
+        for k, one in enumerate(cl):
+            ax.plot(xl, one, color=st.CONE_FAINT, lw=0.6,
                     label="single cones" if k == 0 else None)
-        ax.fill_between(x, b - sb, b + sb, color=st.BOX_BAND, lw=0, label="box ±σ_box")
-        ax.plot(x, b, color=st.BOX, lw=1.6, label="box")
+        ax.fill_between(xl, bl - sbl, bl + sbl, color=st.BOX_BAND, lw=0, label="box ±σ_box")
+        ax.plot(xl, bl, color=st.BOX, lw=1.6, label="box")
         ax.errorbar(x, mean, yerr=sc, fmt="o", ms=3, color=st.CONE, capsize=2, elinewidth=0.8,
                     label="cone mean ±σ of one cone")
         if ac.wants_log_axis(np.concatenate([b, mean])):
