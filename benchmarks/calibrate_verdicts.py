@@ -1,6 +1,7 @@
 """Calibration and power of the verdicts over many seeds (one command; not run in CI).
 
     python benchmarks/calibrate_verdicts.py [--seeds 16] [--cones 8] [--out DIR] [--full-demo]
+        [--statistics number_density,wp,cic,vpf] [--only TEXT]
 
 Every seed is an independent synthetic box (the quick demo scale, one sample). Set-ups:
 
@@ -123,7 +124,17 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--full-demo", action="store_true")
     ap.add_argument("--only", default=None,
                     help="run only the set-ups whose name contains this text (no injection)")
+    ap.add_argument("--statistics", default=None,
+                    help="comma-separated statistics to measure (default: those of the "
+                         "tests' tiny runs, number_density,wp,cic,vpf)")
+    ap.add_argument("--no-shifts", action="store_true",
+                    help="skip the HOD derivatives (they do not enter the verdicts)")
     a = ap.parse_args(argv)
+    extra: dict[str, Any] = {}
+    if a.statistics:
+        extra["statistics.measure"] = a.statistics.split(",")
+    if a.no_shifts:
+        extra["parameter_shifts.enabled"] = False
     inj = Injector()
     validate_mod.compare_statistic = inj
     t0 = time.perf_counter()
@@ -135,7 +146,7 @@ def main(argv: list[str] | None = None) -> int:
         tag = "".join(ch if ch.isalnum() else "_" for ch in name)[:40]
         runs = []
         for seed in range(a.seeds):
-            d = tiny_dict(seed=1000 + seed, **{"cones.n_cones": a.cones, **changes})
+            d = tiny_dict(seed=1000 + seed, **{"cones.n_cones": a.cones, **changes, **extra})
             if "survey.shell.z_max" in changes:
                 for smp in d["samples"]:
                     smp["z_max"] = min(smp["z_max"], changes["survey.shell.z_max"])
@@ -145,9 +156,10 @@ def main(argv: list[str] | None = None) -> int:
         print("\n".join(new), flush=True)
     # wp bias in the first bin of 2 σ_tot, injected into the RSD null's cones
     runs = []
-    for seed in range(a.seeds if a.only is None else 0):
+    with_wp = "wp" in extra.get("statistics.measure", ["wp"])
+    for seed in range(a.seeds if a.only is None and with_wp else 0):
         d = tiny_dict(seed=1000 + seed, **{"cones.n_cones": a.cones,
-                                           **SETUPS["null, RSD both sides"]})
+                                           **SETUPS["null, RSD both sides"], **extra})
         out = a.out / "null__RSD_both_sides" / f"seed{seed}"
         ref = stats_of(run(d, out))["wp"]
         f = np.ones(len(ref["box"]))

@@ -18,6 +18,7 @@ from .api import (
     build_box,
     build_cones,
     compare,
+    cone_matter,
     config_from_dict,
     demo_config,
     galaxy_box,
@@ -39,5 +40,6 @@ from .version import __version__
 
 __all__ = ["Comparison", "ConecheckError", "Footprint", "GalaxyBox", "InputError", "Measurement",
            "RunConfig", "SkyRegions", "__version__", "build_box", "build_cones", "compare",
-           "config_from_dict", "demo_config", "galaxy_box", "load_config", "measure_box",
-           "measure_cone", "render_run", "survey_sky", "validate", "write_report"]
+           "cone_matter", "config_from_dict", "demo_config", "galaxy_box", "load_config",
+           "measure_box", "measure_cone", "render_run", "survey_sky", "validate",
+           "write_report"]

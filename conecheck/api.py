@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 from astropy.table import Table
 
-from .catalog import GalaxyBox
+from .catalog import GalaxyBox, MatterParticles
 from .compare import Comparison, compare_statistic
 from .compare.rules import VerdictRules
 from .cone import make_randoms, n_randoms, select_cut
@@ -59,8 +59,11 @@ from .run.tasks import (
     measure_box_sample,
     sample_mask,
 )
+from .run.tasks import (
+    cone_matter as _cone_matter,
+)
 from .run.validate import validate as _validate_run
-from .stats import STATISTICS, BoxSample, ConeGeometry, Measurement
+from .stats import STATISTICS, BoxSample, ConeGeometry, MatterSample, Measurement
 from .streams import seeded_rng
 
 #: Sky jackknife regions of a cone measured without a configuration.
@@ -138,6 +141,21 @@ def build_cones(box: GalaxyBox, config: RunConfig, n: int | None = None,
                        cells=cells)[0] for i in range(n)]
 
 
+def cone_matter(box: GalaxyBox, config: RunConfig, index: int = 0) -> MatterSample:
+    """The box's matter particles carried into cone ``index`` (the observer, rotation and
+    replicas of :func:`build_cones`' cone ``index``), for :func:`measure_cone` of a lensing
+    statistic; as far around the survey as the configuration's lensing statistics reach."""
+    cfg = _config(config)
+    reach = cfg.statistics.matter_reach
+    if reach is None:
+        raise InputError("cone_matter: the configuration measures no statistic that needs "
+                         "matter (statistics.measure)")
+    fp = load_footprint(cfg)
+    spec = cone_build_spec(cfg, int(index), content_digest(box), content_digest(fp),
+                           overlap_input(cfg))
+    return _cone_matter(spec, box, fp, reach)
+
+
 def survey_sky(config: RunConfig) -> tuple[Footprint, SkyRegions]:
     """The configuration's footprint and jackknife regions (kept for the last few
     configurations, so measuring many cones does not rebuild them)."""
@@ -159,7 +177,8 @@ _SKY_KEPT = 4
 def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statistic: str, *,
                 config: RunConfig | None = None, sample: str | None = None,
                 settings: Any = None, box_size: float | None = None, los_axis: int = 2,
-                seed: int = 0, jackknife: bool = True) -> Measurement:
+                seed: int = 0, jackknife: bool = True,
+                matter: MatterSample | None = None) -> Measurement:
     """One statistic measured in a periodic box, with box jackknife errors.
 
     Parameters
@@ -167,7 +186,7 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
     box : GalaxyBox, Table, mapping or ndarray (N, 3)
         The galaxies (see :func:`galaxy_box`); positions in Mpc/h.
     statistic : str
-        ``number_density``, ``wp``, ``cic``, ``vpf`` or ``annuli``.
+        A registered statistic (``conecheck.stats.STATISTICS``: ``wp``, ``cic``, …).
     config : RunConfig, optional
         With a configuration, exactly as the run measures it: the sample's threshold, the
         configured box effects (redshift-space distortions along ``box.los_axis``),
@@ -177,9 +196,14 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
         Sample name (default: the configuration's first sample).
     box_size : float, optional
         Box side L [Mpc/h] for an array of positions.
+    matter : MatterSample, optional
+        Matter particles of the box for a lensing statistic (default: the box's own).
     """
     _check_statistic(statistic)
     box = galaxy_box(box, box_size=box_size)
+    if matter is not None:
+        box = dataclasses.replace(box, matter=MatterParticles(
+            matter.position, matter.particle_mass, float(box.box_size)))
     if config is not None:
         cfg = _config(config)
         spec = box_spec(cfg, cfg.sample(sample), content_digest(box))
@@ -193,8 +217,13 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
     jk = JackknifeConfig()
     bs = BoxSample.with_regions(np.asarray(box.position), box.box_size, los_axis,
                                 n_side=jk.box_n_side, layout=jk.box_layout)
-    return STATISTICS[statistic].measure_box(bs, settings, seeded_rng(seed, "box", statistic),
-                                             jackknife=jackknife)
+    stat = STATISTICS[statistic]
+    extra = {}
+    if stat.needs_matter:
+        extra["matter"] = None if box.matter is None else MatterSample(
+            box.matter.position, box.matter.particle_mass, box.box_size)
+    return stat.measure_box(bs, settings, seeded_rng(seed, "box", statistic),
+                            jackknife=jackknife, **extra)
 
 
 def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
@@ -203,7 +232,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
                  footprint: Footprint | str | os.PathLike[str] | None = None,
                  regions: SkyRegions | None = None, z_min: float | None = None,
                  z_max: float | None = None, randoms_multiple: float | None = None,
-                 seed: int = 0) -> Measurement:
+                 seed: int = 0, matter: MatterSample | None = None) -> Measurement:
     """One statistic measured on a light cone, with sky jackknife errors.
 
     Parameters
@@ -212,7 +241,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
         Columns ``ra``, ``dec`` [deg] and ``z_obs`` (or ``z``); ``weight`` and ``abs_mag``
         optional. A cone from :func:`build_cones` qualifies.
     statistic : str
-        ``number_density``, ``wp``, ``cic``, ``vpf`` or ``annuli``.
+        A registered statistic (``conecheck.stats.STATISTICS``: ``wp``, ``cic``, …).
     config : RunConfig, optional
         With a configuration: its footprint, jackknife regions, cosmology, the sample's
         threshold and cut (``cut``: label, default the primary cut), settings and randoms.
@@ -223,6 +252,9 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     randoms_multiple : float, optional
         Randoms per galaxy for statistics that need randoms (default: the configuration's,
         else 10). The randoms are drawn for this cone alone, sized by its galaxy count.
+    matter : MatterSample, optional
+        Matter particles around the cone's galaxies (observer at the origin), for a lensing
+        statistic: :func:`cone_matter` of the cone.
     """
     _check_statistic(statistic)
     table = _cone_table(cone)
@@ -269,7 +301,9 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
                           cosmology=cosmo)
         rand = _cone_sample(rt, regions)
     shared = stat.prepare_cone(rand, geometry, settings, n_data=len(data.ra), rng=rng)
-    return stat.measure_cone(data, rand, geometry, settings, rng, shared, jackknife=True)
+    extra = {"matter": matter} if stat.needs_matter else {}
+    return stat.measure_cone(data, rand, geometry, settings, rng, shared, jackknife=True,
+                             **extra)
 
 
 # --------------------------------------------------------------------------- compare, run
@@ -389,6 +423,6 @@ def _cone_table(cone: Any) -> Table:
     return t
 
 
-__all__ = ["build_box", "build_cones", "compare", "config_from_dict", "demo_config",
-           "galaxy_box", "load_config", "measure_box", "measure_cone", "render_run",
+__all__ = ["build_box", "build_cones", "compare", "cone_matter", "config_from_dict",
+           "demo_config", "galaxy_box", "load_config", "measure_box", "measure_cone", "render_run",
            "survey_sky", "validate", "write_report"]

@@ -326,6 +326,62 @@ def wrap_positions(pos: NDArray[np.float64], box_size: float, source: str) -> ND
 
 
 @dataclass
+class MatterParticles:
+    """Matter particles of the box, for lensing statistics.
+
+    Attributes
+    ----------
+    position : ndarray, shape (N, 3)
+        Real-space comoving positions in [0, box_size) [Mpc/h].
+    particle_mass : float
+        Mass of one particle [M_⊙/h].
+    box_size : float
+        Side of the periodic box [Mpc/h].
+    meta : dict
+        Provenance.
+    """
+
+    position: NDArray[np.float64]
+    particle_mass: float
+    box_size: float
+    meta: dict[str, Any] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return int(self.position.shape[0])
+
+
+def read_matter_particles(path: str | os.PathLike[str], particle_mass: float, box_size: float,
+                          column_map: Mapping[str, str] | None = None,
+                          hdf5_path: str | None = None, hubble_h: float | None = None,
+                          key: str = "box.particles") -> MatterParticles:
+    """Read a particle file (x, y, z columns) for the galaxies' box of side ``box_size``.
+
+    A BOXSIZE in the file's header must equal the galaxies' box size; positions must lie in
+    the box. ``particle_mass`` [M_⊙/h]; ``key`` names the configuration key in errors.
+    """
+    source = f"{key} ({path})"
+    table = read_table(path, hdf5_path)
+    if column_map:
+        table = apply_column_map(table, column_map, source)
+    meta = {k.upper(): v for k, v in table.meta.items()}
+    if "BOXSIZE" in meta:
+        own = float(meta["BOXSIZE"])
+        if abs(own - box_size) > 1e-6 * box_size:
+            raise InputError(f"{source}: the particles' box is {own:g} Mpc/h (BOXSIZE in the "
+                             f"header), the galaxies' {box_size:g} Mpc/h; lensing needs the "
+                             "matter of the same box")
+    require_columns(table, list(POSITION_COLUMNS), source,
+                    hint="map them with box.particle_columns (e.g. x = \"px\")")
+    pos = np.column_stack([to_pipeline_units(table[c], table[c].unit, "length", c, source,
+                                             hubble_h) for c in POSITION_COLUMNS])
+    if not (np.isfinite(particle_mass) and particle_mass > 0):
+        raise InputError(f"box.particle_mass: expected a positive mass per particle in "
+                         f"M_⊙/h, got {particle_mass!r}")
+    return MatterParticles(wrap_positions(pos, box_size, source), float(particle_mass),
+                           float(box_size), {"source": str(path)})
+
+
+@dataclass
 class GalaxyBox:
     """A periodic galaxy catalogue: what every box input turns into.
 
@@ -345,6 +401,8 @@ class GalaxyBox:
         Central flag, host-halo id and host-halo mass [Msun/h], when known.
     meta : dict
         Provenance (how the box was made, parameters, seeds).
+    matter : MatterParticles or None
+        Matter particles of the same box, for lensing statistics.
     """
 
     position: NDArray[np.float64]
@@ -356,24 +414,29 @@ class GalaxyBox:
     halo_id: NDArray[np.int64] | None = None
     halo_mass: NDArray[np.float64] | None = None
     meta: dict[str, Any] = field(default_factory=dict)
+    matter: MatterParticles | None = None
 
     def __len__(self) -> int:
         return int(self.position.shape[0])
 
     def cache_token(self) -> dict[str, Any]:
         """What identifies the box in a cache key: every physical column, not ``meta``."""
-        return {"position": self.position, "velocity": self.velocity,
-                "box_size": float(self.box_size), "redshift": float(self.redshift),
-                "abs_mag": self.abs_mag, "is_central": self.is_central,
-                "halo_id": self.halo_id, "halo_mass": self.halo_mass}
+        token = {"position": self.position, "velocity": self.velocity,
+                 "box_size": float(self.box_size), "redshift": float(self.redshift),
+                 "abs_mag": self.abs_mag, "is_central": self.is_central,
+                 "halo_id": self.halo_id, "halo_mass": self.halo_mass}
+        if self.matter is not None:  # absent: the key of a box without matter is unchanged
+            token["matter"] = {"position": self.matter.position,
+                               "particle_mass": self.matter.particle_mass}
+        return token
 
     def subset(self, mask: NDArray[np.bool_]) -> GalaxyBox:
-        """A new box holding only the galaxies where ``mask`` is True."""
+        """A new box holding only the galaxies where ``mask`` is True (same matter)."""
         def pick(a: NDArray[Any] | None) -> NDArray[Any] | None:
             return None if a is None else a[mask]
         return GalaxyBox(self.position[mask], self.velocity[mask], self.box_size, self.redshift,
                          pick(self.abs_mag), pick(self.is_central), pick(self.halo_id),
-                         pick(self.halo_mass), dict(self.meta))
+                         pick(self.halo_mass), dict(self.meta), self.matter)
 
     def to_table(self) -> Table:
         """Canonical-column astropy Table with box_size and redshift in the metadata."""

@@ -57,6 +57,8 @@ BUILTIN_FILES = {"builtin:kestrel": "kestrel_mask.fits",
 STATISTIC_NAMES = tuple(SETTINGS_TYPES)
 #: Statistics whose cone estimator needs a random catalogue.
 NEEDS_RANDOMS = tuple(n for n, s in STATISTICS.items() if s.needs_randoms)
+#: Statistics that need a matter tracer.
+NEEDS_MATTER = tuple(n for n, s in STATISTICS.items() if s.needs_matter)
 
 
 # --------------------------------------------------------------------------- sections
@@ -142,6 +144,16 @@ class BoxConfig:
         Apply plane-parallel redshift-space distortions along ``los_axis`` in the box.
     redshift_scatter_kms : float
         Box: Gaussian line-of-sight velocity scatter [km/s] mirroring redshift errors (0: off).
+    particles : str or None
+        Matter particle file of the same box (x, y, z in Mpc/h; a BOXSIZE header must equal
+        the galaxies'), for lensing statistics. A synthetic box draws its own when omitted.
+    particle_columns : table of str
+        Column mapping of the particle file (x, y, z).
+    particle_mass : float or None
+        Mass of one particle of the file [M_⊙/h].
+    particle_density : float
+        Synthetic box: matter particles per (Mpc/h)³ (drawn only when a lensing statistic is
+        measured).
     """
 
     source: Literal["synthetic", "file", "halos"] = "synthetic"
@@ -158,9 +170,22 @@ class BoxConfig:
     grid: int | None = None
     rsd: bool = True
     redshift_scatter_kms: float = 0.0
+    particles: str | None = None
+    particle_columns: dict[str, str] = field(default_factory=dict)
+    particle_mass: float | None = None
+    particle_density: float = 0.05
 
     def __post_init__(self) -> None:
         problems = []
+        if self.particles and not (self.particle_mass and self.particle_mass > 0):
+            problems.append(f"particle_mass = {self.particle_mass!r}: a particle file needs "
+                            "the mass of one particle, > 0 M_⊙/h")
+        if not self.particles and (self.particle_mass is not None or self.particle_columns):
+            problems.append("particles: particle_mass / particle_columns are given but no "
+                            "particle file")
+        if not (0 < self.particle_density <= 10):
+            problems.append(f"particle_density = {self.particle_density!r}: expected "
+                            "0 < particles per (Mpc/h)³ ≤ 10")
         if self.source not in ("synthetic", "file", "halos"):
             problems.append(f"source = {self.source!r}: expected 'synthetic', 'file' or "
                             f"'halos'")
@@ -289,6 +314,16 @@ class StatisticsConfig:
     def get(self, name: str) -> Any:
         """Settings of statistic ``name`` (defaults when not configured)."""
         return self.settings.get(name) or SETTINGS_TYPES[name]()
+
+    @property
+    def matter_reach(self) -> tuple[float, float] | None:
+        """Largest (across, along the LOS) separations [Mpc/h] at which a measured statistic
+        uses matter; None when none does."""
+        reach = [STATISTICS[n].matter_reach(self.get(n)) for n in self.measure
+                 if STATISTICS[n].needs_matter]
+        if not reach:
+            return None
+        return max(r[0] for r in reach), max(r[1] for r in reach)
 
     def restricted(self) -> StatisticsConfig:
         """The measured statistics with their settings spelled out (defaults filled in),
@@ -670,6 +705,12 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
             problems.append(f"parameter_shifts.combinations[{i}] = {combo!r}: "
                             f"{', '.join(bad)} not in statistics.measure "
                             f"({', '.join(cfg.statistics.measure)}); join measured names with +")
+    matter = [s for s in cfg.statistics.measure if s in NEEDS_MATTER]
+    if matter and cfg.box.source != "synthetic" and not cfg.box.particles:
+        problems.append(f"statistics.measure: {', '.join(matter)} "
+                        f"{'needs' if len(matter) == 1 else 'need'} a matter tracer; "
+                        "set box.particles to a particle file of the same box (with "
+                        "box.particle_mass), or use a synthetic box, which draws its own")
     need = [s for s in cfg.statistics.measure if s in NEEDS_RANDOMS]
     if cfg.randoms.multiple <= 0 and need:
         problems.append(f"randoms.multiple: {', '.join(need)} need randoms on the cones; set "

@@ -24,6 +24,9 @@ def tiny_dict(one_sample: bool = True, **changes: Any) -> dict[str, Any]:
     # The PDF and HTML pages take seconds per run; the demo and the report tests draw them,
     # the many small runs that check numbers here do not need them.
     d.setdefault("output", {}).update(pdf=False, html=False)
+    # The demo validates all eight statistics; these runs check the pipeline's plumbing with
+    # the first four, which keeps each run to a few seconds (tests that need another add it).
+    d["statistics"]["measure"] = ["number_density", "wp", "cic", "vpf"]
     if one_sample:
         d["samples"] = [d["samples"][0]]
         d["samples"][0]["alt_cuts"] = []

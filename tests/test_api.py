@@ -51,6 +51,26 @@ def test_steps_from_python_equal_the_run(tmp_path):
     assert not list(tmp_path.iterdir())  # validate() without a directory writes nothing
 
 
+def test_lensing_from_python_equals_the_run(tmp_path):
+    """ΔΣ step by step (the box's own matter; each cone's from cone_matter) gives the run's
+    numbers exactly."""
+    cfg = cc.config_from_dict(tiny_dict(seed=43, **{"statistics.measure": ["delta_sigma"],
+                                                    "parameter_shifts.enabled": False}),
+                              "t", tmp_path)
+    results, _ = cc.validate(cfg)
+    stat = results["samples"]["broad"]["cuts"]["primary"]["statistics"]["delta_sigma"]
+    box = cc.build_box(cfg)
+    assert box.matter is not None and len(box.matter) > 1000
+    np.testing.assert_array_equal(cc.measure_box(box, "delta_sigma", config=cfg).value,
+                                  stat["box"])
+    cones = cc.build_cones(box, cfg)
+    got = [cc.measure_cone(c, "delta_sigma", config=cfg, matter=cc.cone_matter(box, cfg, i))
+           for i, c in enumerate(cones)]
+    np.testing.assert_array_equal([m.value for m in got], stat["cones"])
+    with pytest.raises(ValueError, match="no matter tracer"):
+        cc.measure_cone(cones[0], "delta_sigma", config=cfg)
+
+
 def test_plain_arrays_and_tables_are_measured():
     rng = np.random.default_rng(5)
     size, n = 100.0, 4000

@@ -135,7 +135,7 @@ def test_check_names_a_missing_box_column(tmp_path, capsys):
             .replace('# columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", vz = "VZ",'
                      ' abs_mag = "M_r" }',
                      'columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", vz = "VZ",'
-                     ' abs_mag = "M_r" }'))
+                     ' abs_mag = "M_r" }').replace(*NO_LENSING))
     p = tmp_path / "c.toml"
     p.write_text(text)
     assert main(["check", str(p)]) == 2
@@ -151,12 +151,21 @@ def test_not_toml(tmp_path, capsys):
 
 
 # ------------------------------------------------------------------ bad box catalogues
-def _box_config(tmp_path, box_name: str, columns: str = "") -> Path:
+#: The template's statistics without lensing, which a galaxy-file box cannot measure
+#: without a particle file.
+NO_LENSING = (',\n           "delta_sigma"]', "]")
+
+
+def _box_config(tmp_path, box_name: str, columns: str = "", lensing: str = "") -> Path:
     cols = columns or ('columns = { x = "X", y = "Y", z = "Z", vx = "VX", vy = "VY", '
                        'vz = "VZ", abs_mag = "MAG" }')
     text = (template_text()
-            .replace('source = "synthetic"', f'source = "file"\npath = "{box_name}"\n{cols}')
+            .replace('source = "synthetic"',
+                     f'source = "file"\npath = "{box_name}"\n{cols}\n{lensing}')
             .replace("box_size = 250.0", "box_size = 100.0"))
+    if not lensing:
+        assert NO_LENSING[0] in text
+        text = text.replace(*NO_LENSING)
     p = tmp_path / "c.toml"
     p.write_text(text)
     return p
@@ -213,6 +222,35 @@ def test_bad_box_catalogues_exit_2_with_a_readable_message(tmp_path, capsys, cas
         return
     assert code == 2, err
     assert needle in err and "Traceback" not in err, err
+
+
+@pytest.mark.parametrize("case", ["no_particles", "other_box", "good"])
+def test_lensing_needs_the_matter_of_the_same_box(tmp_path, capsys, case):
+    """ΔΣ of a file box: no particle file, or one from a box of another size, is refused
+    with the key and the file named; the right one is accepted."""
+    import numpy as np
+    from astropy.table import Table
+
+    _write_box(tmp_path / "box.fits")
+    part = Table({"px": np.random.default_rng(3).uniform(0, 100, 500),
+                  "py": np.random.default_rng(4).uniform(0, 100, 500),
+                  "pz": np.random.default_rng(5).uniform(0, 100, 500)})
+    part.meta["BOXSIZE"] = 120.0 if case == "other_box" else 100.0
+    part.write(tmp_path / "particles.fits")
+    lensing = "" if case == "no_particles" else (
+        'particles = "particles.fits"\nparticle_mass = 1e11\n'
+        'particle_columns = { x = "px", y = "py", z = "pz" }')
+    p = _box_config(tmp_path, "box.fits", lensing=lensing or "# no particles")
+    code = main(["check", str(p)])
+    err = capsys.readouterr().err
+    if case == "good":
+        assert code == 0, err
+        return
+    assert code == 2 and "Traceback" not in err, err
+    if case == "no_particles":
+        assert "delta_sigma needs a matter tracer" in err and "box.particles" in err
+    else:
+        assert "particles.fits" in err and "120" in err and "BOXSIZE" in err
 
 
 def test_every_toml_example_in_the_readme_parses():

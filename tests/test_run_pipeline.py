@@ -63,7 +63,12 @@ def test_quick_demo_writes_every_output(demo_run):
                 missing = [k for k in REQUIRED_STATISTIC_KEYS if k not in d]
                 assert not missing, (stat, missing)
                 assert len(d["cones"]) == 2 and len(d["box"]) == len(d["bins"])
-    assert n_stats == 12
+    # the demo validates every built-in statistic, for 3 cuts
+    assert n_stats == 3 * 8
+    for sample in res["samples"].values():
+        for cut in sample["cuts"].values():
+            assert set(cut["statistics"]) == {"number_density", "wp", "cic", "vpf", "annuli",
+                                              "count_ratio", "multipoles", "delta_sigma"}
     assert len(list((out / "tables").glob("*.ecsv"))) == n_stats
     assert "timing: cones" in (out / "run.log").read_text()
     assert res["provenance"]["n_cones"] == 2 and len(res["provenance"]["replicas_per_cone"]) == 2

@@ -12,6 +12,7 @@ from conecheck.stats import (
     STATISTICS,
     BoxSample,
     CicSettings,
+    MatterSample,
     Measurement,
     VpfSettings,
     WpSettings,
@@ -76,13 +77,23 @@ def test_registry_generic_loop():
     rand = sh.randoms(geo, 5 * len(cone), rng)
     settings = {"wp": WpSettings(rp_edges=(1.0, 3.0, 10.0), pi_max=10.0, dpi=2.0),
                 "cic": CicSettings(max_count=5), "vpf": VpfSettings(radii=(2.0, 4.0),
-                                                                     n_spheres=3000)}
-    assert set(STATISTICS) >= {"number_density", "wp", "cic", "vpf", "annuli", "count_ratio"}
+                                                                     n_spheres=3000),
+                "multipoles": make_settings("multipoles", {"s_edges": [2.0, 6.0, 15.0],
+                                                           "n_mu": 4})}
+    assert set(STATISTICS) >= {"number_density", "wp", "cic", "vpf", "annuli", "count_ratio",
+                               "multipoles", "delta_sigma"}
+    # matter for lensing statistics: the galaxies themselves, jittered (mass 10¹² M_⊙/h)
+    part = np.mod(box.position + rng.normal(0.0, 0.5, box.position.shape), L)
+    matter_box = MatterSample(part, 1e12, L)
+    matter_cone = MatterSample(part - 0.5 * L, 1e12)
     for name, stat in STATISTICS.items():
         st = settings.get(name, stat.settings_type())
-        mb = stat.measure_box(box, st, np.random.default_rng(3))
+        kw_box = {"matter": matter_box} if stat.needs_matter else {}
+        kw_cone = {"matter": matter_cone} if stat.needs_matter else {}
+        mb = stat.measure_box(box, st, np.random.default_rng(3), **kw_box)
         shared = stat.prepare_cone(rand, geo, st, n_data=len(cone))
-        mc = stat.measure_cone(cone, rand, geo, st, np.random.default_rng(4), shared)
+        mc = stat.measure_cone(cone, rand, geo, st, np.random.default_rng(4), shared,
+                               **kw_cone)
         for m, k in ((mb, 9), (mc, 5)):
             assert isinstance(m, Measurement) and m.name == name
             assert m.value.shape == m.bins.shape and m.delete_one.shape == (k, m.value.size)

@@ -29,6 +29,7 @@ from numpy.typing import NDArray
 from ..catalog import (
     POSITION_COLUMNS,
     VELOCITY_COLUMNS,
+    MatterParticles,
     apply_column_map,
     read_table,
     require_columns,
@@ -74,6 +75,9 @@ class HaloCatalog:
     halo_id: NDArray[np.int64] | None = None
     properties: dict[str, NDArray[Any]] = field(default_factory=dict)
     meta: dict[str, Any] = field(default_factory=dict)
+    #: Matter particles of the same realisation (synthetic halos only), handed on to the
+    #: galaxy box for lensing statistics.
+    matter: MatterParticles | None = None
 
     def __post_init__(self) -> None:
         n = len(self.mass)

@@ -35,6 +35,10 @@ Recipe (all draws from the passed-in generator):
    Springel & White 2005, MNRAS 363, L66).  The concentration is also stored as the halo
    property "secondary", so a decorated HOD changes the clustering of this box.
 
+6. Matter (only when asked for, from its own generator): particles of mass ρ̄/n in NFW
+   profiles around the halos and, for the rest of the mass, Poisson-sampled from the
+   unbiased lognormal field of the same white noise (:func:`synthetic_matter`).
+
 Units: Mpc/h, km/s, Msun/h.
 """
 
@@ -47,7 +51,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..catalog import GalaxyBox
+from ..catalog import GalaxyBox, MatterParticles
 from ..cosmology import Cosmology
 from ..errors import InputError
 from .halos import HaloCatalog
@@ -65,9 +69,15 @@ from .lognormal import (
     white_noise_k,
 )
 from .massfunction import LOG_M_RANGE, HaloMassFunction
-from .nfw import concentration_power_law, virial_radius
+from .nfw import (
+    concentration_power_law,
+    isotropic_directions,
+    sample_nfw_radii,
+    virial_radius,
+)
 from .populate import populate
 from .power import LinearPower
+from .units import mean_matter_density
 
 log = logging.getLogger(__name__)
 
@@ -123,7 +133,8 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
                          sigma8: float, n_s: float, omega_b: float, rng: np.random.Generator,
                          grid: int | None = None, m_min: float = 1e11, *,
                          mass_bin_dex: float = 0.25, secondary_corr: float = 0.5,
-                         conc_scatter_dex: float = 0.1,
+                         conc_scatter_dex: float = 0.1, matter_density: float = 0.0,
+                         matter_rng: np.random.Generator | None = None,
                          workers: int | None = None) -> HaloCatalog:
     """Lognormal halo box with Tinker 2008 abundances and Tinker 2010 bias (module docstring).
 
@@ -149,13 +160,19 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
         Correlation of the concentration scatter with local density, in [−1, 1].
     conc_scatter_dex : float
         Scatter of log10 c at fixed mass.
+    matter_density : float
+        Matter particles per (Mpc/h)³ to draw as well (0: none; see :func:`synthetic_matter`).
+    matter_rng : numpy.random.Generator, optional
+        Source of the matter particles' draws (separate, so the halos do not depend on
+        whether matter is drawn); needed when ``matter_density`` > 0.
     workers : int, optional
         FFT threads.
 
     Returns
     -------
     HaloCatalog
-        With concentration, rvir [Mpc/h] and the property "secondary" (= concentration).
+        With concentration, rvir [Mpc/h], the property "secondary" (= concentration) and,
+        with ``matter_density`` > 0, ``matter``.
     """
     grid = default_grid(box_size) if grid is None else grid
     check_grid(box_size, grid)
@@ -168,6 +185,11 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
         problems.append(f"secondary_corr = {secondary_corr!r}: expected -1 .. 1")
     if not 0.0 <= conc_scatter_dex <= 0.5:
         problems.append(f"conc_scatter_dex = {conc_scatter_dex!r}: expected 0 .. 0.5 dex")
+    if not (np.isfinite(matter_density) and matter_density >= 0):
+        problems.append(f"matter_density = {matter_density!r}: expected particles per "
+                        "(Mpc/h)³ ≥ 0")
+    elif matter_density > 0 and matter_rng is None:
+        problems.append("matter_density > 0 needs matter_rng")
     if problems:
         raise InputError("; ".join(problems), problems)
 
@@ -213,6 +235,17 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
         spread = local.std()
         env[idx] = (local - local.mean()) / spread if idx.size > 1 and spread > 0 else 0.0
 
+    matter_weights = None
+    if matter_density > 0:
+        # the unbiased lognormal matter field of the same white noise (bias 1, no smoothing
+        # beyond the grid): its power spectrum is the linear one on the grid
+        filt, _ = lognormal_filter(amp**2, 1.0, grid, workers)
+        g = to_real(noise_k * filt, grid, workers=workers)
+        del filt
+        g -= g.max()
+        matter_weights = np.exp(g)
+        del g
+
     cosmo_a = 1.0 / (1.0 + redshift)
     factor = float(cosmo_a * cosmology.hubble(redshift) * cosmology.growth_rate(redshift))
     noise_k *= amp
@@ -229,10 +262,56 @@ def make_synthetic_halos(box_size: float, redshift: float, cosmology: Cosmology,
         "BOXMADE": "synthetic lognormal halos (conecheck)", "SIGMA8": float(sigma8),
         "NS": float(n_s), "OMEGAB": float(omega_b), "OMEGAM": float(cosmology.omega_m),
         "GRID": int(grid), "MMIN": float(m_min), "MMAX": float(m_max)}
-    return HaloCatalog(position, velocity, mass, float(box_size), float(redshift),
-                       concentration=conc, rvir=virial_radius(mass, cosmology.omega_m),
-                       halo_id=np.arange(n_halo, dtype=np.int64),
-                       properties={"secondary": conc.copy()}, meta=meta)
+    halos = HaloCatalog(position, velocity, mass, float(box_size), float(redshift),
+                        concentration=conc, rvir=virial_radius(mass, cosmology.omega_m),
+                        halo_id=np.arange(n_halo, dtype=np.int64),
+                        properties={"secondary": conc.copy()}, meta=meta)
+    if matter_weights is not None:
+        halos.matter = synthetic_matter(halos, matter_weights, matter_density, cosmology,
+                                        matter_rng)
+    return halos
+
+
+def synthetic_matter(halos: HaloCatalog, field_weights: NDArray[np.floating],
+                     density: float, cosmology: Cosmology, rng: np.random.Generator
+                     ) -> MatterParticles:
+    """Matter particles of a synthetic box: halos as NFW profiles, the rest as a field.
+
+    The mean comoving matter density ρ̄ = Ω_m ρ_crit fixes the particle mass
+    m_p = ρ̄ / ``density``. Each halo of mass M gets Poisson(M/m_p) particles drawn from its
+    truncated NFW profile (Navarro, Frenk & White 1997; its concentration and r_vir); the
+    mass outside halos, ρ̄L³ − ΣM, is Poisson-sampled from the lognormal matter field
+    ``field_weights`` (cell weights of the grid). The lensing signal around the galaxies
+    thus has a one-halo term from their own halos and a two-halo term from the field.
+
+    Parameters
+    ----------
+    halos : HaloCatalog
+        With concentration and rvir [Mpc/h].
+    field_weights : ndarray, shape (N, N, N)
+        Relative matter density per grid cell.
+    density : float
+        Particles per (Mpc/h)³.
+    cosmology : Cosmology
+        For Ω_m.
+    rng : numpy.random.Generator
+        Source of the draws.
+    """
+    L = float(halos.box_size)
+    m_p = mean_matter_density(cosmology.omega_m) / density
+    per_halo = rng.poisson(halos.mass / m_p)
+    host = np.repeat(np.arange(len(halos)), per_halo)
+    conc = np.asarray(halos.concentration)[host]
+    r = sample_nfw_radii(conc, rng) * np.asarray(halos.rvir)[host]
+    in_halos = halos.position[host] + r[:, None] * isotropic_directions(host.size, rng)
+    outside = max(density * L**3 - float(halos.mass.sum()) / m_p, 0.0)
+    field, _ = sample_in_cells(field_weights, int(rng.poisson(outside)), L, rng)
+    pos = np.mod(np.vstack([in_halos, field]), L)
+    pos[pos >= L] = 0.0
+    log.info("synthetic matter: %d particles of %.3g Msun/h (%d in halos)", len(pos), m_p,
+             host.size)
+    return MatterParticles(pos, float(m_p), L, {"MATTER": "synthetic: NFW halos + field",
+                                                "NPART": int(len(pos))})
 
 
 def synthetic_halos_for(box_size: float, redshift: float, cosmology: Cosmology,
@@ -269,6 +348,7 @@ def populate_synthetic(halos: HaloCatalog, hod_model: HODModel, rng: np.random.G
                        cosmology: Cosmology) -> GalaxyBox:
     """:func:`~.populate.populate` for synthetic halos, with the recipe in the box's ``meta``."""
     box = populate(halos, hod_model, rng, cosmology)
+    box.matter = halos.matter
     box.meta.update(halos.meta)
     box.meta["BOXMADE"] = "synthetic lognormal halos + HOD (conecheck)"
     box.meta["NHALO"] = len(halos)

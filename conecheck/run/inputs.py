@@ -19,7 +19,7 @@ from ..box import default_hod_model, load_hod, populate, read_halo_catalog
 from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
 from ..box.synthetic import populate_synthetic, synthetic_halos_for
-from ..catalog import GalaxyBox, file_sha256, read_galaxy_box
+from ..catalog import GalaxyBox, file_sha256, read_galaxy_box, read_matter_particles
 from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, RunConfig
 from ..cosmology import Cosmology
 from ..errors import InputError
@@ -55,6 +55,7 @@ def input_files(cfg: RunConfig) -> dict[str, Path]:
         "survey.mask": _existing(cfg, cfg.survey.mask, "survey.mask"),
         "box.path": _existing(cfg, cfg.box.path, "box.path"),
         "box.hod": _existing(cfg, cfg.box.hod, "box.hod"),
+        "box.particles": _existing(cfg, cfg.box.particles, "box.particles"),
         "survey.fibres.overlap_map": _existing(cfg, cfg.fibres.overlap_map,
                                                "survey.fibres.overlap_map"),
     }
@@ -102,10 +103,15 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
                                   b.box_size, b.redshift, hdf5_path=b.hdf5_path,
                                   hubble_h=cfg.cosmology.h)
     else:
+        # the synthetic box draws its own matter when a lensing statistic needs it and no
+        # particle file is given, from a generator of its own (the halos stay the same)
+        own_matter = cfg.statistics.matter_reach is not None and not b.particles
         halos = synthetic_halos_for(b.box_size or SYNTHETIC_BOX_SIZE,
                                     SYNTHETIC_REDSHIFT if b.redshift is None else b.redshift,
                                     cosmology_of(cfg), b.sigma8, b.n_s, b.omega_b, model, rng,
-                                    grid=b.grid)
+                                    grid=b.grid,
+                                    matter_density=b.particle_density if own_matter else 0.0,
+                                    matter_rng=seeded_rng(cfg.seed, "box-matter"))
     return halos, model, rng
 
 
@@ -124,6 +130,15 @@ def load_box_and_halos(cfg: RunConfig) -> tuple[GalaxyBox, HaloCatalog | None,
         halos, model, rng = box_halos(cfg)
         fill = populate_synthetic if b.source == "synthetic" else populate
         box = fill(halos, model, rng, cosmo)
+    if b.particles and cfg.statistics.matter_reach is not None:
+        box.matter = read_matter_particles(_existing(cfg, b.particles, "box.particles"),
+                                           b.particle_mass, box.box_size,
+                                           b.particle_columns or None, None,
+                                           cfg.cosmology.h)
+    elif cfg.statistics.matter_reach is None:
+        box.matter = None  # nothing measured needs it: keep it out of every task and key
+    if halos is not None:
+        halos.matter = box.matter  # the HOD derivatives repopulate the halos
     if needs_magnitudes(cfg) and box.abs_mag is None:
         raise InputError("box: the samples' magnitude thresholds or the flux limit need an "
                          "absolute magnitude column; map one as box.columns.abs_mag")

@@ -179,7 +179,8 @@ def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None
                           f"(statistics.vpf.n_spheres, randoms.multiple and the shell's depth "
                           f"set it); lower them")
     if density is not None and L is not None:
-        hours = pair_work(cfg, footprint, density, L) / PAIRS_PER_CORE_SECOND / 3600.0
+        hours = pair_work(cfg, footprint, density, L, matter_density(cfg, box, L)
+                          ) / PAIRS_PER_CORE_SECOND / 3600.0
         workers = max(1, cfg.compute.workers or os.cpu_count() or 1)
         notes.append(f"pair counting: about {hours:.2g} core-hours, {hours / workers:.2g} h "
                      f"on {workers} worker(s) (order of magnitude; --ladder adds about one "
@@ -247,15 +248,25 @@ def _cut_volumes(cfg: RunConfig, footprint: Footprint) -> dict[str, list[float]]
                      for c in s.cuts] for s in cfg.samples}
 
 
+def matter_density(cfg: RunConfig, box: GalaxyBox | None, L: float) -> float:
+    """Matter particles per (Mpc/h)³ the run's lensing statistics will meet (0: none)."""
+    if cfg.statistics.matter_reach is None:
+        return 0.0
+    if box is not None and box.matter is not None:
+        return len(box.matter) / L**3
+    return cfg.box.particle_density if not cfg.box.particles else 0.0
+
+
 def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, float],
-              L: float) -> float:
+              L: float, n_matter: float = 0.0) -> float:
     """Pairs the run's estimators examine, an order-of-magnitude count.
 
     Each galaxy (or random, or a statistic's own centre such as a VPF sphere) meets the
     ``n × V`` neighbours inside its search volume V, which each statistic states
     (:meth:`~conecheck.stats.Statistic.cost`; e.g. the wp cylinder (r_p,max, ±π_max) with
     (1 + randoms multiple)² for DD, DR and RR in every cone and three line-of-sight axes in
-    the box).  HOD boxes add two box runs per derivative.
+    the box), and ``n_matter × V`` matter particles [per (Mpc/h)³] inside its lensing
+    search volume.  HOD boxes add two box runs per derivative.
     Clustering raises DD above this by 1 + ξ̄, a factor of order one at these scales.
     """
     stats = cfg.statistics
@@ -270,8 +281,10 @@ def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, fl
     for s in cfg.samples:
         n = density[s.name]
         n_cone = sum(n * v for v in volumes[s.name])
-        total += cfg.cones.n_cones * n_cone * n * search
-        total += box_runs * n * L**3 * n * box_search
+        total += cfg.cones.n_cones * n_cone * (n * search
+                                               + n_matter * sum(c.matter_volume for c in costs))
+        total += box_runs * n * L**3 * (n * box_search
+                                        + n_matter * sum(c.box_matter_volume for c in costs))
         total += (cfg.cones.n_cones + box_runs) * centres * len(volumes[s.name]) * n
     return total
 

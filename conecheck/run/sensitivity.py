@@ -76,6 +76,7 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
             # the same draws each time (common random numbers)
             rng = seeded_rng(box_spec.seed, "hod-derivative", sample.name)
             box = populate(halos, varied_model(model, threshold, name, v), rng, cosmo)
+            box.matter = halos.matter
             keep = np.ones(len(box), dtype=bool)
             values[side] = measure_box_sample(box_spec, box, keep, jackknife=False)
         for stat in per_stat:

@@ -19,11 +19,12 @@ from ..box import apply_box_redshift_scatter, apply_box_rsd
 from ..catalog import GalaxyBox
 from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms, select_cut
 from ..cone.build import SurveyModel, prepare_box
+from ..cone.matter import carry_matter
 from ..cone.settings import SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
 from ..footprint import Footprint, SkyRegions
-from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, Measurement
+from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, MatterSample, Measurement
 from ..stats.base import LOS_VARIANCE
 from ..streams import seeded_rng
 from .specs import BoxSpec, ConeBuildSpec, ConeSpec, CutSpec, RandomsSpec, SampleThreshold
@@ -99,13 +100,17 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
     pos = box_redshift_space(spec, box, axis)
     bs = BoxSample.with_regions(pos[keep], box.box_size, axis, n_side=spec.jackknife.n_side,
                                 layout=spec.jackknife.layout)
+    matter = None if box.matter is None else MatterSample(
+        box.matter.position, box.matter.particle_mass, box.box_size)
     out = {}
     for name in spec.statistics.measure:
         if statistics is not None and name not in statistics:
             continue
         rng = seeded_rng(spec.seed, "box", sample.name, name)
-        out[name] = STATISTICS[name].measure_box(bs, spec.statistics.get(name), rng,
-                                                 jackknife=jackknife)
+        stat = STATISTICS[name]
+        extra = {"matter": matter} if stat.needs_matter else {}
+        out[name] = stat.measure_box(bs, spec.statistics.get(name), rng, jackknife=jackknife,
+                                     **extra)
     return out
 
 
@@ -232,10 +237,27 @@ def cone_table(spec: ConeBuildSpec, box: GalaxyBox, footprint: Footprint, cells:
                       keep_targets=keep_targets)
 
 
+def cone_matter(spec: ConeBuildSpec, box: GalaxyBox, footprint: Footprint,
+                reach: tuple[float, float] | None) -> MatterSample | None:
+    """The box's matter carried into cone ``spec.index`` (same observer, rotation and
+    replicas as its galaxies) as far as ``reach`` (across, along the LOS) [Mpc/h] around the
+    survey; None when nothing needs it."""
+    if reach is None:
+        return None
+    if box.matter is None:
+        raise InputError("a lensing statistic is measured but the box has no matter "
+                         "particles; set box.particles")
+    o, rot = cone_geometry(spec.observers, box.box_size, spec.n_cones, spec.seed, spec.index)
+    xyz = carry_matter(box.matter, survey_model(spec, footprint), o, rot, *reach)
+    return MatterSample(xyz, box.matter.particle_mass)
+
+
 def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
-                     footprint: Footprint, regions: SkyRegions, randoms: dict[str, Any]
+                     footprint: Footprint, regions: SkyRegions, randoms: dict[str, Any],
+                     matter: MatterSample | None = None
                      ) -> tuple[dict[str, Measurement], np.ndarray]:
-    """Every statistic of one sample cut measured on one built cone (with sky jackknife)."""
+    """Every statistic of one sample cut measured on one built cone (with sky jackknife);
+    ``matter``: the cone's matter (:func:`cone_matter`) for lensing statistics."""
     cosmo = build.model()
     cut = cut_spec.cut
     sel = select_cut(table, cut, build.shell, cosmo)
@@ -249,8 +271,10 @@ def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
     for name in stats.measure:
         rng = seeded_rng(build.seed, "cone", build.index, cut_spec.sample_name, cut.label, name,
                        cut_spec.tag)
-        out[name] = STATISTICS[name].measure_cone(data, rand, geometry, stats.get(name), rng,
-                                                  shared.get(name), jackknife=True)
+        stat = STATISTICS[name]
+        extra = {"matter": matter} if stat.needs_matter else {}
+        out[name] = stat.measure_cone(data, rand, geometry, stats.get(name), rng,
+                                      shared.get(name), jackknife=True, **extra)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
     nz, _ = np.histogram(np.asarray(sel["z_obs"]), bins=edges,
                          weights=np.asarray(sel["weight"]))
@@ -275,6 +299,10 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
         (replicas, fibre statistics, sizes) and ``skipped`` (sample → cut → reason).
     """
     table, info = cone_table(spec.build, box, footprint)
+    reach = [cs.statistics.matter_reach for cs in spec.cuts]
+    reach = [r for r in reach if r is not None]
+    matter = cone_matter(spec.build, box, footprint,
+                         (max(r[0] for r in reach), max(r[1] for r in reach)) if reach else None)
     meas: dict[str, Any] = {}
     nz: dict[str, Any] = {}
     skipped: dict[str, dict[str, str]] = {}
@@ -285,7 +313,7 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
         where = f"sample {name}, cut {label}"
         try:
             m, h = measure_cone_cut(spec.build, cs, table, footprint, regions,
-                                    randoms[name][label])
+                                    randoms[name][label], matter)
         except InputError as exc:
             if spec.skip_unmeasurable:
                 meas[name][label] = nz[name][label] = None
@@ -305,5 +333,6 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
                "n_targets": int(info.get("n_targets", 0)),
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
-               "build_seconds": float(info.get("timing_s", {}).get("total", 0.0))}
+               "build_seconds": float(info.get("timing_s", {}).get("total", 0.0)),
+               "n_matter_particles": 0 if matter is None else len(matter)}
     return {"measurements": meas, "nz": nz, "info": summary, "skipped": skipped}

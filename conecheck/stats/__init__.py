@@ -7,7 +7,7 @@ labels and, on request, the jackknife delete-one vectors).
 """
 
 from .annuli import AnnuliSettings, annuli_box, annuli_cone
-from .base import BoxSample, ConeGeometry, ConeSample, Measurement
+from .base import BoxSample, ConeGeometry, ConeSample, MatterSample, Measurement
 from .cic import CicSettings, cic_box, cic_cone
 from .number_density import NumberDensitySettings, number_density_box, number_density_cone
 from .registry import (
@@ -25,7 +25,8 @@ from .wp import WpSettings, count_rr_cone, wp_box, wp_cone
 __all__ = [
     "ENTRY_POINT_GROUP", "LOAD_PROBLEMS", "SETTINGS_TYPES", "STATISTICS", "AnnuliSettings",
     "BoxSample", "CicSettings", "ConeGeometry", "ConeSample", "Cost", "Display",
-    "Measurement", "NumberDensitySettings", "Statistic", "VpfSettings", "WpSettings",
+    "MatterSample", "Measurement", "NumberDensitySettings", "Statistic", "VpfSettings",
+    "WpSettings",
     "annuli_box", "annuli_cone", "cic_box", "cic_cone", "count_rr_cone", "make_settings",
     "number_density_box", "number_density_cone", "statistic", "vpf_box", "vpf_cone",
     "wp_box", "wp_cone",

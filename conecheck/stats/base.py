@@ -189,6 +189,40 @@ class BoxSample:
 
 
 @dataclass(frozen=True)
+class MatterSample:
+    """A matter tracer for lensing statistics: particles of equal mass.
+
+    Attributes
+    ----------
+    position : ndarray, shape (N, 3)
+        Real-space positions [Mpc/h]: box coordinates in [0, box_size), or Cartesian with
+        the observer at the origin for a cone.
+    particle_mass : float
+        Mass of one particle [M_⊙/h].
+    box_size : float or None
+        Side of the periodic box [Mpc/h]; None for a cone.
+    """
+
+    position: NDArray[np.float64]
+    particle_mass: float
+    box_size: float | None = None
+
+    def __post_init__(self) -> None:
+        pos = _as_float(self.position, "matter particle positions")
+        if pos.ndim != 2 or pos.shape[1] != 3:
+            raise InputError(f"matter particle positions: expected shape (N, 3), got "
+                             f"{pos.shape}")
+        object.__setattr__(self, "position", pos)
+        m = self.particle_mass
+        if not (isinstance(m, (int, float, np.floating)) and np.isfinite(m) and m > 0):
+            raise InputError(f"particle mass: expected a positive number of M_⊙/h, got {m!r}")
+        object.__setattr__(self, "particle_mass", float(m))
+
+    def __len__(self) -> int:
+        return int(self.position.shape[0])
+
+
+@dataclass(frozen=True)
 class ConeSample:
     """Galaxies (or randoms) of one light cone, in observed sky and distance coordinates.
 

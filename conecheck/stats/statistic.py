@@ -12,7 +12,10 @@ module attribute ``STATISTIC``. The class owns
   every cone of a sample and cut
   (:meth:`Statistic.prepare_cone`, stored through :meth:`Statistic.pack_shared` and
   :meth:`Statistic.unpack_shared`);
-* its **box and cone measurements** with jackknife delete-one vectors;
+* its **box and cone measurements** with jackknife delete-one vectors (a statistic with
+  ``needs_matter`` also receives the matter tracer, :class:`~.base.MatterSample`, as
+  ``matter=``, and says through :meth:`Statistic.matter_reach` how far around the galaxies
+  it needs it);
 * its **display**: names, symbol, order and the hints the report's panels follow
   (:class:`Display`);
 * its **cost** for the pre-flight estimate (:meth:`Statistic.cost`).
@@ -48,7 +51,10 @@ class Display:
     order : int
         Position among the statistics on every page and table (smaller first).
     scale_by_bins : bool
-        Draw bin × value on the value pages (flattens a power law such as w_p(r_p)).
+        Draw bin^scale_power × value on the value pages (flattens a power law such as
+        w_p(r_p)).
+    scale_power : int
+        Power of the bin in that product (2 for s²ξ_ℓ(s)).
     scaled_label : str
         Axis label of the scaled value (with units), used when ``scale_by_bins``.
     """
@@ -58,6 +64,7 @@ class Display:
     symbol: str
     order: int = 100
     scale_by_bins: bool = False
+    scale_power: int = 1
     scaled_label: str = ""
 
 
@@ -77,12 +84,17 @@ class Cost:
         (e.g. random spheres), independent of the number of galaxies.
     task_bytes : float
         Extra memory a cone task holds for this statistic [bytes].
+    matter_volume, box_matter_volume : float
+        Search volume per cone and per box galaxy among the matter particles
+        [(Mpc/h)³] (pairs examined ≈ particle density × V per galaxy).
     """
 
     cone_volume: float = 0.0
     box_volume: float = 0.0
     centre_volume: float = 0.0
     task_bytes: float = 0.0
+    matter_volume: float = 0.0
+    box_matter_volume: float = 0.0
 
 
 class Statistic:
@@ -102,6 +114,9 @@ class Statistic:
     needs_randoms: ClassVar[bool] = False
     #: The box estimator depends on which box axis is the line of sight.
     los_dependent: ClassVar[bool] = True
+    #: The estimators need a matter tracer (:class:`~.base.MatterSample`), passed to
+    #: :meth:`measure_box` and :meth:`measure_cone` as ``matter=``.
+    needs_matter: ClassVar[bool] = False
 
     # ------------------------------------------------------------------ settings
     def defaults(self) -> Any:
@@ -119,6 +134,11 @@ class Statistic:
     def n_bins(self, settings: Any = None) -> int:
         """Length of the data vector with ``settings``."""
         raise NotImplementedError
+
+    def matter_reach(self, settings: Any = None) -> tuple[float, float]:
+        """Largest separation across and along a galaxy's line of sight [Mpc/h] at which
+        the statistic uses matter (how far around the galaxies a cone must carry it)."""
+        return 0.0, 0.0
 
     # ------------------------------------------------------------------ shared work
     def prepare_cone(self, randoms: ConeSample | None, geometry: ConeGeometry,
