@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import healpy as hp
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -27,6 +28,10 @@ from .geometry import (
     iter_shell_chunks,
     replica_offsets,
 )
+
+#: N_side of the map of angular distances to the footprint (pixels of ≈ 0.9°; the test
+#: subtracts a pixel's radius, so it keeps every particle it should).
+_NSIDE = 64
 
 
 def carry_matter(matter: MatterParticles, survey: SurveyModel, observer: ArrayLike,
@@ -63,18 +68,26 @@ def carry_matter(matter: MatterParticles, survey: SurveyModel, observer: ArrayLi
     if cells is None:
         cells = BoxCells.build(matter.position, L)
     coverage = survey.coverage()
+    # angular distance from each pixel of a coarse map to the footprint's coverage, once
+    # per cone: then each particle costs one pixel lookup
+    far = None
+    if coverage is not None:
+        x, y, z = hp.pix2vec(_NSIDE, np.arange(hp.nside2npix(_NSIDE)))
+        chord, _ = coverage.tree.query(np.column_stack([x, y, z]), k=1)
+        far = (2.0 * np.arcsin(np.minimum(0.5 * chord, 1.0)) - coverage.pixel_radius
+               - hp.max_pixrad(_NSIDE))
     kept = []
     # no coverage pruning of whole cells here: a particle outside the footprint still
     # matters to the galaxies near its edge
     for chunk in iter_shell_chunks(matter.position, cells, L, o, rot,
                                    replica_offsets(o, L, r_in, r_out), r_in, r_out, None):
         r = chunk.r
-        if coverage is not None and len(r):
+        if far is not None and len(r):
             chi = np.linalg.norm(r, axis=1)
             # within r_perp of the observer any direction may be near a galaxy
             angle = np.where(chi > r_perp,
                              np.arcsin(np.clip(r_perp / np.maximum(chi, 1e-300), 0.0, 1.0)),
                              np.pi)
-            r = r[coverage.touches(r / np.maximum(chi, 1e-300)[:, None], angle)]
+            r = r[far[hp.vec2pix(_NSIDE, r[:, 0], r[:, 1], r[:, 2])] <= angle]
         kept.append(r)
     return np.concatenate(kept) if kept else np.zeros((0, 3))
