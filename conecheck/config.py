@@ -700,11 +700,19 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
                 problems.append(f"{where}: cut {cut.z_min}–{cut.z_max} lies outside the survey "
                                 f"shell survey.shell z_min–z_max = {shell.z_min}–{shell.z_max}")
     for i, combo in enumerate(cfg.parameter_shifts.combinations):
-        bad = [s for s in combo.split("+") if s not in cfg.statistics.measure]
-        if bad:
+        names = combo.split("+")
+        unknown = [s for s in names if s not in STATISTIC_NAMES]
+        if unknown:
             problems.append(f"parameter_shifts.combinations[{i}] = {combo!r}: "
-                            f"{', '.join(bad)} not in statistics.measure "
-                            f"({', '.join(cfg.statistics.measure)}); join measured names with +")
+                            f"{', '.join(unknown)} is not a statistic (measured: "
+                            f"{', '.join(cfg.statistics.measure)}); join names with +")
+            continue
+        # a statistic taken out of statistics.measure simply leaves its combinations
+        unmeasured = [s for s in names if s not in cfg.statistics.measure]
+        if unmeasured:
+            warnings.append(f"parameter_shifts.combinations[{i}] = {combo!r}: "
+                            f"{', '.join(unmeasured)} not measured, left out of this "
+                            "combination")
     matter = [s for s in cfg.statistics.measure if s in NEEDS_MATTER]
     if matter and cfg.box.source != "synthetic" and not cfg.box.particles:
         problems.append(f"statistics.measure: {', '.join(matter)} "

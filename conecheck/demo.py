@@ -10,7 +10,7 @@ Every number here is invented for the demo.
 
 The full demo is the configuration template of ``conecheck init`` unchanged; ``quick``
 shrinks the box, the shell, the binning and the number of cones so the whole pipeline
-runs in well under a minute (for the tests).
+runs in about a minute (for the tests).
 """
 
 from __future__ import annotations

@@ -272,3 +272,17 @@ def test_every_toml_example_in_the_readme_parses():
             else:
                 base[key] = value
         config_from_dict(base, "README example")  # schema only: the files are examples
+
+
+def test_parameter_shift_combinations_follow_the_measured_statistics():
+    """A statistic taken out of statistics.measure leaves its combinations with a warning;
+    a name that is no statistic at all is refused."""
+    from conecheck.config import config_warnings
+
+    d = tiny_dict(**{"parameter_shifts.combinations": ["number_density+wp+delta_sigma"]})
+    cfg = config_from_dict(d, "t")
+    assert any("delta_sigma not measured" in w for w in config_warnings(cfg))
+    assert cfg.parameter_shifts.resolved(cfg.statistics.measure) == (("number_density", "wp"),)
+    d = tiny_dict(**{"parameter_shifts.combinations": ["number_density+wq"]})
+    with pytest.raises(InputError, match=r"combinations\[0\].*wq is not a statistic"):
+        config_from_dict(d, "t")

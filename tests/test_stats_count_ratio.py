@@ -105,3 +105,23 @@ def test_registered_and_configurable():
 def test_bad_settings_name_the_key(values, key):
     with pytest.raises(InputError, match=key):
         make_settings("count_ratio", values)
+
+
+def test_a_region_without_defined_ratios_keeps_the_full_value():
+    """A sparse region where no galaxy has a neighbour in the large cylinder: removing it
+    removes no centre, so its delete-one value is the full value (and it is reported)."""
+    rng = np.random.default_rng(8)
+    L = 100.0
+    # regions of n_side = 2 columns along z: region 0 is x, y < 50
+    lonely = np.column_stack([np.full(4, 20.0), np.full(4, 20.0), [5.0, 30.0, 55.0, 80.0]])
+    lonely[:, :2] += np.arange(4)[:, None] * 6.0
+    parents = rng.uniform(0, L, (300, 3))
+    parents = parents[(parents[:, 0] >= 55) | (parents[:, 1] >= 55)]
+    pairs = np.vstack([parents, parents + rng.normal(0, 0.5, parents.shape)])
+    box = BoxSample.with_regions(np.vstack([lonely, np.mod(pairs, L)]), L, 2, n_side=2)
+    st = CountRatioSettings(r_small=1.0, r_large=3.0, half_length_small=3.0,
+                            half_length_large=3.0, n_ratio=4)
+    m = count_ratio_box(box, st, jackknife=True)
+    assert m.extra["regions_without_centres"] == [0]
+    np.testing.assert_allclose(m.delete_one[0], m.value, rtol=1e-12)
+    assert not np.allclose(m.delete_one[1], m.value)

@@ -3,7 +3,7 @@
 Runs the built-in synthetic box through the fictional "Kestrel" survey (made-up footprint,
 flux limit, redshift errors, fibre collisions), two luminosity-threshold samples and an
 alternative redshift cut, and writes validation.pdf, results.json, the tables and a log to
-reports/demo/ (a few minutes on two cores; --quick: a reduced version in well under a
+reports/demo/ (a few minutes on two cores; --quick: a reduced version in about a
 minute). The configuration it runs is the `conecheck init` template.
 
 Exit code 0 when the demo ran (its verdicts are in the report; `conecheck run` is the

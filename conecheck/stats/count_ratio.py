@@ -148,10 +148,19 @@ def _measure(ratio: NDArray[np.float64], w: NDArray[np.float64], use: NDArray[np
         raise InputError(f"{NAME}: no centre has N_large ≥ {s.min_large_count:g} "
                          f"(r_large = {s.r_large:g} Mpc/h); use a larger cylinder")
     reg = None
-    if k:
-        reg = region[use]
-        check_filled(reg, k, "centres with a defined ratio")
     extra = dict(extra)
+    if k:
+        check_filled(region, k, "galaxies")
+        reg = region[use]
+        # A sparse sample can leave a small region without any centre of N_large ≥ the
+        # floor: its delete-one value is then the full one, which is what removing it does.
+        # The galaxies themselves must fill every region.
+        empty = np.flatnonzero(np.bincount(reg, minlength=k) == 0)
+        if k - empty.size < 2:
+            raise InputError(f"{NAME}: only {k - empty.size} of {k} jackknife regions hold "
+                             f"centres with N_large ≥ {s.min_large_count:g}; use a larger "
+                             "r_large or fewer jackknife regions")
+        extra["regions_without_centres"] = empty.tolist()
     extra["undefined_fraction"] = float(w[~use].sum() / w.sum()) if w.sum() > 0 else 0.0
     extra["volume_ratio"] = s.volume_ratio
     return distribution(NAME, ratio[use], w[use], reg, k, s.edges, extra,
