@@ -77,7 +77,7 @@ def _z_axes(ax, x: np.ndarray, c: Comparison, z_fail: float, logx: bool,
     ax.set_ylabel("z")
     ax.set_xlabel(xlabel)
     if logx:
-        ax.set_xscale("log")
+        st.log_x(ax)
     ax.grid(True, axis="y")
 
 
@@ -122,13 +122,13 @@ def _curve_cell(page: Page, i: int, name: str, c: Comparison, z_fail: float) -> 
     ax.yaxis.set_major_formatter(lambda v, _p: f"{100 * v:.3g}%")
     ax.set_ylabel("Δ/b")
     if logx:
-        ax.set_xscale("log")
+        st.log_x(ax)
     ax.tick_params(labelbottom=False)
     ax.grid(True, axis="y")
     zax = page.axes(ax_x, y0 + 0.4 + main_h, ax_w, ch * 0.2, f"{name}:z", sharex=ax)
     _z_axes(zax, x, c, z_fail, False, c.bin_label or "bin")
     if logx:
-        zax.set_xscale("log")
+        st.log_x(zax)
     return [f"{name}:offset", f"{name}:z"]
 
 

@@ -91,7 +91,7 @@ def _value_panel(page: Page, i: int, name: str, d: dict[str, Any], legend: bool)
         if ac.wants_log_axis(np.concatenate([b, mean])):
             ax.set_yscale("log")
         if ac.wants_log_axis(x):
-            ax.set_xscale("log")
+            st.log_x(ax)
         ax.set_xlabel(shorten(c.bin_label or "bin", w, st.BODY))
     ax.set_ylabel(shorten(_y_label(name, c), h, st.BODY))
     ax.grid(True, alpha=0.4)

@@ -16,6 +16,7 @@ matplotlib.use("Agg")
 
 from matplotlib import rc_context  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap, to_rgba  # noqa: E402
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 
 #: A4 portrait [inch].
 PAGE_W, PAGE_H = 8.27, 11.69
@@ -91,6 +92,16 @@ def verdict_colour(verdict: str | None) -> str:
 def verdict_tint(verdict: str | None) -> str:
     """Light background colour of a verdict (grey when unknown)."""
     return VERDICT_TINTS.get(verdict or "", UNKNOWN_TINT)
+
+
+def log_x(ax) -> None:
+    """A logarithmic x axis labelled in plain numbers at 1, 2 and 5 × 10ⁿ, minor ticks bare:
+    matplotlib's default labels every minor tick of an axis spanning about one decade, and
+    those labels run into each other."""
+    ax.set_xscale("log")
+    ax.xaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+    ax.xaxis.set_minor_formatter(NullFormatter())
 
 
 @contextmanager
