@@ -146,10 +146,19 @@ def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
         return {}
     halos_ref = inp.executor.share(inp.halos)
     steps = tuple(sorted(DEFAULT_STEPS.items()))
+    # only the statistics some combination fits need derivatives
+    fitted = {n for combo in c.parameter_shifts.resolved(c.statistics.measure) for n in combo}
+    if not fitted:
+        return {}
     tasks = []
     for s in c.samples:
-        spec = DerivativesSpec(box=box_spec(c, s, inp.content(inp.box)),
-                               halos_content=inp.content(inp.halos), hod=inp.hod, steps=steps)
+        bspec = box_spec(c, s, inp.content(inp.box))
+        stats = bspec.statistics
+        bspec = dataclasses.replace(bspec, statistics=dataclasses.replace(
+            stats, measure=tuple(n for n in stats.measure if n in fitted),
+            settings={n: v for n, v in stats.settings.items() if n in fitted}))
+        spec = DerivativesSpec(box=bspec, halos_content=inp.content(inp.halos), hod=inp.hod,
+                               steps=steps)
         tasks.append(Task(key=spec_key(spec), label=f"HOD derivatives / sample {s.name}",
                           func=hod_derivatives_task, args=(spec, halos_ref), kind="box"))
     results = _run_stage(inp, "HOD derivatives", tasks)
