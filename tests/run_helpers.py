@@ -27,7 +27,9 @@ def tiny_dict(one_sample: bool = True, **changes: Any) -> dict[str, Any]:
     # The demo validates all eight statistics; these runs check the pipeline's plumbing with
     # the first four, which keeps each run to a few seconds (tests that need another add it).
     d["statistics"]["measure"] = ["number_density", "wp", "cic", "vpf"]
-    d.get("parameter_shifts", {}).pop("combinations", None)  # the defaults, for these four
+    shifts = d.setdefault("parameter_shifts", {})
+    shifts.pop("combinations", None)  # the defaults, for these four
+    shifts["enabled"] = True  # the quick demo leaves them out; the pipeline tests check them
     if one_sample:
         d["samples"] = [d["samples"][0]]
         d["samples"][0]["alt_cuts"] = []

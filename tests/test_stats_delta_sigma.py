@@ -168,6 +168,9 @@ def test_bad_input_names_the_problem():
         delta_sigma_box(lens, None)
     with pytest.raises(InputError, match="not the galaxies' box"):
         delta_sigma_box(lens, MatterSample(rng.uniform(0, 60, (10, 3)), 1e10, 60.0))
+    with pytest.raises(InputError, match=r"statistics.delta_sigma: pi_max = 30 Mpc/h must be"):
+        delta_sigma_box(lens, MatterSample(rng.uniform(0, 50, (10, 3)), 1e10, 50.0),
+                        DeltaSigmaSettings(rp_edges=(1.0, 2.0), pi_max=30.0))
     with pytest.raises(InputError, match="particle mass"):
         MatterSample(np.zeros((2, 3)), -1.0)
     with pytest.raises(InputError, match="statistics.delta_sigma.rp_edges"):

@@ -173,6 +173,8 @@ def test_jackknife_regions_too_small_for_the_largest_separation():
     box = BoxSample.with_regions(rng.uniform(0, 90.0, (500, 3)), 90.0, 2, n_side=3)
     with pytest.raises(InputError, match="fewer jackknife regions"):
         multipoles_box(box, MultipolesSettings(s_edges=(1.0, 35.0)))
+    with pytest.raises(InputError, match=r"statistics.multipoles: largest s edge = 50"):
+        multipoles_box(BoxSample(box.position, 90.0, 2), MultipolesSettings(s_edges=(1.0, 50.0)))
     box2 = BoxSample.with_regions(rng.uniform(0, 90.0, (500, 3)), 90.0, 2, n_side=2)
     with pytest.raises(InputError, match="more jackknife regions"):
         multipoles_box(box2, MultipolesSettings(s_edges=(1.0, 30.0)))

@@ -200,11 +200,14 @@ def delta_sigma_box(sample: BoxSample, matter: MatterSample,
     e = settings.count_edges
     # particles sit in region k (never deleted) so touch[:k] holds the pairs of each
     # region's lenses only
-    counts = count_rppi_box(sample.position, sample.weight, reg, matter.position, None,
-                            np.full(len(matter), k, dtype=np.int64) if jk else None,
-                            box_size=sample.box_size, los_axis=sample.los_axis, rp_edges=e,
-                            pi_max=settings.pi_max, dpi=settings.pi_max,
-                            n_regions=k + 1 if jk else 0)
+    try:
+        counts = count_rppi_box(sample.position, sample.weight, reg, matter.position, None,
+                                np.full(len(matter), k, dtype=np.int64) if jk else None,
+                                box_size=sample.box_size, los_axis=sample.los_axis,
+                                rp_edges=e, pi_max=settings.pi_max, dpi=settings.pi_max,
+                                n_regions=k + 1 if jk else 0)
+    except InputError as exc:  # e.g. a projection deeper than half the box: name the table
+        raise InputError(f"{_KEY}: {exc}") from exc
     value, delete_one = _estimate(settings, counts, matter, float(sample.w.sum()), reg_w, k)
     return _measurement(settings, value, delete_one,
                         {"n_particles": len(matter), "particle_mass": matter.particle_mass,

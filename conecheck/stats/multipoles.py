@@ -356,9 +356,12 @@ def multipoles_box(sample: BoxSample, settings: MultipolesSettings | None = None
     k = sample.n_regions if jk else 0
     if jk:
         check_filled(sample.region, k, "galaxies")
-    dd = count_smu_box(sample.position, sample.weight, sample.region if jk else None,
-                       box_size=sample.box_size, los_axis=sample.los_axis, bins=bins,
-                       n_regions=k)
+    try:
+        dd = count_smu_box(sample.position, sample.weight, sample.region if jk else None,
+                           box_size=sample.box_size, los_axis=sample.los_axis, bins=bins,
+                           n_regions=k)
+    except InputError as exc:  # e.g. s_max beyond half the box: name the table
+        raise InputError(f"{_KEY}: {exc}") from exc
     if dd.norm <= 0:
         raise InputError(f"{NAME}: the box sample needs at least two galaxies with positive "
                          "weight")
