@@ -22,11 +22,10 @@ import datetime as dt
 import os
 import platform
 import subprocess
-import time
 from pathlib import Path
-from typing import Any
 
 import numpy as np
+from bench_pairs import best_of  # the same best-of-N timer (this script's directory)
 
 import conecheck as cc
 from conecheck.cone import make_randoms, n_randoms, select_cut
@@ -42,15 +41,6 @@ from conecheck.run.tasks import (
     sample_mask,
 )
 from conecheck.stats import STATISTICS, BoxSample, ConeGeometry, MatterSample
-
-
-def best_of(fn, repeat: int) -> tuple[float, Any]:
-    best, out = np.inf, None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, out
 
 
 def main() -> None:

@@ -83,3 +83,41 @@ def count_rr_split(randoms: ConeSample, rr_method: str, split_factor: float,
         part = count(xyz[sel], w[sel], reg)
         total = part if total is None else total + part
     return total
+
+
+def cone_regions(data: ConeSample, randoms: ConeSample, jackknife: bool | None,
+                 what: str) -> int:
+    """Check a cone's galaxies and randoms for a pair-count estimator; returns the number
+    K of jackknife regions to use (0: no jackknife). Both need at least two objects and,
+    with a jackknife, one shared region map with every region filled."""
+    if len(data) < 2 or len(randoms) < 2:
+        raise InputError(f"{what}: need at least two galaxies and two randoms, got "
+                         f"{len(data)} and {len(randoms)}")
+    jk = want_jackknife(jackknife, data.n_regions, what)
+    k = data.n_regions if jk else 0
+    if jk:
+        if randoms.n_regions != k:
+            raise InputError(f"{what}: data have {k} jackknife regions, randoms "
+                             f"{randoms.n_regions}; they must share one region map")
+        check_filled(data.region, k, "galaxies")
+        check_filled(randoms.region, k, "randoms")
+    return k
+
+
+def landy_szalay(dd: PairCounts, dr: PairCounts, rr: PairCounts, what: str,
+                 cols: slice = slice(None)
+                 ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+    """ξ = (DD − 2DR + RR)/RR of weight-normalised counts (Landy & Szalay 1993, ApJ 412,
+    64) over the second-axis bins ``cols``, and its delete-one values (K, …) when the
+    counts carry jackknife regions (else None)."""
+    rrn = rr.normalised()[:, cols]
+    xi = (dd.normalised()[:, cols] - 2.0 * dr.normalised()[:, cols] + rrn) / rrn
+    if dd.n_regions == 0:
+        return xi, None
+    rrk = rr.normalised_delete_one()[:, :, cols]
+    if np.any(rrk <= 0):
+        raise InputError(f"{what}: removing one jackknife region leaves a bin without random "
+                         "pairs; use fewer regions or more randoms")
+    xik = (dd.normalised_delete_one()[:, :, cols] - 2.0 * dr.normalised_delete_one()[:, :, cols]
+           + rrk) / rrk
+    return xi, xik

@@ -36,7 +36,7 @@ from ..pairs import PairCounts, count_rppi_box, count_rppi_cone
 from ..pairs.binning import check_rp_edges
 from ._common import check_filled, want_jackknife
 from .base import BoxSample, ConeSample, MatterSample, Measurement
-from .settings import positive
+from .settings import check_range_bins, positive, range_edges
 from .statistic import Cost, Display, Statistic
 
 NAME = "delta_sigma"
@@ -78,15 +78,7 @@ class DeltaSigmaSettings:
 
     def __post_init__(self) -> None:
         if self.rp_edges is None:
-            if self.rp_spacing not in ("log", "linear"):
-                raise InputError(f"{_KEY}.rp_spacing: expected 'log' or 'linear', "
-                                 f"got {self.rp_spacing!r}")
-            if not (isinstance(self.n_rp, (int, np.integer)) and self.n_rp >= 1):
-                raise InputError(f"{_KEY}.n_rp: expected a positive integer, got {self.n_rp!r}")
-            lo = positive(self.rp_min, f"{_KEY}.rp_min")
-            hi = positive(self.rp_max, f"{_KEY}.rp_max")
-            if hi <= lo:
-                raise InputError(f"{_KEY}: rp_max = {hi} must exceed rp_min = {lo} Mpc/h")
+            check_range_bins(_KEY, "rp", self.rp_min, self.rp_max, self.n_rp, self.rp_spacing)
         else:
             e = check_rp_edges(self.rp_edges, f"{_KEY}.rp_edges")
             if e[0] <= 0:
@@ -101,11 +93,7 @@ class DeltaSigmaSettings:
     @property
     def edges(self) -> NDArray[np.float64]:
         """r_p bin edges [Mpc/h]."""
-        if self.rp_edges is not None:
-            return np.asarray(self.rp_edges, dtype=np.float64)
-        if self.rp_spacing == "log":
-            return np.geomspace(self.rp_min, self.rp_max, self.n_rp + 1)
-        return np.linspace(self.rp_min, self.rp_max, self.n_rp + 1)
+        return range_edges(self.rp_min, self.rp_max, self.n_rp, self.rp_spacing, self.rp_edges)
 
     @property
     def count_edges(self) -> NDArray[np.float64]:

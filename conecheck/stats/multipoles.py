@@ -46,9 +46,15 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import PairCounts, count_smu_box, count_smu_cone
 from ..pairs.binning import SMuBins, check_rp_edges, make_smu_bins
-from ._common import check_filled, count_rr_split, want_jackknife
+from ._common import (
+    check_filled,
+    cone_regions,
+    count_rr_split,
+    landy_szalay,
+    want_jackknife,
+)
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import RR_METHODS, positive
+from .settings import RR_METHODS, check_range_bins, positive, range_edges
 from .statistic import Cost, Display, Statistic
 
 NAME = "multipoles"
@@ -106,15 +112,7 @@ class MultipolesSettings:
 
     def __post_init__(self) -> None:
         if self.s_edges is None:
-            if self.s_spacing not in ("log", "linear"):
-                raise InputError(f"{_KEY}.s_spacing: expected 'log' or 'linear', "
-                                 f"got {self.s_spacing!r}")
-            if not (isinstance(self.n_s, (int, np.integer)) and self.n_s >= 1):
-                raise InputError(f"{_KEY}.n_s: expected a positive integer, got {self.n_s!r}")
-            lo = positive(self.s_min, f"{_KEY}.s_min")
-            hi = positive(self.s_max, f"{_KEY}.s_max")
-            if hi <= lo:
-                raise InputError(f"{_KEY}: s_max = {hi} must exceed s_min = {lo} Mpc/h")
+            check_range_bins(_KEY, "s", self.s_min, self.s_max, self.n_s, self.s_spacing)
         else:
             object.__setattr__(self, "s_edges", tuple(float(x) for x in check_rp_edges(
                 self.s_edges, f"{_KEY}.s_edges")))
@@ -140,11 +138,7 @@ class MultipolesSettings:
     @property
     def edges(self) -> NDArray[np.float64]:
         """s bin edges [Mpc/h]."""
-        if self.s_edges is not None:
-            return np.asarray(self.s_edges, dtype=np.float64)
-        if self.s_spacing == "log":
-            return np.geomspace(self.s_min, self.s_max, self.n_s + 1)
-        return np.linspace(self.s_min, self.s_max, self.n_s + 1)
+        return range_edges(self.s_min, self.s_max, self.n_s, self.s_spacing, self.s_edges)
 
     @property
     def bins(self) -> SMuBins:
@@ -450,36 +444,17 @@ def multipoles_cone(data: ConeSample, randoms: ConeSample,
     """
     settings = settings or MultipolesSettings()
     bins, m = settings.bins, settings.n_mu_used
-    if len(data) < 2 or len(randoms) < 2:
-        raise InputError(f"{NAME}: need at least two galaxies and two randoms, got "
-                         f"{len(data)} and {len(randoms)}")
-    jk = want_jackknife(jackknife, data.n_regions, NAME)
-    k = data.n_regions if jk else 0
-    if jk:
-        if randoms.n_regions != k:
-            raise InputError(f"{NAME}: data have {k} jackknife regions, randoms "
-                             f"{randoms.n_regions}; they must share one region map")
-        check_filled(data.region, k, "galaxies")
-        check_filled(randoms.region, k, "randoms")
+    k = cone_regions(data, randoms, jackknife, NAME)
     if rr is None:
         rr = count_rr_cone(randoms, geometry, settings, n_data=len(data))
     _check_rr(rr, settings, k)
-    dreg = data.region if jk else None
-    rreg = randoms.region if jk else None
+    dreg = data.region if k else None
+    rreg = randoms.region if k else None
     dd = count_smu_cone(data.xyz, data.weight, dreg, bins=bins, n_regions=k)
     dr = count_smu_cone(data.xyz, data.weight, dreg, randoms.xyz, randoms.weight, rreg,
                         bins=bins, n_regions=k)
-    rrn = rr.normalised()[:, :m]
-    xi = (dd.normalised()[:, :m] - 2.0 * dr.normalised()[:, :m] + rrn) / rrn
-    delete_one = None
-    if jk:
-        rrk = rr.normalised_delete_one()[:, :, :m]
-        if np.any(rrk <= 0):
-            raise InputError(f"{NAME}: removing one jackknife region leaves a bin without "
-                             "random pairs; use fewer regions or more randoms")
-        xik = (dd.normalised_delete_one()[:, :, :m] - 2.0 * dr.normalised_delete_one()[:, :, :m]
-               + rrk) / rrk
-        delete_one = _project(xik, settings)
+    xi, xik = landy_szalay(dd, dr, rr, NAME, slice(0, m))  # the |μ| bins below mu_max
+    delete_one = None if xik is None else _project(xik, settings)
     extra = {"dd_pairs": dd.total[:, :m].sum(axis=1).tolist(),
              "dr_pairs": dr.total[:, :m].sum(axis=1).tolist(),
              "rr_pairs": rr.total[:, :m].sum(axis=1).tolist(),

@@ -30,6 +30,30 @@ def positive(value: Any, key: str) -> float:
     return v
 
 
+def check_range_bins(key: str, name: str, lo: Any, hi: Any, n: Any, spacing: Any) -> None:
+    """Validate generated bins ``{name}_min``, ``{name}_max``, ``n_{name}`` and
+    ``{name}_spacing`` of table ``key`` (e.g. ``rp`` of ``statistics.wp``) [Mpc/h]."""
+    if spacing not in ("log", "linear"):
+        raise InputError(f"{key}.{name}_spacing: expected 'log' or 'linear', got {spacing!r}")
+    if not (isinstance(n, (int, np.integer)) and n >= 1):
+        raise InputError(f"{key}.n_{name}: expected a positive integer, got {n!r}")
+    low = positive(lo, f"{key}.{name}_min")
+    high = positive(hi, f"{key}.{name}_max")
+    if high <= low:
+        raise InputError(f"{key}: {name}_max = {high} must exceed {name}_min = {low} Mpc/h")
+
+
+def range_edges(lo: float, hi: float, n: int, spacing: str,
+                explicit: tuple[float, ...] | None) -> NDArray[np.float64]:
+    """Bin edges [Mpc/h]: ``explicit`` when given, else ``n`` bins from ``lo`` to ``hi``,
+    logarithmic or linear."""
+    if explicit is not None:
+        return np.asarray(explicit, dtype=np.float64)
+    if spacing == "log":
+        return np.geomspace(lo, hi, n + 1)
+    return np.linspace(lo, hi, n + 1)
+
+
 def fraction(value: Any, key: str) -> float:
     """``value`` as a float in (0, 1], or an error naming ``key``."""
     try:

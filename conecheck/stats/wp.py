@@ -50,9 +50,15 @@ from numpy.typing import NDArray
 from ..errors import InputError
 from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_cone
 from ..pairs.binning import check_rp_edges, make_bins
-from ._common import check_filled, count_rr_split, want_jackknife
+from ._common import (
+    check_filled,
+    cone_regions,
+    count_rr_split,
+    landy_szalay,
+    want_jackknife,
+)
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import RR_METHODS, positive
+from .settings import RR_METHODS, check_range_bins, positive, range_edges
 from .statistic import Cost, Display, Statistic
 
 NAME = "wp"
@@ -95,15 +101,7 @@ class WpSettings:
     def __post_init__(self) -> None:
         key = "statistics.wp"
         if self.rp_edges is None:
-            if self.rp_spacing not in ("log", "linear"):
-                raise InputError(f"{key}.rp_spacing: expected 'log' or 'linear', "
-                                 f"got {self.rp_spacing!r}")
-            if not (isinstance(self.n_rp, (int, np.integer)) and self.n_rp >= 1):
-                raise InputError(f"{key}.n_rp: expected a positive integer, got {self.n_rp!r}")
-            lo = positive(self.rp_min, f"{key}.rp_min")
-            hi = positive(self.rp_max, f"{key}.rp_max")
-            if hi <= lo:
-                raise InputError(f"{key}: rp_max = {hi} must exceed rp_min = {lo} Mpc/h")
+            check_range_bins(key, "rp", self.rp_min, self.rp_max, self.n_rp, self.rp_spacing)
         else:
             object.__setattr__(self, "rp_edges", tuple(float(x) for x in
                                                        check_rp_edges(self.rp_edges,
@@ -120,11 +118,7 @@ class WpSettings:
     @property
     def edges(self) -> NDArray[np.float64]:
         """r_p bin edges [Mpc/h]."""
-        if self.rp_edges is not None:
-            return np.asarray(self.rp_edges, dtype=np.float64)
-        if self.rp_spacing == "log":
-            return np.geomspace(self.rp_min, self.rp_max, self.n_rp + 1)
-        return np.linspace(self.rp_min, self.rp_max, self.n_rp + 1)
+        return range_edges(self.rp_min, self.rp_max, self.n_rp, self.rp_spacing, self.rp_edges)
 
     @property
     def bins(self) -> RpPiBins:
@@ -344,17 +338,7 @@ def wp_cone(data: ConeSample, randoms: ConeSample, geometry: ConeGeometry | None
     """
     settings = settings or WpSettings()
     bins = settings.bins
-    if len(data) < 2 or len(randoms) < 2:
-        raise InputError(f"wp: need at least two galaxies and two randoms, got {len(data)} and "
-                         f"{len(randoms)}")
-    jk = want_jackknife(jackknife, data.n_regions, "wp")
-    k = data.n_regions if jk else 0
-    if jk:
-        if randoms.n_regions != k:
-            raise InputError(f"wp: data have {k} jackknife regions, randoms "
-                             f"{randoms.n_regions}; they must share one region map")
-        check_filled(data.region, k, "galaxies")
-        check_filled(randoms.region, k, "randoms")
+    k = cone_regions(data, randoms, jackknife, "wp")
     if rr is None:
         rr = count_rr_cone(randoms, geometry, settings, n_data=len(data))
     _check_rr(rr, bins, k)
@@ -365,21 +349,13 @@ def wp_cone(data: ConeSample, randoms: ConeSample, geometry: ConeGeometry | None
                          f"{bins.rp_edges[rp_i + 1]:g}) Mpc/h, |π| bin {pi_i}; use more randoms "
                          "or a larger r_p,min")
     dxyz, rxyz = data.xyz, randoms.xyz
-    dreg = data.region if jk else None
-    rreg = randoms.region if jk else None
+    dreg = data.region if k else None
+    rreg = randoms.region if k else None
     kw = {"rp_edges": bins.rp_edges, "pi_max": bins.pi_max, "dpi": bins.dpi, "n_regions": k}
     dd = count_rppi_cone(dxyz, data.weight, dreg, **kw)
     dr = count_rppi_cone(dxyz, data.weight, dreg, rxyz, randoms.weight, rreg, **kw)
-    rrn = rr.normalised()
-    xi = (dd.normalised() - 2.0 * dr.normalised() + rrn) / rrn
-    delete_one = None
-    if jk:
-        rrk = rr.normalised_delete_one()
-        if np.any(rrk <= 0):
-            raise InputError("wp: removing one jackknife region leaves a bin without random "
-                             "pairs; use fewer regions or more randoms")
-        xik = (dd.normalised_delete_one() - 2.0 * dr.normalised_delete_one() + rrk) / rrk
-        delete_one = _wp_from_xi(xik, bins.dpi)
+    xi, xik = landy_szalay(dd, dr, rr, "wp")
+    delete_one = None if xik is None else _wp_from_xi(xik, bins.dpi)
     extra = {"dd_pairs": dd.total.sum(axis=1).tolist(),
              "dr_pairs": dr.total.sum(axis=1).tolist(),
              "rr_pairs": rr.total.sum(axis=1).tolist(),
