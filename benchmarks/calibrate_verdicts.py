@@ -11,6 +11,9 @@ Every seed is an independent synthetic box (the quick demo scale, one sample). S
   small volume), so they are reported with the mean and the rms about the mean;
 * planted, beyond the volume limit: the flux limit lowered to m < 15.8 so the cut
   0.02 < z < 0.055 loses faint galaxies at its far end (a number-density deficit);
+* planted, luminosities inferred from z_obs (physical fluxes, RSD both sides): peculiar
+  velocities scatter the analyst's magnitudes across the threshold (the nulls switch
+  ``survey.effects.physical_fluxes`` off, since it is a survey effect the box lacks);
 * planted, cone-only redshift errors of 500 km/s (the counts in cylinders lose neighbours);
 * planted, uncorrected fibre collisions of 600″ (wp loses small-scale pairs);
 * planted, wp × (1 + 2 σ_tot/wp) in its first bin, injected at the comparison (no rebuild).
@@ -43,7 +46,8 @@ from conecheck.config import config_from_dict  # noqa: E402
 from conecheck.demo import demo_dict  # noqa: E402
 from conecheck.run import validate as validate_mod  # noqa: E402
 
-NULL = {"survey.effects.redshift_errors": False, "survey.effects.fibres": False}
+NULL = {"survey.effects.redshift_errors": False, "survey.effects.fibres": False,
+        "survey.effects.physical_fluxes": False}
 SETUPS: dict[str, dict[str, Any]] = {
     "null, geometry only, full sky": {**NULL, "survey.effects.rsd": False, "box.rsd": False,
                                       "survey.effects.footprint": False,
@@ -52,6 +56,8 @@ SETUPS: dict[str, dict[str, Any]] = {
     "null, geometry only": {**NULL, "survey.effects.rsd": False, "box.rsd": False},
     "null, RSD both sides": dict(NULL),
     "planted: beyond the volume limit": {**NULL, "survey.shell.m_lim": 15.8},
+    "planted: luminosities inferred from z_obs": {**NULL,
+                                                  "survey.effects.physical_fluxes": True},
     "planted: 500 km/s redshift errors": {**NULL, "survey.effects.redshift_errors": True,
                                           "survey.redshift_errors.sigma_v_kms": 500.0},
     "planted: 600\" collisions uncorrected": {

@@ -692,6 +692,10 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
                         f"{RECOMMENDED_RANDOMS_MULTIPLE} randoms per galaxy adds noticeable "
                         f"shot noise to 2-point statistics; raise it for a final run")
     shell = cfg.shell
+    if cfg.effects.flux_limit and shell.m_lim is not None:
+        problem = shell.flux_monotonic_problem(cfg.cosmology.model())
+        if problem:
+            problems.append(problem)
     for i, s in enumerate(cfg.samples):
         for cut in s.cuts:
             where = (f"samples[{i}]" if cut.label == s.label

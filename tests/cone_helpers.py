@@ -53,14 +53,15 @@ def cap_footprint(nside: int, ra0: float, dec0: float, radius_deg: float,
 
 def survey(footprint=None, *, rsd=True, errors=True, fibres=True, flux=True,
            use_footprint=True, shell=None, fibre_settings=None, correction="none",
-           redshift_errors=None, observers=None) -> SurveyModel:
+           redshift_errors=None, observers=None, physical_fluxes=True) -> SurveyModel:
     """A SurveyModel with every piece switchable from keyword arguments."""
     return SurveyModel(
         cosmology=COSMO,
         shell=shell or SurveyShell(z_min=0.02, z_max=0.08),
         footprint=footprint,
         effects=EffectSwitches(rsd=rsd, redshift_errors=errors, footprint=use_footprint,
-                               flux_limit=flux, fibres=fibres),
+                               flux_limit=flux, fibres=fibres,
+                               physical_fluxes=physical_fluxes),
         fibres=fibre_settings or FibreSettings(),
         correction=CorrectionSettings(correction),
         redshift_errors=redshift_errors or RedshiftErrorSettings(),

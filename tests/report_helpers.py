@@ -99,6 +99,13 @@ def make_results(run_dir: Path, seed: int = 3, config_lines: int = 12) -> dict:
                        "correction": "nearest-neighbour redshift",
                        "uncorrected_effect": {"wp": {"max_abs_z": 2.4, "chi2": 12.0,
                                                      "dof": 9, "verdict": "fail"}}},
+            "luminosity": {"physical_fluxes": True, "cut": "primary",
+                           "membership_changed_fraction":
+                               rng.uniform(0.04, 0.07, N_CONES).tolist(),
+                           "count_change_fraction": rng.normal(0.01, 0.01, N_CONES).tolist(),
+                           "z_edges": np.linspace(0.02, 0.2, 6).tolist(),
+                           "rms_mag": [0.12, 0.07, 0.05, None, 0.03],
+                           "n_in_bin": [300, 800, 1500, 0, 2600]},
             "cuts": cuts}
     config = "\n".join(["[survey]", 'name = "Kestrel Deep Field (invented)"',
                         "area_deg2 = 2400.0"]

@@ -245,7 +245,7 @@ def test_hod_with_no_galaxies_is_input_error():
 def test_thresholds_sorted_faintest_first():
     model = default_hod_model()
     rev = HODModel(tuple(reversed(model.thresholds)), AssemblyBias())
-    assert list(rev.mag_limits) == [-20.0, -20.5, -21.0]
+    assert list(rev.mag_limits) == [-19.5, -20.0, -20.5, -21.0]
 
 
 def test_read_halo_catalog_keeps_extra_columns_for_assembly_bias(tmp_path):

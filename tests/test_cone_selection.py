@@ -128,10 +128,14 @@ def test_volume_limit_round_trip():
         z = volume_limit_zmax(m_lim, mthr, COSMO)
         assert abs(mthr + float(COSMO.distance_modulus(z)) - m_lim) < 1e-6
         assert abs(mthr + REF.distmod(z).value - m_lim) < 1e-5
-    shell = SurveyShell(kcorr_const=0.1, kcorr_slope=1.5)
+    shell = SurveyShell(kcorrection=(0.1, 1.5))
     z = volume_limit_zmax(17.77, -20.0, COSMO, shell)
     assert abs(-20.0 + float(COSMO.distance_modulus(z)) + 0.1 + 1.5 * z - 17.77) < 1e-8
     assert z < volume_limit_zmax(17.77, -20.0, COSMO)
+    # evolution E(z) = -Q (z - z_ref) (Blanton et al. 2003 form) enters the same equation
+    shell = SurveyShell(kcorrection=(0.0, 1.0, 2.0), evolution_q=1.6, evolution_z_ref=0.1)
+    z = volume_limit_zmax(17.77, -20.0, COSMO, shell)
+    assert abs(-20.0 + REF.distmod(z).value + z + 2 * z**2 - 1.6 * (z - 0.1) - 17.77) < 1e-5
 
 
 def test_footprint_completeness_thins_galaxies():

@@ -98,7 +98,7 @@ def test_render_report_pages(run, rendered):
     # n(z): one block per sample and cut, three per page
     expected = {"summary": 1, "provenance": 1, "footprint": 1, "nz": 2,
                 "statistics": 4, "values": 4 * -(-len(STATS) // VALUES_PER_PAGE),
-                "fibres": 1, "cuts": 1}
+                "fibres": 1, "luminosity": 1, "cuts": 1}
     for kind, n in expected.items():
         assert kinds.count(kind) == n, kind
     assert 1 <= kinds.count("findings") <= 3

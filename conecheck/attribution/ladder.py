@@ -5,8 +5,9 @@ cumulatively: rung 0 is *geometry only* (every laddered effect off), each later 
 one step, and the last rung is the configured survey itself (so it reuses the main run's
 cones). The default order is
 
-    geometry only → + RSD → + redshift errors → + footprint edges and holes
-    → + fibre collisions, uncorrected → + the configured correction
+    geometry only → + RSD → + redshift errors → + physical fluxes
+    → + footprint edges and holes → + fibre collisions, uncorrected → + the configured
+    correction
 
 (``[ladder] order`` changes it). Effects not in the order stay as configured on every rung
 (by default the flux limit, which defines the target list). A step is skipped, with a note,
@@ -52,12 +53,14 @@ STEP_LABELS = {
     "geometry": ("geometry only", "geometry"),
     "rsd": ("+ radial redshift-space distortions", "+RSD"),
     "redshift_errors": ("+ redshift errors", "+z errors"),
+    "physical_fluxes": ("+ fluxes from true distances and velocities", "+fluxes"),
     "footprint": ("+ footprint edges and holes", "+footprint"),
     "flux_limit": ("+ flux limit", "+flux limit"),
     "fibres": ("+ fibre collisions", "+fibres"),
     "correction": ("+ correction", "+correction"),
 }
-_EFFECT_FIELDS = ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres")
+_EFFECT_FIELDS = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "flux_limit",
+                  "fibres")
 
 
 @dataclass(frozen=True)
@@ -92,10 +95,17 @@ def _changes_nothing(cfg: RunConfig, step: str) -> str | None:
     """Why ``step`` would leave the cones unchanged, or None."""
     if step in _EFFECT_FIELDS and not getattr(cfg.effects, step):
         return f"survey.effects.{step} is off in the configuration"
-    if step == "redshift_errors":
-        e = cfg.redshift_errors
-        if (e.sigma_v_kms if e.model == "velocity" else e.sigma_z0) == 0:
-            return "the configured redshift errors are zero"
+    e = cfg.redshift_errors
+    zero_errors = (e.sigma_v_kms if e.model == "velocity" else e.sigma_z0) == 0
+    if step == "redshift_errors" and zero_errors:
+        return "the configured redshift errors are zero"
+    if step == "physical_fluxes":
+        thresholds = any(s.mag_max is not None for s in cfg.samples)
+        if not thresholds and not (cfg.effects.flux_limit and cfg.shell.m_lim is not None):
+            return "no flux limit or magnitude threshold uses the galaxies' fluxes"
+        if not cfg.effects.rsd and (zero_errors or not cfg.effects.redshift_errors):
+            return ("without RSD or redshift errors the measured redshift is the "
+                    "cosmological one, so the fluxes do not change")
     if step == "flux_limit" and cfg.shell.m_lim is None:
         return "no flux limit (survey.shell.m_lim) is configured"
     if step == "correction":

@@ -17,9 +17,11 @@ from ..errors import InputError
 from ..loader import build_section
 
 #: Steps an effect ladder can add, one at a time, after its geometry-only rung.
-LADDER_STEPS = ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres", "correction")
+LADDER_STEPS = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "flux_limit",
+                "fibres", "correction")
 #: The documented default order (the flux limit stays as configured on every rung).
-DEFAULT_LADDER_ORDER = ("rsd", "redshift_errors", "footprint", "fibres", "correction")
+DEFAULT_LADDER_ORDER = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "fibres",
+                        "correction")
 
 
 @dataclass(frozen=True)
@@ -32,7 +34,8 @@ class LadderConfig:
         Run the ladder.
     order : list of str
         Steps added cumulatively after the geometry-only rung, among rsd,
-        redshift_errors, footprint, flux_limit, fibres (collisions, uncorrected when a
+        redshift_errors, physical_fluxes (fluxes from the true distance and velocity, cuts
+        on the inferred magnitude), footprint, flux_limit, fibres (collisions, uncorrected when a
         ``correction`` step follows) and correction (the configured one). Effects not
         listed stay as configured on every rung; steps the survey switches off are skipped.
         Rungs before ``footprint`` see the sky chosen by ``sky``.

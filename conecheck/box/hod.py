@@ -391,12 +391,16 @@ def load_hod(source: str | os.PathLike[str] | Mapping[str, Any]) -> HODModel:
 
 #: Illustrative nested parameters (invented: plausible Zheng et al. 2007 shapes for
 #: luminosity thresholds, not a published fit).  Number densities come out
-#: near 5e-3, 2.5e-3 and 1e-3 (h/Mpc)³ at z ≈ 0.2.
+#: near 5e-3, 2.5e-3 and 1e-3 (h/Mpc)³ at z ≈ 0.2 for the three brighter thresholds.  The
+#: faintest (M < −19.5) lies half a magnitude below the demo's faintest sample, so that
+#: inferred magnitudes can scatter galaxies into that sample as well as out of it.
 DEFAULT_HOD: dict[str, Any] = {
     "concentration": "mass_power_law",
     "satellites_need_central": False,
     "bright_tail_mag": 0.5,
     "threshold": [
+        {"mag_max": -19.5, "log_mmin": 11.85, "sigma_logm": 0.25, "log_m0": 11.55,
+         "log_m1": 13.05, "alpha": 1.05},
         {"mag_max": -20.0, "log_mmin": 12.10, "sigma_logm": 0.25, "log_m0": 11.80,
          "log_m1": 13.30, "alpha": 1.05},
         {"mag_max": -20.5, "log_mmin": 12.40, "sigma_logm": 0.28, "log_m0": 12.10,

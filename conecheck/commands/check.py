@@ -67,6 +67,8 @@ def main(args: argparse.Namespace) -> int:
     out = sys.stderr
     for note in checked.notes:
         print(f"# {note}", file=out)
+    for caution in checked.cautions:
+        print(f"# caution: {caution}", file=out)
     print(f"# box: {box_note}", file=out)
     print(f"# footprint: {fp.area_deg2:.1f} deg² effective area (N_side {fp.nside})", file=out)
     for key, path in files.items():

@@ -29,13 +29,17 @@ from .corrections import (
 from .fibres import FibreResult, OverlapMap, assign_fibres, load_overlap_map
 from .geometry import replica_offsets, sky_coordinates
 from .output import write_cone, write_cones_directory, write_randoms
+from .photometry import (
+    apparent_magnitude,
+    inferred_abs_mag,
+    observed_frame_magnitude,
+    volume_limit_zmax,
+)
 from .randoms import make_randoms, n_randoms
 from .selection import (
     FullSky,
-    apparent_magnitude,
     select_cut,
     select_sample,
-    volume_limit_zmax,
     volume_limits_report,
 )
 from .settings import (
@@ -55,7 +59,8 @@ __all__ = [
     "FibreResult", "FibreSettings", "FullSky", "ObserverSettings", "OverlapMap",
     "RandomSettings", "RedshiftErrorSettings", "SampleCut", "SurveyModel", "SurveyShell",
     "apparent_magnitude", "assign_fibres", "build_all_cones", "build_cone", "cone_geometry",
-    "cone_rngs", "load_overlap_map", "make_randoms", "n_randoms", "prepare_box",
+    "cone_rngs", "inferred_abs_mag", "load_overlap_map", "make_randoms", "n_randoms",
+    "observed_frame_magnitude", "prepare_box",
     "register_correction", "replica_offsets", "select_cut", "select_sample", "sky_coordinates",
     "volume_limit_zmax", "volume_limits_report", "write_cone", "write_cones_directory",
     "write_randoms",

@@ -2,8 +2,9 @@
 
 One cone, in order (docs/design.md §4): replicate the box around the observer and rotate
 it → sky coordinates and cosmological redshift → footprint sampling → radial RSD →
-redshift errors → flux limit (the *target* list) → fibre-collision emulator →
-correction → cut to the shell in observed redshift.  Footprint sampling is applied
+redshift errors → fluxes and flux limit (the *target* list, :mod:`.photometry`) →
+fibre-collision emulator → correction → the analyst's absolute magnitudes from the
+assigned redshifts → cut to the shell in observed redshift.  Footprint sampling is applied
 while scanning replicas (it does not depend on redshifts), so only galaxies inside the
 footprint are ever kept in memory.  Galaxies are kept out to a margin beyond the shell
 in true distance (``SurveyShell.margin_mpch``) so that RSD and errors can move them in;
@@ -59,8 +60,9 @@ from .geometry import (
     sky_coordinates,
     sky_coverage,
 )
+from .photometry import apparent_magnitude, inferred_abs_mag, observed_frame_magnitude
 from .redshift_space import add_redshift_errors, doppler_redshift, redshift_margin
-from .selection import apparent_magnitude, footprint_keep
+from .selection import footprint_keep
 from .settings import (
     CorrectionSettings,
     EffectSwitches,
@@ -226,7 +228,8 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     table : astropy Table
         One row per galaxy in the shell: ra, dec [deg], z_cos, z_obs, z_obs_true,
         chi_true, chi_obs [Mpc/h], v_los [km/s], completeness, weight, zflag, box_index,
-        replica, and abs_mag, app_mag, is_central, halo_id, halo_mass when known.
+        replica, and abs_mag (inferred from app_mag and z_obs), abs_mag_true, app_mag,
+        is_central, halo_id, halo_mass when known.
     info : dict
         n_replicas, n_replicas_used, n_repeated (box galaxies seen twice), margin_mpch,
         fibres (emulator statistics), correction, n_targets, n_galaxies, timing_s, …
@@ -289,15 +292,22 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     # -- redshifts
     t1 = time.perf_counter()
     z_cos = cosmo.redshift_at(cols["chi"])
-    z_obs = doppler_redshift(z_cos, cols["vlos"]) if fx.rsd else z_cos.copy()
+    z_light = doppler_redshift(z_cos, cols["vlos"]) if fx.rsd else z_cos.copy()
+    z_obs = z_light
     if fx.redshift_errors:
-        z_obs = add_redshift_errors(z_obs, z_cos, survey.redshift_errors,
+        z_obs = add_redshift_errors(z_light, z_cos, survey.redshift_errors,
                                     streams["redshift_errors"])
     # a blueshift below z = 0 cannot fall in any survey shell
     ok = z_obs > 0.0
     app_mag = None
     if box.abs_mag is not None:
-        app_mag = apparent_magnitude(box.abs_mag[cols["idx"]], z_obs, cosmo, shell)
+        true_mag = box.abs_mag[cols["idx"]]
+        if fx.physical_fluxes:
+            # the flux follows the true distance and the galaxy's own Doppler shift; the
+            # measurement error of z_obs never changes who is a target
+            app_mag = apparent_magnitude(true_mag, z_cos, z_light, cosmo, shell)
+        else:
+            app_mag = observed_frame_magnitude(true_mag, z_obs, cosmo, shell)
         if flux:
             ok &= app_mag < shell.m_lim
     n_in_footprint = len(z_obs)
@@ -313,12 +323,10 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     targets["completeness"] = cols["comp"][ok]
     idx = cols["idx"][ok]
     if box.abs_mag is not None and app_mag is not None:
-        targets["abs_mag"] = box.abs_mag[idx]
+        targets["abs_mag"] = (inferred_abs_mag(app_mag[ok], z_obs[ok], cosmo, shell)
+                              if fx.physical_fluxes else box.abs_mag[idx])
+        targets["abs_mag_true"] = box.abs_mag[idx]
         targets["app_mag"] = app_mag[ok]
-    for name in ("is_central", "halo_id", "halo_mass"):
-        val = getattr(box, name)
-        if val is not None:
-            targets[name] = val[idx]
     targets["box_index"] = idx.astype(np.int64)
     targets["replica"] = cols["rep"][ok]
     targets["weight"] = np.ones(len(targets))
@@ -340,6 +348,10 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     t1 = time.perf_counter()
     corrected = CORRECTIONS[survey.correction.name](targets, fres.fibred,
                                                     streams["corrections"], cosmo)
+    if fx.physical_fluxes and "app_mag" in corrected.colnames:
+        # the analyst infers M from whatever redshift the correction assigned
+        corrected["abs_mag"] = inferred_abs_mag(corrected["app_mag"], corrected["z_obs"],
+                                                cosmo, shell)
     zc = np.asarray(corrected["z_obs"])
     cone = corrected[(zc >= shell.z_min) & (zc < shell.z_max)]
     timing["correction"] = time.perf_counter() - t1

@@ -7,9 +7,10 @@ Files in a cones directory::
     manifest.json                          effects, settings, seeds, replicas, fibre stats
 
 Cone columns (when present): ra, dec [deg], z_obs, chi_obs [Mpc/h], weight, zflag
-(codes in :mod:`conecheck.cone.corrections`), abs_mag [M − 5 log10 h], region (jackknife
-label), then z_cos, z_obs_true, chi_true [Mpc/h], app_mag, completeness, is_central,
-halo_id.  Tables are written atomically through :func:`conecheck.catalog.write_table`.
+(codes in :mod:`conecheck.cone.corrections`), abs_mag [M − 5 log10 h, as the analyst
+infers it from app_mag and z_obs], region (jackknife label), then z_cos, z_obs_true,
+chi_true [Mpc/h], app_mag, abs_mag_true (the box's), completeness, is_central, halo_id.
+Tables are written atomically through :func:`conecheck.catalog.write_table`.
 """
 
 from __future__ import annotations
@@ -30,11 +31,11 @@ from ..footprint.protocols import JackknifeRegions
 from .corrections import ZFLAG_MEANING
 
 CONE_COLUMNS = ("ra", "dec", "z_obs", "chi_obs", "weight", "zflag", "abs_mag", "region",
-                "z_cos", "z_obs_true", "chi_true", "app_mag", "completeness", "is_central",
-                "halo_id")
+                "z_cos", "z_obs_true", "chi_true", "app_mag", "abs_mag_true", "completeness",
+                "is_central", "halo_id")
 RANDOM_COLUMNS = ("ra", "dec", "z_obs", "chi_obs", "weight", "region")
 UNITS = {"ra": "deg", "dec": "deg", "chi_obs": "Mpc/h", "chi_true": "Mpc/h", "abs_mag": "mag",
-         "app_mag": "mag"}
+         "app_mag": "mag", "abs_mag_true": "mag"}
 
 
 def _with_region(table: Table, regions: JackknifeRegions | None) -> Table:

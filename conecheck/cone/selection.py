@@ -2,11 +2,11 @@
 
 * Footprint sampling: a galaxy is kept with probability equal to the footprint's
   completeness at its position (vetoes are already folded into the footprint).
-* Flux limit: m = M + DM(z_obs) + K(z_obs), DM = 5 log10(D_L / (Mpc/h)) + 25 with M in
-  M − 5 log10 h; targets have m < m_lim.  Using z_obs makes a luminosity-threshold
-  sample exactly complete below the volume limit z_max where M_thr + DM(z_max) + K(z_max)
-  = m_lim, the limit an analyst computes from observed redshifts.
-* Sample cuts: abs_mag < mag_max and z_min <= z_obs < z_max on the (corrected) cone.
+* Flux limit: targets have m < m_lim, with m from :mod:`conecheck.cone.photometry`
+  (the true distance and Doppler shift; volume limits from the analyst's relation at the
+  observed redshift, :func:`~conecheck.cone.photometry.volume_limit_zmax`).
+* Sample cuts: abs_mag < mag_max and z_min <= z_obs < z_max on the (corrected) cone, where
+  abs_mag is the absolute magnitude the analyst infers from m and z_obs.
 """
 
 from __future__ import annotations
@@ -18,17 +18,14 @@ from typing import Any
 import numpy as np
 from astropy.table import Table
 from numpy.typing import ArrayLike, NDArray
-from scipy.optimize import brentq
 
 from ..cosmology import FULL_SKY_DEG2, Cosmology
 from ..errors import InputError
 from ..footprint.protocols import SkyFootprint
+from .photometry import volume_limit_zmax
 from .settings import SampleCut, SurveyShell
 
 log = logging.getLogger(__name__)
-
-#: Smallest redshift used in distance moduli (z_obs ≤ 0 cannot enter a survey shell).
-Z_FLOOR = 1e-8
 
 
 class FullSky:
@@ -65,44 +62,6 @@ def footprint_keep(ra_deg: NDArray[np.float64], dec_deg: NDArray[np.float64],
     comp = np.asarray(footprint.completeness(ra_deg, dec_deg), dtype=np.float64)
     u = rng.random(len(comp))
     return u < comp, comp
-
-
-def apparent_magnitude(abs_mag: ArrayLike, z_obs: ArrayLike, cosmology: Cosmology,
-                       shell: SurveyShell | None = None) -> NDArray[np.float64]:
-    """m = M + DM(z_obs) + K(z_obs) [mag]; M in M − 5 log10 h.
-
-    Redshifts at or below 0 are clipped to a tiny positive value (very bright), since
-    the distance modulus diverges there.
-    """
-    z = np.maximum(np.asarray(z_obs, dtype=np.float64), Z_FLOOR)
-    m = np.asarray(abs_mag, dtype=np.float64) + cosmology.distance_modulus(z)
-    if shell is not None and shell.has_kcorrection:
-        m = m + shell.kcorrection(z)
-    return m
-
-
-def volume_limit_zmax(m_lim: float, mag_thr: float, cosmology: Cosmology,
-                      shell: SurveyShell | None = None) -> float:
-    """Redshift z_max where M_thr + DM(z_max) + K(z_max) = m_lim.
-
-    A sample of galaxies brighter than ``mag_thr`` (M − 5 log10 h) in a survey limited at
-    apparent magnitude ``m_lim`` is complete (volume limited) for z_obs < z_max.  Without
-    a K-correction this inverts :meth:`Cosmology.distance_modulus` directly; with one it
-    solves the equation with Brent's method.
-    """
-    mu = float(m_lim) - float(mag_thr)
-    if shell is None or not shell.has_kcorrection:
-        return cosmology.redshift_at_distance_modulus(mu)
-    z_hi = float(cosmology.z_max_table)
-
-    def f(z: float) -> float:
-        return float(cosmology.distance_modulus(z) + shell.kcorrection(z)) - mu
-
-    lo = 1e-6
-    if f(lo) > 0 or f(z_hi) < 0:
-        raise InputError(f"shell.m_lim = {m_lim}: no redshift in (0, {z_hi:g}] where a galaxy "
-                         f"of M = {mag_thr} reaches the flux limit (with the K-correction)")
-    return float(brentq(f, lo, z_hi, xtol=1e-12, rtol=1e-12))
 
 
 def select_sample(table: Table, mag_max: float | None = None, z_min: float | None = None,

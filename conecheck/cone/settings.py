@@ -15,7 +15,9 @@ import math
 from dataclasses import dataclass
 from typing import Any, Literal
 
-from ..cosmology import C_KMS
+import numpy as np
+
+from ..cosmology import C_KMS, Cosmology
 from ..errors import InputError
 from .corrections import correction_problem
 
@@ -225,16 +227,23 @@ class EffectSwitches:
         Apply the apparent-magnitude limit ``survey.shell.m_lim`` (off: ignore it).
     fibres : bool
         Emulate fibre collisions (off: every target gets a fibre).
+    physical_fluxes : bool
+        Apparent magnitudes from the true distance and the galaxy's own Doppler shift, and
+        sample cuts on the absolute magnitude the analyst infers from the measured
+        redshift (:mod:`conecheck.cone.photometry`). Off: m from the observed redshift, so
+        the inferred magnitude equals the box's exactly.
     """
     rsd: bool = True
     redshift_errors: bool = True
     footprint: bool = True
     flux_limit: bool = True
     fibres: bool = True
+    physical_fluxes: bool = True
 
     def __post_init__(self) -> None:
         problems = [f"{name} = {getattr(self, name)!r}: expected true or false"
-                    for name in ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres")
+                    for name in ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres",
+                                 "physical_fluxes")
                     if not isinstance(getattr(self, name), bool)]
         _raise("effects", problems)
 
@@ -249,10 +258,17 @@ class SurveyShell:
         Observed-redshift limits of the shell (every cut must lie inside).
     m_lim : float or None
         Apparent-magnitude limit of the target selection (None: no flux limit).
-    kcorr_const, kcorr_slope : float
-        Optional K-correction K(z) = kcorr_const + kcorr_slope · z [mag], added to the
-        apparent magnitude m = M + DM(z_obs) + K(z_obs).  Both 0 (no K-correction) by
-        default.
+    kcorrection : tuple of float
+        Polynomial K-correction K(z) = Σ_i c_i z^i [mag], coefficients from the constant
+        term up (empty: none, the default). It enters the apparent magnitude at the
+        redshift of the light and the analyst's absolute magnitude at the measured
+        redshift (:mod:`conecheck.cone.photometry`).
+    evolution_q : float
+        Luminosity evolution Q [mag per unit redshift]: E(z) = −Q (z − evolution_z_ref),
+        the form of Blanton et al. (2003, ApJ 592, 819); box magnitudes are magnitudes at
+        ``evolution_z_ref``. 0 (none) by default.
+    evolution_z_ref : float
+        Reference redshift of the evolution term.
     margin_mpch : float or None
         Extra comoving distance [Mpc/h] kept beyond the shell in true distance, so that
         RSD and redshift errors can move galaxies into it.  None: automatic, from the
@@ -261,8 +277,9 @@ class SurveyShell:
     z_min: float = 0.02
     z_max: float = 0.1
     m_lim: float | None = None
-    kcorr_const: float = 0.0
-    kcorr_slope: float = 0.0
+    kcorrection: tuple[float, ...] = ()
+    evolution_q: float = 0.0
+    evolution_z_ref: float = 0.0
     margin_mpch: float | None = None
 
     def __post_init__(self) -> None:
@@ -276,23 +293,65 @@ class SurveyShell:
         if self.m_lim is not None and not (math.isfinite(self.m_lim) and -10 < self.m_lim < 40):
             problems.append(f"m_lim = {self.m_lim!r}: expected an apparent magnitude in "
                             "(-10, 40) or no value")
-        for name in ("kcorr_const", "kcorr_slope"):
-            if not (math.isfinite(getattr(self, name)) and abs(getattr(self, name)) < 20):
-                problems.append(f"{name} = {getattr(self, name)!r}: expected |value| < 20 mag")
+        try:
+            coeffs = tuple(float(c) for c in self.kcorrection)
+            if not all(math.isfinite(c) and abs(c) < 100 for c in coeffs) or len(coeffs) > 8:
+                raise ValueError
+            object.__setattr__(self, "kcorrection", coeffs)
+        except (TypeError, ValueError):
+            problems.append(f"kcorrection = {self.kcorrection!r}: expected a list of at most 8 "
+                            "finite polynomial coefficients [c0, c1, ...] in mag, |c| < 100")
+        if not (math.isfinite(self.evolution_q) and abs(self.evolution_q) < 20):
+            problems.append(f"evolution_q = {self.evolution_q!r}: expected |Q| < 20 mag per "
+                            "unit redshift")
+        if not (math.isfinite(self.evolution_z_ref) and 0.0 <= self.evolution_z_ref <= 5.0):
+            problems.append(f"evolution_z_ref = {self.evolution_z_ref!r}: expected 0 <= z <= 5")
         if self.margin_mpch is not None and not (math.isfinite(self.margin_mpch)
                                                  and self.margin_mpch >= 0.0):
             problems.append(f"margin_mpch = {self.margin_mpch!r}: expected >= 0 Mpc/h or "
                             "no value (automatic)")
         _raise("shell", problems)
 
-    def kcorrection(self, z: Any) -> Any:
-        """K(z) = kcorr_const + kcorr_slope · z [mag]."""
-        return self.kcorr_const + self.kcorr_slope * z
-
     @property
-    def has_kcorrection(self) -> bool:
-        """True when a non-zero K-correction is configured."""
-        return self.kcorr_const != 0.0 or self.kcorr_slope != 0.0
+    def has_colour_terms(self) -> bool:
+        """True when a non-zero K-correction or evolution term is configured."""
+        return any(c != 0.0 for c in self.kcorrection) or self.evolution_q != 0.0
+
+    def colour_terms(self, z_k: Any, z_e: Any = None) -> Any:
+        """K(z_k) + E(z_e) [mag] (``z_e`` defaults to ``z_k``); 0.0 without either term.
+
+        K(z) = Σ_i c_i z^i (``kcorrection``, constant term first); E(z) = −Q (z − z_ref).
+        """
+        if not self.has_colour_terms:
+            return 0.0
+        z_k = np.asarray(z_k, dtype=np.float64)
+        z_e = z_k if z_e is None else np.asarray(z_e, dtype=np.float64)
+        out = np.zeros(np.broadcast_shapes(z_k.shape, z_e.shape))
+        if self.kcorrection:
+            out = out + np.polynomial.polynomial.polyval(z_k, self.kcorrection)
+        if self.evolution_q:
+            out = out - self.evolution_q * (z_e - self.evolution_z_ref)
+        return out
+
+    def flux_monotonic_problem(self, cosmology: Cosmology) -> str | None:
+        """Why DM(z) + K(z) + E(z) is not increasing over the redshifts a cone can hold.
+
+        A K polynomial or an evolution term that makes a galaxy brighter with distance
+        breaks the flux limit's one-to-one link between m and z (and the volume limits);
+        the check covers 0 < z ≤ 1.5 z_max + 0.05, beyond any margin RSD and errors add.
+        """
+        if not self.has_colour_terms:
+            return None
+        z = np.linspace(1e-4, 1.5 * self.z_max + 0.05, 4001)
+        step = np.diff(cosmology.distance_modulus(z) + self.colour_terms(z))
+        if np.all(step > 0):
+            return None
+        bad = z[1:][step <= 0][0]
+        return (f"shell.kcorrection = {list(self.kcorrection)} with shell.evolution_q = "
+                f"{self.evolution_q}: the apparent magnitude DM(z) + K(z) + E(z) stops "
+                f"increasing with redshift at z = {bad:.4f}; a flux limit needs m to grow with "
+                f"distance over the shell (0 < z <= {z[-1]:.3f}); check the coefficients' "
+                "signs and units (mag per unit redshift)")
 
 
 @dataclass(frozen=True)

@@ -18,7 +18,7 @@ class PageSpec:
         Header title.
     kind : str
         ``summary``, ``findings``, ``rules``, ``provenance``, ``footprint``, ``nz``,
-        ``statistics``, ``fibres`` or ``cuts``.
+        ``statistics``, ``fibres``, ``luminosity`` or ``cuts``.
     draw : callable
         ``draw(page)`` puts the content on a :class:`~conecheck.report.layout.Page`.
     axes : tuple of str

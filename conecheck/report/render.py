@@ -2,8 +2,9 @@
 
 Page order: the verdict summary ("may I fit this?"), findings, how the verdicts are made,
 provenance, footprint with jackknife regions, n(z) of the cones, one page per sample and
-redshift cut with every statistic, fibre collisions, the comparison of redshift cuts, and
-(when the run made them) the effect ladder, the correction comparison and the cut sweep.
+redshift cut with every statistic, fibre collisions, inferred luminosities, the comparison
+of redshift cuts, and (when the run made them) the effect ladder, the correction
+comparison and the cut sweep.
 Because only ``results.json`` (plus the mask and region files it names) is read,
 ``conecheck report RUN_DIR`` re-renders a report without recomputing anything.
 """
@@ -26,6 +27,7 @@ from .pages_cuts import cut_pages
 from .pages_fibres import fibre_pages
 from .pages_footprint import footprint_pages
 from .pages_nz import nz_pages
+from .pages_photometry import luminosity_pages
 from .pages_shifts import shift_pages
 from .pages_statistics import statistics_pages
 from .pages_summary import summary_pages
@@ -54,7 +56,7 @@ def build_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | None 
                 + provenance_pages(results) + footprint_pages(results, run_dir)
                 + nz_pages(results) + statistics_pages(results) + values_pages(results)
                 + shift_pages(results)
-                + fibre_pages(results)
+                + fibre_pages(results) + luminosity_pages(results)
                 + cut_pages(results) + attribution_pages(results)
                 + config_appendix_pages(results))
 

@@ -29,6 +29,7 @@ from ..catalog import GalaxyBox
 from ..cone.fibres import load_overlap_map
 from ..cone.geometry import check_observer, replica_offsets
 from ..config import SYNTHETIC_REDSHIFT, RunConfig
+from ..cosmology import C_KMS
 from ..errors import InputError
 from ..footprint import Footprint
 from ..stats import STATISTICS
@@ -59,10 +60,13 @@ class Preflight:
         Estimates worth printing (memory of the largest task, cones, replicas).
     problems : list of str
         Every problem, each naming its config key; empty when the run may start.
+    cautions : list of str
+        Warnings: the run may start, but a result may mislead (logged as warnings).
     """
 
     notes: list[str]
     problems: list[str]
+    cautions: list[str] = dataclasses.field(default_factory=list)
 
 
 def machine_memory_bytes() -> int | None:
@@ -194,7 +198,8 @@ def preflight(cfg: RunConfig, footprint: Footprint, box: GalaxyBox | None = None
         notes += [f"forced past a limit: {x}" for x in limits]
     else:
         problems += [f"{x} (or pass --force to run anyway)" for x in limits]
-    return Preflight(notes, problems)
+    cautions = faint_end_cautions(cfg, box) if box is not None else []
+    return Preflight(notes, problems, cautions)
 
 
 def raise_problems(result: Preflight) -> None:
@@ -238,6 +243,41 @@ def _empty_samples(cfg: RunConfig, density: dict[str | None, float], L: float,
                        f"{n_box:.2g} galaxies brighter in the {L:g} Mpc/h box (its brightest "
                        f"threshold is {float(model.mag_limits[-1]):g}); check the threshold "
                        f"against box.hod")
+    return out
+
+
+def faint_end_cautions(cfg: RunConfig, box: GalaxyBox) -> list[str]:
+    """A caution per sample whose threshold lies too near the box's faintest magnitude.
+
+    With physical fluxes the analyst's magnitude scatters around the true one by about
+    (5/ln 10) σ / (c z) at low redshift (σ: the line-of-sight velocity dispersion plus the
+    redshift error), so a luminosity-threshold sample gains galaxies from just below its
+    threshold as well as losing some. A box with no galaxy fainter than the threshold can
+    only lose them, and its cones then show a number deficit no survey has. The margin
+    asked for is two such scatters at the sample's lowest redshift.
+    """
+    fx = cfg.effects
+    if (box.abs_mag is None or not len(box) or not fx.physical_fluxes
+            or not (fx.rsd or fx.redshift_errors)):
+        return []
+    sigma2 = float(np.mean(box.velocity**2)) if fx.rsd else 0.0
+    if fx.redshift_errors:
+        e = cfg.redshift_errors
+        sigma2 += (e.sigma_v_kms if e.model == "velocity" else C_KMS * e.sigma_z0) ** 2
+    faintest = float(np.max(box.abs_mag))
+    out = []
+    for s in cfg.samples:
+        if s.mag_max is None:
+            continue
+        z_lo = max(min(c.z_min for c in s.cuts), 1e-3)
+        scatter = 5.0 / math.log(10.0) * math.sqrt(sigma2) / (C_KMS * z_lo)
+        if faintest < s.mag_max + 2.0 * scatter:
+            out.append(f"samples '{s.name}'.mag_max = {s.mag_max}: the box's faintest galaxy "
+                       f"has M = {faintest:.2f}, but inferred magnitudes scatter by about "
+                       f"{scatter:.2f} mag at z = {z_lo:g}; the cones can lose members across "
+                       f"the threshold without gaining any, which biases their density low. "
+                       f"Use a box complete to M = {s.mag_max + 2.0 * scatter:.2f}, or set "
+                       f"survey.effects.physical_fluxes = false")
     return out
 
 

@@ -20,6 +20,7 @@ from ..catalog import GalaxyBox
 from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms, select_cut
 from ..cone.build import SurveyModel, prepare_box
 from ..cone.matter import carry_matter
+from ..cone.photometry import luminosity_scatter
 from ..cone.settings import SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
@@ -306,10 +307,14 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
     meas: dict[str, Any] = {}
     nz: dict[str, Any] = {}
     skipped: dict[str, dict[str, str]] = {}
+    luminosity: dict[str, dict[str, Any]] = {}
     for cs in spec.cuts:
         name, label = cs.sample_name, cs.cut.label
         meas.setdefault(name, {})
         nz.setdefault(name, {})
+        scatter = luminosity_scatter(table, cs.cut.mag_max, cs.cut.z_min, cs.cut.z_max)
+        if scatter is not None:
+            luminosity.setdefault(name, {})[label] = scatter
         where = f"sample {name}, cut {label}"
         try:
             m, h = measure_cone_cut(spec.build, cs, table, footprint, regions,
@@ -334,5 +339,6 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
                "build_seconds": float(info.get("timing_s", {}).get("total", 0.0)),
-               "n_matter_particles": 0 if matter is None else len(matter)}
+               "n_matter_particles": 0 if matter is None else len(matter),
+               "luminosity": luminosity}
     return {"measurements": meas, "nz": nz, "info": summary, "skipped": skipped}

@@ -142,7 +142,32 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
                                               for c in cones],
                        "correction": cfg.correction.name},
             "cuts": cuts}
+        lum = luminosity_record([c["info"].get("luminosity", {}).get(s.name, {})
+                                 .get(s.cuts[0].label) for c in cones])
+        if lum is not None:
+            samples[s.name]["luminosity"] = {"physical_fluxes": bool(cfg.effects.physical_fluxes),
+                                             "cut": s.cuts[0].label, **lum}
     return samples
+
+
+def luminosity_record(per_cone: list[dict[str, Any] | None]) -> dict[str, Any] | None:
+    """Per-cone membership changes and the rms of M_inferred − M_true by redshift, summed
+    over cones, from each cone's :func:`~conecheck.cone.photometry.luminosity_scatter`."""
+    recs = [r for r in per_cone if r]
+    if not recs:
+        return None
+    n_true = np.array([r["n_true"] for r in recs], dtype=np.float64)
+    safe = np.maximum(n_true, 1.0)
+    count = np.sum([r["count"] for r in recs], axis=0)
+    sum_sq = np.sum([r["sum_sq"] for r in recs], axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rms = np.where(count > 0, np.sqrt(sum_sq / np.maximum(count, 1)), np.nan)
+    return {"membership_changed_fraction": (np.array([r["n_changed"] for r in recs]) / safe
+                                            ).tolist(),
+            "count_change_fraction": (np.array([r["n_inferred"] for r in recs]) / safe - 1.0
+                                      ).tolist(),
+            "z_edges": list(recs[0]["z_edges"]), "rms_mag": rms.tolist(),
+            "n_in_bin": count.astype(int).tolist()}
 
 
 def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = False,
@@ -211,6 +236,8 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             checked = preflight(cfg, inp.footprint, inp.box, force=force)
             for note in checked.notes:
                 log.info("pre-flight: %s", note)
+            for caution in checked.cautions:
+                log.warning("pre-flight: %s", caution)
             raise_problems(checked)
             inp.regions.save(run_dir / "jackknife_regions.npz")
             box = box_stage(inp)

@@ -105,9 +105,14 @@ def distribution_cone(name: str, sample: ConeSample, geometry: ConeGeometry | No
     keep = kept_centres(name, sample, geometry, r_out, half_length, edge_treatment,
                         min_inside_fraction)
     region = None
+    extra = {"geometry": "cone", "edge_treatment": edge_treatment,
+             "kept_fraction": float(keep.mean()) if keep.size else 0.0}
     if jk:
+        check_filled(sample.region, k, "galaxies")
         region = sample.region[keep]
-        check_filled(region, k, "kept centres")
-    return distribution(name, counts[keep], w[keep], region, k, edges,
-                         {"geometry": "cone", "edge_treatment": edge_treatment,
-                          "kept_fraction": float(keep.mean()) if keep.size else 0.0})
+        # a region whose galaxies all sit near the survey edge keeps no centre: deleting it
+        # changes nothing, so its delete-one value is the full value (listed, not refused)
+        empty = np.flatnonzero(np.bincount(region, minlength=k) == 0)
+        if empty.size:
+            extra["regions_without_kept_centres"] = empty.tolist()
+    return distribution(name, counts[keep], w[keep], region, k, edges, extra)
