@@ -36,7 +36,7 @@ from .compare import Comparison, compare_statistic
 from .compare.rules import VerdictRules
 from .cone import make_randoms, n_randoms, select_cut
 from .cone.build import prepare_box
-from .cone.settings import SampleCut
+from .cone.settings import CompletenessSettings, SampleCut
 from .config import (
     CosmologyConfig,
     JackknifeConfig,
@@ -47,6 +47,7 @@ from .config import (
 from .demo import demo_config
 from .errors import InputError
 from .footprint import Footprint, SkyRegions, jackknife_regions
+from .footprint.coverage import box_dilution, covered_sky
 from .report import render_html, render_report, rerender, results_to_json
 from .run.cache import content_digest
 from .run.inputs import load_box, load_footprint, overlap_input, sky_regions
@@ -54,6 +55,7 @@ from .run.specs import box_spec, cone_build_spec
 from .run.tasks import (
     _cone_sample,
     cone_table,
+    count_sample,
     cut_distances,
     cut_volume_per_sr,
     measure_box_sample,
@@ -206,7 +208,9 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
             matter.position, matter.particle_mass, float(box.box_size)))
     if config is not None:
         cfg = _config(config)
-        spec = box_spec(cfg, cfg.sample(sample), content_digest(box))
+        dilution = (box_dilution(survey_sky(cfg)[0], cfg.completeness)
+                    if STATISTICS[statistic].counts_in_cells else 1.0)
+        spec = box_spec(cfg, cfg.sample(sample), content_digest(box), dilution)
         if settings is not None:
             spec = dataclasses.replace(spec, statistics=dataclasses.replace(
                 spec.statistics, measure=(statistic,),
@@ -273,6 +277,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
         multiple = cfg.randoms.multiple if randoms_multiple is None else randoms_multiple
         shell = cfg.shell
         seed = cfg.seed
+        completeness = cfg.completeness
     else:
         if z_min is None or z_max is None:
             raise InputError("measure_cone without a configuration: give z_min and z_max")
@@ -283,16 +288,19 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
             fp, DEFAULT_SKY_REGIONS, seed=seed)
         multiple = DEFAULT_RANDOMS_MULTIPLE if randoms_multiple is None else randoms_multiple
         shell = None
+        completeness = CompletenessSettings()
     cosmo = cosmo_cfg.model()
     if "chi_obs" not in table.colnames:
         table["chi_obs"] = cosmo.comoving_distance(np.asarray(table["z_obs"], np.float64))
     sel = select_cut(table, the_cut, shell, cosmo) if shell is not None else table[
         (np.asarray(table["z_obs"]) >= the_cut.z_min) & (np.asarray(table["z_obs"])
                                                         < the_cut.z_max)]
-    data = _cone_sample(sel, regions)
-    lo, hi = cut_distances(cosmo, the_cut)
-    geometry = ConeGeometry(fp, lo, hi, regions, cut_volume_per_sr(cosmo, the_cut))
     stat = STATISTICS[statistic]
+    data = (count_sample(sel, regions, completeness) if stat.counts_in_cells
+            else _cone_sample(sel, regions))
+    lo, hi = cut_distances(cosmo, the_cut)
+    geometry = ConeGeometry(fp, lo, hi, regions, cut_volume_per_sr(cosmo, the_cut),
+                            covered_sky(fp, completeness))
     rand = None
     shared = None
     rng = seeded_rng(seed, "api-cone", statistic)

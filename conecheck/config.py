@@ -38,6 +38,7 @@ from .attribution.settings import (
 )
 from .compare.rules import VerdictRules
 from .cone.settings import (
+    CompletenessSettings,
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
@@ -510,6 +511,7 @@ class RunConfig:
     fibres: FibreSettings
     correction: CorrectionSettings
     redshift_errors: RedshiftErrorSettings
+    completeness: CompletenessSettings
     samples: tuple[SampleConfig, ...]
     statistics: StatisticsConfig
     jackknife: JackknifeConfig
@@ -571,7 +573,8 @@ def resolve_path(value: str | None, base_dir: str | Path = ".") -> Path | None:
 #: TOML layout: section path → (class, sub-tables handled separately)
 _SURVEY_SUBTABLES = {"shell": SurveyShell, "effects": EffectSwitches, "fibres": FibreSettings,
                      "correction": CorrectionSettings,
-                     "redshift_errors": RedshiftErrorSettings}
+                     "redshift_errors": RedshiftErrorSettings,
+                     "completeness": CompletenessSettings}
 _TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jackknife",
              "cones", "randoms", "verdict", "compute", "output", "parameter_shifts",
              "ladder", "corrections", "cut_sweep")
@@ -723,6 +726,13 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
                         f"{'needs' if len(matter) == 1 else 'need'} a matter tracer; "
                         "set box.particles to a particle file of the same box (with "
                         "box.particle_mass), or use a synthetic box, which draws its own")
+    if cfg.completeness.treatment == "weight":
+        unweighted = [s for s in cfg.statistics.measure
+                      if STATISTICS[s].counts_in_cells and not STATISTICS[s].weighted_counts]
+        if unweighted:
+            problems.append(f"survey.completeness.treatment = 'weight': {', '.join(unweighted)} "
+                            "only asks whether a cell is empty, which a weight cannot change; "
+                            "use 'dilute' or 'threshold', or leave it out of statistics.measure")
     need = [s for s in cfg.statistics.measure if s in NEEDS_RANDOMS]
     if cfg.randoms.multiple <= 0 and need:
         problems.append(f"randoms.multiple: {', '.join(need)} need randoms on the cones; set "

@@ -17,6 +17,7 @@ from . import config as C
 from .attribution import settings as A
 from .compare.rules import VerdictRules
 from .cone.settings import (
+    CompletenessSettings,
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
@@ -38,6 +39,7 @@ SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("survey.shell", SurveyShell, ()),
     ("survey.effects", EffectSwitches, ()),
     ("survey.redshift_errors", RedshiftErrorSettings, ()),
+    ("survey.completeness", CompletenessSettings, ()),
     ("survey.fibres", FibreSettings, ()),
     ("survey.correction", CorrectionSettings, ()),
     ("[samples]", C.SampleConfig, ()),

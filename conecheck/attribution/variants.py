@@ -23,10 +23,14 @@ from collections.abc import Sequence
 from dataclasses import asdict, dataclass
 from typing import Any
 
+import numpy as np
+
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig, SampleConfig
+from ..footprint import Footprint
 from ..run.inputs import cap_footprint, load_footprint, sky_regions
 from ..run.pipeline import CutPiece, RunInputs, cone_stage, randoms_stage
+from ..run.specs import count_dilution
 
 log = logging.getLogger(__name__)
 
@@ -96,6 +100,20 @@ class ConeVariants:
         """True when footprint-less variants see an equal-area cap instead of the full sky."""
         return self.cfg.ladder.sky == "cap" and self.cfg.effects.footprint
 
+    @property
+    def sky_completeness(self) -> float:
+        """Uniform completeness of the footprint-less variants' sky: the box's dilution for
+        the statistics that count in cells (the covered sky's mean completeness under
+        ``survey.completeness.treatment = "dilute"``), so that box and cones stay
+        comparable on every rung; 1 otherwise."""
+        return count_dilution(self.cfg, self._geometries[True].footprint)
+
+    @property
+    def footprint_less_as_map(self) -> bool:
+        """True when footprint-less variants are built through a footprint map (a cap, or a
+        full sky of uniform completeness below 1)."""
+        return self.uses_cap or (self.cfg.effects.footprint and self.sky_completeness < 1.0)
+
     def sky_name(self, footprint: bool) -> str:
         """How the sky of a variant is described in results.json."""
         if footprint:
@@ -106,11 +124,15 @@ class ConeVariants:
         """Run inputs for the survey footprint (True), or else the cap or the full sky."""
         if footprint not in self._geometries:
             if self.uses_cap and not footprint:
-                fp = cap_footprint(self._geometries[True].footprint)
+                fp = cap_footprint(self._geometries[True].footprint, self.sky_completeness)
             else:
                 cfg = dataclasses.replace(self.cfg, effects=dataclasses.replace(
                     self.cfg.effects, footprint=footprint))
                 fp = load_footprint(cfg)
+                if not footprint and self.footprint_less_as_map:
+                    fp = Footprint.from_map(np.full(fp.values.size, self.sky_completeness),
+                                            source=f"full sky at completeness "
+                                                   f"{self.sky_completeness:.3f}")
             self._geometries[footprint] = dataclasses.replace(
                 self.inp, footprint=fp, regions=sky_regions(self.cfg, fp))
             log.info("attribution: %s geometry (%.0f deg2) with %d jackknife regions",
@@ -119,8 +141,9 @@ class ConeVariants:
         return self._geometries[footprint]
 
     def build_effects(self, variant: Variant) -> EffectSwitches:
-        """The switches the cone builder gets: a cap is applied as a footprint."""
-        if self.uses_cap and not variant.effects.footprint:
+        """The switches the cone builder gets: a cap (or a uniformly incomplete full sky)
+        is applied as a footprint."""
+        if self.footprint_less_as_map and not variant.effects.footprint:
             return dataclasses.replace(variant.effects, footprint=True)
         return variant.effects
 

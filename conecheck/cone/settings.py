@@ -248,6 +248,56 @@ class EffectSwitches:
         _raise("effects", problems)
 
 
+#: How count statistics treat an incomplete survey (:class:`CompletenessSettings`).
+COMPLETENESS_TREATMENTS = ("dilute", "weight", "threshold")
+
+
+@dataclass(frozen=True)
+class CompletenessSettings:
+    """Coverage and completeness as a survey analysis of counts treats them.
+
+    Coverage says where the survey *is* (a pixel is inside when its completeness exceeds
+    ``coverage_min``); it decides which spheres and cylinders lie inside the survey (the
+    VPF and the counts' edge treatment). Completeness says what fraction of the targets
+    there got a redshift; it thins the cones' galaxies. Statistics that count galaxies
+    around centres (counts in cylinders and annuli, count ratios, the VPF:
+    ``Statistic.counts_in_cells``) see a thinned field, so box and cones are made
+    comparable in one of three ways, applied identically to both:
+
+    Attributes
+    ----------
+    treatment : {"dilute", "weight", "threshold"}
+        ``dilute``: the box's galaxies are kept at random (seeded) with the mean
+        completeness of the covered sky, as the cones are. ``weight``: each cone galaxy
+        counts 1/completeness as a neighbour and as a centre (not for the VPF: an empty
+        sphere cannot be weighted). ``threshold``: only sky with completeness ≥
+        ``threshold`` is inside the survey for these statistics, taken as complete (the
+        box is not diluted).
+    coverage_min : float
+        A pixel is inside the survey when its completeness exceeds this (0: every
+        observed pixel). A mask whose edge pixels hold the fraction of their area inside
+        the survey reads best with 0.5 (a pixel is inside when most of it is).
+    threshold : float
+        Completeness from which the ``threshold`` treatment keeps the sky.
+    """
+    treatment: Literal["dilute", "weight", "threshold"] = "dilute"
+    coverage_min: float = 0.0
+    threshold: float = 0.8
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        if self.treatment not in COMPLETENESS_TREATMENTS:
+            problems.append(f"treatment = {self.treatment!r}: expected one of "
+                            f"{', '.join(COMPLETENESS_TREATMENTS)}")
+        if not (isinstance(self.coverage_min, (int, float))
+                and math.isfinite(self.coverage_min) and 0.0 <= self.coverage_min < 1.0):
+            problems.append(f"coverage_min = {self.coverage_min!r}: expected 0 <= value < 1")
+        if not (isinstance(self.threshold, (int, float)) and math.isfinite(self.threshold)
+                and 0.0 < self.threshold <= 1.0):
+            problems.append(f"threshold = {self.threshold!r}: expected 0 < value <= 1")
+        _raise("completeness", problems)
+
+
 @dataclass(frozen=True)
 class SurveyShell:
     """The outermost redshift shell every sample cut needs, and the flux limit.

@@ -281,6 +281,17 @@ def footprint_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | N
         info.append(f"N_side {fp['nside']}")
     if fp.get("n_regions") is not None:
         info.append(f"{fp['n_regions']} jackknife regions")
+    comp = fp.get("completeness") if isinstance(fp.get("completeness"), dict) else {}
+    counts_line = ""
+    if comp:
+        how = {"dilute": "the box diluted to the mean completeness",
+               "weight": "cone galaxies weighted by 1/completeness",
+               "threshold": f"only sky with completeness ≥ {comp.get('threshold')} "
+                            "(taken as complete)"}.get(str(comp.get("treatment")), "?")
+        area = ac.fmt(ac.num(comp, "covered_area_deg2"), 4)
+        mean = ac.fmt_fixed(ac.num(comp, "mean_completeness"), 3)
+        counts_line = (f"Counts in cells: covered sky {area} deg², mean completeness {mean}; "
+                       f"incompleteness treated as '{comp.get('treatment')}': {how}.")
     axes = (("footprint:completeness", "footprint:colourbar") if mask is not None else ()) + \
         (("footprint:regions",) if mask is not None and regions is not None else ())
 
@@ -288,6 +299,9 @@ def footprint_pages(results: dict[str, Any], run_dir: str | os.PathLike[str] | N
         x0, w = st.MARGIN_X, page.content_width
         y = 1.1
         page.text(x0, y, " · ".join(info) or "footprint summary not recorded", st.BODY)
+        for line in wrap(counts_line, w, st.BODY) if counts_line else []:
+            y += 0.18
+            page.text(x0, y, line, st.BODY)
         y += 0.1
         for p in problems:
             for line in wrap(p, w, st.BODY):

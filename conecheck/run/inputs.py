@@ -200,13 +200,15 @@ def load_footprint(cfg: RunConfig) -> Footprint:
     return Footprint.from_fits(mask, vetoes).reordered(nest=False)
 
 
-def cap_footprint(footprint: Footprint) -> Footprint:
-    """A round cap of ``footprint``'s effective area around its centre, completeness 1.
+def cap_footprint(footprint: Footprint, completeness: float = 1.0) -> Footprint:
+    """A round cap of ``footprint``'s effective area around its centre, at a uniform
+    ``completeness``.
 
     The survey's solid angle without its edges, holes and completeness variations: the sky
     of the effect ladder's rungs before the footprint step. Centre: the completeness-
     weighted mean direction of the footprint's pixels; opening angle θ from
-    Ω = 2π (1 − cos θ) (area of a spherical cap), at the footprint's N_side.
+    Ω = 2π (1 − cos θ) = Ω_eff / completeness (area of a spherical cap), at the footprint's
+    N_side, so its effective area is the footprint's.
     """
     vec = footprint.occupied_vectors()
     w = footprint.values[footprint.occupied]
@@ -215,10 +217,10 @@ def cap_footprint(footprint: Footprint) -> Footprint:
     if norm < 1e-6:  # a footprint spread evenly over the sky: no meaningful centre
         centre, norm = np.array([0.0, 0.0, 1.0]), 1.0
     centre = centre / norm
-    cos_theta = max(1.0 - footprint.area_sr / (2.0 * np.pi), -1.0)
+    cos_theta = max(1.0 - footprint.area_sr / completeness / (2.0 * np.pi), -1.0)
     values = np.zeros(hp.nside2npix(footprint.nside))
     values[hp.query_disc(footprint.nside, centre, float(np.arccos(cos_theta)),
-                         nest=footprint.nest)] = 1.0
+                         nest=footprint.nest)] = completeness
     ra, dec = hp.vec2ang(centre, lonlat=True)
     return Footprint(values, nest=footprint.nest,
                      source=(f"cap of {footprint.area_deg2:.1f} deg2 around RA {ra[0]:.2f}, "

@@ -49,6 +49,7 @@ from .specs import (
     InputFile,
     box_spec,
     cone_build_spec,
+    count_dilution,
     cut_spec,
     randoms_spec,
 )
@@ -128,7 +129,7 @@ def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     box_ref = inp.executor.share(inp.box)
     tasks = []
     for s in c.samples:
-        spec = box_spec(c, s, inp.content(inp.box))
+        spec = box_spec(c, s, inp.content(inp.box), count_dilution(c, inp.footprint))
         tasks.append(Task(key=spec_key(spec), label=f"box / sample {s.name}", func=box_task,
                           args=(spec, box_ref), kind="box"))
     results = _run_stage(inp, "box", tasks)
@@ -152,7 +153,7 @@ def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
         return {}
     tasks = []
     for s in c.samples:
-        bspec = box_spec(c, s, inp.content(inp.box))
+        bspec = box_spec(c, s, inp.content(inp.box), count_dilution(c, inp.footprint))
         stats = bspec.statistics
         bspec = dataclasses.replace(bspec, statistics=dataclasses.replace(
             stats, measure=tuple(n for n in stats.measure if n in fitted),

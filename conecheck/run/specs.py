@@ -22,6 +22,7 @@ import numpy as np
 
 from ..box.hod import HODModel
 from ..cone.settings import (
+    CompletenessSettings,
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
@@ -33,6 +34,9 @@ from ..cone.settings import (
 )
 from ..config import CosmologyConfig, RunConfig, SampleConfig, StatisticsConfig
 from ..cosmology import Cosmology
+from ..footprint.coverage import box_dilution
+from ..footprint.protocols import SkyFootprint
+from ..stats import STATISTICS
 
 
 @dataclass(frozen=True)
@@ -95,6 +99,9 @@ class BoxSpec:
     sample : SampleThreshold
     statistics : StatisticsConfig
     jackknife : BoxJackknife
+    dilution : float
+        Fraction of the sample's galaxies the statistics that count in cells keep (seeded),
+        as the survey's completeness thins the cones (:func:`count_dilution`).
     """
 
     seed: int
@@ -104,6 +111,7 @@ class BoxSpec:
     sample: SampleThreshold
     statistics: StatisticsConfig
     jackknife: BoxJackknife
+    dilution: float = 1.0
 
     def model(self) -> Cosmology:
         return self.cosmology.model()
@@ -142,6 +150,7 @@ class RandomsSpec:
     footprint_content: str
     regions_content: str
     data_chi: np.ndarray | None = None
+    completeness: CompletenessSettings = CompletenessSettings()
 
     def model(self) -> Cosmology:
         return self.cosmology.model()
@@ -184,6 +193,7 @@ class CutSpec:
     randoms_key: str
     regions_content: str
     tag: str = ""
+    completeness: CompletenessSettings = CompletenessSettings()
 
 
 @dataclass(frozen=True)
@@ -209,14 +219,34 @@ class ConePieceSpec:
 
 
 # --------------------------------------------------------------------------- builders
-def box_spec(cfg: RunConfig, sample: SampleConfig, box_content: str) -> BoxSpec:
-    """The box measurement of ``sample`` under ``cfg``."""
+def counts_in_cells(cfg: RunConfig) -> bool:
+    """True when ``cfg`` measures a statistic that counts galaxies in cells."""
+    return any(STATISTICS[n].counts_in_cells for n in cfg.statistics.measure)
+
+
+def count_completeness(cfg: RunConfig) -> CompletenessSettings:
+    """``survey.completeness`` as the tasks read it: the defaults when no measured statistic
+    counts in cells (so that changing it recomputes nothing)."""
+    return cfg.completeness if counts_in_cells(cfg) else CompletenessSettings()
+
+
+def count_dilution(cfg: RunConfig, footprint: SkyFootprint) -> float:
+    """Fraction of box galaxies kept for the statistics that count in cells: the covered
+    sky's mean completeness under ``survey.completeness.treatment = "dilute"`` (1 under the
+    other treatments, or when no measured statistic counts in cells)."""
+    return box_dilution(footprint, cfg.completeness) if counts_in_cells(cfg) else 1.0
+
+
+def box_spec(cfg: RunConfig, sample: SampleConfig, box_content: str,
+             dilution: float = 1.0) -> BoxSpec:
+    """The box measurement of ``sample`` under ``cfg`` (``dilution``: :func:`count_dilution`)."""
     b = cfg.box
     return BoxSpec(seed=cfg.seed, cosmology=cfg.cosmology, box_content=box_content,
                    effects=BoxEffects(b.los_axis, b.rsd, b.redshift_scatter_kms),
                    sample=SampleThreshold.of(sample),
                    statistics=measured_statistics(cfg.statistics),
-                   jackknife=BoxJackknife(cfg.jackknife.box_n_side, cfg.jackknife.box_layout))
+                   jackknife=BoxJackknife(cfg.jackknife.box_n_side, cfg.jackknife.box_layout),
+                   dilution=float(dilution))
 
 
 def randoms_spec(cfg: RunConfig, sample_name: str, cut: SampleCut, n_expected: float,
@@ -227,7 +257,8 @@ def randoms_spec(cfg: RunConfig, sample_name: str, cut: SampleCut, n_expected: f
                        cut=cut, randoms=cfg.randoms,
                        statistics=measured_statistics(cfg.statistics),
                        n_expected=float(n_expected), footprint_content=footprint_content,
-                       regions_content=regions_content, data_chi=data_chi)
+                       regions_content=regions_content, data_chi=data_chi,
+                       completeness=count_completeness(cfg))
 
 
 def cone_build_spec(cfg: RunConfig, index: int, box_content: str, footprint_content: str,
@@ -249,7 +280,8 @@ def cut_spec(cfg: RunConfig, sample_name: str, cut: SampleCut, randoms_key: str,
     """One sample cut measured on a cone of ``cfg``."""
     return CutSpec(sample_name=sample_name, cut=cut,
                    statistics=measured_statistics(cfg.statistics), randoms_key=randoms_key,
-                   regions_content=regions_content, tag=tag)
+                   regions_content=regions_content, tag=tag,
+                   completeness=count_completeness(cfg))
 
 
 def measured_statistics(stats: StatisticsConfig) -> StatisticsConfig:
@@ -259,6 +291,7 @@ def measured_statistics(stats: StatisticsConfig) -> StatisticsConfig:
 
 
 __all__ = ["BoxEffects", "BoxJackknife", "BoxSpec", "ConeBuildSpec", "ConePieceSpec",
+           "count_dilution",
            "ConeSpec", "CutSpec", "DerivativesSpec", "InputFile", "RandomsSpec",
            "SampleThreshold", "box_spec", "cone_build_spec", "cut_spec", "measured_statistics",
            "randoms_spec"]

@@ -21,10 +21,11 @@ from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms
 from ..cone.build import SurveyModel, prepare_box
 from ..cone.matter import carry_matter
 from ..cone.photometry import luminosity_scatter
-from ..cone.settings import SampleCut
+from ..cone.settings import CompletenessSettings, SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
 from ..footprint import Footprint, SkyRegions
+from ..footprint.coverage import count_weights, covered_sky
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, MatterSample, Measurement
 from ..stats.base import LOS_VARIANCE
 from ..streams import seeded_rng
@@ -99,8 +100,21 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
         raise InputError(f"sample '{sample.name}': {int(keep.sum())} box galaxies brighter "
                          f"than mag_max = {sample.mag_max}; check the threshold and the box")
     pos = box_redshift_space(spec, box, axis)
-    bs = BoxSample.with_regions(pos[keep], box.box_size, axis, n_side=spec.jackknife.n_side,
-                                layout=spec.jackknife.layout)
+
+    def sample_of(points: np.ndarray) -> BoxSample:
+        return BoxSample.with_regions(points, box.box_size, axis,
+                                      n_side=spec.jackknife.n_side,
+                                      layout=spec.jackknife.layout)
+
+    bs = sample_of(pos[keep])
+    counted = bs
+    if spec.dilution < 1.0 and any(STATISTICS[n].counts_in_cells
+                                   for n in spec.statistics.measure):
+        # the cones' galaxies are thinned by the survey's completeness: so are the box's for
+        # the statistics that count in cells (one draw per galaxy of the box, so every axis
+        # and every box of the HOD derivatives keeps the same galaxies where it can)
+        u = seeded_rng(spec.seed, "box-dilution", sample.name).random(len(box))
+        counted = sample_of(pos[keep & (u < spec.dilution)])
     matter = None if box.matter is None else MatterSample(
         box.matter.position, box.matter.particle_mass, box.box_size)
     out = {}
@@ -110,7 +124,8 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
         rng = seeded_rng(spec.seed, "box", sample.name, name)
         stat = STATISTICS[name]
         extra = {"matter": matter} if stat.needs_matter else {}
-        out[name] = stat.measure_box(bs, spec.statistics.get(name), rng, jackknife=jackknife,
+        out[name] = stat.measure_box(counted if stat.counts_in_cells else bs,
+                                     spec.statistics.get(name), rng, jackknife=jackknife,
                                      **extra)
     return out
 
@@ -177,7 +192,8 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
     rand = _cone_sample(cut_randoms(spec, footprint), regions)
-    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, spec.cut))
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, spec.cut),
+                            covered_sky(footprint, spec.completeness))
     shared = {}
     for name in spec.statistics.measure:
         s = STATISTICS[name].prepare_cone(
@@ -216,6 +232,18 @@ def _cone_sample(table: Any, regions: SkyRegions) -> ConeSample:
         ra, dec, chi, w, region = ra[inside], dec[inside], chi[inside], w[inside], \
             region[inside]
     return ConeSample(ra, dec, chi, w, region, regions.k)
+
+
+def count_sample(table: Any, regions: SkyRegions, settings: CompletenessSettings
+                 ) -> ConeSample:
+    """The cone galaxies the statistics that count in cells use: those on covered sky, with
+    weights per ``survey.completeness`` (:func:`~conecheck.footprint.coverage.count_weights`)."""
+    if "completeness" not in table.colnames:
+        return _cone_sample(table, regions)
+    keep, w = count_weights(table["completeness"], table["weight"], settings)
+    sub = table[keep]
+    sub["weight"] = w
+    return _cone_sample(sub, regions)
 
 
 def survey_model(spec: ConeBuildSpec, footprint: Footprint) -> SurveyModel:
@@ -263,8 +291,10 @@ def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
     cut = cut_spec.cut
     sel = select_cut(table, cut, build.shell, cosmo)
     data = _cone_sample(sel, regions)
+    counted = count_sample(sel, regions, cut_spec.completeness)
     lo, hi = cut_distances(cosmo, cut)
-    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, cut))
+    geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, cut),
+                            covered_sky(footprint, cut_spec.completeness))
     rand = randoms_sample(randoms, regions)
     shared = shared_counts(randoms)
     stats = cut_spec.statistics
@@ -274,8 +304,9 @@ def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
                        cut_spec.tag)
         stat = STATISTICS[name]
         extra = {"matter": matter} if stat.needs_matter else {}
-        out[name] = stat.measure_cone(data, rand, geometry, stats.get(name), rng,
-                                      shared.get(name), jackknife=True, **extra)
+        out[name] = stat.measure_cone(counted if stat.counts_in_cells else data, rand,
+                                      geometry, stats.get(name), rng, shared.get(name),
+                                      jackknife=True, **extra)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
     nz, _ = np.histogram(np.asarray(sel["z_obs"]), bins=edges,
                          weights=np.asarray(sel["weight"]))

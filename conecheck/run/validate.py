@@ -26,6 +26,7 @@ from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
 from ..config import RunConfig, config_warnings, resolved_toml
 from ..errors import InputError
+from ..footprint.coverage import covered_sky, mean_completeness
 from ..report import (
     build_pages,
     render_html,
@@ -49,6 +50,7 @@ from .pipeline import (
 )
 from .preflight import preflight, raise_problems
 from .progress import Progress
+from .specs import count_dilution
 
 log = logging.getLogger(__name__)
 
@@ -375,7 +377,14 @@ def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None,
                       if cfg.effects.footprint else [],
                       "regions_path": "jackknife_regions.npz",
                       "area_deg2": float(inp.footprint.area_deg2),
-                      "n_regions": int(inp.regions.k), "nside": int(inp.footprint.nside)},
+                      "n_regions": int(inp.regions.k), "nside": int(inp.footprint.nside),
+                      "completeness": {
+                          **dataclasses.asdict(cfg.completeness),
+                          "covered_area_deg2": float(
+                              covered_sky(inp.footprint, cfg.completeness).area_deg2),
+                          "mean_completeness": mean_completeness(inp.footprint,
+                                                                 cfg.completeness),
+                          "box_dilution": count_dilution(cfg, inp.footprint)}},
         "verdict_rules": cfg.verdict.to_dict(),
     }
 

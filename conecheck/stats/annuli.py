@@ -41,8 +41,8 @@ class AnnuliSettings(CountSettings):
         Cone only: drop centres whose annulus lies less than ``min_inside_fraction`` inside
         the survey (default, as for the cylinders), or keep every centre.
     min_inside_fraction : float
-        Threshold of the ``drop`` treatment: the completeness-weighted fraction of the
-        cylinder inside the survey (0.99: essentially whole, as the VPF's spheres).
+        Threshold of the ``drop`` treatment: the fraction of the cylinder on covered sky
+        (coverage, not completeness) (0.99: essentially whole, as the VPF's spheres).
     """
 
     r_inner: float = 2.0
@@ -80,6 +80,7 @@ class CountsInAnnuli(Statistic):
     """P(N_a) of neighbours in an annulus around every galaxy."""
 
     name = NAME
+    counts_in_cells = True
     settings_type = AnnuliSettings
     display = Display(title="counts in annuli P(N)", short="annuli P(N)", symbol="annuli",
                       order=40)

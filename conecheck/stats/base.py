@@ -305,12 +305,17 @@ class ConeGeometry:
     volume_per_sr : float or None
         Comoving volume per steradian between the limits [(Mpc/h)³], from the run's
         cosmology (curvature included); flat space when omitted.
+    coverage : Footprint or None
+        Where the survey is for statistics that count galaxies in cells (1 inside, 0
+        outside: :func:`conecheck.footprint.coverage.covered_sky`); their inside tests and
+        sphere centres use it. None: the footprint itself.
     """
     footprint: SkyFootprint
     chi_min: float
     chi_max: float
     regions: JackknifeRegions | None = None
     volume_per_sr: float | None = None
+    coverage: SkyFootprint | None = None
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.chi_min) and np.isfinite(self.chi_max)
@@ -320,6 +325,11 @@ class ConeGeometry:
         if self.volume_per_sr is None:  # flat space unless the run's cosmology says more
             object.__setattr__(self, "volume_per_sr", float(
                 Cosmology.flat_volume_per_sr(self.chi_min, self.chi_max)))
+
+    @property
+    def covered(self) -> SkyFootprint:
+        """The sky count statistics place their cells in (``coverage`` or the footprint)."""
+        return self.footprint if self.coverage is None else self.coverage
 
     @property
     def omega_sr(self) -> float:
@@ -356,10 +366,10 @@ class ConeGeometry:
         radius, half_length : float
             Cylinder radius R and half-length H [Mpc/h].
 
-        Angular part: completeness-weighted fraction of the disc of angular radius
-        arcsin(R/χ) inside the footprint; radial part: :meth:`radial_fraction`.
+        Angular part: fraction of the disc of angular radius arcsin(R/χ) on covered sky
+        (:attr:`covered`: coverage, not completeness); radial part: :meth:`radial_fraction`.
         """
         c = np.asarray(chi, dtype=np.float64)
         ang = np.degrees(np.arcsin(np.clip(radius / np.maximum(c, radius), 0.0, 1.0)))
-        frac = np.asarray(self.footprint.disc_fraction(ra_deg, dec_deg, ang))
+        frac = np.asarray(self.covered.disc_fraction(ra_deg, dec_deg, ang))
         return frac * self.radial_fraction(c, half_length)

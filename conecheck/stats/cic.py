@@ -37,8 +37,8 @@ class CicSettings(CountSettings):
         the survey (default: a cylinder cut by an edge holds fewer neighbours than in the
         box, which biases P(N) low), or keep every centre.
     min_inside_fraction : float
-        Threshold of the ``drop`` treatment: the completeness-weighted fraction of the
-        cylinder inside the survey (0.99: essentially whole, as the VPF's spheres).
+        Threshold of the ``drop`` treatment: the fraction of the cylinder on covered sky
+        (coverage, not completeness) (0.99: essentially whole, as the VPF's spheres).
     """
 
     r_cyl: float = 2.0
@@ -69,6 +69,7 @@ class CountsInCylinders(Statistic):
     """P(N_c) around every galaxy."""
 
     name = NAME
+    counts_in_cells = True
     settings_type = CicSettings
     display = Display(title="counts in cylinders P(N)", short="cylinders P(N)", symbol="P(N)",
                       order=20)

@@ -203,6 +203,7 @@ class CountRatio(Statistic):
     """P(N_small/N_large) around every galaxy."""
 
     name = NAME
+    counts_in_cells = True
     settings_type = CountRatioSettings
     display = Display(title="count ratio P(N_small/N_large)", short="count ratio",
                       symbol="N_s/N_l", order=45)

@@ -117,6 +117,14 @@ class Statistic:
     #: The estimators need a matter tracer (:class:`~.base.MatterSample`), passed to
     #: :meth:`measure_box` and :meth:`measure_cone` as ``matter=``.
     needs_matter: ClassVar[bool] = False
+    #: The statistic counts galaxies in cells around centres (cylinders, spheres), so an
+    #: incomplete survey thins what it measures: the run applies ``survey.completeness``
+    #: (:mod:`conecheck.footprint.coverage`) to its box and cone samples, and its inside
+    #: tests read :attr:`ConeGeometry.covered`.
+    counts_in_cells: ClassVar[bool] = False
+    #: With ``counts_in_cells``: galaxy weights (1/completeness) can enter the counts.
+    #: False for a statistic, like the VPF, that only asks whether a cell is empty.
+    weighted_counts: ClassVar[bool] = True
 
     # ------------------------------------------------------------------ settings
     def defaults(self) -> Any:

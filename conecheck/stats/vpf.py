@@ -1,11 +1,12 @@
 """Void probability function P₀(R): the fraction of random spheres of radius R holding no
 galaxy (docs/design.md §6).
 
-Box: centres uniform in the periodic box.  Cone: centres drawn on the sky with
-``footprint.sample`` (uniform per solid angle, thinned by completeness) and uniform in
-comoving volume between χ_min and χ_max; at each radius only spheres wholly inside the
-survey are used — χ ± R inside the shell and the completeness-weighted footprint fraction
-of the disc of angular radius arcsin(R/χ) at least ``min_inside_fraction``.
+Box: centres uniform in the periodic box.  Cone: centres uniform per solid angle on the
+covered sky (``ConeGeometry.covered``: coverage, not completeness) and uniform in comoving
+volume between χ_min and χ_max; at each radius only spheres wholly inside the survey are
+used — χ ± R inside the shell and the covered fraction of the disc of angular radius
+arcsin(R/χ) at least ``min_inside_fraction``. Incompleteness inside the covered sky is
+treated as ``survey.completeness`` says (:mod:`conecheck.footprint.coverage`).
 
 Weights: a sphere is empty when it holds no galaxy of positive weight; up-weighting a
 neighbour cannot fill a sphere, so weights enter P₀ only through that test.
@@ -147,11 +148,11 @@ def vpf_box(sample: BoxSample, settings: VpfSettings | None = None,
 
 def sphere_centres_cone(geometry: ConeGeometry, n: int, rng: np.random.Generator
                         ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
-    """Random centres inside the survey: sky from the footprint, χ uniform in volume.
+    """Random centres inside the survey: uniform on the covered sky, χ uniform in volume.
 
     Returns ``ra, dec`` [deg] and ``chi`` [Mpc/h].
     """
-    ra, dec = geometry.footprint.sample(n, rng)
+    ra, dec = geometry.covered.sample(n, rng)
     u = rng.random(n)
     c3 = geometry.chi_min**3 + u * (geometry.chi_max**3 - geometry.chi_min**3)
     return np.asarray(ra, dtype=np.float64), np.asarray(dec, dtype=np.float64), np.cbrt(c3)
@@ -181,7 +182,7 @@ def vpf_cone_centres(geometry: ConeGeometry, settings: VpfSettings | None,
         ang = np.degrees(np.arcsin(np.clip(r / chi, 0.0, 1.0)))
         frac = np.zeros(s.n_spheres)
         if radial.any():
-            frac[radial] = geometry.footprint.disc_fraction(ra[radial], dec[radial], ang[radial])
+            frac[radial] = geometry.covered.disc_fraction(ra[radial], dec[radial], ang[radial])
         use[:, i] = radial & (frac >= s.min_inside_fraction)
     region = (np.full(ra.size, -1, dtype=np.int64) if geometry.regions is None else
               np.asarray(geometry.regions.region_of(ra, dec), dtype=np.int64))
@@ -238,6 +239,8 @@ class VoidProbability(Statistic):
     """P₀(R) from random spheres; on cones the centres are shared by every cone of a cut."""
 
     name = NAME
+    counts_in_cells = True
+    weighted_counts = False
     settings_type = VpfSettings
     display = Display(title="void probability P_0(R)", short="voids P_0(R)", symbol="P_0",
                       order=30)
