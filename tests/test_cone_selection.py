@@ -182,3 +182,19 @@ def test_bad_inputs_name_the_setting():
         select_cut(cone, SampleCut("thin", z_min=0.09, z_max=0.095))
     with pytest.raises(InputError, match="abs_mag"):
         select_sample(cone, -20.0, 0.02, 0.05)
+
+
+def test_cone_carries_the_box_galaxies_halo_columns():
+    # Cone rows keep the central flag, halo id and halo mass of their box galaxy.
+    rng = np.random.default_rng(8)
+    n = 20000
+    box = GalaxyBox(rng.uniform(0, 150.0, (n, 3)), np.zeros((n, 3)), 150.0, 0.05,
+                    abs_mag=rng.uniform(-22, -19, n), is_central=rng.random(n) < 0.7,
+                    halo_id=np.arange(n, dtype=np.int64),
+                    halo_mass=10 ** rng.uniform(11, 14, n))
+    sv = survey(fibres=False, use_footprint=False, flux=False,
+                shell=SurveyShell(z_min=0.01, z_max=0.04))
+    cone, _ = build_cone(box, sv, [75, 75, 75], None, cone_rngs(2, 0))
+    idx = np.asarray(cone["box_index"])
+    for name in ("is_central", "halo_id", "halo_mass"):
+        np.testing.assert_array_equal(cone[name], getattr(box, name)[idx])

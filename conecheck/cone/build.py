@@ -327,6 +327,10 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
                               if fx.physical_fluxes else box.abs_mag[idx])
         targets["abs_mag_true"] = box.abs_mag[idx]
         targets["app_mag"] = app_mag[ok]
+    for name in ("is_central", "halo_id", "halo_mass"):
+        val = getattr(box, name)
+        if val is not None:
+            targets[name] = val[idx]
     targets["box_index"] = idx.astype(np.int64)
     targets["replica"] = cols["rep"][ok]
     targets["weight"] = np.ones(len(targets))
