@@ -15,7 +15,7 @@ Every seed is an independent synthetic box (the quick demo scale, one sample). S
   velocities scatter the analyst's magnitudes across the threshold (the nulls switch
   ``survey.effects.physical_fluxes`` off, since it is a survey effect the box lacks);
 * planted, incompleteness untreated: the demo footprint's covered sky (mean completeness
-  0.95) taken as complete (``threshold`` 0.55), so the cones' counts in cells are thinned
+  0.98) taken as complete (``threshold`` 0.55), so the cones' counts in cells are thinned
   and the box's are not;
 * planted, cone-only redshift errors of 500 km/s (the counts in cylinders lose neighbours);
 * planted, uncorrected fibre collisions of 600″ (wp loses small-scale pairs);
