@@ -42,6 +42,7 @@ from .cone.settings import (
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
+    LuminosityFunction,
     ObserverSettings,
     RandomSettings,
     RedshiftErrorSettings,
@@ -512,6 +513,7 @@ class RunConfig:
     correction: CorrectionSettings
     redshift_errors: RedshiftErrorSettings
     completeness: CompletenessSettings
+    luminosity_function: LuminosityFunction
     samples: tuple[SampleConfig, ...]
     statistics: StatisticsConfig
     jackknife: JackknifeConfig
@@ -574,7 +576,8 @@ def resolve_path(value: str | None, base_dir: str | Path = ".") -> Path | None:
 _SURVEY_SUBTABLES = {"shell": SurveyShell, "effects": EffectSwitches, "fibres": FibreSettings,
                      "correction": CorrectionSettings,
                      "redshift_errors": RedshiftErrorSettings,
-                     "completeness": CompletenessSettings}
+                     "completeness": CompletenessSettings,
+                     "luminosity_function": LuminosityFunction}
 _TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jackknife",
              "cones", "randoms", "verdict", "compute", "output", "parameter_shifts",
              "ladder", "corrections", "cut_sweep")

@@ -114,6 +114,8 @@ def make_results(run_dir: Path, seed: int = 3, config_lines: int = 12) -> dict:
     results = {
         "conecheck_version": "0.1.0", "config_hash": "9f2c4e7a1b3d5f60", "overall": "pass",
         "samples": samples,
+        "targets": {"box_per_deg2": [3.2, 4.1, 3.6], "lf_per_deg2": 8.9, "box_fraction": 0.42,
+                    "collided_fraction_box": 0.024, "collided_fraction_full_estimate": 0.057},
         "provenance": {"config_text": config, "config_path": "kestrel.toml",
                        "input_files": {"/data/kestrel/box_z0.15.fits": "ab" * 32},
                        "versions": {"numpy": np.__version__, "healpy": hp.__version__},

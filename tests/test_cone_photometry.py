@@ -211,3 +211,36 @@ def test_preflight_warns_when_the_box_has_no_galaxies_below_a_threshold():
     assert faint_end_cautions(cfg, deep_box) == []
     off = config_from_dict(tiny_dict(**{"survey.effects.physical_fluxes": False}))
     assert faint_end_cautions(off, cut_box) == []
+
+
+def test_schechter_density_matches_the_incomplete_gamma_function():
+    # ∫_{-∞}^{M} Φ dM = φ* Γ(α + 1, x) with x = 10^(−0.4 (M − M*)) (Schechter 1976, ApJ 203,
+    # 297); scipy's regularised gammaincc needs α + 1 > 0, so the check uses α = −0.5
+    # (the 60 L* upper cut of the quadrature leaves e^-60 out).
+    from scipy.special import gamma, gammaincc
+
+    from conecheck.cone.settings import LuminosityFunction
+    lf = LuminosityFunction(phi_star=0.01, m_star=-20.5, alpha=-0.5)
+    for m in (-22.0, -20.5, -19.0, -17.0):
+        x = 10 ** (-0.4 * (m - lf.m_star))
+        want = lf.phi_star * gammaincc(0.5, x) * gamma(0.5)
+        assert lf.density_brighter(m) == pytest.approx(want, rel=1e-6)
+
+
+def test_target_density_and_the_collision_scaling():
+    from conecheck.cone.photometry import expected_targets_per_sr, full_list_collided_fraction
+    from conecheck.cone.settings import LuminosityFunction
+    lf = LuminosityFunction()
+    shell = SurveyShell(z_min=0.02, z_max=0.06, m_lim=17.0)
+    # a thin slice: the count is the slice volume times the density above M_lim(z)
+    thin = SurveyShell(z_min=0.04, z_max=0.0401, m_lim=17.0)
+    v = float(COSMO.shell_volume_per_sr(0.04, 0.0401))
+    m_abs = 17.0 - float(REF.distmod(0.04005).value)
+    assert expected_targets_per_sr(lf, thin, COSMO) == pytest.approx(
+        v * lf.density_brighter(m_abs), rel=1e-3)
+    # deeper flux limits hold more targets
+    deeper = SurveyShell(z_min=0.02, z_max=0.06, m_lim=17.5)
+    assert expected_targets_per_sr(lf, deeper, COSMO) > expected_targets_per_sr(lf, shell, COSMO)
+    # random sky: the free fraction exp(−Σπθ²) → doubling Σ squares it
+    f = 1 - np.exp(-0.05)
+    assert full_list_collided_fraction(f, 2.0) == pytest.approx(1 - np.exp(-0.1))

@@ -382,6 +382,10 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
         "n_repeated": n_repeated,
         "n_in_footprint": int(n_in_footprint),
         "n_targets": int(len(targets)),
+        # targets in the shell by their own redshift: what a target density is quoted for
+        "n_targets_in_shell": int(np.count_nonzero(
+            (np.asarray(targets["z_obs"]) >= shell.z_min)
+            & (np.asarray(targets["z_obs"]) < shell.z_max))),
         "n_galaxies": int(len(cone)),
         "sum_weight": float(np.sum(cone["weight"])),
         "fibres": fres.stats,

@@ -29,6 +29,7 @@ DM(z_obs) + K(z_obs) + E(z_obs) from the observed redshift, so M_inferred = M ex
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
@@ -38,7 +39,7 @@ from scipy.optimize import brentq
 from ..cosmology import Cosmology
 from ..errors import InputError
 from .corrections import ZFLAG_SECOND_PASS
-from .settings import SurveyShell
+from .settings import LuminosityFunction, SurveyShell
 
 #: Smallest redshift used in distance moduli (z_obs ≤ 0 cannot enter a survey shell).
 Z_FLOOR = 1e-8
@@ -166,3 +167,33 @@ def luminosity_scatter(table: Any, mag_max: float | None, z_min: float, z_max: f
     return {"n_true": int(by_true.sum()), "n_inferred": int(by_inferred.sum()),
             "n_changed": int((by_true != by_inferred).sum()), "z_edges": edges.tolist(),
             "count": count.tolist(), "sum_sq": sum_sq.tolist()}
+
+
+def expected_targets_per_sr(lf: LuminosityFunction, shell: SurveyShell, cosmology: Cosmology,
+                            n_z: int = 400) -> float:
+    """Targets per steradian a luminosity function predicts in the shell [sr⁻¹].
+
+    Σ over redshift slices of the comoving volume per steradian times the density of
+    galaxies brighter than M_lim(z) = m_lim − DM(z) − K(z) − E(z) (the analyst's relation,
+    :func:`observed_frame_magnitude`); midpoint rule on ``n_z`` slices.
+    """
+    if shell.m_lim is None:
+        return math.inf
+    edges = np.linspace(shell.z_min, shell.z_max, n_z + 1)
+    mid = 0.5 * (edges[1:] + edges[:-1])
+    dv = np.diff(cosmology.shell_volume_per_sr(edges[0], edges))
+    m_lim_abs = shell.m_lim - observed_frame_magnitude(0.0, mid, cosmology, shell)
+    density = np.array([lf.density_brighter(m) for m in m_lim_abs])
+    return float(np.sum(dv * density))
+
+
+def full_list_collided_fraction(collided: float, density_ratio: float) -> float:
+    """Collided fraction of the full target list, scaled from the box's.
+
+    For targets scattered at random on the sky with surface density Σ, a target is free
+    with probability exp(−Σ π θ²), so the collided fraction scales as
+    1 − (1 − f)^(Σ_full/Σ_box). Clustered targets collide more; this is a lower estimate.
+    """
+    if not (0.0 <= collided < 1.0) or not density_ratio > 0:
+        return float(collided)
+    return float(1.0 - (1.0 - collided) ** density_ratio)

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
+from scipy.integrate import quad
 
 from ..cosmology import C_KMS, Cosmology
 from ..errors import InputError
@@ -246,6 +247,52 @@ class EffectSwitches:
                                  "physical_fluxes")
                     if not isinstance(getattr(self, name), bool)]
         _raise("effects", problems)
+
+
+@dataclass(frozen=True)
+class LuminosityFunction:
+    """Schechter luminosity function of the survey's full target population.
+
+    Used to estimate how many targets above the flux limit the box lacks (a box usually
+    stops at the faintest sample threshold, a survey targets everything brighter than
+    m_lim), and so how far the fibre-collision rate of the cones falls short.
+    Φ(M) dM = 0.4 ln 10 φ* x^(α+1) e^(−x) dM with x = 10^(−0.4 (M − M*)).
+
+    Attributes
+    ----------
+    phi_star : float
+        φ* [h³ Mpc⁻³ mag⁻¹].
+    m_star : float
+        M* − 5 log10 h [mag].
+    alpha : float
+        Faint-end slope α.
+
+    Defaults: the r-band (band-shifted to z = 0.1) fit of Blanton et al. (2003, ApJ 592,
+    819), φ* = 1.49e-2, M* = −20.44, α = −1.05 (values from memory).
+    """
+    phi_star: float = 1.49e-2
+    m_star: float = -20.44
+    alpha: float = -1.05
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        if not (math.isfinite(self.phi_star) and 0.0 < self.phi_star < 1.0):
+            problems.append(f"phi_star = {self.phi_star!r}: expected 0 < φ* < 1 h³ Mpc⁻³")
+        if not (math.isfinite(self.m_star) and -30.0 < self.m_star < -10.0):
+            problems.append(f"m_star = {self.m_star!r}: expected −30 < M* < −10")
+        if not (math.isfinite(self.alpha) and -2.5 < self.alpha < 1.0):
+            problems.append(f"alpha = {self.alpha!r}: expected −2.5 < α < 1")
+        _raise("luminosity_function", problems)
+
+    def density_brighter(self, abs_mag: float) -> float:
+        """Number density of galaxies brighter than ``abs_mag`` [h³ Mpc⁻³]: ∫ Φ(M) dM up
+        to ``abs_mag`` (quadrature in x = L/L*, from x(abs_mag) to 60 L*)."""
+        x_lo = 10.0 ** (-0.4 * (float(abs_mag) - self.m_star))
+        if x_lo >= 60.0:
+            return 0.0
+        # in x: Φ dM = φ* x^α e^(−x) dx (the 0.4 ln 10 is the Jacobian dM → dx/x)
+        val, _ = quad(lambda x: x**self.alpha * math.exp(-x), x_lo, 60.0, limit=200)
+        return self.phi_star * val
 
 
 #: How count statistics treat an incomplete survey (:class:`CompletenessSettings`).

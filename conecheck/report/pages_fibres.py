@@ -58,8 +58,22 @@ def _same_fractions(fibs: list[Any]) -> bool:
     return len(recs) == len(fibs) > 1 and all(r == recs[0] for r in recs)
 
 
+def target_line(results: dict[str, Any]) -> str:
+    """The box's target density against the luminosity function's (results ``targets``)."""
+    t = results.get("targets")
+    if not isinstance(t, dict) or t.get("box_fraction") is None:
+        return ""
+    return (f"targets: the box supplies {ac.fmt_pct(ac.num(t, 'box_fraction'))} of the "
+            f"{ac.fmt(ac.num(t, 'lf_per_deg2'), 3)} per deg² a Schechter luminosity function "
+            f"predicts; a full target list would collide about "
+            f"{ac.fmt_pct(ac.num(t, 'collided_fraction_full_estimate'))} of targets (random-sky "
+            f"scaling, a lower estimate) against the cones' "
+            f"{ac.fmt_pct(ac.num(t, 'collided_fraction_box'))}")
+
+
 def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any],
-                 others: tuple[tuple[str, dict[str, Any]], ...] = ()) -> None:
+                 others: tuple[tuple[str, dict[str, Any]], ...] = (), targets: str = ""
+                 ) -> None:
     """One block: the per-cone fractions and the correction's record.
 
     ``others`` are further samples with the same fractions: one plot serves them all and
@@ -109,6 +123,8 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     if rec.size:
         lines.append(f"recovered in tile overlaps: {ac.fmt_pct(np.nanmean(rec))} of the "
                      f"collided targets (mean)")
+    if targets:
+        lines.append(targets)
     for name, other in ((sname, fib), *((o, d.get("fibres") or {}) for o, d in others)):
         eff = _effect_lines(other.get("uncorrected_effect"))
         if eff:
@@ -136,7 +152,7 @@ def fibre_pages(results: dict[str, Any]) -> list[PageSpec]:
 
         def draw_shared(page: Page) -> None:
             _draw_sample(page, 1.0, (page.h - st.CONTENT_BOTTOM - 1.0) / PER_PAGE - 0.2,
-                         first, samples[first], rest)
+                         first, samples[first], rest, target_line(results))
 
         return [PageSpec("Fibre collisions", "fibres", draw_shared, (f"fibres:{first}",))]
     specs = []
@@ -151,7 +167,8 @@ def fibre_pages(results: dict[str, Any]) -> list[PageSpec]:
             top = 1.0
             block = (page.h - st.CONTENT_BOTTOM - top) / PER_PAGE
             for j, s in enumerate(chunk):
-                _draw_sample(page, top + j * block, block - 0.2, s, ac.samples(results)[s])
+                _draw_sample(page, top + j * block, block - 0.2, s, ac.samples(results)[s],
+                             targets=target_line(results))
 
         specs.append(PageSpec("Fibre collisions", "fibres", draw, axes))
     return specs

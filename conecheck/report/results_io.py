@@ -90,7 +90,7 @@ def check_results(results: Any, source: str = "results") -> list[str]:
 
 #: Top-level sections the report reads when present; each is a JSON object.
 OPTIONAL_SECTIONS = ("provenance", "footprint", "verdict_rules", "ladder", "corrections",
-                     "cuts")
+                     "cuts", "targets")
 #: Per-bin arrays of a statistic (numbers, or null for a missing value), one per bin.
 _BIN_ARRAYS = ("box", "cone_mean", "sigma_box", "sigma_cone", "sigma_total", "z")
 #: Bin-by-bin matrices of a statistic (optional).

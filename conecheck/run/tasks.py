@@ -367,6 +367,7 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
                "n_repeated": int(info.get("n_repeated", 0)),
                "n_galaxies": int(info.get("n_galaxies", len(table))),
                "n_targets": int(info.get("n_targets", 0)),
+               "n_targets_in_shell": int(info.get("n_targets_in_shell", 0)),
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
                "build_seconds": float(info.get("timing_s", {}).get("total", 0.0)),

@@ -24,7 +24,9 @@ from ..atomic import remove_partial_files, write_text_atomic
 from ..compare import compare_statistic, exit_code, rollup_verdicts
 from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
+from ..cone.photometry import expected_targets_per_sr, full_list_collided_fraction
 from ..config import RunConfig, config_warnings, resolved_toml
+from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
 from ..footprint.coverage import covered_sky, mean_completeness
 from ..report import (
@@ -152,6 +154,33 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
     return samples
 
 
+#: Share of the luminosity function's targets below which the run warns that the box's
+#: target list (and so its collision rate) falls short.
+TARGET_FRACTION_WARN = 0.9
+
+
+def target_record(cfg: RunConfig, inp: RunInputs, cones: list[dict[str, Any]]
+                  ) -> dict[str, Any] | None:
+    """The box's target density against the luminosity function's, per deg² of effective
+    area, and the collided fraction a full target list would imply
+    (:func:`~conecheck.cone.photometry.full_list_collided_fraction`). None without a flux
+    limit or fibre collisions."""
+    if cfg.shell.m_lim is None or not cfg.effects.flux_limit or not cfg.effects.fibres:
+        return None
+    area = float(inp.footprint.area_deg2)
+    per_cone = [c["info"].get("n_targets_in_shell", 0) / area for c in cones]
+    lf = expected_targets_per_sr(cfg.luminosity_function, cfg.shell,
+                                 cosmology_of(cfg)) / DEG2_PER_SR
+    box = float(np.mean(per_cone))
+    collided = float(np.mean([c["info"].get("collided_fraction", 0.0) for c in cones]))
+    ratio = box / lf if lf > 0 else float("nan")
+    return {"box_per_deg2": per_cone, "lf_per_deg2": lf, "box_fraction": ratio,
+            "collided_fraction_box": collided,
+            "collided_fraction_full_estimate": full_list_collided_fraction(
+                collided, 1.0 / ratio if ratio > 0 else float("nan")),
+            "luminosity_function": dataclasses.asdict(cfg.luminosity_function)}
+
+
 def luminosity_record(per_cone: list[dict[str, Any] | None]) -> dict[str, Any] | None:
     """Per-cone membership changes and the rms of M_inferred − M_true by redshift, summed
     over cones, from each cone's :func:`~conecheck.cone.photometry.luminosity_scatter`."""
@@ -249,6 +278,18 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             t0 = time.perf_counter()
             results = _results(inp, run_dir, config_path, resolved)
             results["samples"] = compare_all(inp, box, cones, derivatives)
+            targets = target_record(cfg, inp, cones)
+            if targets is not None:
+                results["targets"] = targets
+                if targets["box_fraction"] < TARGET_FRACTION_WARN:
+                    log.warning(
+                        "targets: the box supplies %.0f %% of the %.1f targets per deg² a "
+                        "Schechter luminosity function (survey.luminosity_function) predicts "
+                        "above m_lim = %g; fibre collisions among the full list would be "
+                        "about %.1f %% of targets instead of the cones' %.1f %%",
+                        100 * targets["box_fraction"], targets["lf_per_deg2"], cfg.shell.m_lim,
+                        100 * targets["collided_fraction_full_estimate"],
+                        100 * targets["collided_fraction_box"])
             rollup_verdicts(results)
             inp.timings["compare"] = time.perf_counter() - t0
             for ext in extensions:
