@@ -90,12 +90,8 @@ def apparent_magnitude(abs_mag: ArrayLike, z_cos: ArrayLike, z_true: ArrayLike,
     z_cos = np.maximum(np.asarray(z_cos, dtype=np.float64), Z_FLOOR)
     z_true = np.asarray(z_true, dtype=np.float64)
     m = np.asarray(abs_mag, dtype=np.float64) + cosmology.distance_modulus(z_cos)
-    doppler = (1.0 + z_true) / (1.0 + z_cos)
-    moving = doppler != 1.0
-    if np.any(moving):
-        # (1 + z_pec)² in D_L: 10 log10(1 + z_pec), only where it is not exactly 0 so that
-        # a galaxy at rest keeps the observed-frame magnitude bit for bit
-        m = m + np.where(moving, 10.0 * np.log10(np.where(moving, doppler, 1.0)), 0.0)
+    # (1 + z_pec)² in D_L: 10 log10(1 + z_pec), exactly 0 for a galaxy at rest
+    m = m + 10.0 * np.log10((1.0 + z_true) / (1.0 + z_cos))
     if shell is not None and shell.has_colour_terms:
         m = m + colour_terms(shell, np.maximum(z_true, Z_FLOOR), z_cos)
     return m

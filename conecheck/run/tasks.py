@@ -234,13 +234,19 @@ def _cone_sample(table: Any, regions: SkyRegions) -> ConeSample:
     return ConeSample(ra, dec, chi, w, region, regions.k)
 
 
-def count_sample(table: Any, regions: SkyRegions, settings: CompletenessSettings
-                 ) -> ConeSample:
+def count_sample(table: Any, regions: SkyRegions, settings: CompletenessSettings,
+                 whole: ConeSample | None = None) -> ConeSample:
     """The cone galaxies the statistics that count in cells use: those on covered sky, with
-    weights per ``survey.completeness`` (:func:`~conecheck.footprint.coverage.count_weights`)."""
+    weights per ``survey.completeness`` (:func:`~conecheck.footprint.coverage.count_weights`).
+
+    ``whole``: the sample of all of ``table``, returned as it is when the treatment keeps
+    every galaxy at its weight (no second region lookup).
+    """
     if "completeness" not in table.colnames:
-        return _cone_sample(table, regions)
+        return whole if whole is not None else _cone_sample(table, regions)
     keep, w = count_weights(table["completeness"], table["weight"], settings)
+    if keep.all() and settings.treatment != "weight":
+        return whole if whole is not None else _cone_sample(table, regions)
     sub = table[keep]
     sub["weight"] = w
     return _cone_sample(sub, regions)
@@ -291,13 +297,16 @@ def measure_cone_cut(build: ConeBuildSpec, cut_spec: CutSpec, table: Any,
     cut = cut_spec.cut
     sel = select_cut(table, cut, build.shell, cosmo)
     data = _cone_sample(sel, regions)
-    counted = count_sample(sel, regions, cut_spec.completeness)
+    stats = cut_spec.statistics
+    # the galaxies the statistics that count in cells see: the same sample unless the
+    # completeness treatment drops or re-weights some
+    counted = (count_sample(sel, regions, cut_spec.completeness, whole=data)
+               if any(STATISTICS[n].counts_in_cells for n in stats.measure) else data)
     lo, hi = cut_distances(cosmo, cut)
     geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, cut),
                             covered_sky(footprint, cut_spec.completeness))
     rand = randoms_sample(randoms, regions)
     shared = shared_counts(randoms)
-    stats = cut_spec.statistics
     out = {}
     for name in stats.measure:
         rng = seeded_rng(build.seed, "cone", build.index, cut_spec.sample_name, cut.label, name,
