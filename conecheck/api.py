@@ -50,7 +50,7 @@ from .footprint import Footprint, SkyRegions, jackknife_regions
 from .footprint.coverage import box_dilution, covered_sky
 from .report import render_html, render_report, rerender, results_to_json
 from .run.cache import content_digest
-from .run.inputs import load_box, load_footprint, overlap_input, sky_regions
+from .run.inputs import load_box, load_footprint, overlap_input, sky_regions, tiles_input
 from .run.specs import box_spec, cone_build_spec
 from .run.tasks import (
     _cone_sample,
@@ -138,9 +138,10 @@ def build_cones(box: GalaxyBox, config: RunConfig, n: int | None = None,
         raise InputError(f"n = {n}: expected at least one cone")
     cells = prepare_box(box)
     box_content, fp_content = content_digest(box), content_digest(fp)
-    overlap = overlap_input(cfg)
-    return [cone_table(cone_build_spec(cfg, i, box_content, fp_content, overlap), box, fp,
-                       cells=cells)[0] for i in range(n)]
+    overlap, tiles = overlap_input(cfg), tiles_input(cfg)
+    return [cone_table(cone_build_spec(cfg, i, box_content, fp_content, overlap,
+                                       tiles_file=tiles), box, fp, cells=cells)[0]
+            for i in range(n)]
 
 
 def cone_matter(box: GalaxyBox, config: RunConfig, index: int = 0) -> MatterSample:
@@ -154,7 +155,7 @@ def cone_matter(box: GalaxyBox, config: RunConfig, index: int = 0) -> MatterSamp
                          "matter (statistics.measure)")
     fp = load_footprint(cfg)
     spec = cone_build_spec(cfg, int(index), content_digest(box), content_digest(fp),
-                           overlap_input(cfg))
+                           overlap_input(cfg), tiles_file=tiles_input(cfg))
     return _cone_matter(spec, box, fp, reach)
 
 

@@ -48,6 +48,8 @@ from .cone.settings import (
     RedshiftErrorSettings,
     SampleCut,
     SurveyShell,
+    TargetSettings,
+    TileSettings,
 )
 from .cosmology import Cosmology
 from .errors import InputError
@@ -514,6 +516,8 @@ class RunConfig:
     redshift_errors: RedshiftErrorSettings
     completeness: CompletenessSettings
     luminosity_function: LuminosityFunction
+    targets: TargetSettings
+    tiles: TileSettings
     samples: tuple[SampleConfig, ...]
     statistics: StatisticsConfig
     jackknife: JackknifeConfig
@@ -577,7 +581,8 @@ _SURVEY_SUBTABLES = {"shell": SurveyShell, "effects": EffectSwitches, "fibres": 
                      "correction": CorrectionSettings,
                      "redshift_errors": RedshiftErrorSettings,
                      "completeness": CompletenessSettings,
-                     "luminosity_function": LuminosityFunction}
+                     "luminosity_function": LuminosityFunction,
+                     "targets": TargetSettings, "tiles": TileSettings}
 _TOP_KEYS = ("seed", "cosmology", "box", "survey", "samples", "statistics", "jackknife",
              "cones", "randoms", "verdict", "compute", "output", "parameter_shifts",
              "ladder", "corrections", "cut_sweep")
@@ -756,6 +761,13 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
     if cfg.cones.independent and cfg.cones.n_cones < 2:
         warnings.append("cones.independent = true with one cone: the cone-to-cone scatter is "
                         "undefined, the offset's error falls back to the shared-structure form")
+    if cfg.targets.source == "fill" and (shell.m_lim is None or not cfg.effects.flux_limit):
+        problems.append("survey.targets.source = 'fill': the faint targets are those above "
+                        "the flux limit, so it needs survey.shell.m_lim and "
+                        "survey.effects.flux_limit = true")
+    if cfg.targets.source == "fill" and not (cfg.effects.fibres or cfg.tiles.enabled):
+        warnings.append("survey.targets.source = 'fill' with neither fibre collisions nor "
+                        "tiles: fill targets only act on fibres, so they change nothing")
     if cfg.effects.fibres and not cfg.effects.footprint:
         warnings.append("survey.effects: fibres without the footprint collide over the full "
                         "sky shell")

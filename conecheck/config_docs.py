@@ -26,6 +26,8 @@ from .cone.settings import (
     RandomSettings,
     RedshiftErrorSettings,
     SurveyShell,
+    TargetSettings,
+    TileSettings,
 )
 from .stats.registry import ORIGINS, STATISTICS
 
@@ -42,7 +44,9 @@ SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("survey.redshift_errors", RedshiftErrorSettings, ()),
     ("survey.completeness", CompletenessSettings, ()),
     ("survey.luminosity_function", LuminosityFunction, ()),
+    ("survey.targets", TargetSettings, ()),
     ("survey.fibres", FibreSettings, ()),
+    ("survey.tiles", TileSettings, ()),
     ("survey.correction", CorrectionSettings, ()),
     ("[samples]", C.SampleConfig, ()),
     ("statistics", C.StatisticsConfig, ("settings",)),

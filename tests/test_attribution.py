@@ -206,7 +206,9 @@ def test_default_ladder_plan_ends_at_the_configured_survey():
     rungs, skipped = plan_ladder(cfg)
     assert [r.name for r in rungs] == ["geometry", "rsd", "redshift_errors", "physical_fluxes",
                                        "footprint", "fibres", "correction"]
-    assert not skipped
+    # the two effects the tiny survey does not configure are skipped, each with its reason
+    assert [(s["step"], s["reason"].split(" ")[0]) for s in skipped] == [
+        ("target_fill", "survey.targets.source"), ("fibre_budget", "no")]
     base = rungs[0].variant
     assert not (base.effects.rsd or base.effects.redshift_errors or base.effects.footprint
                 or base.effects.fibres or base.effects.physical_fluxes)
@@ -230,7 +232,20 @@ def test_ladder_skips_steps_that_change_nothing():
     # with neither velocities nor errors the measured redshift is the true one: physical
     # fluxes change nothing either
     assert {s["step"] for s in skipped} == {"rsd", "redshift_errors", "physical_fluxes",
-                                            "correction"}
+                                            "correction", "target_fill", "fibre_budget"}
+    assert rungs[-1].variant.key == main_variant(cfg).key
+
+
+def test_ladder_adds_the_faint_targets_and_the_fibre_budget_as_their_own_rungs():
+    cfg = config_from_dict(tiny_dict(**{"survey.targets.source": "fill",
+                                        "survey.tiles.centres": "regular"}, ladder={}))
+    rungs, skipped = plan_ladder(cfg)
+    assert [r.name for r in rungs][-4:] == ["fibres", "target_fill", "fibre_budget",
+                                            "correction"]
+    assert not skipped
+    fill, budget = rungs[-3].variant.effects, rungs[-2].variant.effects
+    assert fill.target_fill and not fill.fibre_budget and budget.fibre_budget
+    assert not rungs[0].variant.effects.target_fill
     assert rungs[-1].variant.key == main_variant(cfg).key
 
 

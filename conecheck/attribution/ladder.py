@@ -57,10 +57,12 @@ STEP_LABELS = {
     "footprint": ("+ footprint edges and holes", "+footprint"),
     "flux_limit": ("+ flux limit", "+flux limit"),
     "fibres": ("+ fibre collisions", "+fibres"),
+    "target_fill": ("+ faint targets the box lacks", "+faint targets"),
+    "fibre_budget": ("+ fibre budget per tile", "+budget"),
     "correction": ("+ correction", "+correction"),
 }
 _EFFECT_FIELDS = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "flux_limit",
-                  "fibres")
+                  "fibres", "target_fill", "fibre_budget")
 
 
 @dataclass(frozen=True)
@@ -106,11 +108,18 @@ def _changes_nothing(cfg: RunConfig, step: str) -> str | None:
         if not cfg.effects.rsd and (zero_errors or not cfg.effects.redshift_errors):
             return ("without RSD or redshift errors the measured redshift is the "
                     "cosmological one, so the fluxes do not change")
+    if step == "target_fill":
+        if cfg.targets.source != "fill":
+            return "survey.targets.source is 'box': the target list is the box's"
+        if not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget)):
+            return "neither fibre collisions nor a fibre budget act on the extra targets"
+    if step == "fibre_budget" and not cfg.tiles.enabled:
+        return "no tiles (survey.tiles.centres) are configured"
     if step == "flux_limit" and cfg.shell.m_lim is None:
         return "no flux limit (survey.shell.m_lim) is configured"
     if step == "correction":
-        if not cfg.effects.fibres:
-            return "fibre collisions are off, so there is nothing to correct"
+        if not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget)):
+            return "fibre collisions and budget are off, so there is nothing to correct"
         if cfg.correction.name == "none":
             return "the configured correction is 'none' (the same cones as the fibre rung)"
     return None

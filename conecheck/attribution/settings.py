@@ -18,10 +18,10 @@ from ..loader import build_section
 
 #: Steps an effect ladder can add, one at a time, after its geometry-only rung.
 LADDER_STEPS = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "flux_limit",
-                "fibres", "correction")
+                "fibres", "target_fill", "fibre_budget", "correction")
 #: The documented default order (the flux limit stays as configured on every rung).
 DEFAULT_LADDER_ORDER = ("rsd", "redshift_errors", "physical_fluxes", "footprint", "fibres",
-                        "correction")
+                        "target_fill", "fibre_budget", "correction")
 
 
 @dataclass(frozen=True)
@@ -36,7 +36,9 @@ class LadderConfig:
         Steps added cumulatively after the geometry-only rung, among rsd,
         redshift_errors, physical_fluxes (fluxes from the true distance and velocity, cuts
         on the inferred magnitude), footprint, flux_limit, fibres (collisions, uncorrected when a
-        ``correction`` step follows) and correction (the configured one). Effects not
+        ``correction`` step follows), target_fill (the faint targets of
+        ``survey.targets.source = "fill"``), fibre_budget (the tiles' fibre limit) and
+        correction (the configured one). Effects not
         listed stay as configured on every rung; steps the survey switches off are skipped.
         Rungs before ``footprint`` see the sky chosen by ``sky``.
     cuts : {"primary", "all"}

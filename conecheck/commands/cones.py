@@ -24,6 +24,7 @@ from ..run.inputs import (
     load_footprint,
     overlap_input,
     sky_regions,
+    tiles_input,
 )
 from ..run.specs import cone_build_spec, randoms_spec
 from ..run.tasks import (
@@ -57,7 +58,8 @@ def main(args: argparse.Namespace) -> int:
     cells = prepare_box(box)
     # the specs `conecheck run` gives its tasks, so cone i and the randoms are the same
     box_content, fp_content = content_digest(box), content_digest(footprint)
-    builds = [cone_build_spec(cfg, i, box_content, fp_content, overlap_input(cfg))
+    overlap, tiles = overlap_input(cfg), tiles_input(cfg)
+    builds = [cone_build_spec(cfg, i, box_content, fp_content, overlap, tiles_file=tiles)
               for i in range(n)]
     cones = []
     for i in range(n):

@@ -30,7 +30,7 @@ from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
-from astropy.table import Table
+from astropy.table import Table, vstack
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial.transform import Rotation
 
@@ -38,6 +38,7 @@ from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint.protocols import SkyFootprint
+from ..sphere import radec_to_vec
 from ..streams import seeded_rng
 from .corrections import (
     CORRECTIONS,
@@ -46,7 +47,7 @@ from .corrections import (
     ZFLAG_SECOND_PASS,
     correction_problem,
 )
-from .fibres import OverlapMap, assign_fibres, load_overlap_map, no_fibres
+from .fibres import FibreResult, OverlapMap, assign_fibres, load_overlap_map, no_fibres
 from .geometry import (
     BoxCells,
     SkyCoverage,
@@ -67,17 +68,22 @@ from .settings import (
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
+    LuminosityFunction,
     ObserverSettings,
     RedshiftErrorSettings,
     SurveyShell,
+    TargetSettings,
+    TileSettings,
 )
+from .targets import fill_targets, neighbour_distances
+from .tiles import Tiling, assign_budget, make_tiling
 
 log = logging.getLogger(__name__)
 
 #: The stages of a cone's construction that draw random numbers, each from its own stream
 #: ``seeded_rng(seed, "cone-build", cone_index, stage)`` (:mod:`conecheck.streams`).
 CONE_STAGES: tuple[str, ...] = ("observer", "rotation", "footprint", "redshift_errors",
-                                "fibres", "corrections")
+                                "fibres", "corrections", "fill", "tiles")
 
 
 @dataclass
@@ -101,6 +107,12 @@ class SurveyModel:
         Only its replication policy is used by :func:`build_cone`.
     overlap : OverlapMap or None
         Second-pass probability map; loaded from ``fibres.overlap_map`` when None.
+    targets : TargetSettings
+        Whether faint targets are added to the box's (``source = "fill"``).
+    luminosity_function : LuminosityFunction
+        Density of the full target population (for the fill).
+    tiles : TileSettings
+        Tiles and their fibre budget (none by default).
     """
 
     cosmology: Cosmology = field(default_factory=Cosmology)
@@ -112,8 +124,12 @@ class SurveyModel:
     redshift_errors: RedshiftErrorSettings = field(default_factory=RedshiftErrorSettings)
     observers: ObserverSettings = field(default_factory=ObserverSettings)
     overlap: OverlapMap | None = None
+    targets: TargetSettings = field(default_factory=TargetSettings)
+    luminosity_function: LuminosityFunction = field(default_factory=LuminosityFunction)
+    tiles: TileSettings = field(default_factory=TileSettings)
     _coverage: SkyCoverage | None = field(default=None, init=False, repr=False)
     _coverage_done: bool = field(default=False, init=False, repr=False)
+    _tiling: Tiling | None = field(default=None, init=False, repr=False)
 
     def __post_init__(self) -> None:
         if (self.overlap is None and self.fibres.overlap_map is not None
@@ -138,12 +154,28 @@ class SurveyModel:
             self._coverage_done = True
         return self._coverage
 
+    @property
+    def fills_targets(self) -> bool:
+        """True when the cones add the faint targets the box lacks."""
+        return (self.targets.source == "fill" and self.effects.target_fill
+                and self.effects.flux_limit and self.shell.m_lim is not None)
+
+    def tiling(self) -> Tiling | None:
+        """The tiles of the fibre budget on the active footprint (built once), or None."""
+        if not (self.tiles.enabled and self.effects.fibre_budget):
+            return None
+        if self._tiling is None:
+            self._tiling = make_tiling(self.tiles, self.active_footprint)
+        return self._tiling
+
     def settings_dict(self) -> dict[str, Any]:
         """The plain settings, for manifests."""
         return {"shell": asdict(self.shell), "effects": asdict(self.effects),
                 "fibres": asdict(self.fibres), "correction": asdict(self.correction),
                 "redshift_errors": asdict(self.redshift_errors),
-                "observers": asdict(self.observers),
+                "observers": asdict(self.observers), "targets": asdict(self.targets),
+                "luminosity_function": asdict(self.luminosity_function),
+                "tiles": asdict(self.tiles),
                 "cosmology": {"omega_m": self.cosmology.omega_m,
                               "omega_k": self.cosmology.omega_k, "h": self.cosmology.h}}
 
@@ -157,7 +189,8 @@ def cone_rngs(seed: int, cone_index: int) -> dict[str, np.random.Generator]:
 def _stage_rngs(rng: np.random.Generator | Mapping[str, np.random.Generator]
                 ) -> Mapping[str, np.random.Generator]:
     if isinstance(rng, Mapping):
-        missing = {"footprint", "redshift_errors", "fibres", "corrections"} - set(rng)
+        missing = {"footprint", "redshift_errors", "fibres", "corrections", "fill",
+                   "tiles"} - set(rng)
         if missing:
             raise ValueError(f"rng mapping lacks streams {sorted(missing)}")
         return rng
@@ -197,6 +230,76 @@ def _check_flux_inputs(box: GalaxyBox, survey: SurveyModel) -> bool:
                          "magnitude column 'abs_mag' in the box catalogue; map one in the "
                          "column mapping, or remove m_lim / set effects.flux_limit = false")
     return flux
+
+
+def _observe(ra: NDArray[np.float64], dec: NDArray[np.float64], chi: NDArray[np.float64],
+             vlos: NDArray[np.float64], comp: NDArray[np.float64],
+             true_mag: NDArray[np.float64] | None, survey: SurveyModel, flux: bool,
+             rng: np.random.Generator) -> dict[str, NDArray[Any]]:
+    """The target-list columns of galaxies at true distance ``chi`` [Mpc/h] moving with
+    ``vlos`` [km/s]: redshifts (cosmological, of the light, measured), fluxes and the
+    analyst's magnitudes; ``_ok`` marks the targets (z_obs > 0 and, with a flux limit,
+    m < m_lim)."""
+    cosmo, shell, fx = survey.cosmology, survey.shell, survey.effects
+    z_cos = cosmo.redshift_at(chi)
+    z_light = doppler_redshift(z_cos, vlos) if fx.rsd else z_cos.copy()
+    z_obs = z_light
+    if fx.redshift_errors:
+        z_obs = add_redshift_errors(z_light, z_cos, survey.redshift_errors, rng)
+    # a blueshift below z = 0 cannot fall in any survey shell
+    ok = z_obs > 0.0
+    out: dict[str, NDArray[Any]] = {
+        "ra": ra, "dec": dec, "z_cos": z_cos, "z_obs": z_obs, "z_obs_true": z_obs,
+        "chi_true": chi, "chi_obs": cosmo.comoving_distance(np.where(ok, z_obs, 1e-8)),
+        "v_los": vlos, "completeness": comp}
+    if true_mag is not None:
+        if fx.physical_fluxes:
+            # the flux follows the true distance and the galaxy's own Doppler shift; the
+            # measurement error of z_obs never changes who is a target
+            app_mag = apparent_magnitude(true_mag, z_cos, z_light, cosmo, shell)
+            out["abs_mag"] = inferred_abs_mag(app_mag, z_obs, cosmo, shell)
+        else:
+            app_mag = observed_frame_magnitude(true_mag, z_obs, cosmo, shell)
+            out["abs_mag"] = true_mag
+        out["abs_mag_true"] = true_mag
+        out["app_mag"] = app_mag
+        if flux:
+            ok &= app_mag < shell.m_lim
+    out["_ok"] = ok
+    return out
+
+
+def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[Any]],
+                rng: np.random.Generator) -> Table:
+    """The faint targets the box lacks in this cone (:mod:`.targets`), as target rows."""
+    assert box.abs_mag is not None  # a fill needs a flux limit, which needs magnitudes
+    host_r = cols["chi"][:, None] * radec_to_vec(cols["ra"], cols["dec"])
+    ft = fill_targets(host_r, survey.cosmology.redshift_at(cols["chi"]), box.abs_mag,
+                      float(box.box_size) ** 3,
+                      neighbour_distances(box.position, float(box.box_size), rng),
+                      survey.luminosity_function, survey.shell, survey.cosmology, rng)
+    ra, dec, chi = sky_coordinates(ft.r)
+    fp = survey.active_footprint
+    comp = (np.asarray(fp.completeness(ra, dec), dtype=np.float64) if fp is not None
+            else np.ones(len(ra)))
+    on_sky = comp > 0  # an offset past the survey's edge leaves the survey
+    host = ft.host[on_sky]
+    rows = _observe(ra[on_sky], dec[on_sky], chi[on_sky], cols["vlos"][host], comp[on_sky],
+                    ft.abs_mag[on_sky], survey, True, rng)
+    ok = rows.pop("_ok")
+    table = Table({k: v[ok] for k, v in rows.items()})
+    host = host[ok]
+    hidx = cols["idx"][host]
+    for name, value in (("is_central", lambda: np.zeros(len(host), dtype=bool)),
+                        ("halo_id", lambda: box.halo_id[hidx]),
+                        ("halo_mass", lambda: box.halo_mass[hidx])):
+        if getattr(box, name) is not None:
+            table[name] = value()
+    table["box_index"] = hidx.astype(np.int64)  # the host's (fill_target tells them apart)
+    table["replica"] = cols["rep"][host]
+    table["weight"] = np.ones(len(table))
+    table["fill_target"] = np.ones(len(table), dtype=bool)
+    return table
 
 
 def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotation: Any,
@@ -289,44 +392,15 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     del parts
     timing["replicate"] = time.perf_counter() - t1
 
-    # -- redshifts
+    # -- redshifts, fluxes and the target list
     t1 = time.perf_counter()
-    z_cos = cosmo.redshift_at(cols["chi"])
-    z_light = doppler_redshift(z_cos, cols["vlos"]) if fx.rsd else z_cos.copy()
-    z_obs = z_light
-    if fx.redshift_errors:
-        z_obs = add_redshift_errors(z_light, z_cos, survey.redshift_errors,
-                                    streams["redshift_errors"])
-    # a blueshift below z = 0 cannot fall in any survey shell
-    ok = z_obs > 0.0
-    app_mag = None
-    if box.abs_mag is not None:
-        true_mag = box.abs_mag[cols["idx"]]
-        if fx.physical_fluxes:
-            # the flux follows the true distance and the galaxy's own Doppler shift; the
-            # measurement error of z_obs never changes who is a target
-            app_mag = apparent_magnitude(true_mag, z_cos, z_light, cosmo, shell)
-        else:
-            app_mag = observed_frame_magnitude(true_mag, z_obs, cosmo, shell)
-        if flux:
-            ok &= app_mag < shell.m_lim
-    n_in_footprint = len(z_obs)
-    targets = Table()
-    targets["ra"] = cols["ra"][ok]
-    targets["dec"] = cols["dec"][ok]
-    targets["z_cos"] = z_cos[ok]
-    targets["z_obs"] = z_obs[ok]
-    targets["z_obs_true"] = z_obs[ok]
-    targets["chi_true"] = cols["chi"][ok]
-    targets["chi_obs"] = cosmo.comoving_distance(z_obs[ok])
-    targets["v_los"] = cols["vlos"][ok]
-    targets["completeness"] = cols["comp"][ok]
+    box_rows = _observe(cols["ra"], cols["dec"], cols["chi"], cols["vlos"], cols["comp"],
+                        None if box.abs_mag is None else box.abs_mag[cols["idx"]],
+                        survey, flux, streams["redshift_errors"])
+    ok = box_rows.pop("_ok")
+    n_in_footprint = len(ok)
+    targets = Table({k: v[ok] for k, v in box_rows.items()})
     idx = cols["idx"][ok]
-    if box.abs_mag is not None and app_mag is not None:
-        targets["abs_mag"] = (inferred_abs_mag(app_mag[ok], z_obs[ok], cosmo, shell)
-                              if fx.physical_fluxes else box.abs_mag[idx])
-        targets["abs_mag_true"] = box.abs_mag[idx]
-        targets["app_mag"] = app_mag[ok]
     for name in ("is_central", "halo_id", "halo_mass"):
         val = getattr(box, name)
         if val is not None:
@@ -334,16 +408,30 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     targets["box_index"] = idx.astype(np.int64)
     targets["replica"] = cols["rep"][ok]
     targets["weight"] = np.ones(len(targets))
+    n_fill = 0
+    if survey.fills_targets:
+        fill = _fill_table(box, survey, cols, streams["fill"])
+        n_fill = len(fill)
+        targets["fill_target"] = np.zeros(len(targets), dtype=bool)
+        targets = vstack([targets, fill], join_type="exact") if n_fill else targets
     del cols
     timing["redshifts"] = time.perf_counter() - t1
 
-    # -- fibres and correction on the target list
+    # -- fibres (collisions, then the tiles' budget) and correction on the target list
     t1 = time.perf_counter()
     if fx.fibres:
         fres = assign_fibres(targets["ra"], targets["dec"], survey.fibres, streams["fibres"],
                              survey.overlap)
     else:
         fres = no_fibres(len(targets))
+    tiling = survey.tiling()
+    if tiling is not None:
+        assigned, budget = assign_budget(targets["ra"], targets["dec"], fres.fibred,
+                                         fres.second_pass, tiling, streams["tiles"])
+        fres = FibreResult(assigned, fres.second_pass & assigned,
+                           {**fres.stats, "budget": budget,
+                            "no_fibre_fraction": float(np.mean(~assigned)) if len(assigned)
+                            else 0.0})
     zflag = np.full(len(targets), ZFLAG_OWN_FIBRE, dtype=np.int16)
     zflag[fres.second_pass] = ZFLAG_SECOND_PASS
     zflag[~fres.fibred] = ZFLAG_COLLIDED
@@ -357,7 +445,13 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
         corrected["abs_mag"] = inferred_abs_mag(corrected["app_mag"], corrected["z_obs"],
                                                 cosmo, shell)
     zc = np.asarray(corrected["z_obs"])
-    cone = corrected[(zc >= shell.z_min) & (zc < shell.z_max)]
+    keep = (zc >= shell.z_min) & (zc < shell.z_max)
+    if "fill_target" in corrected.colnames:
+        # fill targets collide, crowd tiles and lend redshifts; they are never in a sample
+        keep &= ~np.asarray(corrected["fill_target"])
+    cone = corrected[keep]
+    if "fill_target" in cone.colnames:
+        cone.remove_column("fill_target")
     timing["correction"] = time.perf_counter() - t1
     if len(cone) == 0:
         raise InputError(f"shell: the cone is empty after the flux limit and the cut "
@@ -371,6 +465,8 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     with warnings.catch_warnings():  # gimbal lock (e.g. no rotation) is harmless here
         warnings.simplefilter("ignore", UserWarning)
         euler = Rotation.from_matrix(rot).as_euler("ZYZ", degrees=True).tolist()
+    z_t = np.asarray(targets["z_obs"])
+    in_shell = (z_t >= shell.z_min) & (z_t < shell.z_max)
     info: dict[str, Any] = {
         "observer_mpch": o.tolist(),
         "rotation_matrix": rot.tolist(),
@@ -383,9 +479,9 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
         "n_in_footprint": int(n_in_footprint),
         "n_targets": int(len(targets)),
         # targets in the shell by their own redshift: what a target density is quoted for
-        "n_targets_in_shell": int(np.count_nonzero(
-            (np.asarray(targets["z_obs"]) >= shell.z_min)
-            & (np.asarray(targets["z_obs"]) < shell.z_max))),
+        "n_targets_in_shell": int(np.count_nonzero(in_shell)),
+        "n_fill_targets": n_fill,
+        "n_fill_in_shell": int(np.count_nonzero(in_shell[len(targets) - n_fill:])),
         "n_galaxies": int(len(cone)),
         "sum_weight": float(np.sum(cone["weight"])),
         "fibres": fres.stats,

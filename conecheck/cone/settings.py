@@ -233,6 +233,12 @@ class EffectSwitches:
         sample cuts on the absolute magnitude the analyst infers from the measured
         redshift (:mod:`conecheck.cone.photometry`). Off: m from the observed redshift, so
         the inferred magnitude equals the box's exactly.
+    target_fill : bool
+        Add the faint targets the box lacks when ``survey.targets.source = "fill"``
+        (:mod:`conecheck.cone.targets`); off: the box's targets only.
+    fibre_budget : bool
+        Limit fibres per tile when ``survey.tiles.centres`` is set
+        (:mod:`conecheck.cone.tiles`); off: collisions only.
     """
     rsd: bool = True
     redshift_errors: bool = True
@@ -240,11 +246,13 @@ class EffectSwitches:
     flux_limit: bool = True
     fibres: bool = True
     physical_fluxes: bool = True
+    target_fill: bool = True
+    fibre_budget: bool = True
 
     def __post_init__(self) -> None:
         problems = [f"{name} = {getattr(self, name)!r}: expected true or false"
                     for name in ("rsd", "redshift_errors", "footprint", "flux_limit", "fibres",
-                                 "physical_fluxes")
+                                 "physical_fluxes", "target_fill", "fibre_budget")
                     if not isinstance(getattr(self, name), bool)]
         _raise("effects", problems)
 
@@ -293,6 +301,92 @@ class LuminosityFunction:
         # in x: Φ dM = φ* x^α e^(−x) dx (the 0.4 ln 10 is the Jacobian dM → dx/x)
         val, _ = quad(lambda x: x**self.alpha * math.exp(-x), x_lo, 60.0, limit=200)
         return self.phi_star * val
+
+
+#: Where the target list comes from (:class:`TargetSettings`).
+TARGET_SOURCES = ("box", "fill")
+
+
+@dataclass(frozen=True)
+class TargetSettings:
+    """The survey's target list: the box's galaxies, or those plus the faint ones it lacks.
+
+    A survey targets every galaxy brighter than its flux limit; a box usually stops at the
+    faintest sample threshold, so its cones collide and crowd tiles less than the survey.
+
+    Attributes
+    ----------
+    source : {"box", "fill"}
+        ``box``: the box's galaxies above the flux limit (the run reports the density the
+        luminosity function predicts and the collided fraction it implies). ``fill``: add
+        faint targets to the density of ``survey.luminosity_function``
+        (:mod:`conecheck.cone.targets`), placed around box galaxies at the box's own
+        nearest-neighbour distances so they pair as closely as its galaxies do; they take
+        part in collisions, the fibre budget and the corrections' neighbour search, and
+        never enter a sample.
+    """
+    source: Literal["box", "fill"] = "box"
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        if self.source not in TARGET_SOURCES:
+            problems.append(f"source = {self.source!r}: expected one of "
+                            f"{', '.join(TARGET_SOURCES)}")
+        _raise("targets", problems)
+
+
+@dataclass(frozen=True)
+class TileSettings:
+    """Spectrograph tiles and their fibre budget (:mod:`conecheck.cone.tiles`).
+
+    Without ``centres`` the survey is limited by collisions only (the default). With
+    them, every target the collision emulator gives a fibre still needs one of the
+    ``fibres_per_tile`` fibres of a tile that covers it; tiles are visited one after
+    another, pass after pass, and a target a full tile leaves gets its chance from the
+    next tile that covers it (tile overlaps, later passes).
+
+    Attributes
+    ----------
+    centres : str
+        ``regular``: a quasi-regular (Fibonacci) lattice over the sphere dense enough that
+        every point lies within ``radius_deg`` of a centre, keeping the tiles that touch the
+        footprint; or a table file (FITS, CSV, ECSV; anything astropy reads) with columns
+        ``ra`` and ``dec`` [deg] and optionally ``pass`` (1, 2, …). Empty: no budget.
+    radius_deg : float
+        Tile radius [deg].
+    fibres_per_tile : int
+        Fibres one tile can place.
+    passes : int
+        Passes over a ``regular`` tiling (each pass a rotated copy of the lattice); a file
+        gives its passes in its ``pass`` column.
+    """
+    centres: str = ""
+    radius_deg: float = 1.2
+    fibres_per_tile: int = 400
+    passes: int = 1
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        if not isinstance(self.centres, str):
+            problems.append(f"centres = {self.centres!r}: expected 'regular', a table file "
+                            "path, or '' (no budget)")
+        if not (isinstance(self.radius_deg, (int, float)) and math.isfinite(self.radius_deg)
+                and 0.01 <= self.radius_deg <= 30.0):
+            problems.append(f"radius_deg = {self.radius_deg!r}: expected 0.01 <= radius <= 30 "
+                            "deg")
+        if not (isinstance(self.fibres_per_tile, int) and not isinstance(
+                self.fibres_per_tile, bool) and self.fibres_per_tile >= 1):
+            problems.append(f"fibres_per_tile = {self.fibres_per_tile!r}: expected an integer "
+                            ">= 1 (a tile with no fibres observes nothing)")
+        if not (isinstance(self.passes, int) and not isinstance(self.passes, bool)
+                and 1 <= self.passes <= 20):
+            problems.append(f"passes = {self.passes!r}: expected an integer in [1, 20]")
+        _raise("tiles", problems)
+
+    @property
+    def enabled(self) -> bool:
+        """True when tiles are configured."""
+        return bool(str(self.centres).strip())
 
 
 #: How count statistics treat an incomplete survey (:class:`CompletenessSettings`).

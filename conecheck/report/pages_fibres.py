@@ -63,12 +63,39 @@ def target_line(results: dict[str, Any]) -> str:
     t = results.get("targets")
     if not isinstance(t, dict) or t.get("box_fraction") is None:
         return ""
+    lf = f"{ac.fmt(ac.num(t, 'lf_per_deg2'), 3)} per deg² a Schechter luminosity function predicts"
+    if t.get("source") == "fill":
+        return (f"targets: the box supplies {ac.fmt_pct(ac.num(t, 'box_fraction'))} and the "
+                f"faint fill brings the list to {ac.fmt_pct(ac.num(t, 'list_fraction'))} of "
+                f"the {lf}; collided fraction of the full list "
+                f"{ac.fmt_pct(ac.num(t, 'collided_fraction_cones'))}")
     return (f"targets: the box supplies {ac.fmt_pct(ac.num(t, 'box_fraction'))} of the "
-            f"{ac.fmt(ac.num(t, 'lf_per_deg2'), 3)} per deg² a Schechter luminosity function "
-            f"predicts; a full target list would collide about "
+            f"{lf}; a full target list would collide about "
             f"{ac.fmt_pct(ac.num(t, 'collided_fraction_full_estimate'))} of targets (random-sky "
-            f"scaling, a lower estimate) against the cones' "
-            f"{ac.fmt_pct(ac.num(t, 'collided_fraction_box'))}")
+            f"scaling, a rough estimate; survey.targets.source = 'fill' measures it) against "
+            f"the cones' "
+            f"{ac.fmt_pct(ac.num(t, 'collided_fraction_cones'))}")
+
+
+def budget_lines(fib: dict[str, Any]) -> list[str]:
+    """The fibre budget's losses, overall and against the tile load (``fibres.budget``)."""
+    b = fib.get("budget") if isinstance(fib, dict) else None
+    if not isinstance(b, dict):
+        return []
+    lost = ac.arr(b, "lost_fraction")
+    lines = [f"fibre budget: {b.get('n_tiles')} tiles of {b.get('fibres_per_tile')} fibres "
+             f"(radius {ac.fmt(ac.as_float(b.get('radius_deg')), 3)}°, "
+             f"{b.get('n_passes')} pass(es)); "
+             f"{ac.fmt_pct(np.nanmean(lost)) if lost.size else '—'} of targets lost to it "
+             "(mean over cones)"]
+    edges = ac.arr(b, "load_lower_edges")
+    count, gone = ac.arr(b, "load_count"), ac.arr(b, "load_lost")
+    bits = [f"≥{e:g}: {ac.fmt_pct(g / c)}"
+            for e, c, g in zip(edges, count, gone, strict=False) if c > 0]
+    if bits:
+        lines.append("lost against tile load (targets on the busiest tile / its fibres): "
+                     + ", ".join(bits))
+    return lines
 
 
 def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict[str, Any],
@@ -123,6 +150,7 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     if rec.size:
         lines.append(f"recovered in tile overlaps: {ac.fmt_pct(np.nanmean(rec))} of the "
                      f"collided targets (mean)")
+    lines.extend(budget_lines(fib))
     if targets:
         lines.append(targets)
     for name, other in ((sname, fib), *((o, d.get("fibres") or {}) for o, d in others)):

@@ -58,6 +58,9 @@ def input_files(cfg: RunConfig) -> dict[str, Path]:
         "box.particles": _existing(cfg, cfg.box.particles, "box.particles"),
         "survey.fibres.overlap_map": _existing(cfg, cfg.fibres.overlap_map,
                                                "survey.fibres.overlap_map"),
+        "survey.tiles.centres": (_existing(cfg, cfg.tiles.centres, "survey.tiles.centres")
+                                 if cfg.tiles.enabled and cfg.tiles.centres != "regular"
+                                 else None),
     }
     for i, v in enumerate(cfg.survey.vetoes):
         files[f"survey.vetoes[{i}]"] = _existing(cfg, v, f"survey.vetoes[{i}]")
@@ -67,6 +70,12 @@ def input_files(cfg: RunConfig) -> dict[str, Path]:
 def overlap_input(cfg: RunConfig) -> InputFile | None:
     """The fibre overlap map the cone builders open, with the digest of its content."""
     path = input_files(cfg).get("survey.fibres.overlap_map")
+    return None if path is None else InputFile(str(path), file_sha256(path))
+
+
+def tiles_input(cfg: RunConfig) -> InputFile | None:
+    """The tile-centre file the cone builders read, with the digest of its content."""
+    path = input_files(cfg).get("survey.tiles.centres")
     return None if path is None else InputFile(str(path), file_sha256(path))
 
 

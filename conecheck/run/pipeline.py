@@ -38,6 +38,7 @@ from .inputs import (
     load_footprint,
     overlap_input,
     sky_regions,
+    tiles_input,
 )
 from .progress import Progress
 from .sensitivity import hod_derivatives_task
@@ -90,6 +91,7 @@ class RunInputs:
     halos: HaloCatalog | None = None
     hod: HODModel | None = None
     overlap: InputFile | None = None
+    tiles: InputFile | None = None
     _digests: dict[int, tuple[Any, str]] = dataclasses.field(default_factory=dict,
                                                              repr=False)
 
@@ -107,7 +109,7 @@ class RunInputs:
         """The build spec of cone ``index`` on this geometry."""
         return cone_build_spec(self.cfg, index, self.content(self.box),
                                self.content(self.footprint), self.overlap, effects,
-                               correction)
+                               correction, self.tiles)
 
 
 def all_pieces(cfg: RunConfig) -> list[CutPiece]:
@@ -319,7 +321,7 @@ def prepare_inputs(cfg: RunConfig, executor: Executor, cache: TaskCache | None,
     box, halos, hod = load_box_and_halos(cfg)
     stop()
     return RunInputs(cfg, box, footprint, regions, hashes, executor, cache, progress, timings,
-                     halos=halos, hod=hod, overlap=overlap_input(cfg))
+                     halos=halos, hod=hod, overlap=overlap_input(cfg), tiles=tiles_input(cfg))
 
 
 __all__ = ["CutPiece", "RunInputs", "all_pieces", "box_stage", "cone_stage",

@@ -26,11 +26,14 @@ from ..cone.settings import (
     CorrectionSettings,
     EffectSwitches,
     FibreSettings,
+    LuminosityFunction,
     ObserverSettings,
     RandomSettings,
     RedshiftErrorSettings,
     SampleCut,
     SurveyShell,
+    TargetSettings,
+    TileSettings,
 )
 from ..config import CosmologyConfig, RunConfig, SampleConfig, StatisticsConfig
 from ..cosmology import Cosmology
@@ -174,6 +177,10 @@ class ConeBuildSpec:
     redshift_errors: RedshiftErrorSettings
     observers: ObserverSettings
     overlap_map: InputFile | None
+    targets: TargetSettings = TargetSettings()
+    luminosity_function: LuminosityFunction = LuminosityFunction()
+    tiles: TileSettings = TileSettings()
+    tiles_file: InputFile | None = None
 
     def model(self) -> Cosmology:
         return self.cosmology.model()
@@ -263,16 +270,20 @@ def randoms_spec(cfg: RunConfig, sample_name: str, cut: SampleCut, n_expected: f
 
 def cone_build_spec(cfg: RunConfig, index: int, box_content: str, footprint_content: str,
                     overlap_map: InputFile | None, effects: EffectSwitches | None = None,
-                    correction: CorrectionSettings | None = None) -> ConeBuildSpec:
+                    correction: CorrectionSettings | None = None,
+                    tiles_file: InputFile | None = None) -> ConeBuildSpec:
     """Cone ``index`` of ``cfg`` under ``effects`` and ``correction`` (default: the
-    configured ones)."""
+    configured ones); ``tiles_file``: the tile-centre file (by content) when
+    ``survey.tiles.centres`` names one."""
     return ConeBuildSpec(seed=cfg.seed, index=int(index), n_cones=cfg.cones.n_cones,
                          cosmology=cfg.cosmology, box_content=box_content,
                          footprint_content=footprint_content, shell=cfg.shell,
                          effects=effects or cfg.effects, fibres=cfg.fibres,
                          correction=correction or cfg.correction,
                          redshift_errors=cfg.redshift_errors, observers=cfg.cones.observers,
-                         overlap_map=overlap_map)
+                         overlap_map=overlap_map, targets=cfg.targets,
+                         luminosity_function=cfg.luminosity_function, tiles=cfg.tiles,
+                         tiles_file=tiles_file)
 
 
 def cut_spec(cfg: RunConfig, sample_name: str, cut: SampleCut, randoms_key: str,

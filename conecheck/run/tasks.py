@@ -254,12 +254,16 @@ def count_sample(table: Any, regions: SkyRegions, settings: CompletenessSettings
 
 def survey_model(spec: ConeBuildSpec, footprint: Footprint) -> SurveyModel:
     """The cone builder's survey description of a build spec."""
-    fibres = spec.fibres
+    fibres, tiles = spec.fibres, spec.tiles
     if spec.overlap_map is not None:
         fibres = dataclasses.replace(fibres, overlap_map=spec.overlap_map.path)
+    if spec.tiles_file is not None:
+        tiles = dataclasses.replace(tiles, centres=spec.tiles_file.path)
     return SurveyModel(cosmology=spec.model(), shell=spec.shell, footprint=footprint,
                        effects=spec.effects, fibres=fibres, correction=spec.correction,
-                       redshift_errors=spec.redshift_errors, observers=spec.observers)
+                       redshift_errors=spec.redshift_errors, observers=spec.observers,
+                       targets=spec.targets, luminosity_function=spec.luminosity_function,
+                       tiles=tiles)
 
 
 def cone_table(spec: ConeBuildSpec, box: GalaxyBox, footprint: Footprint, cells: Any = None,
@@ -377,8 +381,10 @@ def cone_task(spec: ConeSpec, box: GalaxyBox, footprint: Footprint, regions: Sky
                "n_galaxies": int(info.get("n_galaxies", len(table))),
                "n_targets": int(info.get("n_targets", 0)),
                "n_targets_in_shell": int(info.get("n_targets_in_shell", 0)),
+               "n_fill_in_shell": int(info.get("n_fill_in_shell", 0)),
                "collided_fraction": float(fib.get("collided_fraction", 0.0)),
                "recovered_fraction": float(fib.get("recovered_fraction", 0.0)),
+               "budget": fib.get("budget"),
                "build_seconds": float(info.get("timing_s", {}).get("total", 0.0)),
                "n_matter_particles": 0 if matter is None else len(matter),
                "luminosity": luminosity}

@@ -144,7 +144,8 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
                                              for c in cones],
                        "recovered_fraction": [c["info"].get("recovered_fraction", 0.0)
                                               for c in cones],
-                       "correction": cfg.correction.name},
+                       "correction": cfg.correction.name,
+                       **budget_record([c["info"].get("budget") for c in cones])},
             "cuts": cuts}
         lum = luminosity_record([c["info"].get("luminosity", {}).get(s.name, {})
                                  .get(s.cuts[0].label) for c in cones])
@@ -165,20 +166,47 @@ def target_record(cfg: RunConfig, inp: RunInputs, cones: list[dict[str, Any]]
     area, and the collided fraction a full target list would imply
     (:func:`~conecheck.cone.photometry.full_list_collided_fraction`). None without a flux
     limit or fibre collisions."""
-    if cfg.shell.m_lim is None or not cfg.effects.flux_limit or not cfg.effects.fibres:
+    if (cfg.shell.m_lim is None or not cfg.effects.flux_limit
+            or not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget))):
         return None
     area = float(inp.footprint.area_deg2)
-    per_cone = [c["info"].get("n_targets_in_shell", 0) / area for c in cones]
+    n_all = np.array([c["info"].get("n_targets_in_shell", 0) for c in cones], dtype=float)
+    n_fill = np.array([c["info"].get("n_fill_in_shell", 0) for c in cones], dtype=float)
     lf = expected_targets_per_sr(cfg.luminosity_function, cfg.shell,
                                  cosmology_of(cfg)) / DEG2_PER_SR
-    box = float(np.mean(per_cone))
+    box = float(np.mean(n_all - n_fill)) / area
+    listed = float(np.mean(n_all)) / area
     collided = float(np.mean([c["info"].get("collided_fraction", 0.0) for c in cones]))
     ratio = box / lf if lf > 0 else float("nan")
-    return {"box_per_deg2": per_cone, "lf_per_deg2": lf, "box_fraction": ratio,
-            "collided_fraction_box": collided,
-            "collided_fraction_full_estimate": full_list_collided_fraction(
-                collided, 1.0 / ratio if ratio > 0 else float("nan")),
+    filled = bool(n_fill.sum() > 0)
+    return {"source": "fill" if filled else "box",
+            "box_per_deg2": ((n_all - n_fill) / area).tolist(),
+            "list_per_deg2": (n_all / area).tolist(),
+            "lf_per_deg2": lf, "box_fraction": ratio,
+            "list_fraction": listed / lf if lf > 0 else float("nan"),
+            "collided_fraction_cones": collided,
+            # with the fill the cones' own fraction is the full list's; without, the
+            # random-sky scaling estimates it
+            "collided_fraction_full_estimate": collided if filled else
+            full_list_collided_fraction(collided, 1.0 / ratio if ratio > 0 else float("nan")),
             "luminosity_function": dataclasses.asdict(cfg.luminosity_function)}
+
+
+def budget_record(per_cone: list[dict[str, Any] | None]) -> dict[str, Any]:
+    """The fibre budget's losses per cone and against the tile load, summed over cones
+    (from :func:`~conecheck.cone.tiles.assign_budget`); empty without tiles."""
+    recs = [r for r in per_cone if r]
+    if not recs:
+        return {}
+    return {"budget": {
+        "n_tiles": recs[0]["n_tiles"], "tile_source": recs[0]["tile_source"],
+        "radius_deg": recs[0]["radius_deg"], "fibres_per_tile": recs[0]["fibres_per_tile"],
+        "n_passes": recs[0]["n_passes"],
+        "lost_fraction": [r["budget_lost_fraction"] for r in recs],
+        "off_tiles": [r["n_off_tiles"] for r in recs],
+        "load_lower_edges": recs[0]["load_lower_edges"],
+        "load_count": np.sum([r["load_count"] for r in recs], axis=0).tolist(),
+        "load_lost": np.sum([r["load_lost"] for r in recs], axis=0).tolist()}}
 
 
 def luminosity_record(per_cone: list[dict[str, Any] | None]) -> dict[str, Any] | None:
@@ -281,15 +309,17 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             targets = target_record(cfg, inp, cones)
             if targets is not None:
                 results["targets"] = targets
-                if targets["box_fraction"] < TARGET_FRACTION_WARN:
+                if (targets["source"] == "box"
+                        and targets["box_fraction"] < TARGET_FRACTION_WARN):
                     log.warning(
                         "targets: the box supplies %.0f %% of the %.1f targets per deg² a "
                         "Schechter luminosity function (survey.luminosity_function) predicts "
                         "above m_lim = %g; fibre collisions among the full list would be "
-                        "about %.1f %% of targets instead of the cones' %.1f %%",
+                        "about %.1f %% of targets instead of the cones' %.1f %% "
+                        "(survey.targets.source = 'fill' adds the missing targets)",
                         100 * targets["box_fraction"], targets["lf_per_deg2"], cfg.shell.m_lim,
                         100 * targets["collided_fraction_full_estimate"],
-                        100 * targets["collided_fraction_box"])
+                        100 * targets["collided_fraction_cones"])
             rollup_verdicts(results)
             inp.timings["compare"] = time.perf_counter() - t0
             for ext in extensions:
