@@ -204,6 +204,9 @@ def measure_box(box: GalaxyBox | Table | Mapping[str, Any] | np.ndarray, statist
     """
     _check_statistic(statistic)
     box = galaxy_box(box, box_size=box_size)
+    if box.n_snapshots > 1:
+        raise InputError(f"measure_box: this box stacks {box.n_snapshots} snapshots; measure "
+                         "each one, box.snapshot_part(k), as a run does per snapshot")
     if matter is not None:
         box = dataclasses.replace(box, matter=MatterParticles(
             matter.position, matter.particle_mass, float(box.box_size)))

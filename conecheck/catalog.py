@@ -403,6 +403,15 @@ class GalaxyBox:
         Provenance (how the box was made, parameters, seeds).
     matter : MatterParticles or None
         Matter particles of the same box, for lensing statistics.
+    snapshot : ndarray of int or None
+        For several snapshots stacked into one box (:mod:`conecheck.box.snapshots`): the
+        snapshot each galaxy comes from (0, 1, … in increasing redshift); None for one.
+    snapshot_redshifts : tuple of float
+        Redshift of each snapshot.
+    snapshot_chi_edges : tuple of float
+        Comoving distances [Mpc/h] where snapshot k hands over to k + 1 (one fewer than
+        the snapshots): a cone takes a galaxy at true distance χ from the snapshot whose
+        range holds χ.
     """
 
     position: NDArray[np.float64]
@@ -415,9 +424,28 @@ class GalaxyBox:
     halo_mass: NDArray[np.float64] | None = None
     meta: dict[str, Any] = field(default_factory=dict)
     matter: MatterParticles | None = None
+    snapshot: NDArray[np.int16] | None = None
+    snapshot_redshifts: tuple[float, ...] = ()
+    snapshot_chi_edges: tuple[float, ...] = ()
 
     def __len__(self) -> int:
         return int(self.position.shape[0])
+
+    @property
+    def n_snapshots(self) -> int:
+        """Number of snapshots stacked in this box (1 for a plain box)."""
+        return 1 if self.snapshot is None else len(self.snapshot_redshifts)
+
+    def snapshot_part(self, k: int) -> GalaxyBox:
+        """Snapshot ``k`` as a plain box (itself for a plain box and k = 0)."""
+        if self.snapshot is None:
+            if k != 0:
+                raise IndexError(f"snapshot {k}: this box holds one snapshot")
+            return self
+        part = self.subset(self.snapshot == k)
+        part.redshift = float(self.snapshot_redshifts[k])
+        part.snapshot, part.snapshot_redshifts, part.snapshot_chi_edges = None, (), ()
+        return part
 
     def cache_token(self) -> dict[str, Any]:
         """What identifies the box in a cache key: every physical column, not ``meta``."""
@@ -428,6 +456,10 @@ class GalaxyBox:
         if self.matter is not None:  # absent: the key of a box without matter is unchanged
             token["matter"] = {"position": self.matter.position,
                                "particle_mass": self.matter.particle_mass}
+        if self.snapshot is not None:  # likewise for a single snapshot
+            token["snapshots"] = {"snapshot": self.snapshot,
+                                  "redshifts": list(self.snapshot_redshifts),
+                                  "chi_edges": list(self.snapshot_chi_edges)}
         return token
 
     def subset(self, mask: NDArray[np.bool_]) -> GalaxyBox:
@@ -436,7 +468,8 @@ class GalaxyBox:
             return None if a is None else a[mask]
         return GalaxyBox(self.position[mask], self.velocity[mask], self.box_size, self.redshift,
                          pick(self.abs_mag), pick(self.is_central), pick(self.halo_id),
-                         pick(self.halo_mass), dict(self.meta), self.matter)
+                         pick(self.halo_mass), dict(self.meta), self.matter,
+                         pick(self.snapshot), self.snapshot_redshifts, self.snapshot_chi_edges)
 
     def to_table(self) -> Table:
         """Canonical-column astropy Table with box_size and redshift in the metadata."""

@@ -112,6 +112,39 @@ SYNTHETIC_REDSHIFT = 0.06
 
 
 @dataclass(frozen=True)
+class SnapshotConfig:
+    """One snapshot of an evolving box (``[[box.snapshots]]``, in increasing redshift).
+
+    Attributes
+    ----------
+    redshift : float
+        Snapshot redshift.
+    path : str or None
+        Its galaxy file (``box.source = "file"``) or halo file (``"halos"``); none for a
+        synthetic box.
+    hod : str or None
+        Its HOD parameter file (``halos`` and ``synthetic``; default: ``box.hod``).
+    z_max : float or None
+        Upper redshift of its range; default the midpoint in comoving distance to the next
+        snapshot's redshift (unused for the last).
+    """
+
+    redshift: float = -1.0
+    path: str | None = None
+    hod: str | None = None
+    z_max: float | None = None
+
+    def __post_init__(self) -> None:
+        problems = []
+        if not (isinstance(self.redshift, (int, float)) and 0 <= self.redshift < 10):
+            problems.append(f"redshift = {self.redshift!r}: required, 0 <= z < 10")
+        if self.z_max is not None and not (0 < self.z_max < 10):
+            problems.append(f"z_max = {self.z_max!r}: expected 0 < z_max < 10 or no value")
+        if problems:
+            raise InputError("; ".join(problems), problems)
+
+
+@dataclass(frozen=True)
 class BoxConfig:
     """The periodic galaxy box the model predictions come from.
 
@@ -158,6 +191,10 @@ class BoxConfig:
     particle_density : float
         Synthetic box: matter particles per (Mpc/h)³ (drawn only when a lensing statistic is
         measured).
+    snapshots : list of tables
+        Several snapshots of one simulation for an evolving cone (``[[box.snapshots]]``:
+        redshift, path, hod, z_max), in increasing redshift; they replace ``path`` and
+        ``redshift`` and share every other key (:mod:`conecheck.box.snapshots`).
     """
 
     source: Literal["synthetic", "file", "halos"] = "synthetic"
@@ -178,9 +215,11 @@ class BoxConfig:
     particle_columns: dict[str, str] = field(default_factory=dict)
     particle_mass: float | None = None
     particle_density: float = 0.05
+    snapshots: tuple[SnapshotConfig, ...] = ()
 
     def __post_init__(self) -> None:
         problems = []
+        problems += snapshot_problems(self)
         if self.particles and not (self.particle_mass and self.particle_mass > 0):
             problems.append(f"particle_mass = {self.particle_mass!r}: a particle file needs "
                             "the mass of one particle, > 0 M_⊙/h")
@@ -216,6 +255,41 @@ class BoxConfig:
             problems.append(f"grid = {self.grid!r}: expected >= 8 cells per side")
         if problems:
             raise InputError("; ".join(problems), problems)
+
+
+def snapshot_problems(box: BoxConfig) -> list[str]:
+    """What is wrong with ``box.snapshots`` (each problem names its key)."""
+    snaps = box.snapshots
+    if not snaps:
+        return []
+    out = []
+    if box.path or box.redshift is not None:
+        out.append("path/redshift: with snapshots each [[box.snapshots]] entry gives its own "
+                   "redshift and file; remove box.path and box.redshift")
+    for i, (a, b) in enumerate(zip(snaps, snaps[1:], strict=False)):
+        if not b.redshift > a.redshift:
+            out.append(f"snapshots[{i + 1}].redshift = {b.redshift}: snapshots must be listed "
+                       f"in increasing redshift (snapshots[{i}].redshift = {a.redshift})")
+        if a.z_max is not None and not a.redshift <= a.z_max <= b.redshift:
+            out.append(f"snapshots[{i}].z_max = {a.z_max}: expected between its redshift "
+                       f"{a.redshift} and the next snapshot's {b.redshift} (ranges must not "
+                       "overlap)")
+    for i, sn in enumerate(snaps):
+        if box.source in ("file", "halos") and not sn.path:
+            out.append(f"snapshots[{i}].path: source = '{box.source}' needs each snapshot's "
+                       "file")
+        if box.source == "synthetic" and sn.path:
+            out.append(f"snapshots[{i}].path: a synthetic box reads no file")
+        if box.source == "file" and sn.hod:
+            out.append(f"snapshots[{i}].hod: a galaxy file is used as it is")
+    return out
+
+
+def snapshot_box(box: BoxConfig, k: int) -> BoxConfig:
+    """The box settings of snapshot ``k``: the shared keys with its redshift, file and HOD."""
+    sn = box.snapshots[k]
+    return dataclasses.replace(box, snapshots=(), redshift=sn.redshift, path=sn.path,
+                               hod=sn.hod or box.hod)
 
 
 @dataclass(frozen=True)
@@ -624,6 +698,30 @@ def _cosmology_table(table: Any, problems: list[str]) -> Any:
     return {**_astropy_values(getattr(apc, name)), "realisation": name}
 
 
+def _box(table: Any, problems: list[str]) -> BoxConfig | None:
+    """The [box] table, with its [[box.snapshots]] list built entry by entry."""
+    if not isinstance(table, Mapping) or not table.get("snapshots"):
+        # an empty list (a resolved configuration without snapshots) means none
+        return build_section(BoxConfig, table, "box", problems, skip=("snapshots",))
+    raw = table["snapshots"]
+    if not isinstance(raw, list):
+        problems.append("box.snapshots: expected a list of [[box.snapshots]] tables "
+                        "(redshift, path, hod, z_max)")
+        return None
+    snaps = []
+    for i, entry in enumerate(raw):
+        if isinstance(entry, Mapping) and "redshift" not in entry:
+            problems.append(f"box.snapshots[{i}].redshift: required")
+            continue
+        sn = build_section(SnapshotConfig, entry, f"box.snapshots[{i}]", problems)
+        if sn is not None:
+            snaps.append(sn)
+    if len(snaps) < len(raw):
+        return None
+    return build_section(BoxConfig, table, "box", problems, skip=("snapshots",),
+                         extra={"snapshots": tuple(snaps)})
+
+
 def _samples(value: Any, problems: list[str]) -> tuple[SampleConfig, ...]:
     if not isinstance(value, list) or not value:
         problems.append("samples: expected at least one [[samples]] table (name, mag_max, "
@@ -729,6 +827,10 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
                             f"{', '.join(unmeasured)} not measured, left out of this "
                             "combination")
     matter = [s for s in cfg.statistics.measure if s in NEEDS_MATTER]
+    if matter and cfg.box.snapshots:
+        problems.append(f"statistics.measure: {', '.join(matter)} with box.snapshots is not "
+                        "supported (the lensing matter comes from one box); measure it on a "
+                        "single box")
     if matter and cfg.box.source != "synthetic" and not cfg.box.particles:
         problems.append(f"statistics.measure: {', '.join(matter)} "
                         f"{'needs' if len(matter) == 1 else 'need'} a matter tracer; "
@@ -802,7 +904,7 @@ def config_from_dict(data: Mapping[str, Any], source: str = "<dict>",
         "cosmology": build_section(CosmologyConfig, _cosmology_table(data.get("cosmology"),
                                                                      problems),
                                    "cosmology", problems),
-        "box": build_section(BoxConfig, data.get("box"), "box", problems),
+        "box": _box(data.get("box"), problems),
         "survey": build_section(SurveyFiles, survey, "survey", problems,
                                 skip=tuple(_SURVEY_SUBTABLES)),
     }

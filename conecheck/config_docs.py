@@ -37,7 +37,8 @@ README_END = "<!-- config-reference:end -->"
 #: (TOML section, class, fields left out because another section documents them)
 SECTIONS: list[tuple[str, type, tuple[str, ...]]] = [
     ("cosmology", C.CosmologyConfig, ()),
-    ("box", C.BoxConfig, ()),
+    ("box", C.BoxConfig, ("snapshots",)),
+    ("[box.snapshots]", C.SnapshotConfig, ()),
     ("survey", C.SurveyFiles, ()),
     ("survey.shell", SurveyShell, ()),
     ("survey.effects", EffectSwitches, ()),
@@ -140,8 +141,9 @@ def reference_markdown() -> str:
     out = ["Top level: `seed` (integer, default 12345) — every random draw of the run derives "
            "from it.", ""]
     for section, cls, skip in SECTIONS + extra_sections():
+        per = "snapshot" if "snapshots" in section else "sample"
         title = f"`[{section}]`" if not section.startswith("[") else f"`[{section}]` (one "\
-            f"table per sample)"
+            f"table per {per})"
         out += [f"**{title}**", "", "| key | default | meaning |", "|---|---|---|"]
         for key, default, doc in section_rows(cls, skip):
             out.append(f"| `{key}` | `{default}` | {doc.replace('|', '/')} |")

@@ -90,7 +90,9 @@ def make_results(run_dir: Path, seed: int = 3, config_lines: int = 12) -> dict:
             cuts[cname] = {"z_min": zmin, "z_max": zmax, "primary": primary,
                            "nz": {"edges": edges.tolist(),
                                   "cones": rng.poisson(expected, (N_CONES, 10)).tolist(),
-                                  "expected": expected.tolist()},
+                                  "expected": expected.tolist(),
+                                  # two snapshots handing over mid-cut
+                                  "snapshot_z_edges": [0.5 * (zmin + zmax)]},
                            "statistics": statistics}
         samples[sname] = {
             "mag_max": 17.7, "volume_limit_zmax": 0.2 if sname == "bright" else None,

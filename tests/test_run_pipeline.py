@@ -17,6 +17,7 @@ import logging
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 import tomli_w
 from run_helpers import GEOMETRY_ONLY, tiny_dict, verdicts
@@ -331,3 +332,34 @@ def test_a_run_with_the_full_target_list_and_a_fibre_budget_reports_both(tmp_pat
     assert budget["fibres_per_tile"] == 25 and len(budget["lost_fraction"]) == 2
     assert min(budget["lost_fraction"]) > 0
     assert sum(budget["load_lost"]) > 0
+
+
+def test_a_one_snapshot_list_reproduces_the_single_box_run_bit_for_bit(tmp_path):
+    base = {"statistics.measure": ["number_density", "wp"], "cones.n_cones": 2}
+    res_box, _ = _run(tiny_dict(seed=4, **base), tmp_path / "box")
+    res_snap, _ = _run(tiny_dict(seed=4, **base, **{"box.redshift": None,
+                                                    "box.snapshots": [{"redshift": 0.05}]}),
+                       tmp_path / "snap")
+    assert _numbers(res_snap) == _numbers(res_box)
+
+
+def test_two_snapshots_combine_the_box_per_cut_and_mark_the_hand_over(tmp_path):
+    d = tiny_dict(seed=4, **{"statistics.measure": ["number_density", "wp"],
+                             "cones.n_cones": 2, "box.redshift": None,
+                             "box.snapshots": [{"redshift": 0.03}, {"redshift": 0.07}]})
+    res, code = _run(d, tmp_path / "run")
+    assert code in (0, 1)
+    assert res["provenance"]["box"]["snapshot_redshifts"] == [0.03, 0.07]
+    cut = res["samples"]["broad"]["cuts"]["primary"]
+    assert len(cut["nz"]["snapshot_z_edges"]) == 1
+    z_hand = cut["nz"]["snapshot_z_edges"][0]
+    assert d["samples"][0]["z_min"] < z_hand < d["samples"][0]["z_max"]
+    # the box side: both snapshots weighted, the number density by volume
+    snaps = cut["box_snapshots"]
+    for key in ("weights_volume", "weights_galaxies"):
+        assert len(snaps[key]) == 2 and min(snaps[key]) > 0
+        assert sum(snaps[key]) == pytest.approx(1.0)
+    assert snaps["number_density"] == pytest.approx(
+        np.dot(snaps["weights_volume"], snaps["snapshot_densities"]))
+    assert cut["statistics"]["number_density"]["box"][0] == pytest.approx(
+        snaps["number_density"], rel=1e-9)

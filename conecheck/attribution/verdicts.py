@@ -15,6 +15,7 @@ import numpy as np
 
 from ..compare import Comparison, compare_statistic, rollup_verdicts
 from ..config import RunConfig
+from ..run.pipeline import box_for_cut
 from .variants import Piece
 
 
@@ -42,7 +43,7 @@ def compare_variant(cfg: RunConfig, box: dict[str, Any], cones: list[dict[str, A
             where = f"{what + ', ' if what else ''}sample {s.name}, cut {cut.label}, " \
                     f"statistic {name}"
             stats[name] = compare_statistic(
-                box[s.name]["measurements"][name],
+                box_for_cut(box[s.name], cut.label)["measurements"][name],
                 [c["measurements"][s.name][cut.label][name] for c in cones],
                 cfg.verdict, cfg.cones.independent, where=where).to_dict()
         entry = samples.setdefault(s.name, {"mag_max": s.mag_max, "cuts": {}})

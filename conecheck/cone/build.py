@@ -75,7 +75,7 @@ from .settings import (
     TargetSettings,
     TileSettings,
 )
-from .targets import fill_targets, neighbour_distances
+from .targets import FillTargets, fill_targets, neighbour_distances
 from .tiles import Tiling, assign_budget, make_tiling
 
 log = logging.getLogger(__name__)
@@ -207,9 +207,47 @@ def cone_geometry(observers: ObserverSettings, box_size: float, n_cones: int, se
     return o, rotation_matrix(observers, cone_index, streams["rotation"])
 
 
-def prepare_box(box: GalaxyBox) -> BoxCells:
-    """Sort the box into cells once; pass the result to every :func:`build_cone` call."""
-    return BoxCells.build(box.position, box.box_size)
+@dataclass
+class StackedCells:
+    """The cells of a box stacked from several snapshots, one set per snapshot.
+
+    Attributes
+    ----------
+    rows : list of ndarray
+        Rows of the stacked box that belong to each snapshot.
+    positions : list of ndarray
+        Their positions [Mpc/h].
+    cells : list of BoxCells
+    """
+
+    rows: list[NDArray[np.int64]]
+    positions: list[NDArray[np.float64]]
+    cells: list[BoxCells]
+
+
+def prepare_box(box: GalaxyBox) -> BoxCells | StackedCells:
+    """Sort the box into cells once (per snapshot for a stacked box); pass the result to
+    every :func:`build_cone` call."""
+    if box.snapshot is None:
+        return BoxCells.build(box.position, box.box_size)
+    rows = [np.flatnonzero(box.snapshot == k) for k in range(box.n_snapshots)]
+    positions = [box.position[r] for r in rows]
+    return StackedCells(rows, positions, [BoxCells.build(p, box.box_size) for p in positions])
+
+
+def _snapshot_slices(box: GalaxyBox, cells: BoxCells | StackedCells, r_in: float,
+                     r_out: float) -> Any:
+    """(rows or None, positions, cells, χ_lo, χ_hi) of every snapshot reaching r_in–r_out
+    [Mpc/h]: the whole box for a plain one, else each snapshot within its own range."""
+    if not isinstance(cells, StackedCells):
+        yield None, box.position, cells, r_in, r_out
+        return
+    edges = [0.0, *box.snapshot_chi_edges, np.inf]
+    for k, (rows, pos, c) in enumerate(zip(cells.rows, cells.positions, cells.cells,
+                                           strict=True)):
+        lo, hi = max(r_in, edges[k]), min(r_out, edges[k + 1])
+        if lo < hi:
+            yield rows, pos, c, lo, hi
 
 
 # ------------------------------------------------------------------ one cone
@@ -274,10 +312,20 @@ def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[
     """The faint targets the box lacks in this cone (:mod:`.targets`), as target rows."""
     assert box.abs_mag is not None  # a fill needs a flux limit, which needs magnitudes
     host_r = cols["chi"][:, None] * radec_to_vec(cols["ra"], cols["dec"])
-    ft = fill_targets(host_r, survey.cosmology.redshift_at(cols["chi"]), box.abs_mag,
-                      float(box.box_size) ** 3,
-                      neighbour_distances(box.position, float(box.box_size), rng),
-                      survey.luminosity_function, survey.shell, survey.cosmology, rng)
+    host_z = survey.cosmology.redshift_at(cols["chi"])
+    hosts, rs, mags = [], [], []
+    # each snapshot fills its own hosts, from its own magnitudes and neighbour distances
+    for k in range(box.n_snapshots):
+        part = box.snapshot_part(k)
+        mine = (np.flatnonzero(box.snapshot[cols["idx"]] == k) if box.snapshot is not None
+                else np.arange(len(host_z)))
+        ft = fill_targets(host_r[mine], host_z[mine], part.abs_mag, float(box.box_size) ** 3,
+                          neighbour_distances(part.position, float(box.box_size), rng),
+                          survey.luminosity_function, survey.shell, survey.cosmology, rng)
+        hosts.append(mine[ft.host])
+        rs.append(ft.r)
+        mags.append(ft.abs_mag)
+    ft = FillTargets(np.concatenate(hosts), np.concatenate(rs), np.concatenate(mags))
     ra, dec, chi = sky_coordinates(ft.r)
     fp = survey.active_footprint
     comp = (np.asarray(fp.completeness(ra, dec), dtype=np.float64) if fp is not None
@@ -292,7 +340,8 @@ def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[
     hidx = cols["idx"][host]
     for name, value in (("is_central", lambda: np.zeros(len(host), dtype=bool)),
                         ("halo_id", lambda: box.halo_id[hidx]),
-                        ("halo_mass", lambda: box.halo_mass[hidx])):
+                        ("halo_mass", lambda: box.halo_mass[hidx]),
+                        ("snapshot", lambda: box.snapshot[hidx])):
         if getattr(box, name) is not None:
             table[name] = value()
     table["box_index"] = hidx.astype(np.int64)  # the host's (fill_target tells them apart)
@@ -304,7 +353,7 @@ def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[
 
 def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotation: Any,
                rng: np.random.Generator | Mapping[str, np.random.Generator],
-               *, cells: BoxCells | None = None,
+               *, cells: BoxCells | StackedCells | None = None,
                keep_targets: bool = False) -> tuple[Table, dict[str, Any]]:
     """Turn ``box`` into one light cone seen from ``observer``.
 
@@ -321,8 +370,11 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     rng : numpy Generator or mapping stage → Generator
         A Generator is split into independent per-stage streams; a mapping (see
         :func:`cone_rngs`) is used as is.
-    cells : BoxCells, optional
-        The box sorted into cells (:func:`prepare_box`); built here when omitted.
+    cells : BoxCells or StackedCells, optional
+        The box sorted into cells (:func:`prepare_box`); built here when omitted. A box
+        stacked from several snapshots gives each galaxy at true distance χ from the
+        snapshot whose range holds χ (:mod:`conecheck.box.snapshots`), and the cone a
+        ``snapshot`` column.
     keep_targets : bool
         Also return the pre-correction target list as ``info["targets"]``.
 
@@ -357,32 +409,35 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     fp = survey.active_footprint
     coverage = survey.coverage()
     if cells is None:
-        cells = BoxCells.build(box.position, L)
+        cells = prepare_box(box)
     timing["setup"] = time.perf_counter() - t0
 
     # -- replicas → sky coordinates → footprint (chunked, bounded memory)
     t1 = time.perf_counter()
     parts: dict[str, list[NDArray[Any]]] = {k: [] for k in
                                             ("idx", "rep", "ra", "dec", "chi", "comp", "vlos")}
-    for chunk in iter_shell_chunks(box.position, cells, L, o, rot, replicas, r_in, r_out,
-                                   coverage):
-        ra, dec, chi = sky_coordinates(chunk.r)
-        if fp is not None:
-            keep, comp = footprint_keep(ra, dec, fp, streams["footprint"])
-        else:
-            keep, comp = np.ones(len(ra), dtype=bool), np.ones(len(ra))
-        if not keep.any():
-            continue
-        idx = chunk.box_index[keep]
-        r = chunk.r[keep]
-        v_sky = box.velocity[idx] @ rot.T
-        parts["idx"].append(idx)
-        parts["rep"].append(chunk.replica[keep])
-        parts["ra"].append(ra[keep])
-        parts["dec"].append(dec[keep])
-        parts["chi"].append(chi[keep])
-        parts["comp"].append(comp[keep])
-        parts["vlos"].append(np.einsum("ij,ij->i", v_sky, r) / np.maximum(chi[keep], 1e-300))
+    for rows, pos, cells_k, lo, hi in _snapshot_slices(box, cells, r_in, r_out):
+        for chunk in iter_shell_chunks(pos, cells_k, L, o, rot, replicas, lo, hi, coverage):
+            ra, dec, chi = sky_coordinates(chunk.r)
+            if fp is not None:
+                keep, comp = footprint_keep(ra, dec, fp, streams["footprint"])
+            else:
+                keep, comp = np.ones(len(ra), dtype=bool), np.ones(len(ra))
+            if rows is not None:
+                # each snapshot holds its own range of true distance, half-open at hand-overs
+                keep &= (chi >= lo) & ((chi < hi) | (hi == r_out))
+            if not keep.any():
+                continue
+            idx = chunk.box_index[keep] if rows is None else rows[chunk.box_index[keep]]
+            r = chunk.r[keep]
+            v_sky = box.velocity[idx] @ rot.T
+            parts["idx"].append(idx)
+            parts["rep"].append(chunk.replica[keep])
+            parts["ra"].append(ra[keep])
+            parts["dec"].append(dec[keep])
+            parts["chi"].append(chi[keep])
+            parts["comp"].append(comp[keep])
+            parts["vlos"].append(np.einsum("ij,ij->i", v_sky, r) / np.maximum(chi[keep], 1e-300))
     if not parts["idx"]:
         raise InputError(
             f"footprint/shell: no galaxy of the box falls inside the footprint within "
@@ -401,7 +456,7 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     n_in_footprint = len(ok)
     targets = Table({k: v[ok] for k, v in box_rows.items()})
     idx = cols["idx"][ok]
-    for name in ("is_central", "halo_id", "halo_mass"):
+    for name in ("is_central", "halo_id", "halo_mass", "snapshot"):
         val = getattr(box, name)
         if val is not None:
             targets[name] = val[idx]

@@ -119,7 +119,15 @@ def _draw_sample(page: Page, top: float, height: float, sname: str, sample: dict
     handles += ax.plot([], [], color=st.CONE_FAINT, lw=1.0, label="single cones")
     if np.isfinite(expected).any():
         handles.append(ax.stairs(expected, edges, color=st.EXPECTED, lw=1.2, ls="--", baseline=None,
-                                 label="expected: box density × shell volume"))
+                                 label="expected: box density × shell volume"
+                                 + (" (per snapshot)" if "snapshot_z_edges" in nz else "")))
+    hand_overs = [z for z in ac.arr(nz, "snapshot_z_edges") if edges[0] < z < edges[-1]]
+    for i, z in enumerate(hand_overs):
+        # where the cones switch from one snapshot to the next (in true distance)
+        line = ax.axvline(z, color=st.MUTED, lw=1.0, ls="-.",
+                          label="snapshot hand-over" if i == 0 else None)
+        if i == 0:
+            handles.append(line)
     ax.set_ylabel("galaxies per bin")
     ax.set_xlim(edges[0], edges[-1])
     ax.set_ylim(0, None)

@@ -8,6 +8,7 @@ from a task's spec, :func:`conecheck.run.tasks.survey_model`).
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 from pathlib import Path
 from typing import Any
@@ -18,9 +19,10 @@ import numpy as np
 from ..box import default_hod_model, load_hod, populate, read_halo_catalog
 from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
+from ..box.snapshots import snapshot_chi_edges, stack_snapshots
 from ..box.synthetic import populate_synthetic, synthetic_halos_for
 from ..catalog import GalaxyBox, file_sha256, read_galaxy_box, read_matter_particles
-from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, RunConfig
+from ..config import SYNTHETIC_BOX_SIZE, SYNTHETIC_REDSHIFT, RunConfig, snapshot_box
 from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint import Footprint, jackknife_regions
@@ -64,6 +66,10 @@ def input_files(cfg: RunConfig) -> dict[str, Path]:
     }
     for i, v in enumerate(cfg.survey.vetoes):
         files[f"survey.vetoes[{i}]"] = _existing(cfg, v, f"survey.vetoes[{i}]")
+    for i, sn in enumerate(cfg.box.snapshots):
+        for key in ("path", "hod"):
+            files[f"box.snapshots[{i}].{key}"] = _existing(cfg, getattr(sn, key),
+                                                           f"box.snapshots[{i}].{key}")
     return {k: v for k, v in files.items() if v is not None}
 
 
@@ -127,9 +133,27 @@ def box_halos(cfg: RunConfig) -> tuple[HaloCatalog, HODModel, np.random.Generato
 def load_box_and_halos(cfg: RunConfig) -> tuple[GalaxyBox, HaloCatalog | None,
                                                   HODModel | None]:
     """The real-space galaxy box the run starts from, with the halos and HOD it was
-    populated from (None, None for a galaxy file)."""
+    populated from (None, None for a galaxy file).
+
+    With ``box.snapshots`` every snapshot is loaded as a box of its own and they are
+    stacked (:func:`~conecheck.box.snapshots.stack_snapshots`); the halos and HOD are then
+    None, since the HOD derivatives of the parameter shifts need one population.
+    """
     b = cfg.box
     cosmo = cosmology_of(cfg)
+    if b.snapshots:
+        parts = []
+        for k in range(len(b.snapshots)):
+            part, halos, model = load_box_and_halos(
+                dataclasses.replace(cfg, box=snapshot_box(b, k)))
+            parts.append(part)
+        if len(parts) == 1:
+            return parts[0], halos, model
+        redshifts = [sn.redshift for sn in b.snapshots]
+        edges = snapshot_chi_edges(redshifts, [sn.z_max for sn in b.snapshots], cosmo)
+        log.info("box: %d snapshots at z = %s, handing over at chi = %s Mpc/h", len(parts),
+                 ", ".join(f"{z:g}" for z in redshifts), ", ".join(f"{e:.1f}" for e in edges))
+        return stack_snapshots(parts, redshifts, edges), None, None
     halos = model = None
     if b.source == "file":
         box = read_galaxy_box(_existing(cfg, b.path, "box.path"), b.columns or None,

@@ -24,11 +24,13 @@ import numpy as np
 from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
 from ..box.sensitivity import DEFAULT_STEPS
+from ..box.snapshots import snapshot_ranges, snapshot_weights
 from ..catalog import GalaxyBox
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
 from ..config import RunConfig
 from ..footprint import Footprint, SkyRegions
 from ..footprint.protocols import SkyFootprint
+from ..stats.base import combine_measurements
 from .cache import TaskCache, content_digest, spec_key
 from .execute import Executor, Task
 from .inputs import (
@@ -59,6 +61,7 @@ from .tasks import (
     box_task,
     cone_table,
     cone_task,
+    cut_distances,
     expected_count,
     randoms_task,
     shuffle_distances,
@@ -94,6 +97,13 @@ class RunInputs:
     tiles: InputFile | None = None
     _digests: dict[int, tuple[Any, str]] = dataclasses.field(default_factory=dict,
                                                              repr=False)
+    _parts: list[GalaxyBox] | None = dataclasses.field(default=None, repr=False)
+
+    def snapshot_parts(self) -> list[GalaxyBox]:
+        """The box's snapshots as plain boxes (the box itself when it has one)."""
+        if self._parts is None:
+            self._parts = [self.box.snapshot_part(k) for k in range(self.box.n_snapshots)]
+        return self._parts
 
     def content(self, obj: Any) -> str:
         """Digest of an in-memory input's content (computed once per object)."""
@@ -126,16 +136,60 @@ def _run_stage(inp: RunInputs, stage: str, tasks: list[Task]) -> list[Any]:
 
 # --------------------------------------------------------------------------- stages
 def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
-    """Box measurements of every sample (sample name → box_task result)."""
+    """Box measurements of every sample (sample name → box_task result).
+
+    A box stacked from several snapshots is measured snapshot by snapshot and combined per
+    cut (:func:`combine_snapshots`); :func:`box_for_cut` reads either.
+    """
     c = inp.cfg
-    box_ref = inp.executor.share(inp.box)
+    parts = inp.snapshot_parts()
+    refs = [inp.executor.share(p) for p in parts]
     tasks = []
     for s in c.samples:
-        spec = box_spec(c, s, inp.content(inp.box), count_dilution(c, inp.footprint))
-        tasks.append(Task(key=spec_key(spec), label=f"box / sample {s.name}", func=box_task,
-                          args=(spec, box_ref), kind="box"))
+        for k, part in enumerate(parts):
+            spec = box_spec(c, s, inp.content(part), count_dilution(c, inp.footprint))
+            label = f"box / sample {s.name}" + (f" / snapshot {k}" if len(parts) > 1 else "")
+            tasks.append(Task(key=spec_key(spec), label=label, func=box_task,
+                              args=(spec, refs[k]), kind="box"))
     results = _run_stage(inp, "box", tasks)
-    return {s.name: r for s, r in zip(c.samples, results, strict=True)}
+    n = len(parts)
+    if n == 1:
+        return {s.name: r for s, r in zip(c.samples, results, strict=True)}
+    return {s.name: combine_snapshots(inp, s, results[i * n:(i + 1) * n])
+            for i, s in enumerate(c.samples)}
+
+
+def combine_snapshots(inp: RunInputs, sample: Any, per_snapshot: list[dict[str, Any]]
+                      ) -> dict[str, Any]:
+    """One sample's box result from its snapshots' (:mod:`conecheck.box.snapshots`): for
+    every cut, each statistic as the weighted sum over snapshots — the number density by
+    the cut's volume in each snapshot's range, the others by its expected galaxies there —
+    under ``by_cut``; the sample-level keys are those of the primary cut."""
+    cosmo = cosmology_of(inp.cfg)
+    densities = [r["number_density"] for r in per_snapshot]
+    by_cut = {}
+    for cut in sample.cuts:
+        lo, hi = cut_distances(cosmo, cut)
+        w_vol, w_gal = snapshot_weights(inp.box, densities, lo, hi)
+        meas = {name: combine_measurements([r["measurements"][name] for r in per_snapshot],
+                                           w_vol if name == "number_density" else w_gal)
+                for name in per_snapshot[0]["measurements"]}
+        by_cut[cut.label] = {"measurements": meas,
+                             "number_density": float(np.dot(w_vol, densities)),
+                             "snapshot_densities": densities,
+                             "weights_volume": w_vol.tolist(),
+                             "weights_galaxies": w_gal.tolist()}
+    primary = by_cut[sample.cuts[0].label]
+    return {"measurements": primary["measurements"],
+            "number_density": primary["number_density"],
+            "n_galaxies": int(sum(r["n_galaxies"] for r in per_snapshot)),
+            "by_cut": by_cut}
+
+
+def box_for_cut(box: dict[str, Any], cut_label: str) -> dict[str, Any]:
+    """The box result (``measurements``, ``number_density``) a cut is compared with: the
+    sample's, or for several snapshots the cut's own combination."""
+    return box.get("by_cut", {}).get(cut_label, box)
 
 
 def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
@@ -186,7 +240,8 @@ def randoms_stage(inp: RunInputs, box: dict[str, dict[str, Any]],
         survey0 = survey_model(build0, inp.footprint)
     fp_content, reg_content = inp.content(inp.footprint), inp.content(inp.regions)
     for sname, cut in pieces:
-        n_exp = expected_count(cosmo, inp.footprint, cut, box[sname]["number_density"])
+        n_exp = expected_count(cosmo, inp.footprint, cut,
+                               box_for_cut(box[sname], cut.label)["number_density"])
         data_chi = (None if cone0 is None
                     else shuffle_distances(cone0, cut, survey0, sname))
         spec = randoms_spec(c, sname, cut, n_exp, fp_content, reg_content, data_chi)
@@ -291,14 +346,25 @@ def cone_stage(inp: RunInputs, randoms: dict[str, dict[str, Any]],
 
 # --------------------------------------------------------------------------- helpers
 def nz_expected(cfg: RunConfig, footprint: SkyFootprint, cut: SampleCut,
-                density: float) -> dict[str, Any]:
-    """Expected n(z) of a cut: n_box × Ω_eff × shell volume per bin (no evolution)."""
+                density: float, box: GalaxyBox | None = None,
+                snapshot_densities: Sequence[float] | None = None) -> dict[str, Any]:
+    """Expected n(z) of a cut: n_box × Ω_eff × shell volume per bin; with several snapshots
+    (``box`` stacked, ``snapshot_densities`` [(h/Mpc)³]) each snapshot's density over its
+    own range of true distance."""
     cosmo = cosmology_of(cfg)
     edges = np.linspace(cut.z_min, cut.z_max, NZ_BINS + 1)
     chi = cosmo.comoving_distance(edges)
-    expected = density * footprint.area_sr * cosmo.volume_between_distances_per_sr(chi[:-1],
-                                                                                 chi[1:])
-    return {"edges": edges.tolist(), "expected": expected.tolist()}
+    if box is None or snapshot_densities is None or box.n_snapshots == 1:
+        expected = density * footprint.area_sr * cosmo.volume_between_distances_per_sr(
+            chi[:-1], chi[1:])
+        return {"edges": edges.tolist(), "expected": expected.tolist()}
+    expected = np.zeros(NZ_BINS)
+    for (lo, hi), n_k in zip(snapshot_ranges(box), snapshot_densities, strict=True):
+        a, b = np.clip(chi[:-1], lo, hi), np.clip(chi[1:], lo, hi)
+        expected += n_k * footprint.area_sr * cosmo.volume_between_distances_per_sr(a, b)
+    return {"edges": edges.tolist(), "expected": expected.tolist(),
+            "snapshot_chi_edges": list(box.snapshot_chi_edges),
+            "snapshot_z_edges": cosmo.redshift_at(np.asarray(box.snapshot_chi_edges)).tolist()}
 
 
 def stage_timer(timings: dict[str, float], name: str) -> Callable[[], None]:

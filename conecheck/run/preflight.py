@@ -86,7 +86,8 @@ def sample_densities(cfg: RunConfig, box: GalaxyBox | None = None,
     ``halos`` (a halo file) or over the synthetic box's mass function; None without either.
     """
     if box is not None:
-        volume = float(box.box_size) ** 3
+        # a box stacked from snapshots holds each snapshot's volume once: the mean density
+        volume = float(box.box_size) ** 3 * box.n_snapshots
         mags = box.abs_mag
         out: dict[str | None, float] = {None: len(box) / volume}
         for s in cfg.samples:

@@ -43,6 +43,7 @@ from .execute import make_executor
 from .inputs import cosmology_of
 from .pipeline import (
     RunInputs,
+    box_for_cut,
     box_stage,
     cone_stage,
     nz_expected,
@@ -115,17 +116,19 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
         cuts = {}
         for j, cut in enumerate(s.cuts):
             stats = {}
+            box_cut = box_for_cut(box[s.name], cut.label)
             for name in cfg.statistics.measure:
                 where = f"sample {s.name}, cut {cut.label}, statistic {name}"
                 stats[name] = compare_statistic(
-                    box[s.name]["measurements"][name],
+                    box_cut["measurements"][name],
                     [c["measurements"][s.name][cut.label][name] for c in cones],
                     cfg.verdict, cfg.cones.independent, where=where).to_dict()
-            shifts = _shifts(cfg, box[s.name]["measurements"],
+            shifts = _shifts(cfg, box_cut["measurements"],
                              [c["measurements"][s.name][cut.label] for c in cones],
                              (derivatives or {}).get(s.name),
                              f"sample {s.name}, cut {cut.label}")
-            nz = nz_expected(cfg, inp.footprint, cut, density)
+            nz = nz_expected(cfg, inp.footprint, cut, box_cut["number_density"], inp.box,
+                             box_cut.get("snapshot_densities"))
             nz["cones"] = [np.asarray(c["nz"][s.name][cut.label]).tolist() for c in cones]
             cuts[cut.label] = {"z_min": cut.z_min, "z_max": cut.z_max, "primary": j == 0,
                                "n_galaxies_cones": [
@@ -133,6 +136,10 @@ def compare_all(inp: RunInputs, box: dict[str, Any], cones: list[dict[str, Any]]
                                "nz": nz, "statistics": stats}
             if shifts is not None:
                 cuts[cut.label]["parameter_shifts"] = shifts
+            if "weights_volume" in box_cut:
+                cuts[cut.label]["box_snapshots"] = {
+                    k: box_cut[k] for k in ("number_density", "snapshot_densities",
+                                            "weights_volume", "weights_galaxies")}
         vlim = None
         if cfg.shell.m_lim is not None and s.mag_max is not None and cfg.effects.flux_limit:
             vlim = float(volume_limit_zmax(cfg.shell.m_lim, s.mag_max, cosmo, cfg.shell))
@@ -436,6 +443,8 @@ def _results(inp: RunInputs, run_dir: Path, config_path: str | Path | None,
                                   else INDEPENDENCE_NOTE_SHARED),
             "box": {"source": cfg.box.source, "box_size": float(inp.box.box_size),
                     "redshift": float(inp.box.redshift), "n_galaxies": len(inp.box),
+                    "snapshot_redshifts": list(inp.box.snapshot_redshifts),
+                    "snapshot_chi_edges": list(inp.box.snapshot_chi_edges),
                     "los_axis": cfg.box.los_axis, "rsd": cfg.box.rsd,
                     "redshift_scatter_kms": cfg.box.redshift_scatter_kms},
             "survey": {"name": cfg.survey.name, "effects": dataclasses.asdict(cfg.effects),

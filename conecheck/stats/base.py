@@ -81,6 +81,35 @@ class Measurement:
         return jackknife_covariance(self.delete_one)
 
 
+def combine_measurements(parts: list[Measurement], weights: NDArray[np.float64]
+                         ) -> Measurement:
+    """Σ_k w_k m_k of measurements of one statistic on several boxes (snapshots).
+
+    The values and, region by region, the jackknife delete-one vectors combine with the
+    weights (the boxes share their sub-volume layout); the line-of-sight variance of the
+    box estimate (``extra[LOS_VARIANCE]``) combines as Σ w_k² var_k (independent axes of
+    each box). Other diagnostics come from the part with the largest weight.
+    """
+    w = np.asarray(weights, dtype=np.float64)
+    if len(parts) != len(w) or not parts:
+        raise ValueError("combine_measurements: one weight per measurement")
+    ref = parts[int(np.argmax(w))]
+    value = np.sum([wk * p.value for wk, p in zip(w, parts, strict=True)], axis=0)
+    delete_one = None
+    if all(p.delete_one is not None for p in parts) and len(
+            {p.delete_one.shape for p in parts}) == 1:  # type: ignore[union-attr]
+        delete_one = np.sum([wk * p.delete_one for wk, p in zip(w, parts, strict=True)],
+                            axis=0)
+    extra = dict(ref.extra)
+    if all(LOS_VARIANCE in p.extra for p in parts):
+        extra[LOS_VARIANCE] = np.sum([wk**2 * np.asarray(p.extra[LOS_VARIANCE])
+                                      for wk, p in zip(w, parts, strict=True)],
+                                     axis=0).tolist()
+    extra["snapshot_weights"] = w.tolist()
+    return Measurement(ref.name, ref.bins, value, delete_one, ref.bin_edges, ref.bin_label,
+                       ref.value_label, extra)
+
+
 # --------------------------------------------------------------------------- inputs
 def _as_float(a: Any, name: str, n: int | None = None) -> NDArray[np.float64]:
     try:
