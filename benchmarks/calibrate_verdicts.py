@@ -40,6 +40,8 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import tomli_w
+import tomllib
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
@@ -48,6 +50,24 @@ from run_helpers import tiny_dict  # noqa: E402
 from conecheck.config import config_from_dict  # noqa: E402
 from conecheck.demo import demo_dict  # noqa: E402
 from conecheck.run import validate as validate_mod  # noqa: E402
+
+#: Marks the HOD file of the evolving-HOD snapshot, written by :func:`evolved_hod`.
+EVOLVED_HOD = "<evolved HOD>"
+
+
+def evolved_hod(out: Path) -> str:
+    """The shipped HOD with every threshold's log M_min and log M_1 raised by 0.1 (fewer,
+    more massive hosts at the higher redshift: an invented evolution), written to ``out``."""
+    d = tomllib.loads((Path(__file__).resolve().parents[1] / "conecheck" / "data"
+                       / "hod_default.toml").read_text())
+    for t in d["threshold"]:
+        t["log_mmin"] += 0.1
+        t["log_m1"] += 0.1
+    out.mkdir(parents=True, exist_ok=True)
+    path = out / "evolved_hod.toml"
+    path.write_text(tomli_w.dumps(d))
+    return str(path)
+
 
 NULL = {"survey.effects.redshift_errors": False, "survey.effects.fibres": False,
         "survey.effects.physical_fluxes": False}
@@ -65,6 +85,17 @@ SETUPS: dict[str, dict[str, Any]] = {
                                           "survey.completeness.threshold": 0.55},
     "planted: 500 km/s redshift errors": {**NULL, "survey.effects.redshift_errors": True,
                                           "survey.redshift_errors.sigma_v_kms": 500.0},
+    "null, two snapshots": {**NULL, "box.redshift": None,
+                            "box.snapshots": [{"redshift": 0.03}, {"redshift": 0.07}]},
+    "null, two snapshots, evolving HOD": {
+        **NULL, "box.redshift": None,
+        "box.snapshots": [{"redshift": 0.03}, {"redshift": 0.07, "hod": EVOLVED_HOD}]},
+    "planted: fibre budget (4 % lost) uncorrected": {
+        **NULL, "survey.tiles.centres": "regular", "survey.tiles.radius_deg": 1.5,
+        "survey.tiles.fibres_per_tile": 40, "survey.correction.name": "none"},
+    "planted: fibre budget (4 % lost), nearest-redshift correction": {
+        **NULL, "survey.tiles.centres": "regular", "survey.tiles.radius_deg": 1.5,
+        "survey.tiles.fibres_per_tile": 40},
     "planted: 600\" collisions uncorrected": {
         **NULL, "survey.effects.fibres": True, "survey.fibres.angle_arcsec": 600.0,
         "survey.fibres.overlap_map": None, "survey.fibres.overlap_fraction": 0.0,
@@ -158,6 +189,9 @@ def main(argv: list[str] | None = None) -> int:
         runs = []
         for seed in range(a.seeds):
             d = tiny_dict(seed=1000 + seed, **{"cones.n_cones": a.cones, **changes, **extra})
+            for sn in d["box"].get("snapshots", []):
+                if sn.get("hod") == EVOLVED_HOD:
+                    sn["hod"] = evolved_hod(a.out)
             if "survey.shell.z_max" in changes:
                 for smp in d["samples"]:
                     smp["z_max"] = min(smp["z_max"], changes["survey.shell.z_max"])

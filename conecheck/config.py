@@ -232,7 +232,7 @@ class BoxConfig:
         if self.source not in ("synthetic", "file", "halos"):
             problems.append(f"source = {self.source!r}: expected 'synthetic', 'file' or "
                             f"'halos'")
-        if self.source in ("file", "halos") and not self.path:
+        if self.source in ("file", "halos") and not self.path and not self.snapshots:
             problems.append(f"path: source = '{self.source}' needs the catalogue file")
         if self.source == "synthetic" and self.path:
             problems.append("path: a synthetic box reads no file; remove path or set "

@@ -96,3 +96,24 @@ def test_snapshots_replace_the_single_box_keys_and_need_their_files():
                      "box.snapshots": [{"redshift": 0.03}, {"redshift": 0.06, "path": "b"}]})
     with pytest.raises(InputError, match=r"snapshots\[0\].path: source = 'file'"):
         config_from_dict(d)
+
+
+def test_a_snapshot_file_without_magnitudes_names_its_key(tmp_path):
+    from astropy.table import Table
+
+    from conecheck.run.inputs import load_box_and_halos
+
+    rng = np.random.default_rng(0)
+    for name, mags in (("z03.fits", True), ("z07.fits", False)):
+        t = Table({c: rng.uniform(0, 100, 50) for c in ("x", "y", "z")}
+                  | {c: np.zeros(50) for c in ("vx", "vy", "vz")})
+        if mags:
+            t["abs_mag"] = rng.uniform(-22, -19, 50)
+        t.meta.update(BOXSIZE=100.0)
+        t.write(tmp_path / name)
+    d = tiny_dict(**{"box.redshift": None, "box.source": "file", "box.box_size": 100.0,
+                     "box.snapshots": [{"redshift": 0.03, "path": "z03.fits"},
+                                       {"redshift": 0.07, "path": "z07.fits"}]})
+    cfg = config_from_dict(d, "c.toml", tmp_path)
+    with pytest.raises(InputError, match=r"box.snapshots\[1\] .*z07.fits.*abs_mag"):
+        load_box_and_halos(cfg)

@@ -142,13 +142,9 @@ def load_box_and_halos(cfg: RunConfig) -> tuple[GalaxyBox, HaloCatalog | None,
     b = cfg.box
     cosmo = cosmology_of(cfg)
     if b.snapshots:
-        parts = []
-        for k in range(len(b.snapshots)):
-            part, halos, model = load_box_and_halos(
-                dataclasses.replace(cfg, box=snapshot_box(b, k)))
-            parts.append(part)
-        if len(parts) == 1:
-            return parts[0], halos, model
+        if len(b.snapshots) == 1:
+            return load_box_and_halos(dataclasses.replace(cfg, box=snapshot_box(b, 0)))
+        parts = [_snapshot_box(cfg, k) for k in range(len(b.snapshots))]
         redshifts = [sn.redshift for sn in b.snapshots]
         edges = snapshot_chi_edges(redshifts, [sn.z_max for sn in b.snapshots], cosmo)
         log.info("box: %d snapshots at z = %s, handing over at chi = %s Mpc/h", len(parts),
@@ -178,6 +174,29 @@ def load_box_and_halos(cfg: RunConfig) -> tuple[GalaxyBox, HaloCatalog | None,
     log.info("box: %d galaxies, L = %.1f Mpc/h, z = %.3f (%s)", len(box), box.box_size,
              box.redshift, b.source)
     return box, halos, model
+
+
+def _snapshot_box(cfg: RunConfig, k: int) -> GalaxyBox:
+    """Snapshot ``k`` of ``box.snapshots`` as a box, its problems named by its key.
+
+    The snapshots of a synthetic box are those of one simulation: they share its halos
+    (drawn once, at the first snapshot's redshift, so the structure is continuous across a
+    hand-over) and each populates them with its own HOD from the same generator state.
+    """
+    b = cfg.box
+    sub = dataclasses.replace(cfg, box=snapshot_box(b, k))
+    where = f"box.snapshots[{k}]" + (f" ({b.snapshots[k].path})" if b.snapshots[k].path
+                                     else "")
+    try:
+        if b.source != "synthetic":
+            return load_box_and_halos(sub)[0]
+        halos, _, rng = box_halos(dataclasses.replace(cfg, box=snapshot_box(b, 0)))
+        box = populate_synthetic(halos, hod_model_of(sub), rng, cosmology_of(cfg))
+        box.redshift = float(b.snapshots[k].redshift)
+        box.matter = None  # lensing statistics are refused with several snapshots
+        return box
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}", [f"{where}: {p}" for p in exc.problems]) from None
 
 
 def load_box(cfg: RunConfig) -> GalaxyBox:
