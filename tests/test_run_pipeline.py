@@ -318,7 +318,8 @@ def test_a_run_with_the_full_target_list_and_a_fibre_budget_reports_both(tmp_pat
     base = {"survey.tiles.centres": "regular", "survey.tiles.radius_deg": 1.5,
             "survey.tiles.fibres_per_tile": 25, "cones.n_cones": 2,
             "statistics.measure": ["number_density", "wp"]}
-    res_box, _ = _run(tiny_dict(seed=3, **base), tmp_path / "box")
+    res_box, _ = _run(tiny_dict(seed=3, **base, **{"survey.targets.source": "box"}),
+                      tmp_path / "box")
     res, code = _run(tiny_dict(seed=3, **base, **{"survey.targets.source": "fill"}),
                      tmp_path / "fill")
     assert code in (0, 1)

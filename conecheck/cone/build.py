@@ -158,7 +158,9 @@ class SurveyModel:
     def fills_targets(self) -> bool:
         """True when the cones add the faint targets the box lacks."""
         return (self.targets.source == "fill" and self.effects.target_fill
-                and self.effects.flux_limit and self.shell.m_lim is not None)
+                and self.effects.flux_limit and self.shell.m_lim is not None
+                # fill targets act only on fibres: without collisions or a budget, skip them
+                and (self.effects.fibres or (self.tiles.enabled and self.effects.fibre_budget)))
 
     def tiling(self) -> Tiling | None:
         """The tiles of the fibre budget on the active footprint (built once), or None."""
@@ -326,11 +328,20 @@ def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[
         rs.append(ft.r)
         mags.append(ft.abs_mag)
     ft = FillTargets(np.concatenate(hosts), np.concatenate(rs), np.concatenate(mags))
-    ra, dec, chi = sky_coordinates(ft.r)
     fp = survey.active_footprint
+    r = ft.r
+    if fp is not None:
+        # hosts lie inside the survey, so offsets carry fill targets out across its edges
+        # and none in: a target placed off the survey goes to the mirror point about its
+        # host instead, which keeps the fill's density up to the edges
+        ra, dec, _ = sky_coordinates(r)
+        off = np.asarray(fp.completeness(ra, dec)) <= 0
+        r = r.copy()
+        r[off] = 2.0 * host_r[ft.host[off]] - r[off]
+    ra, dec, chi = sky_coordinates(r)
     comp = (np.asarray(fp.completeness(ra, dec), dtype=np.float64) if fp is not None
             else np.ones(len(ra)))
-    on_sky = comp > 0  # an offset past the survey's edge leaves the survey
+    on_sky = comp > 0  # off on both sides of its host: a target left outside the survey
     host = ft.host[on_sky]
     rows = _observe(ra[on_sky], dec[on_sky], chi[on_sky], cols["vlos"][host], comp[on_sky],
                     ft.abs_mag[on_sky], survey, True, rng)

@@ -191,7 +191,7 @@ def full_list_collided_fraction(collided: float, density_ratio: float) -> float:
     1 − (1 − f)^(Σ_full/Σ_box). That is exact only for a random sky: where the box's
     collisions come from its own tight pairs (satellites in groups), which the missing
     faint targets need not share, it overstates the rise (on the quick demo it predicts
-    5.5 % where ``survey.targets.source = "fill"`` measures 3.0 %); a rough estimate that
+    5.7 % where ``survey.targets.source = "fill"`` measures 2.9 %); a rough estimate that
     the fill replaces with a measurement.
     """
     if not (0.0 <= collided < 1.0) or not density_ratio > 0:

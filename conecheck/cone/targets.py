@@ -23,8 +23,9 @@ velocity and has an absolute magnitude drawn from F below M_lim at its own dista
 mean fill density is F(M_lim(z)) to second order in the offsets.
 
 Hosts are the galaxies the footprint's completeness kept, so the fill is thinned like
-them; a fill target whose offset takes it off the footprint (completeness 0) is dropped,
-which loses a sliver of order spread/χ at the survey's edges. Fill targets never enter a
+them. Since hosts lie inside the survey, offsets carry fill targets out across its edges and
+none in; the cone builder places a target that lands off the footprint at the mirror point
+about its host instead, and drops it only when both points are off. Fill targets never enter a
 sample: they exist to collide, to crowd tiles and to lend their redshifts to collided
 neighbours, as faint targets do in a survey.
 """
