@@ -36,7 +36,7 @@ from .compare import Comparison, compare_statistic
 from .compare.rules import VerdictRules
 from .cone import make_randoms, n_randoms, select_cut
 from .cone.build import prepare_box
-from .cone.settings import CompletenessSettings, SampleCut
+from .cone.settings import CompletenessSettings, RandomSettings, SampleCut
 from .config import (
     CosmologyConfig,
     JackknifeConfig,
@@ -279,6 +279,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
             default_regions if default_regions is not None else sky_regions(cfg, fp))
         settings = settings if settings is not None else cfg.statistics.get(statistic)
         multiple = cfg.randoms.multiple if randoms_multiple is None else randoms_multiple
+        sampling, rr_multiple = cfg.randoms.sampling, cfg.randoms.rr_multiple
         shell = cfg.shell
         seed = cfg.seed
         completeness = cfg.completeness
@@ -291,6 +292,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
         regions = regions if regions is not None else jackknife_regions(
             fp, DEFAULT_SKY_REGIONS, seed=seed)
         multiple = DEFAULT_RANDOMS_MULTIPLE if randoms_multiple is None else randoms_multiple
+        sampling, rr_multiple = RandomSettings().sampling, RandomSettings().rr_multiple
         shell = None
         completeness = CompletenessSettings()
     cosmo = cosmo_cfg.model()
@@ -310,9 +312,16 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     rng = seeded_rng(seed, "api-cone", statistic)
     if stat.needs_randoms:
         rt = make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple), rng,
-                          cosmology=cosmo)
+                          cosmology=cosmo, sampling=sampling)
         rand = _cone_sample(rt, regions)
-    shared = stat.prepare_cone(rand, geometry, settings, n_data=len(data.ra), rng=rng)
+    rr_rand = rand
+    if rand is not None and sampling == "qmc":
+        # random pairs on an independent pseudo-random set, as a run counts them
+        # (run.tasks.cut_rr_randoms)
+        rr_rand = _cone_sample(make_randoms(
+            fp, lo, hi, n_randoms(float(data.w.sum()), rr_multiple), rng, cosmology=cosmo),
+            regions)
+    shared = stat.prepare_cone(rr_rand, geometry, settings, n_data=len(data.ra), rng=rng)
     extra = {"matter": matter} if stat.needs_matter else {}
     return stat.measure_cone(data, rand, geometry, settings, rng, shared, jackknife=True,
                              **extra)

@@ -593,9 +593,20 @@ class RandomSettings:
     radial : {"volume", "shuffle"}
         ``volume``: χ uniform in comoving volume between the cut's limits;
         ``shuffle``: χ drawn (with replacement) from the data's observed distances.
+    sampling : {"pseudo", "qmc"}
+        ``pseudo``: independent random points; ``qmc``: a scrambled Sobol sequence, whose
+        evenly spread points give the data–random counts a smaller variance at equal size
+        (Kerscher 2022, A&A 666, A181; :mod:`conecheck.cone.randoms`). QMC points avoid each
+        other at small separations, so their own pair counts (RR) would be biased: with
+        ``qmc``, RR is counted on an independent pseudo-random set of ``rr_multiple``.
+    rr_multiple : float
+        Randoms per galaxy of the pseudo-random set RR is counted on with ``qmc`` sampling
+        (RR is counted once per cut and shared by every cone, so it can afford many).
     """
     multiple: float = 20.0
     radial: Literal["volume", "shuffle"] = "volume"
+    sampling: Literal["pseudo", "qmc"] = "pseudo"
+    rr_multiple: float = 20.0
 
     def __post_init__(self) -> None:
         problems: list[str] = []
@@ -603,4 +614,8 @@ class RandomSettings:
             problems.append(f"multiple = {self.multiple!r}: expected 0 < multiple <= 1e4")
         if self.radial not in ("volume", "shuffle"):
             problems.append(f"radial = {self.radial!r}: expected 'volume' or 'shuffle'")
+        if self.sampling not in ("pseudo", "qmc"):
+            problems.append(f"sampling = {self.sampling!r}: expected 'pseudo' or 'qmc'")
+        if not (math.isfinite(self.rr_multiple) and 0.0 < self.rr_multiple <= 1e4):
+            problems.append(f"rr_multiple = {self.rr_multiple!r}: expected 0 < value <= 1e4")
         _raise("randoms", problems)

@@ -175,7 +175,23 @@ def cut_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
     lo, hi = cut_distances(cosmo, spec.cut)
     n = n_randoms(spec.n_expected, spec.randoms.multiple)
     rng = seeded_rng(spec.seed, "randoms", spec.sample_name, spec.cut.label)
-    return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo)
+    return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo,
+                        spec.randoms.sampling)
+
+
+def cut_rr_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
+    """The randoms the cut's shared random-pair counts (RR) are counted on: the cut's own
+    randoms, or with ``qmc`` sampling an independent pseudo-random set of ``rr_multiple``
+    per galaxy (QMC points avoid each other at small separations; :mod:`conecheck.cone.
+    randoms`). None when they are the cut's own."""
+    if spec.randoms.sampling != "qmc":
+        return None
+    cosmo = spec.model()
+    lo, hi = cut_distances(cosmo, spec.cut)
+    n = n_randoms(spec.n_expected, spec.randoms.rr_multiple)
+    rng = seeded_rng(spec.seed, "randoms-rr", spec.sample_name, spec.cut.label)
+    return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo,
+                        "pseudo")
 
 
 def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
@@ -192,12 +208,16 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
     rand = _cone_sample(cut_randoms(spec, footprint), regions)
+    rr_table = cut_rr_randoms(spec, footprint)
+    rr_rand = rand if rr_table is None else _cone_sample(rr_table, regions)
     geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, spec.cut),
                             covered_sky(footprint, spec.completeness))
     shared = {}
     for name in spec.statistics.measure:
+        # the statistics that count random pairs count them on the RR set
         s = STATISTICS[name].prepare_cone(
-            rand, geometry, spec.statistics.get(name),
+            rr_rand if STATISTICS[name].needs_randoms else rand, geometry,
+            spec.statistics.get(name),
             n_data=max(int(round(spec.n_expected)), 1),
             rng=seeded_rng(spec.seed, "shared", spec.sample_name, spec.cut.label, name))
         if s is not None:
