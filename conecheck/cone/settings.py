@@ -589,7 +589,9 @@ class RandomSettings:
     Attributes
     ----------
     multiple : float
-        Number of randoms per data galaxy (≥ 10 advised for 2-point statistics).
+        Number of randoms per data galaxy (≥ 10 advised for 2-point statistics). The
+        default, 10 QMC randoms, gives wp a random noise no larger than 20 pseudo-random
+        ones at half the data–random pair work (benchmarks/RESULTS.md, bench_randoms).
     radial : {"volume", "shuffle"}
         ``volume``: χ uniform in comoving volume between the cut's limits;
         ``shuffle``: χ drawn (with replacement) from the data's observed distances.
@@ -603,9 +605,9 @@ class RandomSettings:
         Randoms per galaxy of the pseudo-random set RR is counted on with ``qmc`` sampling
         (RR is counted once per cut and shared by every cone, so it can afford many).
     """
-    multiple: float = 20.0
+    multiple: float = 10.0
     radial: Literal["volume", "shuffle"] = "volume"
-    sampling: Literal["pseudo", "qmc"] = "pseudo"
+    sampling: Literal["pseudo", "qmc"] = "qmc"
     rr_multiple: float = 20.0
 
     def __post_init__(self) -> None:
