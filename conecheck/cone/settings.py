@@ -590,8 +590,9 @@ class RandomSettings:
     ----------
     multiple : float
         Number of randoms per data galaxy (≥ 10 advised for 2-point statistics). The
-        default, 10 QMC randoms, gives wp a random noise no larger than 20 pseudo-random
-        ones at half the data–random pair work (benchmarks/RESULTS.md, bench_randoms).
+        default, 10 QMC randoms, gives wp the random noise of 20 pseudo-random ones in the
+        smallest r_p bins and less above, at half the data–random pair work
+        (benchmarks/RESULTS.md, bench_randoms).
     radial : {"volume", "shuffle"}
         ``volume``: χ uniform in comoving volume between the cut's limits;
         ``shuffle``: χ drawn (with replacement) from the data's observed distances.

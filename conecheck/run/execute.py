@@ -365,8 +365,11 @@ class DaskExecutor(Executor):
         client = getattr(self, "client", None)
         quiet = logging.getLogger("distributed")
         level = quiet.level
-        if self._cluster is not None:  # our own cluster: its shutdown warnings are noise
-            quiet.setLevel(logging.ERROR)
+        if self._cluster is not None:
+            # our own cluster: its shutdown messages are noise, including the tracebacks its
+            # comm handlers log when a Ctrl-C closes them mid-message (a task's own failure
+            # reaches the run through its future)
+            quiet.setLevel(logging.CRITICAL)
         try:
             if client is not None:
                 client.close()
@@ -410,7 +413,14 @@ class DaskExecutor(Executor):
                 fut.release()
         finally:
             if futures:  # interrupted: stop what is still queued on the cluster
-                self.client.cancel([f for _, f in futures.values()])
+                quiet = logging.getLogger("distributed")
+                level = quiet.level
+                if self._cluster is not None:  # as in close(): our cluster's noise
+                    quiet.setLevel(logging.CRITICAL)
+                try:
+                    self.client.cancel([f for _, f in futures.values()])
+                finally:
+                    quiet.setLevel(level)
 
 
 def _probe_scheduler(address: str, timeout: float) -> None:
