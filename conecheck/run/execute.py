@@ -370,6 +370,11 @@ class DaskExecutor(Executor):
             # comm handlers log when a Ctrl-C closes them mid-message (a task's own failure
             # reaches the run through its future)
             quiet.setLevel(logging.CRITICAL)
+            # a scheduler coroutine that a Ctrl-C cut short (a scatter to a worker that had
+            # just died) reports "Task exception was never retrieved" through asyncio's
+            # logger when it is collected, which may be after close(): the cluster and its
+            # event loop are ours, so that logger stays quiet from here on
+            logging.getLogger("asyncio").setLevel(logging.CRITICAL)
         try:
             if client is not None:
                 client.close()
