@@ -50,6 +50,7 @@ from .cone.settings import (
     SurveyShell,
     TargetSettings,
     TileSettings,
+    fibres_limit_targets,
 )
 from .cosmology import Cosmology
 from .errors import InputError
@@ -867,7 +868,7 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
         problems.append("survey.targets.source = 'fill': the faint targets are those above "
                         "the flux limit, so it needs survey.shell.m_lim and "
                         "survey.effects.flux_limit = true")
-    if cfg.targets.source == "fill" and not (cfg.effects.fibres or cfg.tiles.enabled):
+    if cfg.targets.source == "fill" and not fibres_limit_targets(cfg.effects, cfg.tiles):
         warnings.append("survey.targets.source = 'fill' with neither fibre collisions nor "
                         "tiles: fill targets only act on fibres, so they change nothing")
     if cfg.effects.fibres and not cfg.effects.footprint:

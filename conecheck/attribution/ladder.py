@@ -40,7 +40,7 @@ from typing import Any
 import numpy as np
 
 from ..compare import Comparison, jsonable
-from ..cone.settings import EffectSwitches
+from ..cone.settings import EffectSwitches, fibres_limit_targets
 from ..config import RunConfig
 from .paired import INCREMENT_ERROR_TEXT, paired_difference
 from .variants import ConeVariants, Variant, ladder_pieces
@@ -111,14 +111,14 @@ def _changes_nothing(cfg: RunConfig, step: str) -> str | None:
     if step == "target_fill":
         if cfg.targets.source != "fill":
             return "survey.targets.source is 'box': the target list is the box's"
-        if not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget)):
+        if not fibres_limit_targets(cfg.effects, cfg.tiles):
             return "neither fibre collisions nor a fibre budget act on the extra targets"
     if step == "fibre_budget" and not cfg.tiles.enabled:
         return "no tiles (survey.tiles.centres) are configured"
     if step == "flux_limit" and cfg.shell.m_lim is None:
         return "no flux limit (survey.shell.m_lim) is configured"
     if step == "correction":
-        if not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget)):
+        if not fibres_limit_targets(cfg.effects, cfg.tiles):
             return "fibre collisions and budget are off, so there is nothing to correct"
         if cfg.correction.name == "none":
             return "the configured correction is 'none' (the same cones as the fibre rung)"

@@ -74,6 +74,7 @@ from .settings import (
     SurveyShell,
     TargetSettings,
     TileSettings,
+    fibres_limit_targets,
 )
 from .targets import FillTargets, fill_targets, neighbour_distances
 from .tiles import Tiling, assign_budget, make_tiling
@@ -160,7 +161,7 @@ class SurveyModel:
         return (self.targets.source == "fill" and self.effects.target_fill
                 and self.effects.flux_limit and self.shell.m_lim is not None
                 # fill targets act only on fibres: without collisions or a budget, skip them
-                and (self.effects.fibres or (self.tiles.enabled and self.effects.fibre_budget)))
+                and fibres_limit_targets(self.effects, self.tiles))
 
     def tiling(self) -> Tiling | None:
         """The tiles of the fibre budget on the active footprint (built once), or None."""

@@ -389,6 +389,13 @@ class TileSettings:
         return bool(str(self.centres).strip())
 
 
+def fibres_limit_targets(effects: EffectSwitches, tiles: TileSettings) -> bool:
+    """True when fibre collisions or a tile budget can leave a target without a fibre (the
+    one rule for whether the target list's faint fill, the correction and the target
+    record matter)."""
+    return effects.fibres or (tiles.enabled and effects.fibre_budget)
+
+
 #: How count statistics treat an incomplete survey (:class:`CompletenessSettings`).
 COMPLETENESS_TREATMENTS = ("dilute", "weight", "threshold")
 

@@ -34,11 +34,12 @@ so later passes cover the seams of earlier ones.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+from astropy.table import Table
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
@@ -80,7 +81,6 @@ class Tiling:
     radius_deg: float
     fibres_per_tile: int
     source: str = "regular"
-    info: dict[str, Any] = field(default_factory=dict)
 
     def __len__(self) -> int:
         return len(self.ra)
@@ -113,8 +113,6 @@ def regular_centres(radius_deg: float, passes: int) -> tuple[NDArray[np.float64]
 def read_centres(path: Path, key: str = "survey.tiles.centres"
                  ) -> tuple[NDArray[np.float64], ...]:
     """(ra, dec [deg], pass) from a table file with columns ra, dec and optional pass."""
-    from astropy.table import Table
-
     if not path.is_file():
         raise InputError(f"{key} = '{path}': file not found")
     try:
@@ -196,7 +194,7 @@ def make_tiling(settings: TileSettings, footprint: SkyFootprint | None,
         if len(ra) == 0:
             raise InputError(f"{key}: no tile reaches the footprint")
     return Tiling(ra, dec, ps, float(settings.radius_deg), int(settings.fibres_per_tile),
-                  source, {"n_candidates": int(n_all)})
+                  source)
 
 
 def tile_members(tiling: Tiling, xyz: NDArray[np.float64]

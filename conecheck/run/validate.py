@@ -25,6 +25,7 @@ from ..compare import compare_statistic, exit_code, rollup_verdicts
 from ..compare.fisher import shifts_for_cut
 from ..cone import volume_limit_zmax
 from ..cone.photometry import expected_targets_per_sr, full_list_collided_fraction
+from ..cone.settings import fibres_limit_targets
 from ..config import RunConfig, config_warnings, resolved_toml
 from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
@@ -174,7 +175,7 @@ def target_record(cfg: RunConfig, inp: RunInputs, cones: list[dict[str, Any]]
     (:func:`~conecheck.cone.photometry.full_list_collided_fraction`). None without a flux
     limit or fibre collisions."""
     if (cfg.shell.m_lim is None or not cfg.effects.flux_limit
-            or not (cfg.effects.fibres or (cfg.tiles.enabled and cfg.effects.fibre_budget))):
+            or not fibres_limit_targets(cfg.effects, cfg.tiles)):
         return None
     area = float(inp.footprint.area_deg2)
     n_all = np.array([c["info"].get("n_targets_in_shell", 0) for c in cones], dtype=float)
