@@ -7,13 +7,19 @@ are the contiguous window with |Δ_LOS| < π_max, found by two moving pointers.
 
 Pair counts, per point and neighbour cell, run in passes over that window:
 
-1. a branch-free loop (SIMD-vectorised by LLVM) computing each candidate's separations and
-   whether it passes every cut (box: also its bin cell from the bit pattern of r_p², see
-   :class:`.binning.Rp2Lookup`);
+1. a branch-free loop (SIMD-vectorised by LLVM) computing each candidate's separations,
+   whether it passes every cut, its π bin and its r_p look-up cell from the bit pattern of
+   r_p² (see :class:`.binning.Rp2Lookup`); the cone kernel's division and square root
+   vectorise because it is compiled with numpy's error model (no ZeroDivisionError check);
 2. a compaction of the accepted candidates by a conditional increment (no branch to
    mispredict);
 3. a scalar loop binning the accepted candidates and adding their weights into the
    histogram (histogram updates cannot be vectorised).
+
+Before a window is scanned, a cheap geometric test skips what cannot hold a pair: on a
+cone, a cell pair and then each point against the neighbour cell (:func:`_can_pair`, a
+bound that holds wherever the line of sight points); in a box, each point whose distance
+across the LOS from the neighbour cell's rectangle exceeds r_p,max.
 
 Indices in the hot loops are cast to unsigned integers: numba then skips its
 negative-index wrap-around, which otherwise costs as much as the arithmetic.
@@ -71,8 +77,13 @@ def _bin_of(c, rp2, lut, nxt, scan, edges2, n_rp):
 @numba.njit(cache=True)
 def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
                sx, sy, sz, same, edges2, pi_max, inv_dpi, n_pi,
-               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch):
-    """All pairs between one cell of set 1 and one (shifted) cell of set 2, periodic box."""
+               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch,
+               bx0, bx1, by0, by1, reach2):
+    """All pairs between one cell of set 1 and one (shifted) cell of set 2, periodic box.
+
+    A point of set 1 farther across the LOS than √``reach2`` from the second cell's
+    rectangle [bx0, bx1] × [by0, by1] has no partner there and is skipped.
+    """
     n_rp = edges2.size - 1
     rpmin2 = edges2[0]
     rpmax2 = edges2[n_rp]
@@ -97,6 +108,10 @@ def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
             continue
         xi = x1[i] - sx
         yi = y1[i] - sy
+        gx = max(bx0 - xi, xi - bx1, 0.0)
+        gy = max(by0 - yi, yi - by1, 0.0)
+        if gx * gx + gy * gy >= reach2:
+            continue
         for q in range(nwin):
             j = np.uint64(j0 + q)
             dx = x2[j] - xi
@@ -153,6 +168,12 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
     inv_dpi = 1.0 / dpi
     with_touch = n_regions > 0
     nb = (n_rp + 1) * n_pi
+    rpmax2 = edges2[n_rp]
+    # cell sides across the LOS; the tolerance covers a point that floor() put one
+    # rounding step outside its cell
+    cx = box_size / nx
+    cy = box_size / ny
+    tol = 1e-9 * box_size
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
     for c in prange(n_chunks):
@@ -182,28 +203,66 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                 _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
                            wx * box_size, wy * box_size, wz * box_size, same,
                            edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                           fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch)
+                           fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch,
+                           kx * cx - tol, (kx + 1) * cx + tol, ky * cy - tol,
+                           (ky + 1) * cy + tol, rpmax2)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always", error_model="numpy")
+def _can_pair(ax, ay, az, dx, dy, dz, ex, ey, ez, lx, ly, lz, first_los, rp_max, pi_max,
+              s_max):
+    """Whether two axis-aligned boxes can hold a pair with r_p < ``rp_max`` and
+    |π| < ``pi_max`` (observer at the origin).
+
+    The first box has centre a, the second a + d. A pair's separation s lies in the box
+    d ± e and its line of sight l (r₁ + r₂, or r₁ for ``first_los``) in the box m ± λ,
+    m = 2a + d (or a), where e and λ are sums of the boxes' half-sides. With u = m/|m|
+    and α the largest angle between l and u (sin α ≤ |λ|/|m|), turning the axis by α
+    moves a point at distance |s| by at most |s| sin α: r_p ≥ d_⊥ cos α − |s| sin α and
+    |π| ≥ d_∥ cos α − |s| sin α, where d_⊥ and d_∥ are lower bounds on the separation
+    box's distance from, and along, the u axis (its centre's minus the box's support in
+    that direction). A pair also needs |s| < ``s_max``. The test is conservative (the
+    kernels' own cuts decide); a 10⁻⁹ relative margin covers rounding.
+    """
+    if first_los:
+        mx, my, mz = ax, ay, az
+    else:
+        mx, my, mz = 2.0 * ax + dx, 2.0 * ay + dy, 2.0 * az + dz
+    rho2 = lx * lx + ly * ly + lz * lz
+    m2 = mx * mx + my * my + mz * mz
+    if rho2 >= m2:
+        return True
+    sin_a = np.sqrt(rho2 / m2)
+    cos_a = np.sqrt(1.0 - sin_a * sin_a)
+    inv_m = 1.0 / np.sqrt(m2)
+    ux, uy, uz = mx * inv_m, my * inv_m, mz * inv_m
+    par = dx * ux + dy * uy + dz * uz
+    px, py, pz = dx - par * ux, dy - par * uy, dz - par * uz
+    perp = np.sqrt(px * px + py * py + pz * pz)
+    slack = s_max * sin_a + 1e-9 * (s_max + np.sqrt(m2))
+    d_par = abs(par) - (ex * abs(ux) + ey * abs(uy) + ez * abs(uz))
+    if d_par * cos_a - slack >= pi_max:
+        return False
+    if perp > 0.0:
+        d_perp = perp - (ex * abs(px) + ey * abs(py) + ez * abs(pz)) / perp
+        if d_perp * cos_a - slack >= rp_max:
+            return False
+    return True
+
+
+@numba.njit(cache=True, error_model="numpy")
 def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
                 edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                sbuf, lbuf, fbuf, obuf, jbuf, tot, touch, with_touch, first_los, window):
-    """All pairs between two cells of a cone (observer at the origin).
-
-    Midpoint LOS (``first_los`` False), l = r₁ + r₂: s·l = χ₂² − χ₁² and
-    |l|² = 2χ₁² + 2χ₂² − s²; the LOS of the first point (``first_los``, as around a lens),
-    l = r₁: s·l = s·r₁ and |l|² = χ₁². Then π² = (s·l)²/|l|² and r_p² |l|² = s²|l|² − (s·l)²;
-    the vectorised pass tests every cut without a division, a compaction keeps the accepted
-    candidates, and only those are binned. ``window`` bounds |χ₂ − χ₁| (π_max for the
-    midpoint, where |π| ≥ |χ₂ − χ₁|; the largest separation otherwise).
-    """
+                fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch, first_los, window,
+                bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max, s_max):
+    """All pairs between two cells of a cone (observer at the origin)."""
     n_rp = edges2.size - 1
     rpmin2 = edges2[0]
     rpmax2 = edges2[n_rp]
     pimax2 = pi_max * pi_max
     smax2 = rpmax2 + pimax2
+    dummy = lut.size - 1
     last = lut.size - 2
     nb = (n_rp + 1) * n_pi
     jlo = s2
@@ -225,6 +284,9 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
         xi = x1[i]
         yi = y1[i]
         zi = z1[i]
+        if not _can_pair(xi, yi, zi, bx - xi, by - yi, bz - zi, hx, hy, hz, qx, qy, qz,
+                         first_los, rp_max, pi_max, s_max):
+            continue
         ci2 = ci * ci
         for q in range(nwin):
             j = np.uint64(j0 + q)
@@ -239,31 +301,25 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
             else:
                 sl = cj * cj - ci2
                 l2 = 2.0 * (ci2 + cj * cj) - s2v
-            sl2 = sl * sl
-            t = s2v * l2 - sl2
-            sbuf[q] = s2v
-            fbuf[q] = sl2
-            lbuf[q] = l2
-            obuf[q] = ((s2v < smax2) & (sl2 < pimax2 * l2) & (t < rpmax2 * l2)
-                       & (t >= rpmin2 * l2))
+            pi2 = sl * sl / l2
+            rp2 = s2v - pi2
+            c = min(max((_f2i(rp2) >> shift) - base, 0), last)
+            ok = (s2v < smax2) & (pi2 < pimax2) & (rp2 < rpmax2) & (rp2 >= rpmin2)
+            cbuf[q] = c if ok else dummy
+            pbuf[q] = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
+            fbuf[q] = rp2
         m = 0
         for q in range(nwin):
             jbuf[m] = q
-            m += obuf[q]
+            m += cbuf[q] != dummy
         if m == 0:
             continue
         wi = w1[i]
         ri = np.int64(g1[i])
         for a in range(m):
             q = np.uint64(jbuf[a])
-            pi2 = fbuf[q] / lbuf[q]
-            rp2 = sbuf[q] - pi2
-            cc = np.uint64(min(max((_f2i(rp2) >> shift) - base, 0), last))
-            k = _bin_of(cc, rp2, lut, nxt, scan, edges2, n_rp)
-            if k >= n_rp:  # rounding at the outer edge: the pass-1 test said inside
-                k = n_rp - 1
-            p = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
-            idx = np.uint64(max(k, 0) * n_pi + p)
+            k = _bin_of(np.uint64(cbuf[q]), fbuf[q], lut, nxt, scan, edges2, n_rp)
+            idx = np.uint64(k * n_pi + pbuf[q])
             j = np.uint64(j0) + q
             ww = wi * w2[j]
             tot[idx] += ww
@@ -275,11 +331,22 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
 
 @numba.njit(parallel=True, cache=True)
 def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tasks,
-              offsets, dims, edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks,
-              lut, nxt, shift, base, scan, max_cell, first_los):
+              offsets, dims, origin, side, edges2, pi_max, dpi, n_pi, n_regions, auto,
+              n_chunks, lut, nxt, shift, base, scan, max_cell, first_los):
     """Weighted (r_p, |π|) pair counts on a cone (observer at origin; midpoint LOS, or the
-    first point's with ``first_los``)."""
-    window = np.sqrt(edges2[edges2.size - 1] + pi_max * pi_max) if first_los else pi_max
+    first point's with ``first_los``).
+
+    Cell pairs that :func:`_cells_can_pair` rules out are skipped, so the candidates of a
+    point hug its (r_p, π) cylinder wherever the line of sight points, on fine cells.
+    """
+    rp_max = np.sqrt(edges2[edges2.size - 1])
+    s_max = np.sqrt(edges2[edges2.size - 1] + pi_max * pi_max)
+    window = s_max if first_los else pi_max
+    # half-sides of the LOS box of a cell pair (r₁ + r₂, or r₁) and of a point-cell pair
+    f = 0.5 if first_los else 1.0
+    lx, ly, lz = f * side[0], f * side[1], f * side[2]
+    g = 0.0 if first_los else 0.5
+    qx, qy, qz = g * side[0], g * side[1], g * side[2]
     n_rp = edges2.size - 1
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
@@ -290,10 +357,9 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
-        sbuf = np.empty(max_cell)
-        lbuf = np.empty(max_cell)
         fbuf = np.empty(max_cell)
-        obuf = np.empty(max_cell, dtype=np.int64)
+        cbuf = np.empty(max_cell, dtype=np.int64)
+        pbuf = np.empty(max_cell, dtype=np.int64)
         jbuf = np.empty(max_cell, dtype=np.int64)
         for t in range(c, tasks.size, n_chunks):
             cell = tasks[t]
@@ -302,6 +368,9 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
             iz = cell % nz
             s1 = start1[cell]
             e1 = start1[cell + 1]
+            ax = origin[0] + (ix + 0.5) * side[0]
+            ay = origin[1] + (iy + 0.5) * side[1]
+            az = origin[2] + (iz + 0.5) * side[2]
             for o in range(offsets.shape[0]):
                 kx = ix + offsets[o, 0]
                 ky = iy + offsets[o, 1]
@@ -313,11 +382,18 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                 e2 = start2[cell2 + 1]
                 if s2 == e2:
                     continue
+                if not _can_pair(ax, ay, az, offsets[o, 0] * side[0], offsets[o, 1] * side[1],
+                                 offsets[o, 2] * side[2], side[0], side[1], side[2],
+                                 lx, ly, lz, first_los, rp_max, pi_max, s_max):
+                    continue
                 same = auto and o == 0
                 _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2,
                             same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                            sbuf, lbuf, fbuf, obuf, jbuf, tot_c, touch_c, with_touch,
-                            first_los, window)
+                            fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch, first_los,
+                            window, origin[0] + (kx + 0.5) * side[0],
+                            origin[1] + (ky + 0.5) * side[1], origin[2] + (kz + 0.5) * side[2],
+                            0.5 * side[0], 0.5 * side[1], 0.5 * side[2], qx, qy, qz, rp_max,
+                            s_max)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 

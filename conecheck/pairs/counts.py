@@ -34,7 +34,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..errors import InputError
 from . import _kernels
 from .binning import RpPiBins, SMuBins, check_box_extent, make_bins, rp2_lookup
-from .grid import box_grid, cone_grid, neighbour_offsets, sort_into_grid
+from .grid import box_grid, cone_grid, cone_refine, neighbour_offsets, sort_into_grid
 from .points import Points, check_points, region_sums
 
 #: Number of private accumulators of a pair count (bit-identical sums up to this many threads).
@@ -180,12 +180,12 @@ def _sorted_box(grid: Any, p1: Points, p2: Points | None, box_size: float, los_a
     """Both point sets in the box frame, sorted into ``grid`` by cell and LOS coordinate,
     and the non-empty cells of set 1 (the tasks)."""
     a = to_box_frame(p1.pos, box_size, los_axis)
-    g1 = sort_into_grid(grid, a, p1.w, p1.reg, a[:, 2])
+    g1 = sort_into_grid(grid, a, p1.w, p1.reg, chi_key=False)
     if p2 is None:
         g2 = g1
     else:
         b = to_box_frame(p2.pos, box_size, los_axis)
-        g2 = sort_into_grid(grid, b, p2.w, p2.reg, b[:, 2])
+        g2 = sort_into_grid(grid, b, p2.w, p2.reg, chi_key=False)
     return g1, g2, np.flatnonzero(np.diff(g1.start)).astype(np.int64)
 
 
@@ -193,11 +193,11 @@ def _sorted_cone(grid: Any, p1: Points, p2: Points | None
                  ) -> tuple[Any, Any, NDArray[np.int64]]:
     """Both point sets sorted into ``grid`` by cell and distance χ [Mpc/h] from the
     observer, and the non-empty cells of set 1 (the tasks)."""
-    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, np.linalg.norm(p1.pos, axis=1))
+    g1 = sort_into_grid(grid, p1.pos, p1.w, p1.reg, chi_key=True)
     if p2 is None:
         g2 = g1
     else:
-        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, np.linalg.norm(p2.pos, axis=1))
+        g2 = sort_into_grid(grid, p2.pos, p2.w, p2.reg, chi_key=True)
     return g1, g2, np.flatnonzero(np.diff(g1.start)).astype(np.int64)
 
 
@@ -266,7 +266,7 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
 def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
                     pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
                     reg2: ArrayLike | None = None, *, rp_edges: ArrayLike, pi_max: float,
-                    dpi: float = 1.0, n_regions: int = 0, refine: int = 1,
+                    dpi: float = 1.0, n_regions: int = 0, refine: int | None = None,
                     los: str = "midpoint") -> PairCounts:
     """Pair counts in (r_p, |π|) bins on a light cone, line of sight at the pair midpoint
     (or along the first point's direction).
@@ -277,9 +277,9 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         Cartesian positions [Mpc/h] with the observer at the origin (e.g. ``ConeSample.xyz``).
     w1, reg1, pos2, w2, reg2, rp_edges, pi_max, dpi, n_regions
         As in :func:`count_rppi_box`.
-    refine : int
-        Cells per r_max = √(r_p,max² + π_max²) (speed only; 1 is fastest in
-        benchmarks/bench_pairs.py since the χ window already prunes along the LOS).
+    refine : int or None
+        Cells per r_max = √(r_p,max² + π_max²) (speed only); ``None`` chooses it from
+        the points' density (:func:`~conecheck.pairs.grid.cone_refine`).
     los : {"midpoint", "first"}
         Line of sight of a pair: through its midpoint (clustering), or through the point of
         set 1 (a cross count around lenses: projected along each lens's radial direction).
@@ -301,14 +301,16 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         return _assemble(np.zeros(shape), np.zeros((int(n_regions),) + shape), bins, p1, p2,
                          int(n_regions))
     sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
+    if refine is None:
+        refine = cone_refine(sets, bins.r_max)
     grid = cone_grid(sets, bins.r_max, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, bins.r_max, bins.r_max, "sphere", half=p2 is None)
     g1, g2, tasks = _sorted_cone(grid, p1, p2)
     total, touch = _kernels.rppi_cone(
         g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
         g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
-        tasks, offsets, grid.dims, bins.rp_edges**2, bins.pi_max, bins.dpi, bins.n_pi,
-        int(n_regions), p2 is None, _n_chunks(tasks.size),
+        tasks, offsets, grid.dims, grid.origin, grid.cell, bins.rp_edges**2, bins.pi_max,
+        bins.dpi, bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
         *_lookup_args(bins), _max_cell(g2.start), los == "first")
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
 

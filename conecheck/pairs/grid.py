@@ -8,6 +8,10 @@ moving pointer instead of testing every point of the neighbour cell.
 
 For a cone, |π| ≥ |χ₁ − χ₂| for the midpoint line of sight, because
 π = |χ₁² − χ₂²| / |r₁ + r₂| and |r₁ + r₂| ≤ χ₁ + χ₂; so the χ window prunes exactly.
+Across the line of sight, cone cells are cubes, finer where the points are dense
+(:func:`cone_refine`), and the kernel drops the cell pairs and point-cell pairs that a
+geometric bound rules out, so the candidates hug the (r_p, π) cylinder wherever the line
+of sight points.  The sort itself is a counting sort in numba (:mod:`._sorting`).
 """
 
 from __future__ import annotations
@@ -17,6 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
+
+from . import _sorting
 
 #: Upper bound on the number of cells of one grid (memory of the cell-start arrays).
 MAX_CELLS = 1 << 22
@@ -77,18 +83,25 @@ class GriddedPoints:
 
 
 def sort_into_grid(grid: Grid, pos: NDArray[np.float64], w: NDArray[np.float64],
-                   reg: NDArray[np.int64], los: NDArray[np.float64]) -> GriddedPoints:
-    """Sort points by (cell, los) and build the cell offsets."""
-    cell = grid.cell_of(pos)
-    order = np.lexsort((los, cell))
-    counts = np.bincount(cell, minlength=grid.n_cells)
-    start = np.zeros(grid.n_cells + 1, dtype=np.int64)
-    np.cumsum(counts, out=start[1:])
-    p = pos[order]
-    return GriddedPoints(x=np.ascontiguousarray(p[:, 0]), y=np.ascontiguousarray(p[:, 1]),
-                         z=np.ascontiguousarray(p[:, 2]), los=np.ascontiguousarray(los[order]),
-                         w=np.ascontiguousarray(w[order]), reg=np.ascontiguousarray(reg[order]),
-                         idx=order.astype(np.int64), start=start)
+                   reg: NDArray[np.int64], chi_key: bool) -> GriddedPoints:
+    """Sort points by (cell, LOS key) and build the cell offsets.
+
+    Parameters
+    ----------
+    grid : Grid
+    pos : ndarray, shape (N, 3)
+        Positions [Mpc/h] (a box's in its LOS-along-z frame; a cone's with the observer at
+        the origin).
+    w, reg : ndarray, shape (N,)
+        Weights and jackknife regions, carried along.
+    chi_key : bool
+        Key inside a cell: the distance χ from the origin [Mpc/h] (cones) or the third
+        coordinate (boxes).
+    """
+    x, y, z, los, ws, rs, order, start = _sorting.grid_sort(
+        np.ascontiguousarray(pos, dtype=np.float64), w, reg, grid.origin, grid.cell,
+        grid.dims, bool(chi_key))
+    return GriddedPoints(x=x, y=y, z=z, los=los, w=ws, reg=rs, idx=order, start=start)
 
 
 def box_grid(box_size: float, ext_perp: float, ext_los: float, refine: int = 2) -> Grid:
@@ -112,8 +125,10 @@ def cone_grid(pos_list: list[NDArray[np.float64]], ext: float, refine: int = 2) 
     Cells are ``ext / refine`` on a side, enlarged when the grid would exceed
     :data:`MAX_CELLS` cells.
     """
-    lo = np.min([p.min(axis=0) for p in pos_list if len(p)], axis=0)
-    hi = np.max([p.max(axis=0) for p in pos_list if len(p)], axis=0)
+    corners = [_sorting.bounds(np.ascontiguousarray(p, dtype=np.float64))
+               for p in pos_list if len(p)]
+    lo = np.min([c[0] for c in corners], axis=0)
+    hi = np.max([c[1] for c in corners], axis=0)
     span = np.maximum(hi - lo, 1e-9)
     side = ext / refine
     dims = np.maximum(1, np.ceil(span / side).astype(np.int64))
@@ -123,6 +138,33 @@ def cone_grid(pos_list: list[NDArray[np.float64]], ext: float, refine: int = 2) 
     cell = np.maximum(span / dims, side)
     return Grid(origin=lo.astype(np.float64), cell=cell.astype(np.float64), dims=dims,
                 periodic=False, box_size=0.0)
+
+
+#: Finest cone cells the automatic choice uses: r_max / this.
+CONE_REFINE_MAX = 3
+#: Points of set 1 per occupied cell below which finer cone cells cost more than they save.
+CONE_POINTS_PER_CELL = 30.0
+
+
+def cone_refine(pos_list: list[NDArray[np.float64]], ext: float) -> int:
+    """Cells per ``ext`` [Mpc/h] for a cone count, chosen from the points.
+
+    Finer cells let the cell-pair test of the cone kernel hug the (r_p, π) cylinder, but
+    every cell pair and every point-cell window costs a fixed overhead, which sparse sets
+    do not repay. The rule, fitted on benchmarks/bench_pairs.py's two geometries (a
+    nearby wide shell and a distant cap): the finest of 1 … :data:`CONE_REFINE_MAX`
+    cells per ``ext`` that keeps at least :data:`CONE_POINTS_PER_CELL` points of the
+    first set (``pos_list[0]``) per occupied cell, counted on the coarsest grid and
+    scaled by the cell volume.
+    """
+    coarse = cone_grid(pos_list, ext, refine=1)
+    p1 = np.ascontiguousarray(pos_list[0], dtype=np.float64)
+    if p1.shape[0] == 0:
+        return 1
+    occupied = _sorting.occupied_cells(p1, coarse.origin, coarse.cell, coarse.dims)
+    per_cell = p1.shape[0] / max(occupied, 1)
+    r = int(np.floor(np.cbrt(per_cell / CONE_POINTS_PER_CELL)))
+    return int(min(max(r, 1), CONE_REFINE_MAX))
 
 
 def neighbour_offsets(grid: Grid, ext_perp: float, ext_los: float, shape: str,

@@ -96,7 +96,7 @@ def neighbours_box(centres: ArrayLike, points: ArrayLike | None = None,
     grid = box_grid(box_size, e[-1], ext_los, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, e[-1], ext_los, "cylinder" if h else "sphere", half=False)
     a = to_box_frame(p.pos, box_size, los_axis)
-    g = sort_into_grid(grid, a, pw, p.reg, a[:, 2])
+    g = sort_into_grid(grid, a, pw, p.reg, chi_key=False)
     cc = to_box_frame(c.pos, box_size, los_axis)
     _kernels.neighbours_box_kernel(
         np.ascontiguousarray(cc[:, 0]), np.ascontiguousarray(cc[:, 1]),
@@ -127,7 +127,7 @@ def neighbours_cone(centres: ArrayLike, points: ArrayLike | None = None,
     ext = e[-1] if h is None else float(np.hypot(e[-1], h))
     grid = cone_grid([p.pos], ext, refine=max(1, int(refine)))
     offsets = neighbour_offsets(grid, ext, ext, "sphere", half=False)
-    g = sort_into_grid(grid, p.pos, pw, p.reg, np.linalg.norm(p.pos, axis=1))
+    g = sort_into_grid(grid, p.pos, pw, p.reg, chi_key=True)
     _kernels.neighbours_cone_kernel(
         np.ascontiguousarray(c.pos[:, 0]), np.ascontiguousarray(c.pos[:, 1]),
         np.ascontiguousarray(c.pos[:, 2]), self_idx, g.x, g.y, g.z, g.los, g.w, g.idx,
