@@ -37,7 +37,10 @@ randoms and a full RR equals the baseline's wp to rounding; the run's own wp (ot
 randoms, split RR) agrees within a fraction of its jackknife error; the run's number
 density, counts-in-cylinders and VPF of cone 0 equal the baseline's (identical catalogues).
 
-``--scaling`` times conecheck alone for 2, 4 and 8 cones and for two box sizes.
+``--scaling`` times conecheck alone on the scheduler named first (e.g. ``--scheduler
+local-cluster``) for boxes of 10⁶ and 10⁷ galaxies with 8 to 64 cones (:data:`SCALING_RUNS`),
+with the peak memory of the main process and of the largest worker, and without the HOD
+derivatives (a box-size cost that would swamp the cones).
 ``--profile`` runs the conecheck side under cProfile and prints where the time goes.
 Results go to benchmarks/RESULTS.md (a section between the bench_run markers) for the
 standard workload, or with ``--write``; no absolute time is asserted anywhere.
@@ -80,13 +83,21 @@ START, END = "<!-- bench_run:start -->", "<!-- bench_run:end -->"
 SCALING_START, SCALING_END = "<!-- bench_run_scaling:start -->", "<!-- bench_run_scaling:end -->"
 
 #: The standard workload (see the module notes); --quick shrinks it.
-STANDARD = {"box_size": 585.0, "z_max": 0.10, "n_cones": 8, "multiple": 20.0,
-            "sky_regions": 25, "box_n_side": 5}
-QUICK = {"box_size": 250.0, "z_max": 0.07, "n_cones": 2, "multiple": 20.0,
-         "sky_regions": 16, "box_n_side": 4,
+STANDARD = {"box_size": 585.0, "z_max": 0.10, "n_cones": 8, "sky_regions": 25,
+            "box_n_side": 5}
+QUICK = {"box_size": 250.0, "z_max": 0.07, "n_cones": 2, "sky_regions": 16, "box_n_side": 4,
          "wp": {"rp_min": 0.5, "rp_max": 10.0, "n_rp": 5, "pi_max": 20.0}}
+#: (box side [Mpc/h], cones) of the --scaling runs: 10⁶ and 10⁷ galaxies (the density of the
+#: standard workload), each with a quarter and all of the cones; --quick shrinks them.
+SCALING_RUNS = ((585.0, 8), (585.0, 32), (1260.0, 16), (1260.0, 64))
+SCALING_QUICK = ((250.0, 2), (250.0, 4), (315.0, 2), (315.0, 4))
 #: Statistics of the workload (number density, wp, counts-in-cylinders, VPF).
 MEASURE = ["number_density", "wp", "cic", "vpf"]
+#: The baseline's randoms: fresh pseudo-random points, this many per expected galaxy, per
+#: cone and cut (conecheck's default before its QMC randoms; a common choice).
+BASELINE_MULTIPLE = 20.0
+#: Realisations of the randoms per scheme in the check of wp's random variance.
+VARIANCE_REALISATIONS = 12
 #: Pair-count pieces of the baseline and the statistics it measures with conecheck's code.
 BASELINE_PARTS = ("build", "randoms", "dd", "dr", "rr", "ls", "number_density", "cic", "vpf")
 STAGES = ("inputs", "box", "randoms", "cones", "compare", "report")
@@ -113,7 +124,6 @@ def workload(quick: bool, n_cones: int | None = None, box_size: float | None = N
     d["jackknife"]["sky_regions"] = int(p["sky_regions"])
     d["jackknife"]["box_n_side"] = int(p["box_n_side"])
     d["cones"]["n_cones"] = int(p["n_cones"])
-    d["randoms"]["multiple"] = float(p["multiple"])
     d["compute"] = {"scheduler": scheduler}
     d["output"]["cache"] = True
     return d
@@ -191,8 +201,10 @@ def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, An
     out = work / "run"
     stat_times: dict[str, float] = {}
     if cfg.compute.scheduler == "local":
-        for name in list(STATISTICS):
-            STATISTICS[name] = _TimedStatistic(STATISTICS[name], stat_times)
+        # the registry is a read-only mapping; its loaded dict is what the pipeline reads
+        entries = STATISTICS._get()
+        for name in list(entries):
+            entries[name] = _TimedStatistic(entries[name], stat_times)
     prof = cProfile.Profile() if profile else None
     t0 = time.perf_counter()
     if prof is not None:
@@ -314,6 +326,70 @@ def landy_szalay_wp(dd: np.ndarray, dr: np.ndarray, rr: np.ndarray, wd: np.ndarr
 
 
 # --------------------------------------------------------------------------- baseline side
+def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
+                       chi_hi: float, n_expected: float, regions: Any) -> dict[str, Any]:
+    """wp's variance over realisations of the randoms, data fixed: the baseline's scheme
+    (fresh pseudo-random points, :data:`BASELINE_MULTIPLE` per galaxy, full RR) against
+    conecheck's configured one (its multiple and sampling; with QMC, RR on an independent
+    pseudo-random set of ``rr_multiple`` per galaxy, split as configured). Both use
+    conecheck's estimator, which equals the baseline's to rounding on the same randoms
+    (the check above), so the difference is the randoms' alone. The run's jackknife
+    variance of the same cone and cut is given for scale."""
+    from conecheck.cone import make_randoms, n_randoms
+    from conecheck.run.tasks import _cone_sample  # the pipeline's table → ConeSample
+    from conecheck.stats import ConeSample
+    from conecheck.stats.wp import count_rr_cone, wp_cone
+    from conecheck.streams import seeded_rng
+
+    wps = cfg.statistics.get("wp")
+    full = dataclasses.replace(wps, rr_method="full")
+    r = cfg.randoms
+    plain = ConeSample(data.ra, data.dec, data.chi, data.weight)
+    fp = geometry.footprint
+
+    def sample(n: int, sampling: str, *key: Any) -> Any:
+        t = make_randoms(fp, chi_lo, chi_hi, n, seeded_rng(cfg.seed, "variance", *key),
+                         sampling=sampling)
+        return _cone_sample(t, regions)
+
+    base, mine = [], []
+    t_base = t_mine = 0.0
+    for k in range(VARIANCE_REALISATIONS):
+        t0 = time.perf_counter()
+        rb = sample(n_randoms(n_expected, BASELINE_MULTIPLE), "pseudo", "baseline", k)
+        base.append(wp_cone(plain, rb, geometry, full, jackknife=False).value)
+        t1 = time.perf_counter()
+        rm = sample(n_randoms(n_expected, r.multiple), r.sampling, "conecheck", k)
+        rr = None
+        if r.sampling == "qmc":
+            rr_set = sample(n_randoms(n_expected, r.rr_multiple), "pseudo", "conecheck-rr", k)
+            rr = count_rr_cone(rr_set, geometry, wps, n_data=len(data))
+        mine.append(wp_cone(plain, rm, geometry, wps, rr=rr, jackknife=False).value)
+        t_base += t1 - t0
+        t_mine += time.perf_counter() - t1
+    var_base = np.var(np.array(base), axis=0, ddof=1)
+    var_mine = np.var(np.array(mine), axis=0, ddof=1)
+    jk = wp_cone(data, sample(n_randoms(n_expected, r.multiple), r.sampling, "jk"), geometry,
+                 wps, rr=None if r.sampling != "qmc" else count_rr_cone(
+                     sample(n_randoms(n_expected, r.rr_multiple), "pseudo", "jk-rr"),
+                     geometry, wps, n_data=len(data)), jackknife=True)
+    var_jk = np.asarray(jk.covariance().diagonal()) if jk.delete_one is not None else None
+    return {"realisations": VARIANCE_REALISATIONS, "scheme": randoms_scheme_of(r),
+            "rp": np.sqrt(wps.bins.rp_edges[1:] * wps.bins.rp_edges[:-1]).tolist(),
+            "var_baseline": var_base.tolist(), "var_conecheck": var_mine.tolist(),
+            "var_jackknife": None if var_jk is None else var_jk.tolist(),
+            "seconds_baseline": t_base / VARIANCE_REALISATIONS,
+            "seconds_conecheck": t_mine / VARIANCE_REALISATIONS}
+
+
+def randoms_scheme_of(r: Any) -> str:
+    """A random scheme in words, from conecheck's ``RandomSettings``."""
+    if r.sampling == "qmc":
+        return (f"{r.multiple:g}x QMC for DR, RR on an independent {r.rr_multiple:g}x "
+                "pseudo-random set")
+    return f"{r.multiple:g}x {r.sampling}"
+
+
 def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     """Per cone and cut: fresh randoms, DD + DR + RR afresh, Landy–Szalay; the other
     statistics with conecheck's functions.  Returns times, memory, cone-0 values and the
@@ -367,6 +443,7 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
     per_cone: list[float] = []
     cone0: dict[str, Any] = {}
     exact: dict[str, Any] = {}
+    variance: dict[str, Any] = {}
     n_rand: dict[str, int] = {}
     for i in range(cfg.cones.n_cones):
         tc = time.perf_counter()
@@ -385,9 +462,10 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
 
                 t = time.perf_counter()
                 n_r = n_randoms(expected_count(cosmo, footprint, cut, density[s.name]),
-                                cfg.randoms.multiple)
+                                BASELINE_MULTIPLE)
                 rt = make_randoms(footprint, lo, hi, n_r,
-                                  seeded_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label))
+                                  seeded_rng(cfg.seed, "baseline-randoms", i, s.name, cut.label),
+                                  sampling="pseudo")
                 rand = {"ra": np.ascontiguousarray(rt["ra"], dtype=np.float64),
                         "dec": np.ascontiguousarray(rt["dec"], dtype=np.float64),
                         "chi": np.ascontiguousarray(rt["chi_obs"], dtype=np.float64),
@@ -433,11 +511,18 @@ def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:
                     exact = {"cut": key, "n_data": len(data), "n_randoms": n_r,
                              "conecheck": np.asarray(mine).tolist(), "baseline": wp.tolist(),
                              "max_rel_diff": float(np.max(np.abs(mine - wp) / np.abs(wp)))}
+                    # not part of the baseline's time: the check of the randoms' own noise
+                    t_var = time.perf_counter()
+                    n_exp = expected_count(cosmo, footprint, cut, density[s.name])
+                    variance = wp_random_variance(cfg, data, geometry, lo, hi, n_exp, regions)
+                    variance["cut"] = key
+                    tc += time.perf_counter() - t_var
                 del rand, rt, dd, dr, rr
         per_cone.append(time.perf_counter() - tc)
     return {"times": times, "per_cone": per_cone, "inputs": t_inputs,
             "total": float(sum(times.values())), "peak_rss_mib": peak_rss_mib(),
-            "cone0": cone0, "exact": exact, "n_randoms": n_rand, "threads": threads,
+            "cone0": cone0, "exact": exact, "variance": variance, "n_randoms": n_rand,
+            "threads": threads,
             "counter": ("Corrfunc.mocks.DDrppi_mocks" if use_corrfunc
                         else "scipy cKDTree sparse_distance_matrix")}
 
@@ -490,12 +575,18 @@ def conecheck_measure_time(c: dict[str, Any]) -> float:
     return float(c["timings"].get("randoms", 0.0) + c["timings"].get("cones", 0.0))
 
 
+def randoms_scheme(d: dict[str, Any]) -> str:
+    """conecheck's random scheme of the workload, from its configuration."""
+    return randoms_scheme_of(make_config(d, ".").randoms)
+
+
 def describe(d: dict[str, Any]) -> str:
     cuts = sum(1 + len(s.get("alt_cuts", [])) for s in d["samples"])
     return (f"synthetic box L = {d['box']['box_size']:g} Mpc/h; Kestrel footprint; shell "
             f"{d['survey']['shell']['z_min']} < z < {d['survey']['shell']['z_max']}; "
-            f"{d['cones']['n_cones']} cones; {len(d['samples'])} samples, {cuts} cuts; randoms "
-            f"{d['randoms']['multiple']:g}x; {' + '.join(d['statistics']['measure'])}; "
+            f"{d['cones']['n_cones']} cones; {len(d['samples'])} samples, {cuts} cuts; conecheck's "
+            f"randoms {randoms_scheme(d)} (baseline: {BASELINE_MULTIPLE:g}x pseudo-random, full "
+            f"RR); {' + '.join(d['statistics']['measure'])}; "
             f"{d['jackknife']['sky_regions']} sky regions ({d['jackknife']['box_n_side']}^2 box "
             f"columns); wp r_p {d['statistics']['wp']['rp_min']}-{d['statistics']['wp']['rp_max']}"
             f" Mpc/h in {d['statistics']['wp']['n_rp']} bins, pi_max "
@@ -567,8 +658,14 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
             f"split RR, wp, cic, VPF, density, all with {d['jackknife']['sky_regions']}-region "
             f"jackknife) | {meas:.1f} | **{b['total'] / meas:.2f}** |")
         say(f"| conecheck, scheduler {sched} | whole run: inputs (box generation), box "
-            f"statistics, randoms, cones, comparison, tables, PDF | {cr['wall']:.1f} | "
-            f"**{b['total'] / cr['wall']:.2f}** |")
+            f"statistics, HOD derivatives, randoms, cones, comparison, tables, PDF and HTML "
+            f"reports | {cr['wall']:.1f} | **{b['total'] / cr['wall']:.2f}** |")
+        deriv = float(cr["timings"].get("HOD derivatives", 0.0))
+        if deriv > 0:
+            like = cr["wall"] - deriv
+            say(f"| conecheck, scheduler {sched} | whole run without the HOD derivatives stage "
+                f"(work the baseline does not do: {deriv:.1f} s) | {like:.1f} | "
+                f"**{b['total'] / like:.2f}** |")
     say("")
     say("Baseline time by part [s]: " + ", ".join(f"{k} {v:.1f}" for k, v in b["times"].items())
         + f"; per cone {np.mean(b['per_cone']):.1f} (min {min(b['per_cone']):.1f}, max "
@@ -621,6 +718,29 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
         f"{ex['n_randoms']:,} randoms): conecheck wp_cone with rr_method 'full' against the "
         f"baseline's Landy–Szalay wp, largest relative difference {ex['max_rel_diff']:.1e}.")
     say("")
+    v = b.get("variance") or {}
+    if v:
+        from scipy.stats import f as f_dist
+
+        n = v["realisations"]
+        lo, hi = f_dist.ppf([0.05, 0.95], n - 1, n - 1)
+        say(f"wp's variance from the randoms alone (cone 0, {v['cut']}, data fixed, {n} "
+            f"realisations per scheme): conecheck's scheme ({v['scheme']}) against the "
+            f"baseline's ({BASELINE_MULTIPLE:g}x pseudo-random, full RR). With {n} realisations "
+            f"a ratio of two equal variances falls between {lo:.2f} and {hi:.2f} in 90 % of "
+            f"runs (F({n - 1}, {n - 1})). One wp of this cut takes {v['seconds_conecheck']:.2f} s "
+            f"with conecheck's randoms and {v['seconds_baseline']:.2f} s with the baseline's "
+            "(conecheck's engine on both).")
+        say("")
+        say("| r_p [Mpc/h] | variance ratio conecheck / baseline | baseline's random variance / "
+            "jackknife variance |")
+        say("|---|---|---|")
+        jk = v.get("var_jackknife") or [float("nan")] * len(v["rp"])
+        for rp, vm, vb, vj in zip(v["rp"], v["var_conecheck"], v["var_baseline"], jk,
+                                  strict=True):
+            say(f"| {rp:.2f} | {vm / vb:.2f} | {vb / vj:.4f} |")
+        say(f"| all bins (sum) | {sum(v['var_conecheck']) / sum(v['var_baseline']):.2f} | |")
+        say("")
     say(f"Agreement with the run (scheduler {next(iter(runs))}; cone 0; the run used its own "
         "shared randoms and split RR): "
         "largest |Δwp| in units of the cone's jackknife σ, and whether the run's number "
@@ -650,18 +770,23 @@ def scaling_lines(rows: list[tuple[str, dict[str, Any], dict[str, Any]]],
     lines = [f"Date {dt.date.today().isoformat()}; {os.cpu_count()} cores; command: "
              f"`{command}`; conecheck commit {commit}; scheduler "
              f"{rows[0][1]['compute']['scheduler']}; workload as above but for the number of "
-             "cones and the box side. conecheck only (the baseline repeats the same work for every "
-             "cone, so its time is linear in the number of cones by construction).", "",
+             "cones and the box side, and without the HOD derivatives. conecheck only (the "
+             "baseline repeats the same work for every cone, so its time is linear in the number "
+             "of cones by construction). Peak memory is ru_maxrss: of the main process, and the "
+             "largest of its finished child processes (the dask workers).", "",
              "| run | box galaxies | " + " | ".join(STAGES) + " | whole run [s] | "
-             "randoms + cones per cone [s] | peak MiB | load average |",
-             "|---" * (len(STAGES) + 6) + "|"]
+             "randoms + cones per cone [s] | cones stage per cone [s] | peak MiB, main "
+             "process | peak MiB, largest worker | load average |",
+             "|---" * (len(STAGES) + 8) + "|"]
     for label, d, c in rows:
         t = c["timings"]
         lines.append(f"| {label} | {c['n_box']:,} | "
                      + " | ".join(f"{t.get(k, 0.0):.1f}" for k in STAGES)
                      + f" | {c['wall']:.1f} | "
-                     f"{conecheck_measure_time(c) / d['cones']['n_cones']:.1f} | "
-                     f"{max(c['peak_rss_mib'], c['peak_rss_worker_mib']):.0f} | "
+                     f"{conecheck_measure_time(c) / d['cones']['n_cones']:.2f} | "
+                     f"{t.get('cones', 0.0) / d['cones']['n_cones']:.2f} | "
+                     f"{c['peak_rss_mib']:.0f} | "
+                     f"{c['peak_rss_worker_mib']:.0f} | "
                      f"{c['load_average'][0]:.1f} → {c['load_average'][1]:.1f} |")
     lines.append("")
     return lines
@@ -690,7 +815,7 @@ def main(argv: list[str] | None = None) -> int:
                         help="compute.scheduler of the conecheck run; a comma-separated list "
                         "runs it once per scheduler (--scaling uses the first)")
     parser.add_argument("--scaling", action="store_true",
-                        help="conecheck alone for 2, 4, 8 cones and two box sizes")
+                        help="conecheck alone for 10^6 and 10^7 galaxies, 8 to 64 cones")
     parser.add_argument("--profile", action="store_true",
                         help="run the conecheck side under cProfile and print the top")
     parser.add_argument("--no-baseline", action="store_true", help="time conecheck only")
@@ -723,14 +848,14 @@ def main(argv: list[str] | None = None) -> int:
         print(f"warm-up (numba disk cache): {time.perf_counter() - t0:.1f} s", flush=True)
         if args.scaling:
             sched = schedulers[0]
-            base = workload(args.quick, None, args.box_size, sched)
-            big = base["box"]["box_size"]
-            small = round(big / 2 ** (1 / 3))
-            runs = [(f"{n} cones, L = {big:g}", workload(args.quick, n, big, sched))
-                    for n in (2, 4, 8)]
-            n_big = 8 if args.cones is None else args.cones
-            runs.append((f"{n_big} cones, L = {small:g}",
-                         workload(args.quick, n_big, small, sched)))
+            plan = SCALING_QUICK if args.quick else SCALING_RUNS
+            runs = []
+            for box_size, n_cones in plan:
+                d = workload(args.quick, n_cones, box_size, sched)
+                # the HOD derivatives re-populate the box 2 × (parameters) times per sample,
+                # a cost of the box's size alone; this table is about cones and memory
+                d["parameter_shifts"] = {"enabled": False}
+                runs.append((f"{n_cones} cones, L = {box_size:g}", d))
             rows = []
             for label, d in runs:
                 c = run_part("conecheck", d, work)

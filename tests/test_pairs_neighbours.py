@@ -95,3 +95,29 @@ def test_exclude_self_index_and_bad_input():
         neighbours_box(c, p, box_size=30.0, edges=[0.0, 16.0])
     with pytest.raises(InputError, match="half_length"):
         neighbours_cone(c, p, edges=[0.0, 5.0], half_length=-1.0)
+
+
+@pytest.mark.parametrize("box", [None, 50.0])
+def test_nearest_distance_gives_the_empty_spheres_of_the_shell_counts(box):
+    """A sphere of radius R is empty exactly when the nearest point is at ≥ R: the k-d tree
+    distances agree with the engine's own sphere counts (and, for the box, wrap across the
+    edges like minimum-image counts), with a brute-force minimum as the reference."""
+    from conecheck.pairs import nearest_distance
+
+    rng = np.random.default_rng(3)
+    lo = 0.0 if box else 100.0
+    pts = rng.uniform(lo, lo + 50.0, (3000, 3))
+    cen = rng.uniform(lo, lo + 50.0, (400, 3))
+    radii = np.array([0.5, 1.0, 2.0, 3.0])
+    d = nearest_distance(cen, pts, r_max=radii[-1], box_size=box)
+    diff = pts[None, :, :] - cen[:, None, :]
+    if box:
+        diff -= box * np.round(diff / box)
+    brute_min = np.sqrt((diff**2).sum(axis=2)).min(axis=1)
+    near = brute_min < radii[-1]
+    np.testing.assert_allclose(d[near], brute_min[near], rtol=1e-12)
+    assert np.all(np.isinf(d[~near])) and near.sum() > 100 and (~near).sum() > 0
+    edges = np.concatenate([[0.0], radii])
+    counts = (neighbours_box(cen, pts, None, box_size=box, edges=edges) if box else
+              neighbours_cone(cen, pts, None, edges=edges))
+    np.testing.assert_array_equal(np.cumsum(counts, axis=1) == 0, d[:, None] >= radii)

@@ -62,7 +62,13 @@ def decorated_occupations(halos: HaloCatalog, model: HODModel
         if not np.all(np.isfinite(secondary)):
             raise InputError(f"halo column '{ab.secondary}' (assembly-bias secondary property) "
                              "has NaN/inf values")
-        upper, p_upper = split_by_secondary(halos.mass, secondary, ab.mass_bin_dex)
+        # the split depends on the halos alone, not on the HOD parameters the derivatives
+        # vary: sort each catalogue once (a lexsort of every halo, seconds at 10⁶ halos)
+        cache = halos.__dict__.setdefault("_secondary_split_cache", {})
+        key = (ab.secondary, float(ab.mass_bin_dex))
+        if key not in cache:
+            cache[key] = split_by_secondary(halos.mass, secondary, ab.mass_bin_dex)
+        upper, p_upper = cache[key]
         cen = decorate(cen, upper, p_upper, ab.a_cen, bounded=True)
         sat = decorate(sat, upper, p_upper, ab.a_sat, bounded=False)
     return cen, sat

@@ -76,7 +76,7 @@ from .settings import (
     TileSettings,
     fibres_limit_targets,
 )
-from .targets import FillTargets, fill_targets, neighbour_distances
+from .targets import BoxFillInputs, FillTargets, box_fill_inputs, fill_targets
 from .tiles import Tiling, assign_budget, make_tiling
 
 log = logging.getLogger(__name__)
@@ -210,6 +210,11 @@ def cone_geometry(observers: ObserverSettings, box_size: float, n_cones: int, se
     return o, rotation_matrix(observers, cone_index, streams["rotation"])
 
 
+#: Seed of the generator that picks the box galaxies whose neighbour distances the fill
+#: keeps (with the snapshot index; see :func:`fill_inputs`).
+FILL_NEIGHBOUR_SEED = 0x6E6E
+
+
 @dataclass
 class StackedCells:
     """The cells of a box stacked from several snapshots, one set per snapshot.
@@ -230,12 +235,24 @@ class StackedCells:
 
 def prepare_box(box: GalaxyBox) -> BoxCells | StackedCells:
     """Sort the box into cells once (per snapshot for a stacked box); pass the result to
-    every :func:`build_cone` call."""
+    every :func:`build_cone` call.
+
+    The result is kept with the box object, so every cone task of a process (or of a dask
+    worker, which holds the shared box once) reuses it, and with it the fill's inputs
+    (:func:`fill_inputs`): at 10⁷ galaxies both take seconds.
+    """
+    cached = box.__dict__.get("_prepared_cells")
+    if cached is not None:
+        return cached
     if box.snapshot is None:
-        return BoxCells.build(box.position, box.box_size)
-    rows = [np.flatnonzero(box.snapshot == k) for k in range(box.n_snapshots)]
-    positions = [box.position[r] for r in rows]
-    return StackedCells(rows, positions, [BoxCells.build(p, box.box_size) for p in positions])
+        cells: BoxCells | StackedCells = BoxCells.build(box.position, box.box_size)
+    else:
+        rows = [np.flatnonzero(box.snapshot == k) for k in range(box.n_snapshots)]
+        positions = [box.position[r] for r in rows]
+        cells = StackedCells(rows, positions,
+                             [BoxCells.build(p, box.box_size) for p in positions])
+    box.__dict__["_prepared_cells"] = cells
+    return cells
 
 
 def _snapshot_slices(box: GalaxyBox, cells: BoxCells | StackedCells, r_in: float,
@@ -310,21 +327,39 @@ def _observe(ra: NDArray[np.float64], dec: NDArray[np.float64], chi: NDArray[np.
     return out
 
 
+def fill_inputs(box: GalaxyBox, cells: BoxCells | StackedCells) -> list[BoxFillInputs]:
+    """What the fill takes from each snapshot of the box (:func:`.targets.box_fill_inputs`),
+    computed on the first cone that fills and kept with the prepared cells.
+
+    Sorting 10⁷ magnitudes and a periodic KD-tree of 10⁷ positions take seconds, once per
+    box instead of once per cone. The neighbour-distance sample is a property of the box,
+    so its generator is fixed (:data:`FILL_NEIGHBOUR_SEED`, the snapshot index): every
+    worker and every resumed run gets the same one.
+    """
+    cached = getattr(cells, "_fill_inputs_cache", None)
+    if cached is None:
+        cached = []
+        for k in range(box.n_snapshots):
+            part = box.snapshot_part(k)
+            assert part.abs_mag is not None  # a fill needs a flux limit, so magnitudes
+            cached.append(box_fill_inputs(part.abs_mag, part.position, float(box.box_size),
+                                          np.random.default_rng([FILL_NEIGHBOUR_SEED, k])))
+        cells._fill_inputs_cache = cached
+    return cached
+
+
 def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[Any]],
-                rng: np.random.Generator) -> Table:
+                cells: BoxCells | StackedCells, rng: np.random.Generator) -> Table:
     """The faint targets the box lacks in this cone (:mod:`.targets`), as target rows."""
-    assert box.abs_mag is not None  # a fill needs a flux limit, which needs magnitudes
     host_r = cols["chi"][:, None] * radec_to_vec(cols["ra"], cols["dec"])
     host_z = survey.cosmology.redshift_at(cols["chi"])
     hosts, rs, mags = [], [], []
     # each snapshot fills its own hosts, from its own magnitudes and neighbour distances
-    for k in range(box.n_snapshots):
-        part = box.snapshot_part(k)
+    for k, inputs in enumerate(fill_inputs(box, cells)):
         mine = (np.flatnonzero(box.snapshot[cols["idx"]] == k) if box.snapshot is not None
                 else np.arange(len(host_z)))
-        ft = fill_targets(host_r[mine], host_z[mine], part.abs_mag, float(box.box_size) ** 3,
-                          neighbour_distances(part.position, float(box.box_size), rng),
-                          survey.luminosity_function, survey.shell, survey.cosmology, rng)
+        ft = fill_targets(host_r[mine], host_z[mine], inputs, survey.luminosity_function,
+                          survey.shell, survey.cosmology, rng)
         hosts.append(mine[ft.host])
         rs.append(ft.r)
         mags.append(ft.abs_mag)
@@ -477,7 +512,7 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
     targets["weight"] = np.ones(len(targets))
     n_fill = 0
     if survey.fills_targets:
-        fill = _fill_table(box, survey, cols, streams["fill"])
+        fill = _fill_table(box, survey, cols, cells, streams["fill"])
         n_fill = len(fill)
         targets["fill_target"] = np.zeros(len(targets), dtype=bool)
         targets = vstack([targets, fill], join_type="exact") if n_fill else targets

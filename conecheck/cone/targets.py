@@ -92,15 +92,60 @@ def limiting_abs_mag(z: NDArray[np.float64], shell: SurveyShell, cosmology: Cosm
     return shell.m_lim - observed_frame_magnitude(0.0, z, cosmology, shell)
 
 
-def fill_density(lf: LuminosityFunction, box_abs_mag: NDArray[np.float64],
+@dataclass(frozen=True)
+class BoxFillInputs:
+    """What the fill takes from one box (or one snapshot of it), computed once per box.
+
+    Attributes
+    ----------
+    sorted_abs_mag : ndarray
+        Absolute magnitudes of every galaxy of the box, ascending [mag].
+    volume : float
+        Volume of the box [(Mpc/h)³].
+    neighbour_distance : ndarray
+        Nearest-neighbour distances of a random sample of its galaxies [Mpc/h]
+        (:func:`neighbour_distances`).
+    """
+
+    sorted_abs_mag: NDArray[np.float64]
+    volume: float
+    neighbour_distance: NDArray[np.float64]
+
+    @property
+    def density(self) -> float:
+        """Number density of the box [h³ Mpc⁻³]."""
+        return len(self.sorted_abs_mag) / self.volume
+
+
+def box_fill_inputs(abs_mag: NDArray[np.float64], position: NDArray[np.float64],
+                    box_size: float, rng: np.random.Generator) -> BoxFillInputs:
+    """Sort the magnitudes and sample the neighbour distances of a box once.
+
+    Parameters
+    ----------
+    abs_mag : ndarray (N,)
+        Absolute magnitudes [mag].
+    position : ndarray (N, 3)
+        Positions [Mpc/h].
+    box_size : float
+        Box side [Mpc/h].
+    rng : numpy Generator
+        Picks the galaxies whose neighbour distances are kept.
+    """
+    return BoxFillInputs(np.sort(np.asarray(abs_mag, dtype=np.float64)),
+                         float(box_size) ** 3, neighbour_distances(position, box_size, rng))
+
+
+def fill_density(lf: LuminosityFunction, sorted_abs_mag: NDArray[np.float64],
                  box_volume: float, m_faint: float
                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """(M grid, F(M)): the fill's cumulative density [h³ Mpc⁻³] up to ``m_faint`` [mag].
 
     F(M) = running maximum of [n_LF(< M) − n_box(< M)]⁺ (module notes), with n_box from
-    the box's sorted magnitudes over ``box_volume`` [(Mpc/h)³].
+    the box's magnitudes, sorted ascending (``sorted_abs_mag``), over ``box_volume``
+    [(Mpc/h)³].
     """
-    mags = np.sort(np.asarray(box_abs_mag, dtype=np.float64))
+    mags = np.asarray(sorted_abs_mag, dtype=np.float64)
     m_bright = float(min(mags[0], lf.m_star - 6.0)) if mags.size else lf.m_star - 6.0
     m_faint = float(max(m_faint, mags[-1] if mags.size else m_faint)) + 0.1
     grid, n_lf = _cumulative_table(lf, m_bright, m_faint)
@@ -123,10 +168,8 @@ def neighbour_distances(position: NDArray[np.float64], box_size: float,
 
 
 def fill_targets(host_r: NDArray[np.float64], host_z: NDArray[np.float64],
-                 box_abs_mag: NDArray[np.float64], box_volume: float,
-                 neighbour_distance: NDArray[np.float64], lf: LuminosityFunction,
-                 shell: SurveyShell, cosmology: Cosmology, rng: np.random.Generator
-                 ) -> FillTargets:
+                 box: BoxFillInputs, lf: LuminosityFunction, shell: SurveyShell,
+                 cosmology: Cosmology, rng: np.random.Generator) -> FillTargets:
     """Draw the faint targets a box lacks around its galaxies in one cone.
 
     Parameters
@@ -135,13 +178,9 @@ def fill_targets(host_r: NDArray[np.float64], host_z: NDArray[np.float64],
         Sky-frame positions of the cone's box galaxies (after footprint sampling) [Mpc/h].
     host_z : ndarray (N,)
         Their cosmological redshifts.
-    box_abs_mag : ndarray
-        Absolute magnitudes of every galaxy of the box [mag].
-    box_volume : float
-        Volume of the box [(Mpc/h)³].
-    neighbour_distance : ndarray
-        Distances a fill target may lie from its host [Mpc/h] (drawn uniformly from
-        these; :func:`neighbour_distances`).
+    box : BoxFillInputs
+        The box's sorted magnitudes, volume and neighbour distances (a fill target lies
+        at a distance drawn uniformly from these).
     lf : LuminosityFunction
         Luminosity function of the full target population.
     shell : SurveyShell
@@ -154,16 +193,16 @@ def fill_targets(host_r: NDArray[np.float64], host_z: NDArray[np.float64],
     -------
     FillTargets
     """
-    box_density = len(box_abs_mag) / box_volume
+    box_density = box.density
     if shell.m_lim is None or len(host_z) == 0 or not box_density > 0:
         return FillTargets(np.zeros(0, np.int64), np.zeros((0, 3)), np.zeros(0))
     m_lim = limiting_abs_mag(host_z, shell, cosmology)
-    grid, fill = fill_density(lf, box_abs_mag, box_volume, float(np.max(m_lim)) + 0.1)
+    grid, fill = fill_density(lf, box.sorted_abs_mag, box.volume, float(np.max(m_lim)) + 0.1)
     count = rng.poisson(np.interp(m_lim, grid, fill) / box_density)
     host = np.repeat(np.arange(len(host_z), dtype=np.int64), count)
     direction = rng.normal(size=(host.size, 3))
     direction /= np.maximum(np.linalg.norm(direction, axis=1), 1e-300)[:, None]
-    r = host_r[host] + rng.choice(neighbour_distance, size=host.size)[:, None] * direction
+    r = host_r[host] + rng.choice(box.neighbour_distance, size=host.size)[:, None] * direction
     # magnitude by inverse transform of F below M_lim at the target's own distance (the
     # host's would lose the targets an offset carries outwards: a bias of order
     # offset × d ln F / dχ, half a per cent at 100 Mpc/h for 0.3 Mpc/h)

@@ -398,24 +398,29 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
 
 
 @numba.njit(parallel=True, cache=True)
-def neighbours_box_kernel(cx, cy, cz, self_idx, x2, y2, z2, w2, idx2, start2, offsets, dims,
-                          box_size, edges2, h, sphere, out):
+def neighbours_box_kernel(cx, cy, cz, cidx, cself, cstart, tasks, x2, y2, z2, w2, idx2,
+                          start2, offsets, dims, box_size, edges2, h, sphere, out):
     """Per-centre weighted neighbour counts in r_p (or |s|) shells, periodic box.
 
     ``out[i, b]`` += weight of points with ``edges[b] ≤ r < edges[b+1]``, where r is r_p
-    with |Δz| < h (cylinders, annuli) or |s| (``sphere``); ``self_idx[i]`` (original
-    index of the centre among the points, or −1) is skipped.
+    with |Δz| < h (cylinders, annuli) or |s| (``sphere``). The centres are sorted into
+    the points' grid (by cell, then z; ``cidx`` their original index, ``cself`` the index
+    among the points of each one's own point, or −1, which is skipped); each cell of
+    centres meets each neighbour cell once, with a moving z window, and only writes the
+    rows of its own centres, so cells run in parallel without sharing a row.
     """
     n_b = edges2.size - 1
     nx, ny, nz = dims[0], dims[1], dims[2]
     lo2 = edges2[0]
     hi2 = edges2[n_b]
-    zmax = h
-    for i in prange(cx.size):
-        ix = min(int(cx[i] / box_size * nx), nx - 1)
-        iy = min(int(cy[i] / box_size * ny), ny - 1)
-        iz = min(int(cz[i] / box_size * nz), nz - 1)
-        me = self_idx[i]
+    zmax = np.sqrt(hi2) if sphere else h
+    for t in prange(tasks.size):
+        cell = tasks[t]
+        ix = cell // (ny * nz)
+        iy = (cell // nz) % ny
+        iz = cell % nz
+        s1 = cstart[cell]
+        e1 = cstart[cell + 1]
         for o in range(offsets.shape[0]):
             kx, wx = _wrap(ix + offsets[o, 0], nx)
             ky, wy = _wrap(iy + offsets[o, 1], ny)
@@ -425,24 +430,32 @@ def neighbours_box_kernel(cx, cy, cz, self_idx, x2, y2, z2, w2, idx2, start2, of
             e2 = start2[cell2 + 1]
             if s2 == e2:
                 continue
-            xi = cx[i] - wx * box_size
-            yi = cy[i] - wy * box_size
-            zi = cz[i] - wz * box_size
-            j0 = s2 + np.searchsorted(z2[s2:e2], zi - zmax, side="right")
-            for j in range(j0, e2):
-                dz = z2[j] - zi
-                if dz >= zmax:
-                    break
-                if idx2[j] == me:
-                    continue
-                dx = x2[j] - xi
-                dy = y2[j] - yi
-                r2 = dx * dx + dy * dy
-                if sphere:
-                    r2 += dz * dz
-                if r2 >= hi2 or r2 < lo2:
-                    continue
-                out[i, _rp_bin(r2, edges2, n_b)] += w2[j]
+            sx = wx * box_size
+            sy = wy * box_size
+            sz = wz * box_size
+            jlo = s2
+            for i in range(s1, e1):
+                zi = cz[i] - sz
+                while jlo < e2 and z2[jlo] <= zi - zmax:
+                    jlo += 1
+                xi = cx[i] - sx
+                yi = cy[i] - sy
+                me = cself[i]
+                row = cidx[i]
+                for j in range(jlo, e2):
+                    dz = z2[j] - zi
+                    if dz >= zmax:
+                        break
+                    if idx2[j] == me:
+                        continue
+                    dx = x2[j] - xi
+                    dy = y2[j] - yi
+                    r2 = dx * dx + dy * dy
+                    if sphere:
+                        r2 += dz * dz
+                    if r2 >= hi2 or r2 < lo2:
+                        continue
+                    out[row, _rp_bin(r2, edges2, n_b)] += w2[j]
 
 
 @numba.njit(parallel=True, cache=True)

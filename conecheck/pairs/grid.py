@@ -104,13 +104,16 @@ def sort_into_grid(grid: Grid, pos: NDArray[np.float64], w: NDArray[np.float64],
     return GriddedPoints(x=x, y=y, z=z, los=los, w=ws, reg=rs, idx=order, start=start)
 
 
-def box_grid(box_size: float, ext_perp: float, ext_los: float, refine: int = 2) -> Grid:
+def box_grid(box_size: float, ext_perp: float, ext_los: float, refine: int = 2,
+             min_side: float = 0.0) -> Grid:
     """Periodic grid, LOS along the third axis.
 
-    Cells are about ``ext_perp / refine`` across and ``ext_los`` along the LOS (the sorted
-    LOS window makes finer LOS cells pointless).
+    Cells are about ``ext_perp / refine`` across, or ``min_side`` [Mpc/h] when that is
+    larger, and ``ext_los`` along the LOS (the sorted LOS window makes finer LOS cells
+    pointless).
     """
-    n_perp = max(1, int(np.floor(box_size * refine / ext_perp)))
+    side = max(ext_perp / refine, float(min_side))
+    n_perp = max(1, int(np.floor(box_size / side)))
     n_los = max(1, int(np.floor(box_size / ext_los)))
     while n_perp * n_perp * n_los > MAX_CELLS:
         n_perp = max(1, n_perp // 2)

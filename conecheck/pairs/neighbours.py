@@ -14,8 +14,10 @@ pairs the (r_p, π) counter would find around that centre.
 
 from __future__ import annotations
 
+import numba
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy.spatial import cKDTree
 
 from ..errors import InputError
 from . import _kernels
@@ -23,6 +25,9 @@ from .binning import check_box_extent, check_rp_edges
 from .counts import _check_axis, to_box_frame
 from .grid import box_grid, cone_grid, neighbour_offsets, sort_into_grid
 from .points import check_points
+
+#: Points per box cell the neighbour counter aims at when the points are sparse.
+NEIGHBOUR_CELL_POINTS = 2.0
 
 
 def _self_index(exclude_self: ArrayLike | None, same: bool, n_centres: int,
@@ -93,15 +98,20 @@ def neighbours_box(centres: ArrayLike, points: ArrayLike | None = None,
     out = np.zeros((c.n, e.size - 1))
     if c.n == 0 or p.n == 0:
         return out
-    grid = box_grid(box_size, e[-1], ext_los, refine=max(1, int(refine)))
+    # cells across the LOS: r_max / refine, widened to hold about NEIGHBOUR_CELL_POINTS
+    # points when the points are sparse (a cell visit costs more than a few candidates)
+    column = NEIGHBOUR_CELL_POINTS * box_size**3 / (p.n * ext_los)
+    grid = box_grid(box_size, e[-1], ext_los, refine=max(1, int(refine)),
+                    min_side=float(np.sqrt(column)))
     offsets = neighbour_offsets(grid, e[-1], ext_los, "cylinder" if h else "sphere", half=False)
     a = to_box_frame(p.pos, box_size, los_axis)
     g = sort_into_grid(grid, a, pw, p.reg, chi_key=False)
-    cc = to_box_frame(c.pos, box_size, los_axis)
+    cg = g if same else sort_into_grid(grid, to_box_frame(c.pos, box_size, los_axis),
+                                       np.zeros(c.n), np.zeros(c.n, np.int64), chi_key=False)
+    tasks = np.flatnonzero(np.diff(cg.start)).astype(np.int64)
     _kernels.neighbours_box_kernel(
-        np.ascontiguousarray(cc[:, 0]), np.ascontiguousarray(cc[:, 1]),
-        np.ascontiguousarray(cc[:, 2]), self_idx, g.x, g.y, g.z, g.w, g.idx, g.start, offsets,
-        grid.dims, box_size, e**2, ext_los, h is None, out)
+        cg.x, cg.y, cg.z, cg.idx, self_idx[cg.idx], cg.start, tasks, g.x, g.y, g.z, g.w,
+        g.idx, g.start, offsets, grid.dims, box_size, e**2, ext_los, h is None, out)
     return out
 
 
@@ -133,4 +143,45 @@ def neighbours_cone(centres: ArrayLike, points: ArrayLike | None = None,
         np.ascontiguousarray(c.pos[:, 2]), self_idx, g.x, g.y, g.z, g.los, g.w, g.idx,
         g.start, offsets, grid.dims, grid.origin, grid.cell, e**2, 0.0 if h is None else h,
         h is None, out)
+    return out
+
+
+def nearest_distance(centres: ArrayLike, points: ArrayLike, *, r_max: float,
+                     box_size: float | None = None) -> NDArray[np.float64]:
+    """Distance from each centre to its nearest point, or +∞ when none lies within ``r_max``.
+
+    A sphere of radius R around a centre is empty exactly when this distance is ≥ R, which
+    is all the void probability function needs: one k-d tree query (scipy's cKDTree,
+    stopped at ``r_max``) per centre instead of every neighbour in every shell. Uses as
+    many threads as numba does, so a dask worker of one thread stays on one core.
+
+    Parameters
+    ----------
+    centres : array_like, shape (Nc, 3)
+        Centre positions [Mpc/h].
+    points : array_like, shape (N, 3)
+        Point positions [Mpc/h].
+    r_max : float
+        Largest distance of interest [Mpc/h].
+    box_size : float, optional
+        Periodic box side [Mpc/h] (minimum-image distances); None for a cone.
+    """
+    c = check_points(centres, None, None, 0, "centres").pos
+    p = check_points(points, None, None, 0, "points").pos
+    if not (np.isfinite(r_max) and r_max > 0):
+        raise InputError(f"r_max: expected a positive number of Mpc/h, got {r_max}")
+    out = np.full(len(c), np.inf)
+    if len(c) == 0 or len(p) == 0:
+        return out
+    if box_size is not None:
+        check_box_extent(r_max, box_size, "largest radius")
+        # to_box_frame wraps into [0, L) (the identity axis order keeps x, y, z)
+        tree = cKDTree(to_box_frame(p, box_size, 2), boxsize=box_size)
+        c = to_box_frame(c, box_size, 2)
+    else:
+        tree = cKDTree(p)
+    # a point at exactly r_max, found or not, leaves a sphere of radius r_max empty
+    d, _ = tree.query(c, k=1, distance_upper_bound=float(r_max),
+                      workers=max(1, numba.get_num_threads()))
+    out[:] = d
     return out

@@ -24,7 +24,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..pairs import neighbours_box, neighbours_cone
+from ..pairs import nearest_distance
 from ..pairs.binning import check_rp_edges
 from ._common import check_filled, want_jackknife
 from .base import (
@@ -102,8 +102,9 @@ def _p0(empty: NDArray[np.bool_], use: NDArray[np.bool_], region: NDArray[np.int
                        extra=extra)
 
 
-def _empty(counts: NDArray[np.float64]) -> NDArray[np.bool_]:
-    return np.cumsum(counts, axis=1) == 0
+def _empty(nearest: NDArray[np.float64], radii: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """(n_spheres, n_radii): no galaxy closer than R to the centre (``nearest`` ≥ R)."""
+    return nearest[:, None] >= radii[None, :]
 
 
 def vpf_box(sample: BoxSample, settings: VpfSettings | None = None,
@@ -129,15 +130,14 @@ def vpf_box(sample: BoxSample, settings: VpfSettings | None = None,
         raise InputError("vpf: the box jackknife needs the sub-volume layout (build the sample "
                          "with BoxSample.with_regions)")
     centres = rng.uniform(0.0, sample.box_size, size=(s.n_spheres, 3))
-    occupied = (sample.w > 0).astype(np.float64)
-    counts = neighbours_box(centres, sample.position, occupied, box_size=sample.box_size,
-                            los_axis=sample.los_axis, edges=np.concatenate([[0.0], radii]))
+    nearest = nearest_distance(centres, sample.position[sample.w > 0], r_max=radii[-1],
+                               box_size=sample.box_size)
     region = None
     if jk:
         region = sample.layout.region_of(centres)
         check_filled(region, sample.n_regions, "VPF spheres")
     use = np.ones((s.n_spheres, radii.size), dtype=bool)
-    m = _p0(_empty(counts), use, region, sample.n_regions if jk else 0, radii,
+    m = _p0(_empty(nearest, radii), use, region, sample.n_regions if jk else 0, radii,
             {"geometry": "box"})
     # Given the galaxies, each random sphere is empty independently with probability P₀, so
     # the box value carries a binomial sampling variance P₀(1 − P₀)/n that the cones (with
@@ -219,9 +219,8 @@ def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings |
         raise InputError(f"vpf: shared sphere centres were made for {centres['use'].shape[1]} "
                          f"radii, the settings have {radii.size}")
     use = np.array(centres["use"], dtype=bool)
-    occupied = (sample.w > 0).astype(np.float64)
-    counts = neighbours_cone(ConeSample(ra, dec, chi).xyz, sample.xyz, occupied,
-                             edges=np.concatenate([[0.0], radii]))
+    nearest = nearest_distance(ConeSample(ra, dec, chi).xyz, sample.xyz[sample.w > 0],
+                               r_max=radii[-1])
     region = None
     k = 0
     if jk:
@@ -232,7 +231,7 @@ def vpf_cone(sample: ConeSample, geometry: ConeGeometry, settings: VpfSettings |
         outside = region < 0
         use[outside] = False
         region = np.where(outside, 0, region)
-    return _p0(_empty(counts), use, region, k, radii, {"geometry": "cone"})
+    return _p0(_empty(nearest, radii), use, region, k, radii, {"geometry": "cone"})
 
 
 class VoidProbability(Statistic):
