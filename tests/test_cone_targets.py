@@ -177,3 +177,32 @@ def test_a_fill_needs_a_flux_limit_and_names_the_key():
         config_from_dict(d)
     with pytest.raises(InputError, match="source"):
         TargetSettings(source="everything")
+
+
+def test_box_cells_and_fill_inputs_are_prepared_once_per_box(monkeypatch):
+    """A process builds many cones from one box: the cells and the fill's sorted magnitudes
+    and neighbour distances are kept with the box object, and a cone built through the kept
+    inputs equals one built from a fresh copy of the box (they are a fixed function of it)."""
+    import conecheck.cone.build as build_module
+
+    calls = []
+    real = build_module.box_fill_inputs
+    monkeypatch.setattr(build_module, "box_fill_inputs",
+                        lambda *a, **k: calls.append(1) or real(*a, **k))
+    shell = SurveyShell(z_min=0.01, z_max=0.03, m_lim=16.5)
+    box = lf_box(4, 200.0)
+    survey = model("fill", shell, angle=60.0)
+    o = [100.0] * 3
+    first, info = build_cone(box, survey, o, None, cone_rngs(7, 0),
+                             cells=build_module.prepare_box(box))
+    again, _ = build_cone(box, survey, o, None, cone_rngs(7, 0),
+                          cells=build_module.prepare_box(box))
+    assert info["n_fill_targets"] > 0 and len(calls) == 1
+    assert build_module.prepare_box(box) is build_module.prepare_box(box)
+    fresh = GalaxyBox(box.position.copy(), box.velocity.copy(), box.box_size, box.redshift,
+                      abs_mag=box.abs_mag.copy())
+    other, _ = build_cone(fresh, survey, o, None, cone_rngs(7, 0))
+    assert len(calls) == 2
+    for c in first.colnames:
+        np.testing.assert_array_equal(first[c], again[c])
+        np.testing.assert_array_equal(first[c], other[c])
