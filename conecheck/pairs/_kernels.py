@@ -56,6 +56,12 @@ def _wrap(i, n):
 
 
 @numba.njit(cache=True, inline="always")
+def _cell_ijk(cell, ny, nz):
+    """Grid indices (i, j, k) of a flat cell index (x slowest, z fastest)."""
+    return cell // (ny * nz), (cell // nz) % ny, cell % nz
+
+
+@numba.njit(cache=True, inline="always")
 def _rp_bin(rp2, edges2, n_rp):
     """Bin by a linear scan from the top (most pairs lie in the outer bins)."""
     k = n_rp - 1
@@ -185,9 +191,7 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
         jbuf = np.empty(max_cell, dtype=np.int64)
         for t in range(c, tasks.size, n_chunks):
             cell = tasks[t]
-            ix = cell // (ny * nz)
-            iy = (cell // nz) % ny
-            iz = cell % nz
+            ix, iy, iz = _cell_ijk(cell, ny, nz)
             s1 = start1[cell]
             e1 = start1[cell + 1]
             for o in range(offsets.shape[0]):
@@ -336,7 +340,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     """Weighted (r_p, |π|) pair counts on a cone (observer at origin; midpoint LOS, or the
     first point's with ``first_los``).
 
-    Cell pairs that :func:`_cells_can_pair` rules out are skipped, so the candidates of a
+    Cell pairs that :func:`_can_pair` rules out are skipped, so the candidates of a
     point hug its (r_p, π) cylinder wherever the line of sight points, on fine cells.
     """
     rp_max = np.sqrt(edges2[edges2.size - 1])
@@ -363,9 +367,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
         jbuf = np.empty(max_cell, dtype=np.int64)
         for t in range(c, tasks.size, n_chunks):
             cell = tasks[t]
-            ix = cell // (ny * nz)
-            iy = (cell // nz) % ny
-            iz = cell % nz
+            ix, iy, iz = _cell_ijk(cell, ny, nz)
             s1 = start1[cell]
             e1 = start1[cell + 1]
             ax = origin[0] + (ix + 0.5) * side[0]
@@ -416,9 +418,7 @@ def neighbours_box_kernel(cx, cy, cz, cidx, cself, cstart, tasks, x2, y2, z2, w2
     zmax = np.sqrt(hi2) if sphere else h
     for t in prange(tasks.size):
         cell = tasks[t]
-        ix = cell // (ny * nz)
-        iy = (cell // nz) % ny
-        iz = cell % nz
+        ix, iy, iz = _cell_ijk(cell, ny, nz)
         s1 = cstart[cell]
         e1 = cstart[cell + 1]
         for o in range(offsets.shape[0]):
@@ -582,9 +582,7 @@ def smu_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offse
         touch_c = touch[c]
         for t in range(c, tasks.size, n_chunks):
             cell = tasks[t]
-            ix = cell // (ny * nz)
-            iy = (cell // nz) % ny
-            iz = cell % nz
+            ix, iy, iz = _cell_ijk(cell, ny, nz)
             s1 = start1[cell]
             e1 = start1[cell + 1]
             for o in range(offsets.shape[0]):
@@ -663,9 +661,7 @@ def smu_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tas
         touch_c = touch[c]
         for t in range(c, tasks.size, n_chunks):
             cell = tasks[t]
-            ix = cell // (ny * nz)
-            iy = (cell // nz) % ny
-            iz = cell % nz
+            ix, iy, iz = _cell_ijk(cell, ny, nz)
             s1 = start1[cell]
             e1 = start1[cell + 1]
             for o in range(offsets.shape[0]):
