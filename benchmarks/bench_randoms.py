@@ -13,6 +13,15 @@ The counts in cylinders, the VPF and the other count statistics read the footpri
 randoms, so randoms add no noise to them; wp (and the multipoles) are the statistics whose
 precision the random scheme sets. Results go to benchmarks/RESULTS.md (between the
 bench_randoms markers) unless --no-write.
+
+``--cells`` measures what the ``randoms.multiple = "auto"`` rule rests on
+(:func:`conecheck.cone.randoms.auto_multiple`): on cone 0 of bench_run's standard workload,
+every sample and cut, the variance over realisations of the data–random count DR (summed
+over |π| < 40 Mpc/h, normalised by N_D N_R) in 16 fine r_p bins from 0.1 to 20 Mpc/h, for
+QMC and pseudo-random points at 10 and 20 per galaxy. The ratio g of the QMC variance to
+the pseudo-random variance at the same number of points is tabulated against λ, the
+expected number of randoms per galaxy in the bin's cell (m n π (r₂² − r₁²) 2 π_max): QMC
+helps where λ is large. Written between the bench_randoms_cells markers.
 """
 
 from __future__ import annotations
@@ -26,16 +35,25 @@ import time
 from pathlib import Path
 
 import numpy as np
+from bench_run import make_config, workload  # bench_run's standard workload
 
 from conecheck.api import build_box, build_cones, measure_cone, survey_sky
 from conecheck.atomic import write_text_atomic
 from conecheck.cone import make_randoms, select_cut
+from conecheck.cone.randoms import QMC_FILLED_CELL_COUNT, QMC_MULTIPLE_FILLED
 from conecheck.demo import demo_config
 from conecheck.pairs import count_rppi_cone
 from conecheck.run.tasks import cut_distances
 
 START = "<!-- bench_randoms:start -->"
 END = "<!-- bench_randoms:end -->"
+CELLS_START = "<!-- bench_randoms_cells:start -->"
+CELLS_END = "<!-- bench_randoms_cells:end -->"
+#: r_p edges [Mpc/h] and |π| limit [Mpc/h] of the --cells measurement.
+CELL_EDGES = np.geomspace(0.1, 20.0, 17)
+CELL_PI_MAX = 40.0
+#: λ classes of the --cells table (expected randoms per galaxy in a cell).
+LAMBDA_CLASSES = (0.0, 0.3, 1.0, 3.0, 10.0, 30.0, 100.0, 300.0, np.inf)
 SCHEMES = (("pseudo", 20.0), ("pseudo", 10.0), ("pseudo", 5.0), ("qmc", 20.0), ("qmc", 10.0),
            ("qmc", 5.0), ("qmc", 2.0))
 
@@ -69,11 +87,106 @@ def dr_times(cfg, cone) -> dict[tuple[str, float], float]:
     return out
 
 
+def _xyz(t) -> np.ndarray:
+    ra, dec = np.radians(np.asarray(t["ra"])), np.radians(np.asarray(t["dec"]))
+    chi = np.asarray(t["chi_obs"])
+    return np.column_stack([chi * np.cos(dec) * np.cos(ra), chi * np.cos(dec) * np.sin(ra),
+                            chi * np.sin(dec)])
+
+
+def _write_block(start: str, end: str, heading: str, head: str, text: str) -> None:
+    path = Path(__file__).with_name("RESULTS.md")
+    old = path.read_text()
+    block = f"{start}\n{head}\n\n{text}\n{end}"
+    if start in old and end in old:
+        new = old[:old.index(start)] + block + old[old.index(end) + len(end):]
+    else:
+        new = old.rstrip("\n") + f"\n\n{heading}\n\n" + block + "\n"
+    write_text_atomic(path, new)
+
+
+def _head(command: str) -> str:
+    commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
+                            text=True).stdout.strip()
+    load = Path("/proc/loadavg").read_text().split()[:3] if Path(
+        "/proc/loadavg").exists() else ["?"]
+    return (f"{time.strftime('%Y-%m-%d')}, commit {commit}, {platform.machine()} "
+            f"{platform.system()}, load average {' '.join(load)} at the end, `{command}`.")
+
+
+def cells(realisations: int, write: bool) -> int:
+    """The --cells measurement (module notes)."""
+    cfg = make_config(workload(False), Path(__file__).parent)
+    box = build_box(cfg)
+    cone = build_cones(box, cfg, n=1)[0]
+    fp, _ = survey_sky(cfg)
+    cosmo = cfg.cosmology.model()
+    cell = np.pi * (CELL_EDGES[1:] ** 2 - CELL_EDGES[:-1] ** 2) * 2.0 * CELL_PI_MAX
+    lam, g, rows = [], [], []
+    for s in cfg.samples:
+        for cut in s.cuts:
+            d = _xyz(select_cut(cone, cut, cfg.shell, cosmo))
+            lo, hi = cut_distances(cosmo, cut)
+            density = len(d) / (fp.area_sr * (hi**3 - lo**3) / 3.0)
+            var = {}
+            for scheme in ("pseudo", "qmc"):
+                for m in (10.0, 20.0):
+                    vals = []
+                    for r in range(realisations):
+                        rr = _xyz(make_randoms(fp, lo, hi, int(m * len(d)),
+                                               np.random.default_rng(1000 + r),
+                                               cosmology=cosmo, sampling=scheme))
+                        pc = count_rppi_cone(d, None, None, rr, None, None, rp_edges=CELL_EDGES,
+                                             pi_max=CELL_PI_MAX, dpi=CELL_PI_MAX)
+                        vals.append(pc.total.sum(axis=1) / (len(d) * len(rr)))
+                    var[(scheme, m)] = np.var(vals, axis=0, ddof=1)
+            # the pseudo-random variance scales as 1/m: pool both multiples at m = 20
+            pseudo20 = 0.5 * (var[("pseudo", 20.0)] + 0.5 * var[("pseudo", 10.0)])
+            for m in (10.0, 20.0):
+                lam += list(m * density * cell)
+                g += list(var[("qmc", m)] / (pseudo20 * 20.0 / m))
+            rows.append((f"{s.name}/{cut.label}", len(d), density))
+            print(f"{s.name}/{cut.label}: {len(d)} galaxies", flush=True)
+    lam_a, g_a = np.asarray(lam), np.asarray(g)
+    lines = [f"Data: cone 0 of bench_run's standard workload; {realisations} realisations of "
+             "the randoms per scheme and multiple; DR summed over |π| < 40 Mpc/h in 16 r_p "
+             "bins from 0.1 to 20 Mpc/h. Samples and cuts: "
+             + "; ".join(f"{k} ({n:,} galaxies, n = {d:.3g} (h/Mpc)³)" for k, n, d in rows)
+             + ". g = variance of QMC points / variance of as many pseudo-random points "
+             "(the pseudo-random variance pooled over 10 and 20 per galaxy, scaled as 1/m), "
+             "per class of λ, the expected randoms per galaxy in the bin's cell "
+             "(m n π (r₂² − r₁²) 2 π_max). Each entry is an F-distributed ratio with "
+             f"({realisations - 1}, {realisations - 1}) degrees of freedom, so a class "
+             "mean over k bins has a relative scatter of about "
+             f"{np.sqrt(2.0 * 2.0 / (realisations - 1)):.2f}/√k.", "",
+             "| λ (randoms per galaxy in the cell) | bins | mean g | median g | "
+             "QMC × 10 / pseudo × 20 (= 2 g) |", "|---|---|---|---|---|"]
+    for lo, hi in zip(LAMBDA_CLASSES[:-1], LAMBDA_CLASSES[1:], strict=True):
+        sel = (lam_a >= lo) & (lam_a < hi)
+        if not sel.any():
+            continue
+        lines.append(f"| {lo:g}–{hi:g} | {int(sel.sum())} | {g_a[sel].mean():.2f} | "
+                     f"{np.median(g_a[sel]):.2f} | {2.0 * g_a[sel].mean():.2f} |")
+    lines += ["", f"The rule: {QMC_MULTIPLE_FILLED:g} QMC randoms per galaxy where the smallest "
+              f"cell holds λ ≥ {QMC_FILLED_CELL_COUNT:g} of them (g ≤ 0.5 there), else 20."]
+    text = "\n".join(lines)
+    print(text)
+    if write:
+        _write_block(CELLS_START, CELLS_END, "## Randoms: when QMC points help (issue #19)",
+                     _head(f"python benchmarks/bench_randoms.py --cells --realisations "
+                           f"{realisations}"), text)
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--realisations", type=int, default=24)
     ap.add_argument("--no-write", action="store_true")
+    ap.add_argument("--cells", action="store_true",
+                    help="measure QMC's gain against the randoms per galaxy in a cell")
     a = ap.parse_args(argv)
+    if a.cells:
+        return cells(a.realisations, not a.no_write)
     cfg = demo_config(quick=True)
     box = build_box(cfg)
     cone = build_cones(box, cfg, n=1)[0]
@@ -118,22 +231,9 @@ def main(argv: list[str] | None = None) -> int:
     text = "\n".join(lines)
     print(text)
     if not a.no_write:
-        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
-                                text=True).stdout.strip()
-        load = Path("/proc/loadavg").read_text().split()[:3] if Path(
-            "/proc/loadavg").exists() else ["?"]
-        head = (f"{time.strftime('%Y-%m-%d')}, commit {commit}, {platform.machine()} "
-                f"{platform.system()}, load average {' '.join(load)} at the end, "
-                f"`python benchmarks/bench_randoms.py --realisations {a.realisations}`.")
-        path = Path(__file__).with_name("RESULTS.md")
-        old = path.read_text()
-        block = f"{START}\n{head}\n\n{text}\n{END}"
-        if START in old and END in old:
-            new = old[:old.index(START)] + block + old[old.index(END) + len(END):]
-        else:
-            new = old.rstrip("\n") + "\n\n## Randoms: pseudo-random against QMC (issue #19)\n\n" \
-                + block + "\n"
-        write_text_atomic(path, new)
+        _write_block(START, END, "## Randoms: pseudo-random against QMC (issue #19)",
+                     _head(f"python benchmarks/bench_randoms.py --realisations "
+                           f"{a.realisations}"), text)
     return 0
 
 

@@ -341,7 +341,11 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
     (the check above), so the difference is the randoms' alone. The run's jackknife
     variance of the same cone and cut is given for scale."""
     from conecheck.cone import make_randoms, n_randoms
-    from conecheck.run.tasks import _cone_sample  # the pipeline's table → ConeSample
+    from conecheck.cone.randoms import randoms_multiple
+    from conecheck.run.tasks import (
+        _cone_sample,  # the pipeline's table → ConeSample
+        smallest_random_cell,
+    )
     from conecheck.stats import ConeSample
     from conecheck.stats.wp import count_rr_cone, wp_cone
     from conecheck.streams import seeded_rng
@@ -351,6 +355,9 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
     r = cfg.randoms
     plain = ConeSample(data.ra, data.dec, data.chi, data.weight)
     fp = geometry.footprint
+    # the run's multiple for this cut (randoms.multiple = "auto" resolves it as the run does)
+    multiple = randoms_multiple(r, n_expected / (fp.area_sr * geometry.volume_per_sr),
+                                smallest_random_cell(cfg.statistics))
 
     def sample(n: int, sampling: str, *key: Any) -> Any:
         t = make_randoms(fp, chi_lo, chi_hi, n, seeded_rng(cfg.seed, "variance", *key),
@@ -364,7 +371,7 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
         rb = sample(n_randoms(n_expected, BASELINE_MULTIPLE), "pseudo", "baseline", k)
         base.append(wp_cone(plain, rb, geometry, full, jackknife=False).value)
         t1 = time.perf_counter()
-        rm = sample(n_randoms(n_expected, r.multiple), r.sampling, "conecheck", k)
+        rm = sample(n_randoms(n_expected, multiple), r.sampling, "conecheck", k)
         rr = None
         if r.sampling == "qmc":
             rr_set = sample(n_randoms(n_expected, r.rr_multiple), "pseudo", "conecheck-rr", k)
@@ -374,12 +381,12 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
         t_mine += time.perf_counter() - t1
     var_base = np.var(np.array(base), axis=0, ddof=1)
     var_mine = np.var(np.array(mine), axis=0, ddof=1)
-    jk = wp_cone(data, sample(n_randoms(n_expected, r.multiple), r.sampling, "jk"), geometry,
+    jk = wp_cone(data, sample(n_randoms(n_expected, multiple), r.sampling, "jk"), geometry,
                  wps, rr=None if r.sampling != "qmc" else count_rr_cone(
                      sample(n_randoms(n_expected, r.rr_multiple), "pseudo", "jk-rr"),
                      geometry, wps, n_data=len(data)), jackknife=True)
     var_jk = np.asarray(jk.covariance.diagonal()) if jk.delete_one is not None else None
-    return {"realisations": VARIANCE_REALISATIONS, "scheme": randoms_scheme_of(r),
+    return {"realisations": VARIANCE_REALISATIONS, "scheme": randoms_scheme_of(r, multiple),
             "rp": np.sqrt(wps.bins.rp_edges[1:] * wps.bins.rp_edges[:-1]).tolist(),
             "var_baseline": var_base.tolist(), "var_conecheck": var_mine.tolist(),
             "var_jackknife": None if var_jk is None else var_jk.tolist(),
@@ -387,12 +394,17 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
             "seconds_conecheck": t_mine / VARIANCE_REALISATIONS}
 
 
-def randoms_scheme_of(r: Any) -> str:
-    """A random scheme in words, from conecheck's ``RandomSettings``."""
+def randoms_scheme_of(r: Any, multiple: float | None = None) -> str:
+    """A random scheme in words, from conecheck's ``RandomSettings`` (``multiple``: the
+    number a cut resolved ``auto`` to, when known)."""
+    if r.multiple == "auto":
+        m = "auto (10 or 20 per cut)" if multiple is None else f"auto = {multiple:g}"
+    else:
+        m = f"{float(r.multiple):g}"
     if r.sampling == "qmc":
-        return (f"{r.multiple:g}x QMC for DR, RR on an independent {r.rr_multiple:g}x "
+        return (f"{m}x QMC for DR, RR on an independent {r.rr_multiple:g}x "
                 "pseudo-random set")
-    return f"{r.multiple:g}x {r.sampling}"
+    return f"{m}x {r.sampling}"
 
 
 def part_baseline(d: dict[str, Any], work: Path) -> dict[str, Any]:

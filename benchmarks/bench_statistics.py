@@ -37,8 +37,10 @@ from conecheck.run.tasks import (
     box_redshift_space,
     cone_matter,
     cut_distances,
+    cut_randoms_multiple,
     cut_volume_per_sr,
     sample_mask,
+    smallest_random_cell,
 )
 from conecheck.stats import STATISTICS, BoxSample, ConeGeometry, MatterSample
 
@@ -63,8 +65,9 @@ def main() -> None:
     lo, hi = cut_distances(cosmo, cut)
     geometry = ConeGeometry(fp, lo, hi, regions, cut_volume_per_sr(cosmo, cut))
     rng = np.random.default_rng(1)
-    rand = _cone_sample(make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()),
-                                                           cfg.randoms.multiple),
+    multiple = cut_randoms_multiple(cfg.randoms, smallest_random_cell(stats),
+                                    float(data.w.sum()), fp, cosmo, cut)
+    rand = _cone_sample(make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple),
                                      rng, cosmology=cosmo), regions)
 
     # the box sample along the configured line of sight

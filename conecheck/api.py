@@ -57,6 +57,7 @@ from .run.tasks import (
     cone_table,
     count_sample,
     cut_distances,
+    cut_randoms_multiple,
     cut_volume_per_sr,
     measure_box_sample,
     sample_mask,
@@ -70,8 +71,6 @@ from .streams import seeded_rng
 
 #: Sky jackknife regions of a cone measured without a configuration.
 DEFAULT_SKY_REGIONS = 16
-#: Randoms per galaxy of a cone measured without shared randoms.
-DEFAULT_RANDOMS_MULTIPLE = 10.0
 
 
 # --------------------------------------------------------------------------- inputs
@@ -258,8 +257,10 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     regions : SkyRegions, optional
         Jackknife regions (default: the configuration's, or 16 of the footprint).
     randoms_multiple : float, optional
-        Randoms per galaxy for statistics that need randoms (default: the configuration's,
-        else 10). The randoms are drawn for this cone alone, sized by its galaxy count.
+        Randoms per galaxy for statistics that need randoms (default: the configuration's
+        ``randoms.multiple``, else ``"auto"``: :func:`conecheck.cone.randoms.auto_multiple`
+        from the cone's galaxy density and the statistic's smallest bin). The randoms are
+        drawn for this cone alone, sized by its galaxy count.
     matter : MatterSample, optional
         Matter particles around the cone's galaxies (observer at the origin), for a lensing
         statistic: :func:`cone_matter` of the cone.
@@ -278,8 +279,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
         regions = regions if regions is not None else (
             default_regions if default_regions is not None else sky_regions(cfg, fp))
         settings = settings if settings is not None else cfg.statistics.get(statistic)
-        multiple = cfg.randoms.multiple if randoms_multiple is None else randoms_multiple
-        sampling, rr_multiple = cfg.randoms.sampling, cfg.randoms.rr_multiple
+        randoms = cfg.randoms
         shell = cfg.shell
         seed = cfg.seed
         completeness = cfg.completeness
@@ -291,8 +291,7 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
         fp = _footprint(footprint)
         regions = regions if regions is not None else jackknife_regions(
             fp, DEFAULT_SKY_REGIONS, seed=seed)
-        multiple = DEFAULT_RANDOMS_MULTIPLE if randoms_multiple is None else randoms_multiple
-        sampling, rr_multiple = RandomSettings().sampling, RandomSettings().rr_multiple
+        randoms = RandomSettings()
         shell = None
         completeness = CompletenessSettings()
     cosmo = cosmo_cfg.model()
@@ -310,7 +309,12 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
     rand = None
     shared = None
     rng = seeded_rng(seed, "api-cone", statistic)
+    sampling, rr_multiple = randoms.sampling, randoms.rr_multiple
+    if randoms_multiple is not None:
+        randoms = dataclasses.replace(randoms, multiple=float(randoms_multiple))
     if stat.needs_randoms:
+        multiple = cut_randoms_multiple(randoms, stat.random_cell_volume(settings),
+                                        float(data.w.sum()), fp, cosmo, the_cut)
         rt = make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple), rng,
                           cosmology=cosmo, sampling=sampling)
         rand = _cone_sample(rt, regions)

@@ -60,8 +60,6 @@ from .stats.registry import SETTINGS_TYPES, STATISTICS
 BUILTIN_FILES = {"builtin:kestrel": "kestrel_mask.fits",
                  "builtin:kestrel-overlap": "kestrel_overlap.fits"}
 STATISTIC_NAMES = tuple(SETTINGS_TYPES)
-#: Statistics whose cone estimator needs a random catalogue.
-NEEDS_RANDOMS = tuple(n for n, s in STATISTICS.items() if s.needs_randoms)
 #: Statistics that need a matter tracer.
 NEEDS_MATTER = tuple(n for n, s in STATISTICS.items() if s.needs_matter)
 
@@ -797,7 +795,7 @@ RECOMMENDED_RANDOMS_MULTIPLE = 10
 def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
     """Problems that involve several sections; returns warnings."""
     warnings = []
-    if cfg.randoms.multiple < RECOMMENDED_RANDOMS_MULTIPLE:
+    if cfg.randoms.multiple != "auto" and cfg.randoms.multiple < RECOMMENDED_RANDOMS_MULTIPLE:
         warnings.append(f"randoms.multiple = {cfg.randoms.multiple:g}: fewer than "
                         f"{RECOMMENDED_RANDOMS_MULTIPLE} randoms per galaxy adds noticeable "
                         f"shot noise to 2-point statistics; raise it for a final run")
@@ -844,10 +842,6 @@ def _cross_checks(cfg: RunConfig, problems: list[str]) -> list[str]:
             problems.append(f"survey.completeness.treatment = 'weight': {', '.join(unweighted)} "
                             "only asks whether a cell is empty, which a weight cannot change; "
                             "use 'dilute' or 'threshold', or leave it out of statistics.measure")
-    need = [s for s in cfg.statistics.measure if s in NEEDS_RANDOMS]
-    if cfg.randoms.multiple <= 0 and need:
-        problems.append(f"randoms.multiple: {', '.join(need)} need randoms on the cones; set "
-                        "multiple > 0")
     for name in cfg.statistics.measure:
         p = n_bins(name, cfg.statistics.get(name))
         need = p + 3

@@ -235,6 +235,8 @@ CASES: dict[str, tuple[Callable[[Path], list[str]], str]] = {
                                                "cones.observers.positions": [[999.0, 1, 1]]}),
                              r"observers.*outside the box"),
     "randoms multiple zero": (_check_changes(**{"randoms.multiple": 0.0}), r"multiple"),
+    "randoms multiple a word": (_check_changes(**{"randoms.multiple": "many"}),
+                                r"randoms\.multiple.*auto"),
     "negative z_fail": (_check_changes(**{"verdict.z_fail": -1.0}), r"z_fail"),
     "sample without name": (_check(dict(tiny_dict(), samples=[{"mag_max": -20.0,
                                                               "z_min": 0.02,

@@ -18,10 +18,12 @@ import pytest
 from scipy import stats
 
 from conecheck.api import build_box, build_cones, measure_cone, survey_sky
-from conecheck.cone.randoms import make_randoms
+from conecheck.cone.randoms import QMC_FILLED_CELL_COUNT, auto_multiple, make_randoms
+from conecheck.config import StatisticsConfig
 from conecheck.demo import demo_config
 from conecheck.run.specs import RandomsSpec
 from conecheck.run.tasks import cut_randoms
+from conecheck.stats import STATISTICS
 
 CHI = (50.0, 160.0)
 
@@ -97,3 +99,50 @@ def test_qmc_randoms_give_wp_a_smaller_variance_at_equal_size():
                              randoms_multiple=5.0).value for r in range(20)]
         var[scheme] = np.var(vals, axis=0, ddof=1)
     assert var["qmc"][1:].sum() < 0.5 * var["pseudo"][1:].sum(), var
+
+
+def test_auto_multiple_follows_the_smallest_cell():
+    """``randoms.multiple = "auto"``: 20 pseudo-random points per galaxy; QMC points 10 per
+    galaxy when the smallest cell around a galaxy expects ≥ QMC_FILLED_CELL_COUNT of them,
+    else 20 (the rule and its measured basis: conecheck.cone.randoms, RESULTS.md)."""
+    n = 1e-3  # (h/Mpc)³
+    filled = QMC_FILLED_CELL_COUNT / (10.0 * n)  # the cell volume where 10 per galaxy fill it
+    assert auto_multiple("pseudo", n, 10 * filled) == 20.0
+    assert auto_multiple("qmc", n, None) == 10.0
+    assert auto_multiple("qmc", n, filled) == 10.0
+    assert auto_multiple("qmc", n, 0.99 * filled) == 20.0
+
+
+def test_wp_smallest_cell_is_the_innermost_annulus_times_the_integration_length():
+    """wp's cell: π (r₁² − r₀²) × 2 π_max of the innermost r_p bin (log-spaced edges
+    r_k = r_min (r_max/r_min)^(k/n)); the multipoles' cell: the innermost s shell × μ_max."""
+    wp = STATISTICS["wp"]
+    s = wp.make_settings({"rp_min": 0.3, "rp_max": 20.0, "n_rp": 8, "pi_max": 40.0})
+    r1 = 0.3 * (20.0 / 0.3) ** (1 / 8)
+    assert wp.random_cell_volume(s) == pytest.approx(np.pi * (r1**2 - 0.09) * 80.0, rel=1e-12)
+    xi = STATISTICS["multipoles"]
+    m = xi.make_settings({"s_edges": [2.0, 4.0, 8.0]})
+    assert xi.random_cell_volume(m) == pytest.approx(4.0 / 3.0 * np.pi * (64.0 - 8.0),
+                                                     rel=1e-12)
+    assert STATISTICS["cic"].random_cell_volume() is None
+
+
+def test_auto_randoms_of_a_cut_are_sized_by_the_rule(footprint):
+    """The run's random catalogue of a cut with the default ``auto``: 20 QMC points per
+    expected galaxy for wp's fine default bins (r_p from 0.1 Mpc/h), 10 for bins from
+    3 Mpc/h, where the innermost cell holds many randoms per galaxy."""
+    cfg = demo_config(quick=True)
+    s = cfg.samples[0]
+    n_expected = 2000.0
+
+    def n_of(wp_settings):
+        stats = StatisticsConfig(measure=("wp",), settings={
+            "wp": STATISTICS["wp"].make_settings(wp_settings)})
+        spec = RandomsSpec(seed=7, cosmology=cfg.cosmology, sample_name=s.name, cut=s.cuts[0],
+                           randoms=type(cfg.randoms)(), statistics=stats,
+                           n_expected=n_expected, footprint_content="", regions_content="")
+        return len(cut_randoms(spec, footprint))
+
+    assert type(cfg.randoms)().multiple == "auto"
+    assert n_of({}) == 20 * n_expected
+    assert n_of({"rp_min": 3.0, "rp_max": 30.0, "n_rp": 4}) == 10 * n_expected

@@ -30,9 +30,11 @@ from ..run.specs import cone_build_spec, randoms_spec
 from ..run.tasks import (
     cone_table,
     cut_randoms,
+    cut_randoms_multiple,
     expected_count,
     sample_density,
     shuffle_distances,
+    smallest_random_cell,
     survey_model,
 )
 from ..version import __version__
@@ -69,6 +71,7 @@ def main(args: argparse.Namespace) -> int:
         cones.append((table, info))
         log.info("cone %d/%d: %d galaxies", i + 1, n, len(table))
     randoms = {}
+    multiples = {}
     shuffle = cfg.randoms.radial == "shuffle"
     cosmo = cosmology_of(cfg)
     reg_content = content_digest(regions)
@@ -81,6 +84,9 @@ def main(args: argparse.Namespace) -> int:
             spec = randoms_spec(cfg, s.name, cut, expected_count(cosmo, footprint, cut, density),
                                 fp_content, reg_content, data_chi)
             randoms[f"{s.name}__{cut.label}"] = cut_randoms(spec, footprint)
+            multiples[f"{s.name}__{cut.label}"] = cut_randoms_multiple(
+                spec.randoms, smallest_random_cell(spec.statistics), spec.n_expected,
+                footprint, cosmo, cut)
     manifest = {"config": str(Path(args.config).resolve()), "seed": cfg.seed,
                 "config_hash": cfg.config_hash, "version": __version__,
                 "cosmology": dataclasses.asdict(cfg.cosmology),
@@ -89,8 +95,9 @@ def main(args: argparse.Namespace) -> int:
                 "samples": {s.name: [dataclasses.asdict(c) for c in s.cuts]
                             for s in cfg.samples},
                 "randoms_radial": cfg.randoms.radial,
-                "note": "randoms multiple " + str(cfg.randoms.multiple)
-                        + " of the box-expected count of each sample and cut"}
+                "randoms_multiple": multiples,
+                "note": "randoms_multiple: randoms per box-expected galaxy of each sample and "
+                        f"cut (randoms.multiple = {cfg.randoms.multiple!r})"}
     path = write_cones_directory(out, cones, randoms, manifest, regions)
     print(f"wrote {n} cones and {len(randoms)} random catalogues; manifest {path}")
     return 0

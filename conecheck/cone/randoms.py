@@ -15,6 +15,12 @@ Two samplings (``randoms.sampling``):
   Landy–Szalay estimate converge almost as 1/N rather than 1/√N (Kerscher 2022, A&A 666,
   A181): fewer randoms give the same precision. ``shuffle`` distances are drawn with the
   third coordinate through the data's empirical quantiles.
+
+QMC's advantage needs many randoms in the smallest cell a statistic resolves around a
+galaxy: where that cell holds only a few, the count of QMC points in it varies as a Poisson
+count does, and the data–random counts converge as 1/√N again. ``randoms.multiple = "auto"``
+(the default) therefore sizes the randoms from the statistics' smallest cell
+(:func:`auto_multiple`).
 """
 
 from __future__ import annotations
@@ -30,6 +36,7 @@ from ..cosmology import Cosmology
 from ..errors import InputError
 from ..footprint.protocols import SkyFootprint
 from .selection import FullSky
+from .settings import RandomSettings
 
 log = logging.getLogger(__name__)
 
@@ -37,6 +44,75 @@ log = logging.getLogger(__name__)
 def n_randoms(n_data: float, multiple: float) -> int:
     """Number of randoms for ``n_data`` (weighted) galaxies at ``multiple`` per galaxy."""
     return max(1, int(round(n_data * multiple)))
+
+
+#: Randoms per galaxy of pseudo-random points with ``multiple = "auto"`` (a common choice for
+#: Landy–Szalay estimates, and this project's default before QMC randoms).
+PSEUDO_MULTIPLE = 20.0
+#: The two multiples ``auto`` chooses between for QMC points: the smaller one where the
+#: smallest cell is well filled, the pseudo-random one where it is not.
+QMC_MULTIPLE_FILLED = 10.0
+QMC_MULTIPLE_SPARSE = PSEUDO_MULTIPLE
+#: Expected QMC randoms per galaxy in the smallest cell (at ``QMC_MULTIPLE_FILLED``) from
+#: which 10 QMC points per galaxy give the data–random counts no more variance than 20
+#: pseudo-random ones. Measured (``python benchmarks/bench_randoms.py --cells``, RESULTS.md,
+#: 40 realisations per scheme on bench_run's standard cones): the variance of QMC points
+#: relative to as many pseudo-random ones is 0.8-0.9 below 3 randoms per cell, 0.55 at
+#: 3-10, 0.33 at 10-30, 0.18 at 30-100 and 0.03 above 300, so 10 QMC points match 20
+#: pseudo-random ones (a ratio of 0.5) from about 10 per cell.
+QMC_FILLED_CELL_COUNT = 10.0
+
+
+def auto_multiple(sampling: Literal["pseudo", "qmc"], galaxy_density: float,
+                  cell_volume: float | None) -> float:
+    """Randoms per galaxy chosen by ``randoms.multiple = "auto"``.
+
+    The aim is the random noise of :data:`PSEUDO_MULTIPLE` pseudo-random points per galaxy
+    in every bin at the lowest data–random cost: QMC points reach it with
+    :data:`QMC_MULTIPLE_FILLED` per galaxy when the smallest cell is well filled
+    (:data:`QMC_FILLED_CELL_COUNT`), and need as many as pseudo-random ones when it is not.
+
+    Parameters
+    ----------
+    sampling : {"pseudo", "qmc"}
+        The randoms' sampling.
+    galaxy_density : float
+        Mean number density of the sample's galaxies [(h/Mpc)³] (the randoms follow it).
+    cell_volume : float or None
+        Volume around a galaxy of the smallest bin whose data–random count a statistic uses
+        [(Mpc/h)³] (e.g. wp's innermost r_p annulus × 2 π_max); None when no statistic counts
+        pairs with randoms.
+
+    Returns
+    -------
+    float
+        Randoms per galaxy.
+    """
+    if sampling != "qmc":
+        return PSEUDO_MULTIPLE
+    if cell_volume is None:
+        return QMC_MULTIPLE_FILLED
+    filled = QMC_MULTIPLE_FILLED * float(galaxy_density) * float(cell_volume)
+    return QMC_MULTIPLE_FILLED if filled >= QMC_FILLED_CELL_COUNT else QMC_MULTIPLE_SPARSE
+
+
+def largest_multiple(settings: RandomSettings) -> float:
+    """The most randoms per galaxy ``settings`` can ask for (for estimates made before the
+    galaxy densities are known)."""
+    if settings.multiple == "auto":
+        return max(PSEUDO_MULTIPLE, QMC_MULTIPLE_FILLED, QMC_MULTIPLE_SPARSE)
+    return float(settings.multiple)
+
+
+def randoms_multiple(settings: RandomSettings, galaxy_density: float,
+                     cell_volume: float | None) -> float:
+    """Randoms per galaxy of ``settings``: its number, or :func:`auto_multiple`'s choice.
+
+    ``galaxy_density`` [(h/Mpc)³] and ``cell_volume`` [(Mpc/h)³] as in :func:`auto_multiple`.
+    """
+    if settings.multiple == "auto":
+        return auto_multiple(settings.sampling, galaxy_density, cell_volume)
+    return float(settings.multiple)
 
 
 #: Sobol points drawn per batch of the ``qmc`` sampling (a power of 2 keeps its balance).

@@ -595,11 +595,14 @@ class RandomSettings:
 
     Attributes
     ----------
-    multiple : float
-        Number of randoms per data galaxy (≥ 10 advised for 2-point statistics). The
-        default, 10 QMC randoms, gives wp the random noise of 20 pseudo-random ones in the
-        smallest r_p bins and less above, at half the data–random pair work
-        (benchmarks/RESULTS.md, bench_randoms).
+    multiple : float or "auto"
+        Number of randoms per data galaxy (≥ 10 advised for 2-point statistics). ``auto``
+        (the default) gives every bin the random noise of 20 pseudo-random points per
+        galaxy or less at the lowest data–random cost: 20 for pseudo-random points; for QMC
+        points 10 when the smallest bin's cell around a galaxy (wp: the innermost r_p
+        annulus × 2 π_max) holds at least 10 of them, else 20 — below that QMC points are no
+        more even than pseudo-random ones (:func:`conecheck.cone.randoms.auto_multiple`,
+        benchmarks/RESULTS.md, bench_randoms).
     radial : {"volume", "shuffle"}
         ``volume``: χ uniform in comoving volume between the cut's limits;
         ``shuffle``: χ drawn (with replacement) from the data's observed distances.
@@ -613,15 +616,18 @@ class RandomSettings:
         Randoms per galaxy of the pseudo-random set RR is counted on with ``qmc`` sampling
         (RR is counted once per cut and shared by every cone, so it can afford many).
     """
-    multiple: float = 10.0
+    multiple: float | Literal["auto"] = "auto"
     radial: Literal["volume", "shuffle"] = "volume"
     sampling: Literal["pseudo", "qmc"] = "qmc"
     rr_multiple: float = 20.0
 
     def __post_init__(self) -> None:
         problems: list[str] = []
-        if not (math.isfinite(self.multiple) and 0.0 < self.multiple <= 1e4):
-            problems.append(f"multiple = {self.multiple!r}: expected 0 < multiple <= 1e4")
+        if self.multiple != "auto" and not (
+                isinstance(self.multiple, (int, float)) and not isinstance(self.multiple, bool)
+                and math.isfinite(self.multiple) and 0.0 < self.multiple <= 1e4):
+            problems.append(f"multiple = {self.multiple!r}: expected \"auto\" or a number "
+                            "0 < multiple <= 1e4")
         if self.radial not in ("volume", "shuffle"):
             problems.append(f"radial = {self.radial!r}: expected 'volume' or 'shuffle'")
         if self.sampling not in ("pseudo", "qmc"):

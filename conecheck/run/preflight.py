@@ -28,6 +28,7 @@ from ..box.sensitivity import DEFAULT_STEPS
 from ..catalog import GalaxyBox
 from ..cone.fibres import load_overlap_map
 from ..cone.geometry import check_observer, replica_offsets
+from ..cone.randoms import largest_multiple
 from ..config import SYNTHETIC_REDSHIFT, RunConfig
 from ..cosmology import C_KMS
 from ..errors import InputError
@@ -311,7 +312,8 @@ def pair_work(cfg: RunConfig, footprint: Footprint, density: dict[str | None, fl
     Clustering raises DD above this by 1 + ξ̄, a factor of order one at these scales.
     """
     stats = cfg.statistics
-    costs = [STATISTICS[n].cost(stats.get(n), cfg.randoms.multiple) for n in stats.measure]
+    multiple = largest_multiple(cfg.randoms)
+    costs = [STATISTICS[n].cost(stats.get(n), multiple) for n in stats.measure]
     search = sum(c.cone_volume for c in costs)  # per cone galaxy [(Mpc/h)³]
     box_search = sum(c.box_volume for c in costs)
     centres = sum(c.centre_volume for c in costs)  # the statistics' own centres
@@ -334,13 +336,14 @@ def _largest_task_bytes(cfg: RunConfig, footprint: Footprint,
                         density: dict[str | None, float] | None) -> float | None:
     """Estimated peak memory of the largest task [bytes]: a cone's randoms and what its
     statistics hold (e.g. VPF spheres)."""
-    total = sum(STATISTICS[n].cost(cfg.statistics.get(n), cfg.randoms.multiple).task_bytes
+    multiple = largest_multiple(cfg.randoms)
+    total = sum(STATISTICS[n].cost(cfg.statistics.get(n), multiple).task_bytes
                 for n in cfg.statistics.measure)
     if density is not None:
         volume = float(cosmology_of(cfg).shell_volume(cfg.shell.z_min, cfg.shell.z_max,
                                                       footprint.area_deg2))
         n_cone = density[None] * volume
-        total += n_cone * (1.0 + cfg.randoms.multiple) * BYTES_PER_CONE_ROW
+        total += n_cone * (1.0 + multiple) * BYTES_PER_CONE_ROW
     return total or None
 
 

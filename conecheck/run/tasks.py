@@ -21,7 +21,8 @@ from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms
 from ..cone.build import SurveyModel, prepare_box
 from ..cone.matter import carry_matter
 from ..cone.photometry import luminosity_scatter
-from ..cone.settings import CompletenessSettings, SampleCut
+from ..cone.randoms import randoms_multiple
+from ..cone.settings import CompletenessSettings, RandomSettings, SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
 from ..footprint import Footprint, SkyRegions
@@ -165,15 +166,38 @@ def shuffle_distances(table: Any, cut: SampleCut, survey: SurveyModel,
     return np.asarray(sel["chi_obs"], dtype=np.float64)
 
 
+def smallest_random_cell(statistics: Any) -> float | None:
+    """Smallest :meth:`~conecheck.stats.Statistic.random_cell_volume` [(Mpc/h)³] of the
+    measured statistics (``statistics``: a StatisticsConfig); None when none counts pairs
+    with randoms."""
+    volumes = [STATISTICS[n].random_cell_volume(statistics.get(n)) for n in statistics.measure]
+    volumes = [v for v in volumes if v is not None]
+    return min(volumes) if volumes else None
+
+
+def cut_randoms_multiple(randoms: RandomSettings, cell_volume: float | None,
+                         n_galaxies: float, footprint: Footprint, cosmology: Cosmology,
+                         cut: SampleCut) -> float:
+    """Randoms per galaxy of one cut: ``randoms.multiple``, or the ``auto`` choice from the
+    cut's mean galaxy density (``n_galaxies`` over the footprint's area × the cut's shell)
+    and the smallest cell [(Mpc/h)³] of the statistics counted with randoms
+    (:func:`smallest_random_cell`)."""
+    density = n_galaxies / max(footprint.area_sr * cut_volume_per_sr(cosmology, cut), 1e-300)
+    return randoms_multiple(randoms, density, cell_volume)
+
+
 def cut_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
     """The random catalogue of one sample and cut (seeded by the run seed, sample and cut).
 
-    ``spec.n_expected`` galaxies × ``randoms.multiple`` points inside the footprint between
-    the cut's distances; ``spec.data_chi`` [Mpc/h] is the radial source of ``shuffle``.
+    ``spec.n_expected`` galaxies × the cut's randoms multiple (:func:`cut_randoms_multiple`)
+    points inside the footprint between the cut's distances; ``spec.data_chi`` [Mpc/h] is
+    the radial source of ``shuffle``.
     """
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
-    n = n_randoms(spec.n_expected, spec.randoms.multiple)
+    multiple = cut_randoms_multiple(spec.randoms, smallest_random_cell(spec.statistics),
+                                    spec.n_expected, footprint, cosmo, spec.cut)
+    n = n_randoms(spec.n_expected, multiple)
     rng = seeded_rng(spec.seed, "randoms", spec.sample_name, spec.cut.label)
     return make_randoms(footprint, lo, hi, n, rng, spec.randoms.radial, spec.data_chi, cosmo,
                         spec.randoms.sampling)

@@ -491,6 +491,12 @@ class Multipoles(Statistic):
         return multipoles_cone(sample, randoms, geometry, settings, rr=shared,
                                jackknife=jackknife)
 
+    def random_cell_volume(self, settings=None):
+        s = self.settings_or_default(settings)
+        e = s.edges
+        # the innermost s shell, over the |μ| range the multipoles use
+        return float(4.0 / 3.0 * math.pi * (e[1] ** 3 - e[0] ** 3) * s.mu_max)
+
     def cost(self, settings, randoms_multiple):
         s = self.settings_or_default(settings)
         sphere = 4.0 / 3.0 * math.pi * s.edges[-1] ** 3

@@ -148,6 +148,12 @@ class Statistic:
         the statistic uses matter (how far around the galaxies a cone must carry it)."""
         return 0.0, 0.0
 
+    def random_cell_volume(self, settings: Any = None) -> float | None:
+        """Volume [(Mpc/h)³] around a galaxy of the smallest bin whose data–random count the
+        cone estimator uses (how many randoms it needs: :func:`conecheck.cone.randoms.
+        auto_multiple`); None for a statistic that counts no pairs with randoms."""
+        return None
+
     # ------------------------------------------------------------------ shared work
     def prepare_cone(self, randoms: ConeSample | None, geometry: ConeGeometry,
                      settings: Any = None, *, n_data: int | None = None,

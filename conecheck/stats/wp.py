@@ -389,6 +389,12 @@ class ProjectedCorrelation(Statistic):
                      jackknife=None):
         return wp_cone(sample, randoms, geometry, settings, rr=shared, jackknife=jackknife)
 
+    def random_cell_volume(self, settings=None):
+        s = self.settings_or_default(settings)
+        e = s.edges
+        # the innermost r_p annulus, over the whole line-of-sight integration
+        return float(math.pi * (e[1] ** 2 - e[0] ** 2) * 2.0 * s.pi_max)
+
     def cost(self, settings, randoms_multiple):
         s = self.settings_or_default(settings)
         cyl = math.pi * s.rp_max ** 2 * 2.0 * s.pi_max
