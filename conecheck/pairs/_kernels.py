@@ -14,7 +14,9 @@ Pair counts, per point and neighbour cell, run in passes over that window:
 2. a compaction of the accepted candidates by a conditional increment (no branch to
    mispredict);
 3. a scalar loop binning the accepted candidates and adding their weights into the
-   histogram (histogram updates cannot be vectorised).
+   histogram (histogram updates cannot be vectorised), compiled once per binning mode
+   (look-up cells, a scan of the edges, jackknife tags: :data:`BIN_LOOKUP`) so that no
+   test of the mode is left inside it.
 
 Before a window is scanned, a cheap geometric test skips what cannot hold a pair: on a
 cone, a cell pair and then each point against the neighbour cell (:func:`_can_pair`, a
@@ -80,16 +82,60 @@ def _bin_of(c, rp2, lut, nxt, scan, edges2, n_rp):
     return lut[c] + (rp2 >= nxt[c])
 
 
+#: Binning modes of the third pass, each compiled on its own (``numba.literally``): with
+#: the look-up cells, with a scan of the edges (``Rp2Lookup.scan``), and with jackknife
+#: tags. Tested inside the pair loop, the mode is not hoisted out of it by the compiler,
+#: and the box kernel ran 30 % slower (benchmarks/RESULTS.md, bench_pairs).
+BIN_LOOKUP, BIN_SCAN, BIN_TOUCH = 0, 1, 2
+
+
+@numba.njit(cache=True, inline="always")
+def _bin_mode(with_touch, scan):
+    """The binning mode of a count (see :data:`BIN_LOOKUP`)."""
+    return BIN_TOUCH if with_touch else (BIN_SCAN if scan else BIN_LOOKUP)
+
+
+@numba.njit(cache=True, inline="always")
+def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, edges2, n_rp,
+                n_pi, nb, tot, touch, mode):
+    """Pass 3: bin the ``m`` accepted candidates ``j0 + jbuf[:m]`` of one point (weight
+    ``wi``, jackknife region ``ri``) and add their weights to the histogram."""
+    if mode == BIN_LOOKUP:
+        for a in range(m):
+            q = np.uint64(jbuf[a])
+            c = np.uint64(cbuf[q])
+            k = lut[c] + (fbuf[q] >= nxt[c])
+            tot[np.uint64(k * n_pi + pbuf[q])] += wi * w2[np.uint64(j0) + q]
+    elif mode == BIN_SCAN:
+        for a in range(m):
+            q = np.uint64(jbuf[a])
+            k = _rp_bin(fbuf[q], edges2, n_rp)
+            tot[np.uint64(k * n_pi + pbuf[q])] += wi * w2[np.uint64(j0) + q]
+    else:
+        for a in range(m):
+            q = np.uint64(jbuf[a])
+            k = _bin_of(np.uint64(cbuf[q]), fbuf[q], lut, nxt, scan, edges2, n_rp)
+            idx = np.uint64(k * n_pi + pbuf[q])
+            j = np.uint64(j0) + q
+            ww = wi * w2[j]
+            tot[idx] += ww
+            rj = np.int64(g2[j])
+            touch[np.uint64(ri * nb) + idx] += ww
+            touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+
+
 @numba.njit(cache=True)
 def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
                sx, sy, sz, same, edges2, pi_max, inv_dpi, n_pi,
-               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch,
+               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, mode,
                bx0, bx1, by0, by1, reach2):
     """All pairs between one cell of set 1 and one (shifted) cell of set 2, periodic box.
 
     A point of set 1 farther across the LOS than √``reach2`` from the second cell's
-    rectangle [bx0, bx1] × [by0, by1] has no partner there and is skipped.
+    rectangle [bx0, bx1] × [by0, by1] has no partner there and is skipped. ``mode`` is a
+    compile-time binning mode (:data:`BIN_LOOKUP`).
     """
+    numba.literally(mode)
     n_rp = edges2.size - 1
     rpmin2 = edges2[0]
     rpmax2 = edges2[n_rp]
@@ -131,20 +177,8 @@ def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
         for q in range(nwin):
             jbuf[m] = q
             m += cbuf[q] != dummy
-        wi = w1[i]
-        ri = np.int64(g1[i])
-        for a in range(m):
-            q = np.uint64(jbuf[a])
-            c = np.uint64(cbuf[q])
-            k = _bin_of(c, fbuf[q], lut, nxt, scan, edges2, n_rp)
-            idx = np.uint64(k * n_pi + pbuf[q])
-            j = np.uint64(j0) + q
-            ww = wi * w2[j]
-            tot[idx] += ww
-            if with_touch:
-                rj = np.int64(g2[j])
-                touch[np.uint64(ri * nb) + idx] += ww
-                touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+        _bin_window(m, j0, w1[i], np.int64(g1[i]), w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt,
+                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode)
 
 
 @numba.njit(cache=True)
@@ -173,6 +207,7 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
     with_touch = n_regions > 0
+    mode = _bin_mode(with_touch, scan)
     nb = (n_rp + 1) * n_pi
     rpmax2 = edges2[n_rp]
     # cell sides across the LOS; the tolerance covers a point that floor() put one
@@ -204,12 +239,25 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                 if s2 == e2:
                     continue
                 same = auto and o == 0
-                _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
-                           wx * box_size, wy * box_size, wz * box_size, same,
-                           edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                           fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch,
-                           kx * cx - tol, (kx + 1) * cx + tol, ky * cy - tol,
-                           (ky + 1) * cy + tol, rpmax2)
+                sx, sy, sz = wx * box_size, wy * box_size, wz * box_size
+                bx0, bx1 = kx * cx - tol, (kx + 1) * cx + tol
+                by0, by1 = ky * cy - tol, (ky + 1) * cy + tol
+                # one call per binning mode, each with a literal mode (see BIN_LOOKUP)
+                if mode == BIN_TOUCH:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
+                               bx0, bx1, by0, by1, rpmax2)
+                elif mode == BIN_SCAN:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
+                               bx0, bx1, by0, by1, rpmax2)
+                else:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_LOOKUP,
+                               bx0, bx1, by0, by1, rpmax2)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 
@@ -258,9 +306,11 @@ def _can_pair(ax, ay, az, dx, dy, dz, ex, ey, ez, lx, ly, lz, first_los, rp_max,
 @numba.njit(cache=True, error_model="numpy")
 def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
                 edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                fbuf, cbuf, pbuf, jbuf, tot, touch, with_touch, first_los, window,
+                fbuf, cbuf, pbuf, jbuf, tot, touch, mode, first_los, window,
                 bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max, s_max):
-    """All pairs between two cells of a cone (observer at the origin)."""
+    """All pairs between two cells of a cone (observer at the origin); ``mode`` is a
+    compile-time binning mode (:data:`BIN_LOOKUP`)."""
+    numba.literally(mode)
     n_rp = edges2.size - 1
     rpmin2 = edges2[0]
     rpmax2 = edges2[n_rp]
@@ -318,19 +368,8 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
             m += cbuf[q] != dummy
         if m == 0:
             continue
-        wi = w1[i]
-        ri = np.int64(g1[i])
-        for a in range(m):
-            q = np.uint64(jbuf[a])
-            k = _bin_of(np.uint64(cbuf[q]), fbuf[q], lut, nxt, scan, edges2, n_rp)
-            idx = np.uint64(k * n_pi + pbuf[q])
-            j = np.uint64(j0) + q
-            ww = wi * w2[j]
-            tot[idx] += ww
-            if with_touch:
-                rj = np.int64(g2[j])
-                touch[np.uint64(ri * nb) + idx] += ww
-                touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+        _bin_window(m, j0, w1[i], np.int64(g1[i]), w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt,
+                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode)
 
 
 @numba.njit(parallel=True, cache=True)
@@ -355,6 +394,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
     with_touch = n_regions > 0
+    mode = _bin_mode(with_touch, scan)
     nb = (n_rp + 1) * n_pi
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
@@ -389,13 +429,29 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                                  lx, ly, lz, first_los, rp_max, pi_max, s_max):
                     continue
                 same = auto and o == 0
-                _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2,
-                            same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                            fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, with_touch, first_los,
-                            window, origin[0] + (kx + 0.5) * side[0],
-                            origin[1] + (ky + 0.5) * side[1], origin[2] + (kz + 0.5) * side[2],
-                            0.5 * side[0], 0.5 * side[1], 0.5 * side[2], qx, qy, qz, rp_max,
-                            s_max)
+                bx = origin[0] + (kx + 0.5) * side[0]
+                by = origin[1] + (ky + 0.5) * side[1]
+                bz = origin[2] + (kz + 0.5) * side[2]
+                hx, hy, hz = 0.5 * side[0], 0.5 * side[1], 0.5 * side[2]
+                # one call per binning mode, each with a literal mode (see BIN_LOOKUP)
+                if mode == BIN_TOUCH:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
+                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                s_max)
+                elif mode == BIN_SCAN:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
+                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                s_max)
+                else:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c,
+                                BIN_LOOKUP, first_los, window, bx, by, bz, hx, hy, hz, qx, qy,
+                                qz, rp_max, s_max)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 
