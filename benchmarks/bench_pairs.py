@@ -273,8 +273,9 @@ def main(argv=None) -> int:
             "(target ≤ 1.0, goal 0.8).")
         say()
 
-    say(f"1-minute load average at the end: {os.getloadavg()[0]:.2f} (above 2, other work "
-        "shared the two cores).")
+    load1 = os.getloadavg()[0]
+    say(f"1-minute load average at the end: {load1:.2f}"
+        + (f" (above {THREADS}: other work shared the cores)." if load1 > THREADS else "."))
     if not args.no_write:
         path = Path(__file__).with_name("RESULTS.md")
         body = "\n".join(["## Pair counting (`python benchmarks/bench_pairs.py`)", "",

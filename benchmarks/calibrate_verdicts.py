@@ -1,7 +1,7 @@
 """Calibration and power of the verdicts over many seeds (one command; not run in CI).
 
     python benchmarks/calibrate_verdicts.py [--seeds 16] [--cones 8] [--out DIR] [--full-demo]
-        [--statistics number_density,wp,cic,vpf] [--only TEXT]
+        [--statistics number_density,wp,cic,vpf] [--only TEXT] [--randoms-multiple auto]
 
 Every seed is an independent synthetic box (the quick demo scale, one sample). Set-ups:
 
@@ -171,8 +171,14 @@ def main(argv: list[str] | None = None) -> int:
                          "tests' tiny runs, number_density,wp,cic,vpf)")
     ap.add_argument("--no-shifts", action="store_true",
                     help="skip the HOD derivatives (they do not enter the verdicts)")
+    ap.add_argument("--randoms-multiple", default=None,
+                    help='randoms.multiple of every run ("auto" or a number; default: the '
+                         "quick demo's 5)")
     a = ap.parse_args(argv)
     extra: dict[str, Any] = {}
+    if a.randoms_multiple is not None:
+        extra["randoms.multiple"] = (a.randoms_multiple if a.randoms_multiple == "auto"
+                                     else float(a.randoms_multiple))
     if a.statistics:
         extra["statistics.measure"] = a.statistics.split(",")
     if a.no_shifts:
