@@ -94,7 +94,8 @@ class MultipolesSettings:
         Even multipoles to measure, from 0, 2 and 4.
     rr_method : {"full", "split"}
         Cone RR from all random pairs, or only from pairs inside disjoint random subsets
-        (Keihänen et al. 2019, A&A 631, A73).
+        (Keihänen et al. 2019, A&A 631, A73): cheaper, but the fewer pairs add random noise
+        that ξ amplifies in proportion to ξ, large at small s (benchmarks/RESULTS.md).
     split_factor : float
         Size of each random subset of the split method, in units of the data size.
     """

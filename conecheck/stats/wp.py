@@ -83,7 +83,8 @@ class WpSettings:
         |π| bin width [Mpc/h].
     rr_method : {"full", "split"}
         RR from all random pairs, or only from pairs inside disjoint random subsets
-        (Keihänen et al. 2019, A&A 631, A73).
+        (Keihänen et al. 2019, A&A 631, A73): cheaper, but the fewer pairs add random noise
+        that ξ amplifies in proportion to ξ, large at small r_p (benchmarks/RESULTS.md).
     split_factor : float
         Size of each random subset of the split method, in units of the data size.
     """
