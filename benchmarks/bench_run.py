@@ -34,7 +34,7 @@ jackknife region; (2) *whole run*: the same baseline time over conecheck's whole
 (box generation, box statistics, comparison, tables and PDF included).  The script also
 checks that the two sides agree: on one cone and cut, conecheck's wp with the baseline's
 randoms and a full RR equals the baseline's wp to rounding; the run's own wp (other
-randoms, split RR) agrees within a fraction of its jackknife error; the run's number
+randoms, the configured RR) agrees within a fraction of its jackknife error; the run's number
 density, counts-in-cylinders and VPF of cone 0 equal the baseline's (identical catalogues).
 
 ``--heavy`` runs the same comparison on :data:`HEAVY`: the standard workload to z = 0.15 with
@@ -701,10 +701,11 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
     say(f"| baseline ({b['counter']}, {b['threads']} threads, one process) | cone builds + "
         f"fresh randoms + DD, DR, RR per cone and cut + Landy–Szalay (no wp jackknife) + "
         f"conecheck's number density, cic, VPF (with jackknife) | {b['total']:.1f} | 1.00 |")
+    rr_words = f"{d['statistics']['wp'].get('rr_method', 'full')} RR"
     for sched, cr in runs.items():
         meas = conecheck_measure_time(cr)
         say(f"| conecheck, scheduler {sched} | randoms + cones stages (shared randoms and RR, "
-            f"split RR, wp, cic, VPF, density, all with {d['jackknife']['sky_regions']}-region "
+            f"{rr_words}, wp, cic, VPF, density, all with {d['jackknife']['sky_regions']}-region "
             f"jackknife) | {meas:.1f} | **{b['total'] / meas:.2f}** |")
         say(f"| conecheck, scheduler {sched} | whole run: inputs (box generation), box "
             f"statistics, HOD derivatives, randoms, cones, comparison, tables, PDF and HTML "
@@ -795,7 +796,7 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
         say(f"| all bins (sum) | {sum(v['var_conecheck']) / sum(v['var_baseline']):.2f} | |")
         say("")
     say(f"Agreement with the run (scheduler {next(iter(runs))}; cone 0; the run used its own "
-        "shared randoms and split RR): "
+        f"shared randoms and {rr_words}): "
         "largest |Δwp| in units of the cone's jackknife σ, and whether the run's number "
         "density, cic and VPF equal the baseline's (same catalogue, same seeds):")
     say("")
