@@ -363,6 +363,14 @@ def test_edges_too_close_for_the_table_still_exact(box_points):
     pcc = count_rppi_cone(p1 + 300.0, rp_edges=edges, pi_max=6.0, dpi=2.0)
     np.testing.assert_array_equal(pcc.total, brute_cone(p1 + 300.0, None, None, None, edges,
                                                         6.0, 2.0))
+    # the same with jackknife tags (the kernels' third binning mode scans too)
+    reg = np.arange(len(p1)) % 3
+    pj = count_rppi_box(p1, None, reg, box_size=L, rp_edges=edges, pi_max=6.0, dpi=2.0,
+                        n_regions=3)
+    np.testing.assert_array_equal(pj.total, ref)
+    pjc = count_rppi_cone(p1 + 300.0, None, reg, rp_edges=edges, pi_max=6.0, dpi=2.0,
+                          n_regions=3)
+    np.testing.assert_array_equal(pjc.total, pcc.total)
 
 
 # --------------------------------------------------------------------------- (s, μ) counts
