@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from scipy.spatial import cKDTree
 
 from conecheck.errors import InputError
-from conecheck.pairs import count_rppi_box, count_rppi_cone
+from conecheck.pairs import count_rppi_box, count_rppi_cone, join_separations
 from conecheck.pairs.binning import rp2_lookup
 
 treecorr = pytest.importorskip("treecorr")
@@ -401,3 +401,43 @@ def test_smu_counts_equal_brute_force_in_a_box_and_on_a_cone():
     want, _, _ = np.histogram2d(s[iu], np.minimum(mu[iu], 1 - 1e-15),
                                 bins=[bins.s_edges, bins.mu_edges])
     assert np.array_equal(count_smu_cone(q, bins=bins).total, want)
+
+
+def test_join_separations_of_one_set_is_the_whole_count():
+    """Counts below and above an inner edge, joined, equal one count over all the edges
+    (same points: the rescaling is exactly 1), delete-one counts included."""
+    rng = np.random.default_rng(4)
+    p = _shell(rng, 1500)
+    reg = rng.integers(0, 4, len(p))
+    edges = np.geomspace(0.5, 12.0, 7)
+    kw = {"pi_max": 9.0, "dpi": 3.0, "n_regions": 4}
+    whole = count_rppi_cone(p, None, reg, rp_edges=edges, **kw)
+    joined = join_separations(count_rppi_cone(p, None, reg, rp_edges=edges[:4], **kw),
+                              count_rppi_cone(p, None, reg, rp_edges=edges[3:], **kw))
+    np.testing.assert_array_equal(joined.rp_edges, edges)
+    np.testing.assert_array_equal(joined.total, whole.total)
+    np.testing.assert_allclose(joined.touch, whole.touch, rtol=1e-12, atol=0)
+    with pytest.raises(ValueError, match="meet at one edge"):
+        join_separations(count_rppi_cone(p, rp_edges=edges[:3], pi_max=9.0, dpi=3.0),
+                         count_rppi_cone(p, rp_edges=edges[3:], pi_max=9.0, dpi=3.0))
+
+
+def test_join_separations_keeps_each_part_normalisation():
+    """Above the joint the counts come from a subset: the joined counts over the whole set's
+    normalisations equal the subset's own normalised counts, and their delete-one ones."""
+    rng = np.random.default_rng(5)
+    p = _shell(rng, 1600)
+    reg = rng.integers(0, 4, len(p))
+    w = rng.uniform(0.5, 1.5, len(p))
+    edges = np.geomspace(0.5, 12.0, 7)
+    kw = {"pi_max": 9.0, "dpi": 3.0, "n_regions": 4}
+    small = count_rppi_cone(p, w, reg, rp_edges=edges[:3], **kw)
+    sub = slice(0, None, 3)
+    large = count_rppi_cone(p[sub], w[sub], reg[sub], rp_edges=edges[2:], **kw)
+    joined = join_separations(small, large)
+    np.testing.assert_allclose(joined.normalised()[:2], small.normalised(), rtol=1e-14)
+    np.testing.assert_allclose(joined.normalised()[2:], large.normalised(), rtol=1e-12)
+    np.testing.assert_allclose(joined.normalised_delete_one()[:, 2:],
+                               large.normalised_delete_one(), rtol=1e-12)
+    np.testing.assert_allclose(joined.normalised_delete_one()[:, :2],
+                               small.normalised_delete_one(), rtol=1e-14)

@@ -145,14 +145,15 @@ def test_split_random_rr_agrees_with_full(monkeypatch):
     rng, geo, data, rand = _cone_setup(5, n_randoms=20)
     kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}
     rr_full = count_rr_cone(rand, geo, WpSettings(**kw))
-    rr_split = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split"), n_data=len(data))
+    # split_above = 0: every bin split, the method as published
+    split_kw = {**kw, "rr_method": "split", "split_above": 0.0}
+    rr_split = count_rr_cone(rand, geo, WpSettings(**split_kw), n_data=len(data))
     assert rr_split.n_subsets == 20
     a, b = rr_full.normalised(), rr_split.normalised()
     rel2 = 1 / np.maximum(rr_split.total, 1) + 1 / rr_full.total
     assert np.all(np.abs(a - b) < 5 * a * np.sqrt(rel2))
     full = wp_cone(data, rand, geo, WpSettings(**kw), rr=rr_full, jackknife=False)
-    split = wp_cone(data, rand, geo, WpSettings(**kw, rr_method="split"), rr=rr_split,
-                    jackknife=False)
+    split = wp_cone(data, rand, geo, WpSettings(**split_kw), rr=rr_split, jackknife=False)
     dd = count_rppi_cone(data.xyz, rp_edges=EDGES, pi_max=20.0, dpi=2.0)
     one_plus_xi = dd.normalised() / a
     sigma = 2 * 2.0 * np.sqrt(np.sum(one_plus_xi**2 * rel2, axis=1))
@@ -162,9 +163,43 @@ def test_split_random_rr_agrees_with_full(monkeypatch):
     pois = sh.shell_from_box(sh.poisson(rng, 2e-3, 240.0), 240.0, 40.0, 110.0, geo)
     rand_p = sh.randoms(geo, 10 * len(pois), rng)
     wf = wp_cone(pois, rand_p, geo, WpSettings(**kw))
-    ws = wp_cone(pois, rand_p, geo, WpSettings(**kw, rr_method="split"))
+    ws = wp_cone(pois, rand_p, geo, WpSettings(**split_kw))
     z = (ws.value - wf.value) / np.sqrt(np.diag(wf.covariance))
     assert np.sqrt(np.mean(z**2)) < 2 / np.sqrt(10) and np.max(np.abs(z)) < 4 / np.sqrt(10)
+
+
+def test_split_rr_counts_every_pair_below_split_above(monkeypatch):
+    """With ``split_above`` the r_p bins that start below it hold the full RR exactly, the
+    others the split RR exactly, each on its own normalisation (delete-one ones too)."""
+    import conecheck.stats._common as common_module
+
+    monkeypatch.setattr(common_module, "MIN_SPLIT_SUBSET", 1)
+    _, geo, data, rand = _cone_setup(5, n_randoms=20)
+    kw = {"rp_edges": EDGES, "pi_max": 20.0, "dpi": 2.0}
+    full = count_rr_cone(rand, geo, WpSettings(**kw))
+    split = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split", split_above=0.0),
+                          n_data=len(data))
+    e = np.asarray(EDGES)
+    above = float(np.sqrt(e[2] * e[3]))  # between two edges: bins from e[3] on are split
+    both = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split", split_above=above),
+                         n_data=len(data))
+    assert both.n_subsets == 20
+    np.testing.assert_array_equal(both.rp_edges, e)
+    np.testing.assert_allclose(both.normalised()[:3], full.normalised()[:3], rtol=1e-12)
+    np.testing.assert_allclose(both.normalised()[3:], split.normalised()[3:], rtol=1e-12)
+    np.testing.assert_allclose(both.normalised_delete_one()[:, :3],
+                               full.normalised_delete_one()[:, :3], rtol=1e-12)
+    np.testing.assert_allclose(both.normalised_delete_one()[:, 3:],
+                               split.normalised_delete_one()[:, 3:], rtol=1e-12)
+    # at or above the last bin's lower edge nothing is split; an edge itself splits its bin
+    none = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split", split_above=e[-1]),
+                         n_data=len(data))
+    np.testing.assert_array_equal(none.total, full.total)
+    at_edge = count_rr_cone(rand, geo, WpSettings(**kw, rr_method="split", split_above=e[3]),
+                            n_data=len(data))
+    np.testing.assert_array_equal(at_edge.total, both.total)
+    with pytest.raises(InputError, match="split_above"):
+        WpSettings(split_above=-1.0)
 
 
 def test_wp_bad_input():

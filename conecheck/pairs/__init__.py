@@ -6,9 +6,16 @@ count from a single pass.  See :mod:`.counts` for the counting conventions.
 """
 
 from .binning import RpPiBins, SMuBins, make_bins, make_smu_bins
-from .counts import PairCounts, count_rppi_box, count_rppi_cone, count_smu_box, count_smu_cone
+from .counts import (
+    PairCounts,
+    count_rppi_box,
+    count_rppi_cone,
+    count_smu_box,
+    count_smu_cone,
+    join_separations,
+)
 from .neighbours import nearest_distance, neighbours_box, neighbours_cone
 
 __all__ = ["PairCounts", "RpPiBins", "SMuBins", "count_rppi_box", "count_rppi_cone",
-           "count_smu_box", "count_smu_cone", "make_bins", "make_smu_bins", "nearest_distance",
-           "neighbours_box", "neighbours_cone"]
+           "count_smu_box", "count_smu_cone", "join_separations", "make_bins",
+           "make_smu_bins", "nearest_distance", "neighbours_box", "neighbours_cone"]

@@ -24,6 +24,7 @@ Conventions
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -130,6 +131,41 @@ class PairCounts:
             norm=self.norm + other.norm,
             norm_delete_one=self.norm_delete_one + other.norm_delete_one,
             n_subsets=self.n_subsets + other.n_subsets)
+
+
+def join_separations(small: PairCounts, large: PairCounts) -> PairCounts:
+    """Counts of ``small``'s first-separation bins followed by ``large``'s, on ``small``'s
+    normalisation.
+
+    The two counts may come from different point sets (for example all randoms below a
+    scale and disjoint random subsets above it): each bin of ``large`` is rescaled so that
+    its count over ``small``'s normalisation, and every delete-one count over ``small``'s
+    delete-one normalisation, equal what ``large`` gives on its own normalisation.  The
+    result's ``normalised()`` and ``normalised_delete_one()`` are therefore each part's, bin
+    by bin; its sums of weights are ``small``'s, its ``n_subsets`` ``large``'s.
+
+    Parameters
+    ----------
+    small, large : PairCounts
+        Counts of the same kind (auto or cross), |π| or |μ| bins and jackknife regions,
+        with ``large``'s first edge equal to ``small``'s last [Mpc/h].
+    """
+    if (small.is_auto != large.is_auto or small.n_regions != large.n_regions
+            or not np.array_equal(small.pi_edges, large.pi_edges)
+            or small.rp_edges[-1] != large.rp_edges[0]):
+        raise ValueError("can only join pair counts of the same kind, second-axis bins and "
+                         "regions whose separations meet at one edge")
+    scale = small.norm / large.norm
+    total = np.concatenate([small.total, large.total * scale])
+    touch = None
+    if small.touch is not None:
+        # rescale each delete-one count by its own normalisation ratio, then back to touch
+        kept = large.delete_one_all() * (small.norm_delete_one
+                                         / large.norm_delete_one)[:, None, None]
+        touch = np.concatenate([small.touch, (large.total * scale)[None] - kept], axis=1)
+    return dataclasses.replace(small, total=total, touch=touch,
+                               rp_edges=np.concatenate([small.rp_edges, large.rp_edges[1:]]),
+                               n_subsets=large.n_subsets)
 
 
 def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64],

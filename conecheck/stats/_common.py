@@ -8,7 +8,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..pairs import PairCounts
+from ..pairs import PairCounts, join_separations
 from .base import ConeSample
 
 #: Smallest random subset of the split RR method (fewer subsets are used below it).
@@ -57,15 +57,22 @@ def weighted_histograms(values: NDArray[np.float64], weights: NDArray[np.float64
 def count_rr_split(randoms: ConeSample, rr_method: str, split_factor: float,
                    n_data: int | None, what: str,
                    count: Callable[[NDArray[np.float64], NDArray[np.float64],
-                                    NDArray[np.int64] | None], PairCounts]) -> PairCounts:
+                                    NDArray[np.int64] | None, NDArray[np.float64]], PairCounts],
+                   edges: NDArray[np.float64], split_above: float = 0.0) -> PairCounts:
     """RR of a cut's randoms, from all random pairs or from disjoint random subsets.
 
     ``rr_method = "split"`` counts pairs only inside M disjoint subsets of ``split_factor``
     times the data size each, summed with their pair numbers (Keihänen et al. 2019, A&A 631,
-    A73). ``count(xyz, w, region)`` is the statistic's auto pair count of one set.
+    A73), in the bins whose lower edge is at least ``split_above`` [Mpc/h]; the smaller bins
+    count every random pair. Landy–Szalay passes RR's relative noise on to ξ with a factor
+    1 − ξ (against −2 for DR's), large at small separations where ξ ≫ 1, while RR's pairs
+    lie mostly at large ones, so splitting only there keeps most of the saving
+    (benchmarks/RESULTS.md). ``count(xyz, w, region, edges)`` is the statistic's auto pair
+    count of one set in bins of the first separation ``edges`` [Mpc/h].
     """
+    edges = np.asarray(edges, dtype=np.float64)
     if rr_method == "full":
-        return count(randoms.xyz, randoms.weight, randoms.region)
+        return count(randoms.xyz, randoms.weight, randoms.region, edges)
     if n_data is None or n_data < 1:
         raise InputError(f"{what}: rr_method = 'split' needs the data size (n_data) to size "
                          "the random subsets")
@@ -73,16 +80,22 @@ def count_rr_split(randoms: ConeSample, rr_method: str, split_factor: float,
     # Tiny subsets leave the smallest bins with a handful of random pairs, and a delete-one
     # region can then empty a bin: keep every subset at least this large.
     m = max(1, min(m, len(randoms) // MIN_SPLIT_SUBSET))
+    first = int(np.searchsorted(edges[:-1], split_above, side="left"))
+    if m == 1 or first >= edges.size - 1:
+        return count(randoms.xyz, randoms.weight, randoms.region, edges)
     xyz, w = randoms.xyz, randoms.w
-    total: PairCounts | None = None
+    split: PairCounts | None = None
     for s in range(m):
         # strided subsets: disjoint, and each spread over the whole survey whatever the
         # order the randoms come in
         sel = slice(s, None, m)
         reg = None if randoms.region is None else randoms.region[sel]
-        part = count(xyz[sel], w[sel], reg)
-        total = part if total is None else total + part
-    return total
+        part = count(xyz[sel], w[sel], reg, edges[first:])
+        split = part if split is None else split + part
+    if first == 0:
+        return split
+    whole = count(randoms.xyz, randoms.weight, randoms.region, edges[:first + 1])
+    return join_separations(whole, split)
 
 
 def cone_regions(data: ConeSample, randoms: ConeSample, jackknife: bool | None,

@@ -29,7 +29,7 @@ signs of μ); as for wp this *is* Landy–Szalay. Box jackknife (see :mod:`.wp` 
 
 Cone: Landy–Szalay in (s, μ) with the line of sight at the pair midpoint (the pair engine's
 :func:`~conecheck.pairs.count_smu_cone`) and the cut's RR, counted once for every cone (or
-from disjoint random subsets, Keihänen et al. 2019, A&A 631, A73).
+from disjoint random subsets above ``split_above``, Keihänen et al. 2019, A&A 631, A73).
 """
 
 from __future__ import annotations
@@ -54,7 +54,14 @@ from ._common import (
     want_jackknife,
 )
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import RR_METHODS, check_range_bins, positive, range_edges
+from .settings import (
+    RR_METHODS,
+    SPLIT_ABOVE,
+    check_range_bins,
+    non_negative,
+    positive,
+    range_edges,
+)
 from .statistic import Cost, Display, Statistic
 
 NAME = "multipoles"
@@ -93,11 +100,15 @@ class MultipolesSettings:
     ells : tuple of int
         Even multipoles to measure, from 0, 2 and 4.
     rr_method : {"full", "split"}
-        Cone RR from all random pairs, or only from pairs inside disjoint random subsets
-        (Keihänen et al. 2019, A&A 631, A73): cheaper, but the fewer pairs add random noise
-        that ξ amplifies in proportion to ξ, large at small s (benchmarks/RESULTS.md).
+        Cone RR from all random pairs, or, in the s bins from ``split_above`` on, only from
+        pairs inside disjoint random subsets (Keihänen et al. 2019, A&A 631, A73): cheaper,
+        with random noise that ξ picks up with a factor 1 − ξ, hence the full count
+        at small s (benchmarks/RESULTS.md).
     split_factor : float
         Size of each random subset of the split method, in units of the data size.
+    split_above : float
+        The split method splits only the s bins whose lower edge is at least this [Mpc/h];
+        smaller bins count every random pair (0: every bin, as Keihänen et al. do).
     """
 
     s_min: float = 1.0
@@ -110,6 +121,7 @@ class MultipolesSettings:
     ells: tuple[int, ...] = (0, 2)
     rr_method: str = "full"
     split_factor: float = 1.0
+    split_above: float = SPLIT_ABOVE
 
     def __post_init__(self) -> None:
         if self.s_edges is None:
@@ -135,6 +147,7 @@ class MultipolesSettings:
             raise InputError(f"{_KEY}.rr_method: expected one of {RR_METHODS}, "
                              f"got {self.rr_method!r}")
         positive(self.split_factor, f"{_KEY}.split_factor")
+        non_negative(self.split_above, f"{_KEY}.split_above")
 
     @property
     def edges(self) -> NDArray[np.float64]:
@@ -402,8 +415,9 @@ def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
     bins = settings.bins
     return count_rr_split(
         randoms, settings.rr_method, settings.split_factor, n_data, NAME,
-        lambda xyz, w, reg: count_smu_cone(xyz, w, reg, bins=bins,
-                                           n_regions=randoms.n_regions))
+        lambda xyz, w, reg, edges: count_smu_cone(
+            xyz, w, reg, bins=make_smu_bins(edges, bins.n_mu), n_regions=randoms.n_regions),
+        bins.s_edges, settings.split_above)
 
 
 def _check_rr(rr: PairCounts, settings: MultipolesSettings, k: int) -> None:

@@ -33,8 +33,11 @@ of pairs (DD, RR: ((Σw)² − Σw²)/2; DR: Σw_D Σw_R).  RR depends only on t
 is counted once per sample and cut (:func:`count_rr_cone`) and passed to every cone.  The
 ``split`` option counts RR only inside M disjoint random subsets, each ``split_factor``
 times the data size, normalised by Σ_subsets of their pair numbers (Keihänen et al. 2019,
-A&A 631, A73); DR still uses all randoms.  Delete-one counts and normalisations come from
-the one-pass region bookkeeping of :mod:`conecheck.pairs`.
+A&A 631, A73), in the r_p bins from ``split_above`` on; the smaller bins, where ξ is large
+and amplifies RR's noise, count every random pair, on their own normalisation
+(:func:`~conecheck.pairs.join_separations`).  DR always uses all randoms.  Delete-one
+counts and normalisations come from the one-pass region bookkeeping of
+:mod:`conecheck.pairs`.
 """
 
 from __future__ import annotations
@@ -58,7 +61,14 @@ from ._common import (
     want_jackknife,
 )
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
-from .settings import RR_METHODS, check_range_bins, positive, range_edges
+from .settings import (
+    RR_METHODS,
+    SPLIT_ABOVE,
+    check_range_bins,
+    non_negative,
+    positive,
+    range_edges,
+)
 from .statistic import Cost, Display, Statistic
 
 NAME = "wp"
@@ -82,11 +92,15 @@ class WpSettings:
     dpi : float
         |π| bin width [Mpc/h].
     rr_method : {"full", "split"}
-        RR from all random pairs, or only from pairs inside disjoint random subsets
-        (Keihänen et al. 2019, A&A 631, A73): cheaper, but the fewer pairs add random noise
-        that ξ amplifies in proportion to ξ, large at small r_p (benchmarks/RESULTS.md).
+        RR from all random pairs, or, in the r_p bins from ``split_above`` on, only from
+        pairs inside disjoint random subsets (Keihänen et al. 2019, A&A 631, A73): cheaper,
+        with random noise that ξ picks up with a factor 1 − ξ, hence the full count
+        at small r_p (benchmarks/RESULTS.md).
     split_factor : float
         Size of each random subset of the split method, in units of the data size.
+    split_above : float
+        The split method splits only the r_p bins whose lower edge is at least this
+        [Mpc/h]; smaller bins count every random pair (0: every bin, as Keihänen et al. do).
     """
 
     rp_min: float = 0.1
@@ -98,6 +112,7 @@ class WpSettings:
     dpi: float = 1.0
     rr_method: str = "full"
     split_factor: float = 1.0
+    split_above: float = SPLIT_ABOVE
 
     def __post_init__(self) -> None:
         key = "statistics.wp"
@@ -111,6 +126,7 @@ class WpSettings:
             raise InputError(f"{key}.rr_method: expected one of {RR_METHODS}, "
                              f"got {self.rr_method!r}")
         positive(self.split_factor, f"{key}.split_factor")
+        non_negative(self.split_above, f"{key}.split_above")
         try:
             self.bins  # noqa: B018 — validates pi_max / dpi
         except InputError as exc:
@@ -304,9 +320,10 @@ def count_rr_cone(randoms: ConeSample, geometry: ConeGeometry | None = None,
     bins = settings.bins
     return count_rr_split(
         randoms, settings.rr_method, settings.split_factor, n_data, "wp",
-        lambda xyz, w, reg: count_rppi_cone(xyz, w, reg, rp_edges=bins.rp_edges,
-                                            pi_max=bins.pi_max, dpi=bins.dpi,
-                                            n_regions=randoms.n_regions))
+        lambda xyz, w, reg, edges: count_rppi_cone(xyz, w, reg, rp_edges=edges,
+                                                   pi_max=bins.pi_max, dpi=bins.dpi,
+                                                   n_regions=randoms.n_regions),
+        bins.rp_edges, settings.split_above)
 
 
 def _check_rr(rr: PairCounts, bins: RpPiBins, k: int) -> None:
