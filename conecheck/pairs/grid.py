@@ -145,29 +145,44 @@ def cone_grid(pos_list: list[NDArray[np.float64]], ext: float, refine: int = 2) 
 
 #: Finest cone cells the automatic choice uses: r_max / this.
 CONE_REFINE_MAX = 3
-#: Points of set 1 per occupied cell below which finer cone cells cost more than they save.
+#: Partner points per occupied cell below which finer cone cells cost more than they save.
 CONE_POINTS_PER_CELL = 30.0
+#: Points of set 1 per occupied cell below which the cell pairs' own overhead, paid once
+#: per cell of set 1, outweighs what finer cells save (binds for sparse data against dense
+#: randoms only: an auto count meets :data:`CONE_POINTS_PER_CELL` first).
+CONE_FIRST_PER_CELL = 3.0
 
 
 def cone_refine(pos_list: list[NDArray[np.float64]], ext: float) -> int:
     """Cells per ``ext`` [Mpc/h] for a cone count, chosen from the points.
 
     Finer cells let the cell-pair test of the cone kernel hug the (r_p, π) cylinder, but
-    every cell pair and every point-cell window costs a fixed overhead, which sparse sets
-    do not repay. The rule, fitted on benchmarks/bench_pairs.py's two geometries (a
-    nearby wide shell and a distant cap): the finest of 1 … :data:`CONE_REFINE_MAX`
-    cells per ``ext`` that keeps at least :data:`CONE_POINTS_PER_CELL` points of the
-    first set (``pos_list[0]``) per occupied cell, counted on the coarsest grid and
-    scaled by the cell volume.
+    every cell pair and every point-cell window costs a fixed overhead, which windows
+    holding few partner points do not repay. The rule, fitted on
+    benchmarks/bench_pairs.py's two geometries (a nearby wide shell and a distant cap):
+    the finest of 1 … :data:`CONE_REFINE_MAX` cells per ``ext`` that keeps at least
+    :data:`CONE_POINTS_PER_CELL` partner points and :data:`CONE_FIRST_PER_CELL` points of
+    set 1 per occupied cell, each counted on the coarsest grid and scaled by the cell
+    volume. The partners are the last set of ``pos_list``: the set itself for an auto
+    count, set 2 for a cross count (for data–random counts the randoms, which fill the
+    windows). The cap from set 1 was fitted on the six data–random counts of
+    benchmarks/bench_run.py's two workloads (28 to 230 galaxies and 530 to 4,100 randoms
+    per coarse cell), where it picks the fastest of the three levels or one within 3 %.
     """
     coarse = cone_grid(pos_list, ext, refine=1)
-    p1 = np.ascontiguousarray(pos_list[0], dtype=np.float64)
-    if p1.shape[0] == 0:
+    first = np.ascontiguousarray(pos_list[0], dtype=np.float64)
+    partner = np.ascontiguousarray(pos_list[-1], dtype=np.float64)
+    if partner.shape[0] == 0 or first.shape[0] == 0:
         return 1
-    occupied = _sorting.occupied_cells(p1, coarse.origin, coarse.cell, coarse.dims)
-    per_cell = p1.shape[0] / max(occupied, 1)
-    r = int(np.floor(np.cbrt(per_cell / CONE_POINTS_PER_CELL)))
-    return int(min(max(r, 1), CONE_REFINE_MAX))
+
+    def per_cell(p: NDArray[np.float64]) -> float:
+        occupied = _sorting.occupied_cells(p, coarse.origin, coarse.cell, coarse.dims)
+        return p.shape[0] / max(occupied, 1)
+
+    r = np.cbrt(per_cell(partner) / CONE_POINTS_PER_CELL)
+    if len(pos_list) > 1:
+        r = min(r, np.cbrt(per_cell(first) / CONE_FIRST_PER_CELL))
+    return int(min(max(int(np.floor(r)), 1), CONE_REFINE_MAX))
 
 
 def neighbour_offsets(grid: Grid, ext_perp: float, ext_los: float, shape: str,
