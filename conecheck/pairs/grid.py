@@ -145,12 +145,9 @@ def cone_grid(pos_list: list[NDArray[np.float64]], ext: float, refine: int = 2) 
 
 #: Finest cone cells the automatic choice uses: r_max / this.
 CONE_REFINE_MAX = 3
-#: Partner points per occupied cell below which finer cone cells cost more than they save.
+#: Partner points per cell of an auto count below which finer cone cells cost more than
+#: they save; a cross count needs twice as many (see :func:`cone_refine`).
 CONE_POINTS_PER_CELL = 30.0
-#: Points of set 1 per occupied cell below which the cell pairs' own overhead, paid once
-#: per cell of set 1, outweighs what finer cells save (binds for sparse data against dense
-#: randoms only: an auto count meets :data:`CONE_POINTS_PER_CELL` first).
-CONE_FIRST_PER_CELL = 3.0
 
 
 def cone_refine(pos_list: list[NDArray[np.float64]], ext: float) -> int:
@@ -158,31 +155,27 @@ def cone_refine(pos_list: list[NDArray[np.float64]], ext: float) -> int:
 
     Finer cells let the cell-pair test of the cone kernel hug the (r_p, π) cylinder, but
     every cell pair and every point-cell window costs a fixed overhead, which windows
-    holding few partner points do not repay. The rule, fitted on
-    benchmarks/bench_pairs.py's two geometries (a nearby wide shell and a distant cap):
-    the finest of 1 … :data:`CONE_REFINE_MAX` cells per ``ext`` that keeps at least
-    :data:`CONE_POINTS_PER_CELL` partner points and :data:`CONE_FIRST_PER_CELL` points of
-    set 1 per occupied cell, each counted on the coarsest grid and scaled by the cell
-    volume. The partners are the last set of ``pos_list``: the set itself for an auto
-    count, set 2 for a cross count (for data–random counts the randoms, which fill the
-    windows). The cap from set 1 was fitted on the six data–random counts of
-    benchmarks/bench_run.py's two workloads (28 to 230 galaxies and 530 to 4,100 randoms
-    per coarse cell), where it picks the fastest of the three levels or one within 3 %.
+    holding few partner points do not repay. The partners are the last set of
+    ``pos_list``: the set itself for an auto count, set 2 for a cross count (for
+    data–random counts the randoms, which fill the windows). The rule: the finest of
+    1 … :data:`CONE_REFINE_MAX` cells per ``ext`` whose cells still hold, on average over
+    the occupied cells of the coarsest grid, :data:`CONE_POINTS_PER_CELL` partner points
+    for an auto count, or twice that for a cross count, which visits every neighbour
+    cell rather than half of them and so pays twice the windows per point. The
+    threshold was fitted on benchmarks/bench_pairs.py's auto counts (a nearby wide shell
+    and a distant cap); the factor two matches the eight data–random counts of
+    bench_pairs.py and of benchmarks/bench_run.py's two workloads (470 to 4,100 randoms
+    per coarse cell), where it picks the fastest level or one within 5 % of it.
     """
     coarse = cone_grid(pos_list, ext, refine=1)
-    first = np.ascontiguousarray(pos_list[0], dtype=np.float64)
     partner = np.ascontiguousarray(pos_list[-1], dtype=np.float64)
-    if partner.shape[0] == 0 or first.shape[0] == 0:
+    if partner.shape[0] == 0 or len(pos_list[0]) == 0:
         return 1
-
-    def per_cell(p: NDArray[np.float64]) -> float:
-        occupied = _sorting.occupied_cells(p, coarse.origin, coarse.cell, coarse.dims)
-        return p.shape[0] / max(occupied, 1)
-
-    r = np.cbrt(per_cell(partner) / CONE_POINTS_PER_CELL)
-    if len(pos_list) > 1:
-        r = min(r, np.cbrt(per_cell(first) / CONE_FIRST_PER_CELL))
-    return int(min(max(int(np.floor(r)), 1), CONE_REFINE_MAX))
+    occupied = _sorting.occupied_cells(partner, coarse.origin, coarse.cell, coarse.dims)
+    per_cell = partner.shape[0] / max(occupied, 1)
+    threshold = CONE_POINTS_PER_CELL * (1.0 if len(pos_list) == 1 else 2.0)
+    r = int(np.floor(np.cbrt(per_cell / threshold)))
+    return int(min(max(r, 1), CONE_REFINE_MAX))
 
 
 def neighbour_offsets(grid: Grid, ext_perp: float, ext_los: float, shape: str,
