@@ -89,8 +89,9 @@ def _bin_of(c, rp2, lut, nxt, scan, edges2, n_rp):
 BIN_LOOKUP, BIN_SCAN, BIN_TOUCH = 0, 1, 2
 
 
-def bin_mode(with_touch: bool, scan: bool) -> int:
-    """The binning mode of a count (see :data:`BIN_LOOKUP`): the kernels' literal ``mode``."""
+@numba.njit(cache=True, inline="always")
+def _bin_mode(with_touch, scan):
+    """The binning mode of a count (see :data:`BIN_LOOKUP`)."""
     return BIN_TOUCH if with_touch else (BIN_SCAN if scan else BIN_LOOKUP)
 
 
@@ -197,17 +198,16 @@ def _reduce(tot, touch, n_regions, n_rp, n_pi):
 @numba.njit(parallel=True, cache=True)
 def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offsets,
              dims, box_size, edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks,
-             lut, nxt, shift, base, scan, mode, max_cell):
-    """Weighted (r_p, |π|) pair counts in a periodic box, LOS along z; ``mode`` is the
-    literal binning mode (:func:`bin_mode`), so each mode compiles on its own.
+             lut, nxt, shift, base, scan, max_cell):
+    """Weighted (r_p, |π|) pair counts in a periodic box, LOS along z.
 
     Returns ``(total[n_rp, n_pi], touch[n_regions, n_rp, n_pi])``.
     """
-    numba.literally(mode)
     n_rp = edges2.size - 1
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
     with_touch = n_regions > 0
+    mode = _bin_mode(with_touch, scan)
     nb = (n_rp + 1) * n_pi
     rpmax2 = edges2[n_rp]
     # cell sides across the LOS; the tolerance covers a point that floor() put one
@@ -242,10 +242,22 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                 sx, sy, sz = wx * box_size, wy * box_size, wz * box_size
                 bx0, bx1 = kx * cx - tol, (kx + 1) * cx + tol
                 by0, by1 = ky * cy - tol, (ky + 1) * cy + tol
-                _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy, sz,
-                           same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                           fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, mode, bx0, bx1, by0, by1,
-                           rpmax2)
+                # one call per binning mode, each with a literal mode (see BIN_LOOKUP)
+                if mode == BIN_TOUCH:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
+                               bx0, bx1, by0, by1, rpmax2)
+                elif mode == BIN_SCAN:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
+                               bx0, bx1, by0, by1, rpmax2)
+                else:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_LOOKUP,
+                               bx0, bx1, by0, by1, rpmax2)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 
@@ -363,14 +375,13 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
 @numba.njit(parallel=True, cache=True)
 def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tasks,
               offsets, dims, origin, side, edges2, pi_max, dpi, n_pi, n_regions, auto,
-              n_chunks, lut, nxt, shift, base, scan, mode, max_cell, first_los):
+              n_chunks, lut, nxt, shift, base, scan, max_cell, first_los):
     """Weighted (r_p, |π|) pair counts on a cone (observer at origin; midpoint LOS, or the
-    first point's with ``first_los``); ``mode`` as in :func:`rppi_box`.
+    first point's with ``first_los``).
 
     Cell pairs that :func:`_can_pair` rules out are skipped, so the candidates of a
     point hug its (r_p, π) cylinder wherever the line of sight points, on fine cells.
     """
-    numba.literally(mode)
     rp_max = np.sqrt(edges2[edges2.size - 1])
     s_max = np.sqrt(edges2[edges2.size - 1] + pi_max * pi_max)
     window = s_max if first_los else pi_max
@@ -383,6 +394,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     nx, ny, nz = dims[0], dims[1], dims[2]
     inv_dpi = 1.0 / dpi
     with_touch = n_regions > 0
+    mode = _bin_mode(with_touch, scan)
     nb = (n_rp + 1) * n_pi
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
@@ -421,10 +433,25 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                 by = origin[1] + (ky + 0.5) * side[1]
                 bz = origin[2] + (kz + 0.5) * side[2]
                 hx, hy, hz = 0.5 * side[0], 0.5 * side[1], 0.5 * side[2]
-                _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2,
-                            same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                            fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, mode, first_los, window,
-                            bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max, s_max)
+                # one call per binning mode, each with a literal mode (see BIN_LOOKUP)
+                if mode == BIN_TOUCH:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
+                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                s_max)
+                elif mode == BIN_SCAN:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
+                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                s_max)
+                else:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c,
+                                BIN_LOOKUP, first_los, window, bx, by, bz, hx, hy, hz, qx, qy,
+                                qz, rp_max, s_max)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 

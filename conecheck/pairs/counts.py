@@ -196,11 +196,9 @@ def _n_chunks(n_tasks: int) -> int:
     return max(1, min(max(MIN_CHUNKS, numba.get_num_threads()), n_tasks))
 
 
-def _lookup_args(bins: RpPiBins, n_regions: int) -> tuple:
-    """The r_p² look-up arguments of the (r_p, π) kernels and their literal binning mode."""
+def _lookup_args(bins: RpPiBins) -> tuple:
     lk = rp2_lookup(bins.rp_edges**2)
-    return (lk.lut, lk.nxt, lk.shift, lk.base, lk.scan,
-            _kernels.bin_mode(int(n_regions) > 0, bool(lk.scan)))
+    return lk.lut, lk.nxt, lk.shift, lk.base, lk.scan
 
 
 def _max_cell(start: NDArray[np.int64]) -> int:
@@ -297,7 +295,7 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
         g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
         tasks, offsets, grid.dims, box_size, bins.rp_edges**2, bins.pi_max, bins.dpi,
         bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
-        *_lookup_args(bins, n_regions), _max_cell(g2.start))
+        *_lookup_args(bins), _max_cell(g2.start))
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
 
 
@@ -349,7 +347,7 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start,
         tasks, offsets, grid.dims, grid.origin, grid.cell, bins.rp_edges**2, bins.pi_max,
         bins.dpi, bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
-        *_lookup_args(bins, n_regions), _max_cell(g2.start), los == "first")
+        *_lookup_args(bins), _max_cell(g2.start), los == "first")
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
 
 
