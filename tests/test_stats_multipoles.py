@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import stats_helpers as sh
 
 from conecheck.box.lognormal import (
     cic_interpolate,
@@ -15,13 +16,14 @@ from conecheck.box.lognormal import (
 )
 from conecheck.errors import InputError
 from conecheck.jackknife import BoxRegions
-from conecheck.pairs import count_smu_box
+from conecheck.pairs import count_smu_box, count_smu_cone
 from conecheck.pairs.binning import make_smu_bins
 from conecheck.stats import STATISTICS, BoxSample, make_settings
 from conecheck.stats.multipoles import (
     MultipolesSettings,
     _delete_one_dr_columns,
     box_pair_fractions,
+    count_rr_cone,
     legendre_weights,
     multipoles_box,
 )
@@ -161,6 +163,7 @@ def test_registered_with_concatenated_bins():
     ({"n_mu": 0}, "n_mu"),
     ({"s_min": 10.0, "s_max": 5.0}, "s_max"),
     ({"rr_method": "half"}, "rr_method"),
+    ({"split_above": -2.0}, "split_above"),
 ])
 def test_bad_settings_name_the_key(values, match):
     with pytest.raises(InputError, match=match) as err:
@@ -178,3 +181,29 @@ def test_jackknife_regions_too_small_for_the_largest_separation():
     box2 = BoxSample.with_regions(rng.uniform(0, 90.0, (500, 3)), 90.0, 2, n_side=2)
     with pytest.raises(InputError, match="more jackknife regions"):
         multipoles_box(box2, MultipolesSettings(s_edges=(1.0, 30.0)))
+
+
+def test_split_rr_above_a_scale_joins_the_full_and_split_counts(monkeypatch):
+    """(s, μ) RR with ``split_above``: the s bins starting below it equal the count of every
+    random pair, the others the sum over the disjoint subsets, each over its own number of
+    pairs (Keihänen et al. 2019, A&A 631, A73), delete-one normalisations included."""
+    import conecheck.stats._common as common_module
+
+    monkeypatch.setattr(common_module, "MIN_SPLIT_SUBSET", 1)
+    rng = np.random.default_rng(8)
+    geo = sh.geometry(sh.patch(16, ra=(0, 90), dec=(-30, 30)), 40.0, 110.0, 6)
+    rand = sh.randoms(geo, 6000, rng)
+    edges = (1.0, 2.0, 4.0, 8.0, 16.0)
+    settings = MultipolesSettings(s_edges=edges, n_mu=5, rr_method="split", split_above=3.0)
+    rr = count_rr_cone(rand, geo, settings, n_data=1000)
+    assert rr.n_subsets == 6
+    bins = make_smu_bins(edges, 5)
+    full = count_smu_cone(rand.xyz, rand.w, rand.region, bins=bins, n_regions=6)
+    parts = [count_smu_cone(rand.xyz[k::6], rand.w[k::6], rand.region[k::6],
+                            bins=make_smu_bins(edges[2:], 5), n_regions=6) for k in range(6)]
+    split = sum(parts[1:], parts[0])
+    np.testing.assert_array_equal(rr.rp_edges, edges)
+    np.testing.assert_allclose(rr.normalised()[:2], full.normalised()[:2], rtol=1e-12)
+    np.testing.assert_allclose(rr.normalised()[2:], split.normalised(), rtol=1e-12)
+    np.testing.assert_allclose(rr.normalised_delete_one()[:, 2:],
+                               split.normalised_delete_one(), rtol=1e-12)
