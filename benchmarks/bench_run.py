@@ -78,6 +78,7 @@ import numpy as np
 from conecheck.atomic import write_text_atomic
 from conecheck.config import RunConfig, config_from_dict
 from conecheck.demo import demo_dict
+from conecheck.stats import make_settings
 
 try:
     from Corrfunc.mocks import DDrppi_mocks
@@ -409,6 +410,14 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
             "seconds_conecheck": t_mine / VARIANCE_REALISATIONS}
 
 
+def rr_words(d: dict[str, Any]) -> str:
+    """wp's configured RR method in words."""
+    wp = make_settings("wp", d["statistics"]["wp"])
+    if wp.rr_method == "split":
+        return f"split RR above {wp.split_above:g} Mpc/h"
+    return "full RR"
+
+
 def randoms_scheme_of(r: Any, multiple: float | None = None) -> str:
     """A random scheme in words, from conecheck's ``RandomSettings`` (``multiple``: the
     number a cut resolved ``auto`` to, when known)."""
@@ -639,7 +648,7 @@ def describe(d: dict[str, Any]) -> str:
             f"{d['jackknife']['sky_regions']} sky regions ({d['jackknife']['box_n_side']}^2 box "
             f"columns); wp r_p {d['statistics']['wp']['rp_min']}-{d['statistics']['wp']['rp_max']}"
             f" Mpc/h in {d['statistics']['wp']['n_rp']} bins, pi_max "
-            f"{d['statistics']['wp']['pi_max']:g}, RR {d['statistics']['wp']['rr_method']}")
+            f"{d['statistics']['wp']['pi_max']:g}, {rr_words(d)}")
 
 
 def git_commit() -> str:
@@ -701,12 +710,12 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
     say(f"| baseline ({b['counter']}, {b['threads']} threads, one process) | cone builds + "
         f"fresh randoms + DD, DR, RR per cone and cut + Landy–Szalay (no wp jackknife) + "
         f"conecheck's number density, cic, VPF (with jackknife) | {b['total']:.1f} | 1.00 |")
-    rr_words = f"{d['statistics']['wp'].get('rr_method', 'full')} RR"
     for sched, cr in runs.items():
         meas = conecheck_measure_time(cr)
         say(f"| conecheck, scheduler {sched} | randoms + cones stages (shared randoms and RR, "
-            f"{rr_words}, wp, cic, VPF, density, all with {d['jackknife']['sky_regions']}-region "
-            f"jackknife) | {meas:.1f} | **{b['total'] / meas:.2f}** |")
+            f"{rr_words(d)}, wp, cic, VPF, density, all with "
+            f"{d['jackknife']['sky_regions']}-region jackknife) | {meas:.1f} | "
+            f"**{b['total'] / meas:.2f}** |")
         say(f"| conecheck, scheduler {sched} | whole run: inputs (box generation), box "
             f"statistics, HOD derivatives, randoms, cones, comparison, tables, PDF and HTML "
             f"reports | {cr['wall']:.1f} | **{b['total'] / cr['wall']:.2f}** |")
@@ -796,7 +805,7 @@ def comparison_lines(d: dict[str, Any], runs: dict[str, dict[str, Any]], b: dict
         say(f"| all bins (sum) | {sum(v['var_conecheck']) / sum(v['var_baseline']):.2f} | |")
         say("")
     say(f"Agreement with the run (scheduler {next(iter(runs))}; cone 0; the run used its own "
-        f"shared randoms and {rr_words}): "
+        f"shared randoms and {rr_words(d)}): "
         "largest |Δwp| in units of the cone's jackknife σ, and whether the run's number "
         "density, cic and VPF equal the baseline's (same catalogue, same seeds):")
     say("")
