@@ -59,6 +59,18 @@ def _boundary_tree(fp: HealpixMap) -> cKDTree | None:
     return tree
 
 
+def _nested_values(fp: HealpixMap) -> NDArray[np.float64]:
+    """The map's values in NESTED order (cached on the map: one reorder instead of a
+    ``nest2ring`` of every gathered sub-pixel's parent)."""
+    if fp.nest:
+        return fp.values
+    cached = getattr(fp, "_nested_values_cache", None)
+    if cached is None:
+        cached = hp.reorder(fp.values, r2n=True)
+        fp._nested_values_cache = cached
+    return cached
+
+
 def _query_level(nside: int, radius_rad: NDArray[np.float64], samples_per_radius: float
                  ) -> NDArray[np.int64]:
     """Smallest k with pixel size of N_side·2^k below r / samples_per_radius."""
@@ -112,6 +124,7 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
         return out.reshape(shape)
     vec = radec_to_vec(ra[hard], dec[hard])
     levels = _query_level(nside, r[hard], samples_per_radius)
+    vals_nest = _nested_values(fp)
     for level in np.unique(levels):
         sel = np.flatnonzero(levels == level)
         nside_q = nside << int(level)
@@ -129,10 +142,7 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
             counts = np.array([len(q) for q in lists], dtype=np.int64)
             if counts.sum():
                 sub = np.concatenate(lists).astype(np.int64)
-                parent = sub >> (2 * int(level))
-                if not nest:
-                    parent = hp.nest2ring(nside, parent)
-                pv = vals[parent]
+                pv = vals_nest[sub >> (2 * int(level))]
                 has = counts > 0
                 offsets = np.concatenate([[0], np.cumsum(counts)[:-1]])
                 sums = np.add.reduceat(pv, offsets[has])

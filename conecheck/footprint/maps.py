@@ -100,6 +100,7 @@ class Footprint:
         self.source = source
         self.file_dtype = np.dtype(file_dtype)
         self._boundary_tree_cache: tuple | None = None  # filled by discs.disc_fraction
+        self._nested_values_cache: NDArray[np.float64] | None = None  # likewise
         #: free-form description (e.g. the [mask] table of a region file)
         self.meta: dict[str, object] = {}
 
