@@ -48,7 +48,7 @@ from .demo import demo_config
 from .errors import InputError
 from .footprint import Footprint, SkyRegions, jackknife_regions
 from .footprint.coverage import box_dilution, covered_sky
-from .report import render_html, render_report, rerender, results_to_json
+from .report import build_pages, render_html, render_report, rerender, results_to_json
 from .run.cache import content_digest
 from .run.inputs import load_box, load_footprint, overlap_input, sky_regions, tiles_input
 from .run.specs import box_spec, cone_build_spec
@@ -390,9 +390,11 @@ def write_report(results: Mapping[str, Any], out: str | os.PathLike[str], *,
         results["footprint"] = footprint
     results_to_json(results, out_dir / "results.json")
     pdf = out_dir / "validation.pdf"
-    render_report(results, out_dir, pdf)
+    pages = build_pages(results, out_dir)
+    svgs: dict[int, str] | None = {} if html else None  # each figure drawn once for both
+    render_report(results, out_dir, pdf, pages, svgs)
     if html:
-        render_html(results, out_dir, out_dir / "validation.html")
+        render_html(results, out_dir, out_dir / "validation.html", pages, svgs)
     return pdf
 
 

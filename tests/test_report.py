@@ -16,6 +16,7 @@ import pytest
 from astropy.table import Table
 from report_helpers import N_CONES, make_results
 
+import conecheck.report.html as html_mod
 from conecheck.compare import jsonable
 from conecheck.errors import InputError
 from conecheck.report import (
@@ -30,9 +31,9 @@ from conecheck.report import (
     write_statistic_tables,
 )
 from conecheck.report.access import iter_stats
-from conecheck.report.html import TEXT_KINDS
 from conecheck.report.layout import text_width, wrap
 from conecheck.report.pages_values import PER_PAGE as VALUES_PER_PAGE
+from conecheck.report.pagespec import TEXT_KINDS
 from conecheck.report.style import FOOTER_RULE, HEADER_RULE
 
 STATS = ("number_density", "wp", "cic", "vpf", "annuli")
@@ -357,6 +358,37 @@ def test_html_report_is_self_contained_and_complete(run, tmp_path):
     first_reason = stats[0][3].reasons[0]
     assert first_reason in text
     assert "Provenance" in text and "seed" in text
+
+
+def test_pdf_pass_hands_the_html_every_figure_drawn_once(run, tmp_path, monkeypatch):
+    """With both reports, each figure page is drawn once: the PDF pass keeps its SVG and the
+    HTML page takes it instead of drawing again; the HTML is the one drawn on its own up to
+    matplotlib's random SVG ids and the metadata date."""
+    run_dir, results = run
+    pages = build_pages(results, run_dir)
+    alone = tmp_path / "alone.html"
+    render_html(results, run_dir, alone, pages)
+    svgs: dict[int, str] = {}
+    render_report(results, run_dir, tmp_path / "v.pdf", pages, svgs)
+    assert sorted(svgs) == [i for i, s in enumerate(pages, start=1) if s.kind not in TEXT_KINDS]
+
+    def no_drawing(*args, **kwargs):
+        raise AssertionError("the HTML drew a page the PDF pass had already drawn")
+
+    monkeypatch.setattr(html_mod, "draw_page", no_drawing)
+    shared = tmp_path / "shared.html"
+    assert render_html(results, run_dir, shared, pages, svgs) == len(svgs)
+
+    def canonical(text: str) -> str:
+        text = re.sub(r"<dc:date>[^<]*</dc:date>", "", text)
+        names: dict[str, str] = {}
+        for name in re.findall(r'id="([^"]+)"', text):
+            names.setdefault(name, f"id{len(names)}")
+        return re.sub(r'(id="|#)([A-Za-z0-9_-]+)',
+                      lambda m: m.group(1) + names.get(m.group(2), m.group(2)), text)
+
+    assert canonical(shared.read_text(encoding="utf-8")) == canonical(
+        alone.read_text(encoding="utf-8"))
 
 
 def test_single_cut_samples_get_a_line_not_a_block(run):

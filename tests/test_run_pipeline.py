@@ -275,7 +275,7 @@ def test_a_full_disk_while_writing_the_report_exits_2_naming_the_file(tmp_path, 
 
     from conecheck.run import validate as validate_mod
 
-    def full(results, run_dir, out_pdf, pages=None):
+    def full(results, run_dir, out_pdf, pages=None, svgs=None):
         raise OSError(errno.ENOSPC, "No space left on device", str(out_pdf))
 
     monkeypatch.setattr(validate_mod, "render_report", full)

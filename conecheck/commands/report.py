@@ -28,10 +28,11 @@ def main(args: argparse.Namespace) -> int:
                          f"results.json)")
     if not (run_dir / "results.json").is_file():
         raise InputError(f"{run_dir}: no results.json here; run `conecheck run CONFIG` first")
-    results, n = rerender(run_dir, args.output)
+    svgs: dict[int, str] | None = {} if args.html else None  # each figure drawn once
+    results, n = rerender(run_dir, args.output, svgs=svgs)
     print(summary_table(results))
     print(f"\nwrote {args.output or run_dir / 'validation.pdf'} ({n} pages)")
     if args.html:
-        n_fig = render_html(results, run_dir, run_dir / "validation.html")
+        n_fig = render_html(results, run_dir, run_dir / "validation.html", svgs=svgs)
         print(f"wrote {run_dir / 'validation.html'} ({n_fig} figures)")
     return 0

@@ -10,13 +10,10 @@ end. Everything — style, script, figures — is inside the one file.
 from __future__ import annotations
 
 import html
-import io
 import logging
 import os
 import re
 from typing import Any
-
-import matplotlib
 
 from ..atomic import write_text_atomic
 from ..version import __version__
@@ -24,13 +21,12 @@ from . import access as ac
 from . import style as st
 from .pages_summary import overall_answer
 from .pagespec import PageSpec
-from .render import build_pages, draw_page
+from .render import build_pages, draw_page, page_svg
 
 log = logging.getLogger(__name__)
 
 #: Page kinds written as native HTML (table, reasons, collapsed provenance) instead of as
 #: figures; every other page of the PDF is a figure here.
-TEXT_KINDS = frozenset({"summary", "findings", "rules", "provenance", "appendix"})
 
 _CSS = f"""
 body {{ font-family: "DejaVu Sans", Helvetica, Arial, sans-serif; color: {st.INK};
@@ -116,15 +112,12 @@ def _anchor(text: str) -> str:
 
 
 def _svg(results: dict[str, Any], spec: PageSpec, page_no: int, n_pages: int) -> str:
-    """One planned page as inline SVG (text kept as text, so it stays searchable)."""
+    """One planned page drawn and written as inline SVG."""
     fig = draw_page(results, spec, page_no, n_pages)
-    buf = io.StringIO()
-    # text stays <text> (searchable, smaller) rather than glyph outlines
-    with st.report_style(), matplotlib.rc_context({"svg.fonttype": "none"}):
-        fig.savefig(buf, format="svg")
-    fig.clear()
-    text = buf.getvalue()
-    return text[text.index("<svg"):]  # drop the XML prologue and doctype: inline SVG
+    try:
+        return page_svg(fig)
+    finally:
+        fig.clear()
 
 
 def _verdict_rows(results: dict[str, Any],
@@ -184,7 +177,8 @@ def _provenance(results: dict[str, Any]) -> str:
 
 
 def render_html(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
-                out_html: str | os.PathLike[str], pages: list[PageSpec] | None = None) -> int:
+                out_html: str | os.PathLike[str], pages: list[PageSpec] | None = None,
+                svgs: dict[int, str] | None = None) -> int:
     """Write validation.html atomically; returns the number of figures it holds.
 
     Parameters
@@ -197,16 +191,21 @@ def render_html(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
         Output HTML file.
     pages : list of PageSpec, optional
         The planned pages (planned here when omitted).
+    svgs : dict, optional
+        Figure pages already drawn as SVG by :func:`~conecheck.report.render.render_report`
+        (page number → SVG) for the same ``pages``; the others are drawn here.
     """
     specs = pages if pages is not None else build_pages(results, run_dir)
     n = len(specs)
+    svgs = svgs or {}
     figures, figure_ids = [], {}
     for i, spec in enumerate(specs, start=1):
-        if spec.kind in TEXT_KINDS:
+        if not spec.is_figure:
             continue
         anchor = _anchor(f"{i}-{spec.title}")
+        svg = svgs[i] if i in svgs else _svg(results, spec, i, n)
         figures.append(f'<figure id="{anchor}"><figcaption>{_e(spec.title)}</figcaption>'
-                       f"{_svg(results, spec, i, n)}</figure>")
+                       f"{svg}</figure>")
         for sname, sample in ac.samples(results).items():
             for cname in ac.cuts(sample):
                 if spec.title.startswith(f"{sname} · {cname}:"):
@@ -244,4 +243,4 @@ def render_html(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
     return len(figures)
 
 
-__all__ = ["TEXT_KINDS", "render_html"]
+__all__ = ["render_html"]

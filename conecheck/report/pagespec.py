@@ -7,6 +7,9 @@ from dataclasses import dataclass, field
 
 from .layout import Page
 
+#: Page kinds that are text only: the PDF has them, the HTML page gives their content as HTML.
+TEXT_KINDS = frozenset({"summary", "findings", "rules", "provenance", "appendix"})
+
 
 @dataclass(frozen=True)
 class PageSpec:
@@ -29,3 +32,8 @@ class PageSpec:
     kind: str
     draw: Callable[[Page], None]
     axes: tuple[str, ...] = field(default=())
+
+    @property
+    def is_figure(self) -> bool:
+        """Whether the page is a figure (the HTML report shows it as inline SVG)."""
+        return self.kind not in TEXT_KINDS

@@ -11,11 +11,13 @@ Because only ``results.json`` (plus the mask and region files it names) is read,
 
 from __future__ import annotations
 
+import io
 import logging
 import os
 from pathlib import Path
 from typing import Any
 
+import matplotlib
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
@@ -79,8 +81,19 @@ def draw_page(results: dict[str, Any], spec: PageSpec, page_no: int, n_pages: in
     return fig
 
 
+def page_svg(fig: Figure) -> str:
+    """A drawn page as inline SVG (text kept as text, so it stays searchable)."""
+    buf = io.StringIO()
+    # text stays <text> (searchable, smaller) rather than glyph outlines
+    with report_style(), matplotlib.rc_context({"svg.fonttype": "none"}):
+        fig.savefig(buf, format="svg")
+    text = buf.getvalue()
+    return text[text.index("<svg"):]  # drop the XML prologue and doctype: inline SVG
+
+
 def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | None,
-                  out_pdf: str | os.PathLike[str], pages: list[PageSpec] | None = None) -> int:
+                  out_pdf: str | os.PathLike[str], pages: list[PageSpec] | None = None,
+                  svgs: dict[int, str] | None = None) -> int:
     """Write the PDF report atomically; returns the number of pages.
 
     Parameters
@@ -94,6 +107,9 @@ def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | Non
         Output PDF file.
     pages : list of PageSpec, optional
         The planned pages (planned here when omitted).
+    svgs : dict, optional
+        When given, every figure page is also written into it as inline SVG, keyed by page
+        number, for the HTML report (each page is then drawn once for both).
     """
     specs = pages if pages is not None else build_pages(results, run_dir)
     n = len(specs)
@@ -104,13 +120,16 @@ def render_report(results: dict[str, Any], run_dir: str | os.PathLike[str] | Non
         for i, spec in enumerate(specs, start=1):
             fig = draw_page(results, spec, i, n)
             pdf.savefig(fig)
+            if svgs is not None and spec.is_figure:
+                svgs[i] = page_svg(fig)
             fig.clear()
     log.info("report: wrote %s (%d pages)", out_pdf, n)
     return n
 
 
 def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | None = None,
-             results_name: str = "results.json") -> tuple[dict[str, Any], int]:
+             results_name: str = "results.json", svgs: dict[int, str] | None = None
+             ) -> tuple[dict[str, Any], int]:
     """Re-render the report of a finished run from its results file alone.
 
     Parameters
@@ -119,6 +138,10 @@ def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | 
         Run directory holding ``results_name`` (and the footprint files it names).
     out_pdf : path, optional
         Output PDF (default ``run_dir/validation.pdf``).
+    results_name : str
+        Name of the results file inside ``run_dir``.
+    svgs : dict, optional
+        Filled with every figure page as SVG (see :func:`render_report`).
 
     Returns
     -------
@@ -127,5 +150,5 @@ def rerender(run_dir: str | os.PathLike[str], out_pdf: str | os.PathLike[str] | 
     run_dir = Path(run_dir)
     results = load_results(run_dir / results_name)
     n = render_report(results, run_dir, out_pdf if out_pdf is not None
-                      else run_dir / "validation.pdf")
+                      else run_dir / "validation.pdf", svgs=svgs)
     return results, n

@@ -357,13 +357,16 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
             results["provenance"]["cache"] = dict(cache.stats)
         pages = build_pages(results, run_dir) if cfg.output.pdf or cfg.output.html else []
         n_pages = 0
+        # with both reports, each figure is drawn once: the PDF pass also keeps its SVG
+        svgs: dict[int, str] | None = {} if cfg.output.html else None
         if cfg.output.pdf:
             t0 = time.perf_counter()
-            n_pages = render_report(results, run_dir, run_dir / "validation.pdf", pages)
-            inp.timings["pdf"] = time.perf_counter() - t0
+            n_pages = render_report(results, run_dir, run_dir / "validation.pdf", pages, svgs)
+            inp.timings["pdf" if svgs is None else "pdf (and the html's figures)"] = (
+                time.perf_counter() - t0)
         if cfg.output.html:
             t0 = time.perf_counter()
-            render_html(results, run_dir, run_dir / "validation.html", pages)
+            render_html(results, run_dir, run_dir / "validation.html", pages, svgs)
             inp.timings["html"] = time.perf_counter() - t0
         inp.timings["total"] = time.perf_counter() - t_start
         # results.json keeps the complete timings (the PDF cannot contain its own)
