@@ -14,6 +14,7 @@ Checks:
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 
 import numpy as np
@@ -21,13 +22,13 @@ import pytest
 from run_helpers import tiny_dict
 from scipy.special import erf
 
-from conecheck.box.sensitivity import DEFAULT_STEPS
+from conecheck.box.sensitivity import DECORATION_PARAMETERS, DEFAULT_STEPS
 from conecheck.compare import VerdictRules
 from conecheck.compare.fisher import shifts_for_cut
 from conecheck.config import config_from_dict
 from conecheck.run.cache import content_digest
 from conecheck.run.inputs import box_halos, load_box, load_box_and_halos
-from conecheck.run.sensitivity import hod_derivatives_task
+from conecheck.run.sensitivity import hod_derivatives_task, merge_derivatives
 from conecheck.run.specs import DerivativesSpec, box_spec
 from conecheck.run.tasks import box_task, sample_mask
 from conecheck.run.validate import validate
@@ -42,6 +43,28 @@ def setup():
     spec = DerivativesSpec(box_spec(cfg, cfg.samples[0], content_digest(box)),
                            content_digest(halos), hod, tuple(sorted(DEFAULT_STEPS.items())))
     return cfg, hod_derivatives_task(spec, halos)
+
+
+def test_one_task_per_parameter_joins_to_the_task_over_all(setup):
+    """The run splits a sample's derivatives into one task per parameter (each seeded alike):
+    joined in order they equal one task over every parameter, bit for bit, and a parameter
+    the sample lacks adds nothing."""
+    cfg, whole = setup
+    box, halos, hod = load_box_and_halos(cfg)
+    base = DerivativesSpec(box_spec(cfg, cfg.samples[0], content_digest(box)),
+                           content_digest(halos), hod, tuple(sorted(DEFAULT_STEPS.items())))
+    parts = [hod_derivatives_task(dataclasses.replace(base, parameters=(name,)), halos)
+             for name in reversed(whole["parameters"])][::-1]
+    parts.insert(2, {"parameters": [], "values": [], "steps": [], "derivatives": {},
+                     "notes": ["no such parameter here"]})
+    joined = merge_derivatives(parts)
+    assert joined["parameters"] == whole["parameters"]
+    assert len(whole["parameters"]) == 5 + len(DECORATION_PARAMETERS)
+    assert joined["values"] == whole["values"] and joined["steps"] == whole["steps"]
+    assert joined["derivatives"].keys() == whole["derivatives"].keys()
+    for stat, d in whole["derivatives"].items():
+        assert np.array_equal(joined["derivatives"][stat], d), stat
+    assert joined["notes"] == whole["notes"] + ["no such parameter here"]
 
 
 def test_density_derivative_matches_the_expected_central_occupation(setup):

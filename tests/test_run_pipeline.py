@@ -22,6 +22,7 @@ import pytest
 import tomli_w
 from run_helpers import GEOMETRY_ONLY, tiny_dict, verdicts
 
+from conecheck.box.sensitivity import DECORATION_PARAMETERS, OCCUPATION_PARAMETERS
 from conecheck.cli import main
 from conecheck.config import config_from_dict
 from conecheck.report import REQUIRED_STATISTIC_KEYS, summary_table
@@ -178,9 +179,10 @@ def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
     d["samples"][1]["alt_cuts"][0]["z_max"] = 0.04
     res, _ = _run(d, tmp_path / "run")
     stats = res["provenance"]["cache"]
-    # read back: the 2 box tasks, the 2 HOD-derivative tasks, the 2 unchanged randoms and
-    # 2 cones × 2 unchanged pieces
-    assert stats["hits"] == 2 + 2 + 2 + 4, stats
+    # read back: the 2 box tasks, the HOD-derivative tasks (2 samples × 7 parameters), the
+    # 2 unchanged randoms and 2 cones × 2 unchanged pieces
+    n_parameters = len(OCCUPATION_PARAMETERS + DECORATION_PARAMETERS)
+    assert stats["hits"] == 2 + 2 * n_parameters + 2 + 4, stats
     # computed: the changed cut's randoms, and per cone its piece plus the transient
     # whole-task entry that lets a run killed mid-stage resume (removed once split)
     assert stats["writes"] == 1 + 2 * 2, stats

@@ -23,7 +23,7 @@ import numpy as np
 
 from ..box.halos import HaloCatalog
 from ..box.hod import HODModel
-from ..box.sensitivity import DEFAULT_STEPS
+from ..box.sensitivity import DECORATION_PARAMETERS, DEFAULT_STEPS, OCCUPATION_PARAMETERS
 from ..box.snapshots import snapshot_ranges, snapshot_weights
 from ..catalog import GalaxyBox
 from ..cone.settings import CorrectionSettings, EffectSwitches, SampleCut
@@ -43,7 +43,7 @@ from .inputs import (
     tiles_input,
 )
 from .progress import Progress
-from .sensitivity import hod_derivatives_task
+from .sensitivity import hod_derivatives_task, merge_derivatives
 from .specs import (
     ConeBuildSpec,
     ConePieceSpec,
@@ -208,18 +208,24 @@ def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     if not fitted:
         return {}
     tasks = []
+    # one task per sample and parameter: a cluster's workers then share the stage evenly
+    parameters = OCCUPATION_PARAMETERS + DECORATION_PARAMETERS
     for s in c.samples:
         bspec = box_spec(c, s, inp.content(inp.box), count_dilution(c, inp.footprint))
         stats = bspec.statistics
         bspec = dataclasses.replace(bspec, statistics=dataclasses.replace(
             stats, measure=tuple(n for n in stats.measure if n in fitted),
             settings={n: v for n, v in stats.settings.items() if n in fitted}))
-        spec = DerivativesSpec(box=bspec, halos_content=inp.content(inp.halos), hod=inp.hod,
-                               steps=steps)
-        tasks.append(Task(key=spec_key(spec), label=f"HOD derivatives / sample {s.name}",
-                          func=hod_derivatives_task, args=(spec, halos_ref), kind="box"))
+        for name in parameters:
+            spec = DerivativesSpec(box=bspec, halos_content=inp.content(inp.halos),
+                                   hod=inp.hod, steps=steps, parameters=(name,))
+            tasks.append(Task(key=spec_key(spec),
+                              label=f"HOD derivatives / sample {s.name} / {name}",
+                              func=hod_derivatives_task, args=(spec, halos_ref), kind="box"))
     results = _run_stage(inp, "HOD derivatives", tasks)
-    return {s.name: r for s, r in zip(c.samples, results, strict=True)}
+    n = len(parameters)
+    return {s.name: merge_derivatives(results[i * n:(i + 1) * n])
+            for i, s in enumerate(c.samples)}
 
 
 def randoms_stage(inp: RunInputs, box: dict[str, dict[str, Any]],

@@ -1,9 +1,11 @@
 """Derivatives of every box statistic with respect to the HOD parameters of each sample.
 
-One task per sample: the run's halos are populated again with each parameter of the sample's
-threshold moved by ± its step (:mod:`conecheck.box.sensitivity`), every time from the same
-generator (common random numbers), and every configured statistic is measured on the box as
-the box task measures it. The central differences feed the parameter-shift forecast of the
+One task per sample and parameter (so that a cluster's workers share the stage evenly: one
+task per sample left a worker idle while the larger sample ran): the run's halos are
+populated again with the parameter moved by ± its step (:mod:`conecheck.box.sensitivity`),
+every time from the same generator (common random numbers), and every configured statistic
+is measured on the box as the box task measures it. :func:`merge_derivatives` joins a
+sample's tasks; the central differences feed the parameter-shift forecast of the
 comparison (:mod:`conecheck.compare.fisher`).
 """
 
@@ -40,15 +42,16 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
     """∂(statistic)/∂(parameter) for one sample, by central differences on the box.
 
     ``halos`` are the run's halos (their digest is ``spec.halos_content``), populated again
-    with ``spec.hod`` moved by ± the step of each parameter.
+    with ``spec.hod`` moved by ± the step of each parameter (of ``spec.parameters`` only,
+    when given).
 
     Returns
     -------
     dict
         ``parameters`` (names), ``values`` (fiducial), ``steps`` (the actual half-separation
-        of each difference), ``derivatives`` (statistic → array (p, k), units of the
-        statistic per unit of the parameter), ``notes``. Empty ``parameters`` with a note
-        when the sample is not one of the HOD's thresholds.
+        of each difference), ``derivatives`` (statistic → array (k, p): one row per bin, one
+        column per parameter, units of the statistic per unit of the parameter), ``notes``.
+        Empty ``parameters`` with a note when the sample is not one of the HOD's thresholds.
     """
     box_spec = spec.box
     sample = box_spec.sample
@@ -64,6 +67,8 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
         names = [n for n in names if n not in DECORATION_PARAMETERS]
         notes.append(f"the halos carry no '{model.assembly_bias.secondary}' column: the "
                      f"decoration strengths are left out")
+    if spec.parameters is not None:
+        names = [n for n in names if n in spec.parameters]
     cosmo = box_spec.model()
     step_of = dict(spec.steps)
     fid = parameter_values(model, threshold, with_decoration=True)
@@ -85,8 +90,22 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
                                   / (hi - lo))
         steps.append(0.5 * (hi - lo))
     return {"parameters": names, "values": [fid[n] for n in names], "steps": steps,
-            "derivatives": {s: np.column_stack(v) for s, v in per_stat.items()},
+            "derivatives": {s: np.column_stack(v) for s, v in per_stat.items() if v},
             "notes": notes}
 
 
-__all__ = ["hod_derivatives_task"]
+def merge_derivatives(parts: list[dict[str, Any]]) -> dict[str, Any]:
+    """One sample's derivatives from its tasks over disjoint parameter sets, in their order
+    (the result of a single task over all of them); notes once each."""
+    with_params = [p for p in parts if p["parameters"]]
+    stats = list(with_params[0]["derivatives"]) if with_params else []
+    return {"parameters": [n for p in with_params for n in p["parameters"]],
+            "values": [v for p in with_params for v in p["values"]],
+            "steps": [v for p in with_params for v in p["steps"]],
+            "derivatives": {s: np.concatenate([np.asarray(p["derivatives"][s])
+                                               for p in with_params], axis=1)
+                            for s in stats},
+            "notes": list(dict.fromkeys(n for p in parts for n in p["notes"]))}
+
+
+__all__ = ["hod_derivatives_task", "merge_derivatives"]

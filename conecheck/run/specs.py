@@ -123,12 +123,14 @@ class BoxSpec:
 @dataclass(frozen=True)
 class DerivativesSpec:
     """What the HOD-parameter derivatives of one sample read: the box measurement's inputs,
-    the halos it repopulates (by content), the HOD model and the step of each parameter."""
+    the halos it repopulates (by content), the HOD model, the step of each parameter and
+    the parameters this task differentiates (``None``: every one of the sample's)."""
 
     box: BoxSpec
     halos_content: str
     hod: HODModel
     steps: tuple[tuple[str, float], ...]
+    parameters: tuple[str, ...] | None = None
 
 
 @dataclass(frozen=True)
