@@ -11,7 +11,7 @@ from astropy.io import fits
 from scipy import stats
 
 from conecheck.errors import InputError
-from conecheck.footprint import Footprint, build_mask
+from conecheck.footprint import Footprint, build_mask, discs
 
 
 def cap_map(nside: int, ra: float, dec: float, radius_deg: float, nest: bool = False,
@@ -161,6 +161,36 @@ def test_disc_fraction_fast_path_agrees_with_exact_queries():
                             nest=True)
         ref[i] = fp.reordered(True).values[sub >> 10].mean()
     np.testing.assert_allclose(f, ref, atol=0.015)
+
+
+@pytest.mark.parametrize("nest", [False, True])
+def test_disc_fraction_shortcut_never_changes_an_answer(monkeypatch, nest):
+    """Discs judged uniform from the nearest boundary pixel get exactly what the sub-pixel
+    query gives them. A patchy completeness map (blocks of 7-9° with seven values and
+    holes), discs from 0.2° to 4° scattered over it, many within a few pixels of an edge
+    where the shortcut's bound bites; the reference sends every disc through the query
+    (an edge margin of 10⁶ ρ_max)."""
+    nside = 64
+    rng = np.random.default_rng(11)
+    theta, phi = hp.pix2ang(nside, np.arange(hp.nside2npix(nside)), nest=nest)
+    block = (np.floor(np.degrees(phi) / 9.0) * 7 + np.floor(np.degrees(theta) / 7.0)) % 13
+    vals = np.where(block < 3, 0.0, 0.3 + 0.1 * (block % 7))
+    vals[np.degrees(theta) > 60.0] = 0.0
+    fp = Footprint.from_map(vals, nest=nest)
+    n = 4000
+    ra = rng.uniform(0.0, 40.0, n)
+    dec = rng.uniform(32.0, 60.0, n)
+    rad = np.exp(rng.uniform(np.log(0.2), np.log(4.0), n))
+    fast = discs.disc_fraction(fp, ra, dec, rad)
+    monkeypatch.setattr(discs, "EDGE_MARGIN", 1e6)
+    exact = discs.disc_fraction(Footprint.from_map(vals, nest=nest), ra, dec, rad)
+    # equal but for the rounding of the query's mean of equal values
+    np.testing.assert_allclose(fast, exact, rtol=1e-12, atol=0.0)
+    # and the shortcut did take part: many discs were away from every edge
+    tree = discs._boundary_tree(fp)
+    dist, _ = tree.query(hp.ang2vec(ra, dec, lonlat=True))
+    away = 2.0 * np.arcsin(dist / 2.0) > np.radians(rad) + 1.5 * hp.max_pixrad(nside)
+    assert 100 < away.sum() < 0.9 * n
 
 
 @pytest.mark.parametrize("nest", [False, True])

@@ -13,12 +13,15 @@ sub-pixels per disc by default), so the rim error is ≲ 1 %.
 
 Speed-up for many centres: a disc far from any change in completeness has f equal
 to the completeness of its centre pixel.  We keep, per footprint, a KD-tree of the
-*boundary* pixels (pixels with a neighbour of different value); if the nearest one
-is farther than r + 3 ρ_max (ρ_max: largest centre-to-corner distance of a pixel)
-from the centre pixel, every point of the disc lies in a pixel of the same value
-(any path from the centre pixel to a pixel of different value crosses two adjacent
-boundary pixels within that distance), and the exact answer needs no query.
-Only centres near edges and holes go through ``query_disc``.
+*boundary* pixels (pixels with a neighbour of different value, and the empty neighbours
+of occupied pixels).  Follow the arc from the disc's centre to any point of the disc: if
+the value changes on the way, it changes where two neighbouring pixels of different
+value touch, and the one of the centre's value there is a boundary pixel, whose centre
+lies within ρ_max (largest centre-to-corner distance of a pixel) of that point, so
+within r + ρ_max of the disc's centre.  When the nearest boundary pixel centre is
+farther than r + 1.5 ρ_max (``EDGE_MARGIN``), every point of the disc therefore lies in
+a pixel of the centre's value and the exact answer needs no query.  Only centres near
+edges and holes go through ``query_disc``.
 """
 
 from __future__ import annotations
@@ -29,13 +32,17 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
-from ..sphere import check_radec, chord_to_angle, radec_to_vec
+from ..sphere import angle_to_chord, check_radec, chord_to_angle, radec_to_vec
 from .protocols import HealpixMap
 
 #: Largest sub-pixel N_side used (healpy's limit).
 MAX_NSIDE = 2**29
 #: Sub-pixels gathered per batch of the exact path (bounds memory).
 BATCH_PIXELS = 4_000_000
+#: A disc is uniform when no boundary pixel centre lies within r + this × ρ_max of its
+#: centre (the bound is r + ρ_max, see the module notes; the rest is a safety margin for
+#: pixel edges that bulge beyond the corners ``max_pixrad`` measures).
+EDGE_MARGIN = 1.5
 
 
 def _boundary_tree(fp: HealpixMap) -> cKDTree | None:
@@ -115,14 +122,14 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
     tree = _boundary_tree(fp)
     if tree is None:
         return out.reshape(shape)
-    upix, inv = np.unique(pix, return_inverse=True)
-    centres = np.column_stack(hp.pix2vec(nside, upix, nest=nest))
-    dist, _ = tree.query(centres)
-    d_edge = chord_to_angle(dist)[inv]
-    hard = np.flatnonzero(d_edge <= r + 3.0 * hp.max_pixrad(nside))
+    centres = radec_to_vec(ra, dec)
+    margin = EDGE_MARGIN * hp.max_pixrad(nside)
+    # beyond r + margin the distance is not needed: the disc is easy whatever it is
+    dist, _ = tree.query(centres, distance_upper_bound=float(angle_to_chord(r.max() + margin)))
+    hard = np.flatnonzero(chord_to_angle(np.minimum(dist, 2.0)) <= r + margin)
     if hard.size == 0:
         return out.reshape(shape)
-    vec = radec_to_vec(ra[hard], dec[hard])
+    vec = centres[hard]
     levels = _query_level(nside, r[hard], samples_per_radius)
     vals_nest = _nested_values(fp)
     for level in np.unique(levels):
