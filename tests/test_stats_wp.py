@@ -259,6 +259,9 @@ def test_disc_square_area_against_exact_fractions():
     np.testing.assert_allclose(area[1], full / 4, rtol=1e-12)
     np.testing.assert_allclose(area[2], full / 2, rtol=1e-12)
     assert np.all(area[3] == 0)
+    # a radius of zero (an r_p edge at 0) holds no area anywhere
+    assert np.all(disc_square_area(np.array([10.0, 0.0]), np.array([10.0, 0.0]),
+                                   np.array([0.0]), 20.0) == 0)
 
 
 def test_disc_square_area_against_circular_segments_and_sampling():

@@ -25,9 +25,6 @@ from .render import build_pages, draw_page, page_svg
 
 log = logging.getLogger(__name__)
 
-#: Page kinds written as native HTML (table, reasons, collapsed provenance) instead of as
-#: figures; every other page of the PDF is a figure here.
-
 _CSS = f"""
 body {{ font-family: "DejaVu Sans", Helvetica, Arial, sans-serif; color: {st.INK};
        margin: 0 auto; max-width: 62rem; padding: 1.5rem; line-height: 1.4; }}

@@ -7,7 +7,8 @@ from dataclasses import dataclass, field
 
 from .layout import Page
 
-#: Page kinds that are text only: the PDF has them, the HTML page gives their content as HTML.
+#: Page kinds the HTML report writes as native HTML (table, reasons, collapsed provenance)
+#: instead of as figures; every other page of the PDF is a figure there.
 TEXT_KINDS = frozenset({"summary", "findings", "rules", "provenance", "appendix"})
 
 

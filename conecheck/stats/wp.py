@@ -248,7 +248,7 @@ def _below_left_area(x: NDArray[np.float64], y: NDArray[np.float64],
     y = np.clip(y, -r, r)
 
     def strip(t: NDArray[np.float64]) -> NDArray[np.float64]:
-        ratio = np.clip(t / r, -1.0, 1.0)
+        ratio = np.clip(t / np.where(r > 0.0, r, 1.0), -1.0, 1.0)  # r = 0: no area
         return 0.5 * (t * np.sqrt(np.maximum(r * r - t * t, 0.0)) + r * r * np.arcsin(ratio)) \
             + 0.25 * np.pi * r * r
 
