@@ -18,7 +18,7 @@ from conecheck.stats import (
     wp_box,
     wp_cone,
 )
-from conecheck.stats.wp import box_pair_fractions
+from conecheck.stats.wp import box_pair_fractions, disc_square_area
 
 EDGES = tuple(np.geomspace(0.5, 20.0, 8))
 
@@ -249,8 +249,6 @@ def test_split_rr_keeps_subsets_large_enough():
 def test_disc_square_area_against_exact_fractions():
     # A disc wholly inside the square has area πr²; centred on a corner, a quarter; on the
     # middle of an edge, a half; far outside, none (elementary geometry).
-    from conecheck.stats.wp import disc_square_area
-
     r = np.array([0.5, 2.0, 5.0])
     area = disc_square_area(np.array([10.0, 0.0, 10.0, -30.0]),
                             np.array([10.0, 0.0, 0.0, 10.0]), r, 20.0)
@@ -268,13 +266,11 @@ def test_disc_square_area_against_circular_segments_and_sampling():
     """Discs cut by one edge or by a corner of the square.
 
     One edge at distance d < r from the centre leaves out the circular segment
-    r² acos(d/r) − d √(r² − d²) (elementary geometry). A corner at (dx, dy) outside the disc
-    but with both edges crossing it leaves out two segments less the part beyond both edges,
-    which is checked against 4·10⁶ uniform points in the disc: a fraction p carries a binomial
-    error √(p(1 − p)/n) ≤ 2.5·10⁻⁴, and the margin is 5 of those.
+    r² acos(d/r) − d √(r² − d²) (elementary geometry). A disc holding a corner of the square
+    (its centre inside or outside the square) is checked against 4·10⁶ uniform points in the
+    disc: a fraction p carries a binomial error √(p(1 − p)/n) ≤ 2.5·10⁻⁴, and the margin is 5
+    of those.
     """
-    from conecheck.stats.wp import disc_square_area
-
     side, r = 100.0, np.array([3.0, 8.0, 15.0])
     segment = r ** 2 * np.arccos(2.0 / r) - 2.0 * np.sqrt(r ** 2 - 4.0)
     for cx, cy in ((2.0, 50.0), (98.0, 50.0), (50.0, 2.0), (50.0, 98.0), (-2.0, 50.0)):
