@@ -21,7 +21,7 @@ import hashlib
 import json
 import math
 import re
-from collections.abc import Mapping
+from collections.abc import Collection, Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Literal
@@ -391,6 +391,12 @@ class StatisticsConfig:
     def get(self, name: str) -> Any:
         """Settings of statistic ``name`` (defaults when not configured)."""
         return self.settings.get(name) or SETTINGS_TYPES[name]()
+
+    def only(self, names: Collection[str]) -> StatisticsConfig:
+        """The same configuration measuring only the statistics in ``names`` (in this
+        configuration's order), e.g. for a task that measures one of them."""
+        return StatisticsConfig(measure=tuple(n for n in self.measure if n in names),
+                                settings={n: v for n, v in self.settings.items() if n in names})
 
     @property
     def matter_reach(self) -> tuple[float, float] | None:

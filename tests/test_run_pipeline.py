@@ -12,6 +12,7 @@ Checks (issue: validation end to end; scale and resilience):
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import re
@@ -24,10 +25,15 @@ from run_helpers import GEOMETRY_ONLY, tiny_dict, verdicts
 
 from conecheck.box.sensitivity import DECORATION_PARAMETERS, OCCUPATION_PARAMETERS
 from conecheck.cli import main
+from conecheck.compare import jsonable
 from conecheck.config import config_from_dict
 from conecheck.report import REQUIRED_STATISTIC_KEYS, summary_table
 from conecheck.run import pipeline
+from conecheck.run.cache import content_digest
 from conecheck.run.execute import TaskFailed
+from conecheck.run.inputs import load_box
+from conecheck.run.specs import box_spec
+from conecheck.run.tasks import box_task, merge_box_results
 from conecheck.run.validate import validate
 
 
@@ -173,16 +179,40 @@ def test_a_cut_beyond_the_volume_limit_fails_its_number_density(tmp_path):
     assert res["samples"]["broad"]["volume_limit_zmax"] < 0.045 and code == 1
 
 
+def test_box_tasks_per_statistic_join_to_the_task_over_all():
+    """The box stage runs one task per sample and statistic (each statistic seeded by its
+    name, the dilution draw by the sample): joined they equal one task over every
+    statistic, values, delete-one vectors and extras bit for bit, in the same order."""
+    cfg = config_from_dict(tiny_dict(seed=5), "test")
+    box = load_box(cfg)
+    spec = box_spec(cfg, cfg.samples[0], content_digest(box), dilution=0.8)
+    whole = box_task(spec, box)
+    parts = [box_task(dataclasses.replace(spec, statistics=spec.statistics.only({name})), box)
+             for name in reversed(spec.statistics.measure)][::-1]
+    joined = merge_box_results(parts)
+    assert list(joined["measurements"]) == list(whole["measurements"]) == list(
+        spec.statistics.measure)
+    assert joined["n_galaxies"] == whole["n_galaxies"]
+    assert joined["number_density"] == whole["number_density"]
+    for name, m in whole["measurements"].items():
+        j = joined["measurements"][name]
+        assert np.array_equal(j.value, m.value), name
+        assert (j.delete_one is None and m.delete_one is None) or np.array_equal(
+            j.delete_one, m.delete_one), name
+        assert jsonable(j.extra) == jsonable(m.extra), name
+
+
 def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
     d = tiny_dict(one_sample=False, seed=3)
     _run(d, tmp_path / "run")
     d["samples"][1]["alt_cuts"][0]["z_max"] = 0.04
     res, _ = _run(d, tmp_path / "run")
     stats = res["provenance"]["cache"]
-    # read back: the 2 box tasks, the HOD-derivative tasks (2 samples × 7 parameters), the
-    # 2 unchanged randoms and 2 cones × 2 unchanged pieces
+    # read back: the box tasks (2 samples × each statistic), the HOD-derivative tasks
+    # (2 samples × 7 parameters), the 2 unchanged randoms and 2 cones × 2 unchanged pieces
+    n_statistics = len(d["statistics"]["measure"])
     n_parameters = len(OCCUPATION_PARAMETERS + DECORATION_PARAMETERS)
-    assert stats["hits"] == 2 + 2 * n_parameters + 2 + 4, stats
+    assert stats["hits"] == 2 * n_statistics + 2 * n_parameters + 2 + 4, stats
     # computed: the changed cut's randoms, and per cone its piece plus the transient
     # whole-task entry that lets a run killed mid-stage resume (removed once split)
     assert stats["writes"] == 1 + 2 * 2, stats

@@ -63,6 +63,7 @@ from .tasks import (
     cone_task,
     cut_distances,
     expected_count,
+    merge_box_results,
     randoms_task,
     shuffle_distances,
     survey_model,
@@ -144,18 +145,24 @@ def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     c = inp.cfg
     parts = inp.snapshot_parts()
     refs = [inp.executor.share(p) for p in parts]
-    tasks = []
+    tasks, groups = [], []
     for s in c.samples:
         for k, part in enumerate(parts):
             spec = box_spec(c, s, inp.content(part), count_dilution(c, inp.footprint))
             label = f"box / sample {s.name}" + (f" / snapshot {k}" if len(parts) > 1 else "")
-            tasks.append(Task(key=spec_key(spec), label=label, func=box_task,
-                              args=(spec, refs[k]), kind="box"))
+            # one task per statistic: a cluster's workers then share the stage evenly
+            names = spec.statistics.measure
+            groups.append(slice(len(tasks), len(tasks) + len(names)))
+            for name in names:
+                one = dataclasses.replace(spec, statistics=spec.statistics.only({name}))
+                tasks.append(Task(key=spec_key(one), label=f"{label} / {name}", func=box_task,
+                                  args=(one, refs[k]), kind="box"))
     results = _run_stage(inp, "box", tasks)
+    per_part = [merge_box_results(results[g]) for g in groups]
     n = len(parts)
     if n == 1:
-        return {s.name: r for s, r in zip(c.samples, results, strict=True)}
-    return {s.name: combine_snapshots(inp, s, results[i * n:(i + 1) * n])
+        return {s.name: r for s, r in zip(c.samples, per_part, strict=True)}
+    return {s.name: combine_snapshots(inp, s, per_part[i * n:(i + 1) * n])
             for i, s in enumerate(c.samples)}
 
 
@@ -212,10 +219,7 @@ def sensitivity_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     parameters = OCCUPATION_PARAMETERS + DECORATION_PARAMETERS
     for s in c.samples:
         bspec = box_spec(c, s, inp.content(inp.box), count_dilution(c, inp.footprint))
-        stats = bspec.statistics
-        bspec = dataclasses.replace(bspec, statistics=dataclasses.replace(
-            stats, measure=tuple(n for n in stats.measure if n in fitted),
-            settings={n: v for n, v in stats.settings.items() if n in fitted}))
+        bspec = dataclasses.replace(bspec, statistics=bspec.statistics.only(fitted))
         for name in parameters:
             spec = DerivativesSpec(box=bspec, halos_content=inp.content(inp.halos),
                                    hod=inp.hod, steps=steps, parameters=(name,))

@@ -84,6 +84,14 @@ def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
             "number_density": sample_density(box, spec.sample)}
 
 
+def merge_box_results(parts: list[dict[str, Any]]) -> dict[str, Any]:
+    """One sample's box result from :func:`box_task` results over disjoint statistics, in
+    their order (the result of one task over all of them)."""
+    return {"measurements": {name: m for p in parts for name, m in p["measurements"].items()},
+            "n_galaxies": parts[0]["n_galaxies"],
+            "number_density": parts[0]["number_density"]}
+
+
 def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackknife: bool,
                        axis: int | None = None, statistics: tuple[str, ...] | None = None
                        ) -> dict[str, Measurement]:
