@@ -32,9 +32,17 @@ from conecheck.run import pipeline
 from conecheck.run.cache import content_digest
 from conecheck.run.execute import TaskFailed
 from conecheck.run.inputs import load_box
-from conecheck.run.specs import box_spec
-from conecheck.run.tasks import box_task, merge_box_results
+from conecheck.run.specs import BoxAxisSpec, box_spec
+from conecheck.run.tasks import (
+    add_los_spread,
+    box_axis_task,
+    box_task,
+    merge_box_results,
+    other_axes,
+)
 from conecheck.run.validate import validate
+from conecheck.stats import STATISTICS
+from conecheck.stats.base import LOS_VARIANCE
 
 
 def _run(d, out, **kw):
@@ -179,17 +187,25 @@ def test_a_cut_beyond_the_volume_limit_fails_its_number_density(tmp_path):
     assert res["samples"]["broad"]["volume_limit_zmax"] < 0.045 and code == 1
 
 
-def test_box_tasks_per_statistic_join_to_the_task_over_all():
-    """The box stage runs one task per sample and statistic (each statistic seeded by its
-    name, the dilution draw by the sample): joined they equal one task over every
-    statistic, values, delete-one vectors and extras bit for bit, in the same order."""
+def test_box_tasks_per_statistic_and_axis_join_to_the_task_over_all():
+    """The box stage runs one task per sample and statistic, and one per other axis of a
+    statistic that depends on the line of sight (each statistic seeded by its name, the
+    dilution draw by the sample): joined they equal one task over every statistic, values,
+    delete-one vectors and extras (the spread over the axes) bit for bit, in order."""
     cfg = config_from_dict(tiny_dict(seed=5), "test")
     box = load_box(cfg)
     spec = box_spec(cfg, cfg.samples[0], content_digest(box), dilution=0.8)
     whole = box_task(spec, box)
-    parts = [box_task(dataclasses.replace(spec, statistics=spec.statistics.only({name})), box)
-             for name in reversed(spec.statistics.measure)][::-1]
+    parts = []
+    for name in reversed(spec.statistics.measure):
+        one = dataclasses.replace(spec, statistics=spec.statistics.only({name}))
+        part = box_task(one, box, spread=False)
+        axes = [box_axis_task(BoxAxisSpec(one, a), box) for a in other_axes(one)]
+        assert len(axes) == (2 if STATISTICS[name].los_dependent else 0)
+        add_los_spread(part["measurements"], axes)
+        parts.insert(0, part)
     joined = merge_box_results(parts)
+    assert any(LOS_VARIANCE in m.extra for m in joined["measurements"].values())
     assert list(joined["measurements"]) == list(whole["measurements"]) == list(
         spec.statistics.measure)
     assert joined["n_galaxies"] == whole["n_galaxies"]
@@ -208,11 +224,12 @@ def test_changing_one_cut_recomputes_only_that_cut(tmp_path):
     d["samples"][1]["alt_cuts"][0]["z_max"] = 0.04
     res, _ = _run(d, tmp_path / "run")
     stats = res["provenance"]["cache"]
-    # read back: the box tasks (2 samples × each statistic), the HOD-derivative tasks
-    # (2 samples × 7 parameters), the 2 unchanged randoms and 2 cones × 2 unchanged pieces
-    n_statistics = len(d["statistics"]["measure"])
+    # read back: the box tasks (2 samples × each statistic, and × its two other axes when
+    # it depends on the line of sight), the HOD-derivative tasks (2 samples × 7
+    # parameters), the 2 unchanged randoms and 2 cones × 2 unchanged pieces
+    n_box = sum(3 if STATISTICS[n].los_dependent else 1 for n in d["statistics"]["measure"])
     n_parameters = len(OCCUPATION_PARAMETERS + DECORATION_PARAMETERS)
-    assert stats["hits"] == 2 * n_statistics + 2 * n_parameters + 2 + 4, stats
+    assert stats["hits"] == 2 * n_box + 2 * n_parameters + 2 + 4, stats
     # computed: the changed cut's randoms, and per cone its piece plus the transient
     # whole-task entry that lets a run killed mid-stage resume (removed once split)
     assert stats["writes"] == 1 + 2 * 2, stats

@@ -45,6 +45,7 @@ from .inputs import (
 from .progress import Progress
 from .sensitivity import hod_derivatives_task, merge_derivatives
 from .specs import (
+    BoxAxisSpec,
     ConeBuildSpec,
     ConePieceSpec,
     ConeSpec,
@@ -58,12 +59,15 @@ from .specs import (
 )
 from .tasks import (
     NZ_BINS,
+    add_los_spread,
+    box_axis_task,
     box_task,
     cone_table,
     cone_task,
     cut_distances,
     expected_count,
     merge_box_results,
+    other_axes,
     randoms_task,
     shuffle_distances,
     survey_model,
@@ -145,20 +149,33 @@ def box_stage(inp: RunInputs) -> dict[str, dict[str, Any]]:
     c = inp.cfg
     parts = inp.snapshot_parts()
     refs = [inp.executor.share(p) for p in parts]
+    # one task per statistic, and one per other axis of a statistic that depends on the
+    # line of sight: a cluster's workers then share the stage evenly
     tasks, groups = [], []
     for s in c.samples:
         for k, part in enumerate(parts):
             spec = box_spec(c, s, inp.content(part), count_dilution(c, inp.footprint))
             label = f"box / sample {s.name}" + (f" / snapshot {k}" if len(parts) > 1 else "")
-            # one task per statistic: a cluster's workers then share the stage evenly
-            names = spec.statistics.measure
-            groups.append(slice(len(tasks), len(tasks) + len(names)))
-            for name in names:
+            group = []
+            for name in spec.statistics.measure:
                 one = dataclasses.replace(spec, statistics=spec.statistics.only({name}))
+                main = len(tasks)
                 tasks.append(Task(key=spec_key(one), label=f"{label} / {name}", func=box_task,
-                                  args=(one, refs[k]), kind="box"))
+                                  args=(one, refs[k], False), kind="box"))
+                for a in other_axes(one):
+                    axis_spec = BoxAxisSpec(one, a)
+                    tasks.append(Task(key=spec_key(axis_spec),
+                                      label=f"{label} / {name} / axis {a}",
+                                      func=box_axis_task, args=(axis_spec, refs[k]),
+                                      kind="box"))
+                group.append((main, len(tasks)))
+            groups.append(group)
     results = _run_stage(inp, "box", tasks)
-    per_part = [merge_box_results(results[g]) for g in groups]
+    per_part = []
+    for group in groups:
+        for main, end in group:
+            add_los_spread(results[main]["measurements"], results[main + 1:end])
+        per_part.append(merge_box_results([results[main] for main, _ in group]))
     n = len(parts)
     if n == 1:
         return {s.name: r for s, r in zip(c.samples, per_part, strict=True)}

@@ -121,6 +121,16 @@ class BoxSpec:
 
 
 @dataclass(frozen=True)
+class BoxAxisSpec:
+    """The values of the line-of-sight-dependent statistics of ``box`` measured along
+    another ``axis`` (0, 1 or 2) of the box, without jackknife: the box's spread over the
+    lines of sight (:func:`~conecheck.run.tasks.add_los_spread`)."""
+
+    box: BoxSpec
+    axis: int
+
+
+@dataclass(frozen=True)
 class DerivativesSpec:
     """What the HOD-parameter derivatives of one sample read: the box measurement's inputs,
     the halos it repopulates (by content), the HOD model, the step of each parameter and
@@ -303,7 +313,7 @@ def measured_statistics(stats: StatisticsConfig) -> StatisticsConfig:
     return stats.restricted()
 
 
-__all__ = ["BoxEffects", "BoxJackknife", "BoxSpec", "ConeBuildSpec", "ConePieceSpec",
+__all__ = ["BoxAxisSpec", "BoxEffects", "BoxJackknife", "BoxSpec", "ConeBuildSpec", "ConePieceSpec",
            "count_dilution",
            "ConeSpec", "CutSpec", "DerivativesSpec", "InputFile", "RandomsSpec",
            "SampleThreshold", "box_spec", "cone_build_spec", "cut_spec", "measured_statistics",

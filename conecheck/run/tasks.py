@@ -30,7 +30,15 @@ from ..footprint.coverage import count_weights, covered_sky
 from ..stats import STATISTICS, BoxSample, ConeGeometry, ConeSample, MatterSample, Measurement
 from ..stats.base import LOS_VARIANCE
 from ..streams import seeded_rng
-from .specs import BoxSpec, ConeBuildSpec, ConeSpec, CutSpec, RandomsSpec, SampleThreshold
+from .specs import (
+    BoxAxisSpec,
+    BoxSpec,
+    ConeBuildSpec,
+    ConeSpec,
+    CutSpec,
+    RandomsSpec,
+    SampleThreshold,
+)
 
 #: Number of redshift bins of the n(z) diagnostic per cut.
 NZ_BINS = 12
@@ -58,8 +66,12 @@ def sample_mask(box: GalaxyBox, sample: SampleThreshold | Any) -> np.ndarray:
     return np.asarray(box.abs_mag) < sample.mag_max
 
 
-def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
+def box_task(spec: BoxSpec, box: GalaxyBox, spread: bool = True) -> dict[str, Any]:
     """Every statistic of one sample measured in the box, with box jackknife.
+
+    With ``spread`` (default) the line-of-sight-dependent statistics are also measured
+    along the box's two other axes (:func:`box_axis_task`) for their spread
+    (:func:`add_los_spread`); the run makes those separate tasks and joins them.
 
     Returns
     -------
@@ -69,19 +81,42 @@ def box_task(spec: BoxSpec, box: GalaxyBox) -> dict[str, Any]:
     """
     keep = sample_mask(box, spec.sample)
     out = measure_box_sample(spec, box, keep, jackknife=True)
-    los_dependent = tuple(n for n in out if STATISTICS[n].los_dependent)
-    others = [measure_box_sample(spec, box, keep, jackknife=False, axis=a,
-                                 statistics=los_dependent)
-              for a in range(3) if a != spec.effects.los_axis] if los_dependent else []
-    for name, m in out.items():
-        if name in los_dependent:
+    if spread:
+        add_los_spread(out, [box_axis_task(BoxAxisSpec(spec, a), box)
+                             for a in other_axes(spec)])
+    return {"measurements": out, "n_galaxies": int(keep.sum()),
+            "number_density": sample_density(box, spec.sample)}
+
+
+def other_axes(spec: BoxSpec) -> list[int]:
+    """The box axes other than the spec's line of sight, when it measures a statistic that
+    depends on the line of sight (else none)."""
+    if not any(STATISTICS[n].los_dependent for n in spec.statistics.measure):
+        return []
+    return [a for a in range(3) if a != spec.effects.los_axis]
+
+
+def box_axis_task(spec: BoxAxisSpec, box: GalaxyBox) -> dict[str, np.ndarray]:
+    """Values (statistic → array) of the line-of-sight-dependent statistics of
+    ``spec.box`` measured along ``spec.axis``, without jackknife."""
+    los_dependent = tuple(n for n in spec.box.statistics.measure
+                          if STATISTICS[n].los_dependent)
+    out = measure_box_sample(spec.box, box, sample_mask(box, spec.box.sample),
+                             jackknife=False, axis=spec.axis, statistics=los_dependent)
+    return {name: np.asarray(m.value, dtype=np.float64) for name, m in out.items()}
+
+
+def add_los_spread(measurements: dict[str, Measurement],
+                   others: list[dict[str, np.ndarray]]) -> None:
+    """Record in each line-of-sight-dependent measurement the variance of its value over
+    the box's three axes (``others``: :func:`box_axis_task` of the two other axes)."""
+    for name, m in measurements.items():
+        if others and name in others[0]:
             # The cones see the box along every direction, the box estimator along one axis:
             # the spread over the three axes measures that part of the box value which no
             # cone shares (docs/design.md §8: the offset's own error).
-            values = np.array([m.value] + [o[name].value for o in others], dtype=np.float64)
+            values = np.array([m.value] + [o[name] for o in others], dtype=np.float64)
             m.extra[LOS_VARIANCE] = values.var(axis=0, ddof=1).tolist()
-    return {"measurements": out, "n_galaxies": int(keep.sum()),
-            "number_density": sample_density(box, spec.sample)}
 
 
 def merge_box_results(parts: list[dict[str, Any]]) -> dict[str, Any]:
