@@ -13,6 +13,7 @@ import json
 import logging
 import math
 import os
+import signal
 import subprocess
 import sys
 from dataclasses import dataclass
@@ -116,6 +117,17 @@ def check_earlier_cached(root, key):
 
 def interrupt():
     raise KeyboardInterrupt
+
+
+def swallow_a_ctrl_c(x):
+    """Receives SIGINT where the KeyboardInterrupt is lost, as in a ctypes callback (numba
+    caching a compiled kernel), then finishes normally."""
+    CALLS.append(f"swallow {x}")
+    try:
+        signal.raise_signal(signal.SIGINT)  # delivered to this (the main) thread at once
+    except KeyboardInterrupt:
+        pass
+    return {"x": np.array([x], dtype=np.int64)}
 
 
 def flaky(marker, log_file, seed, i):
@@ -371,6 +383,20 @@ def test_results_are_cached_as_each_task_finishes(tmp_path):
         LocalExecutor().run([t0, t1, t2], TaskCache(tmp_path))
     c = TaskCache(tmp_path)
     assert t0.key in c and t1.key in c and t2.key not in c
+
+
+def test_a_swallowed_ctrl_c_still_stops_the_run_after_its_task(tmp_path):
+    """A Ctrl-C lost inside a task (Python prints it as ignored in a ctypes callback) is
+    remembered: the task's result is cached, then the run stops before the next task."""
+    CALLS.clear()
+    tasks = make_tasks(swallow_a_ctrl_c, [1]) + make_tasks(square, [2])
+    with pytest.raises(KeyboardInterrupt):
+        LocalExecutor().run(tasks, TaskCache(tmp_path))
+    assert CALLS == ["swallow 1"]
+    c = TaskCache(tmp_path)
+    assert tasks[0].key in c and tasks[1].key not in c
+    # the handler is put back: this process's Ctrl-C behaves as before
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
 
 
 def test_failures_are_reported_after_the_other_tasks_finish(tmp_path):

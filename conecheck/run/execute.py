@@ -178,6 +178,7 @@ class Executor(ABC):
                      len(value), len(unique), len(pending))
 
         failures: dict[int, tuple[BaseException, str]] = {}
+        latch = _InterruptLatch()
 
         def done(j: int, ok: bool, result: Any, tb: str) -> None:
             i = pending[j]
@@ -199,6 +200,7 @@ class Executor(ABC):
                     log.debug("%s traceback:\n%s", t.label, tb)
             if progress is not None:
                 progress.advance(1, note=t.label if ok else f"{t.label} FAILED")
+            latch.check()  # a Ctrl-C swallowed inside the task stops the run here
 
         if progress is not None:
             progress.start(stage, len(unique))
@@ -206,7 +208,8 @@ class Executor(ABC):
                 progress.advance(len(value), note="from cache")
         try:
             if pending:
-                self._compute([tasks[i] for i in pending], done)
+                with latch:
+                    self._compute([tasks[i] for i in pending], done)
         finally:
             if progress is not None:
                 progress.finish()
@@ -463,6 +466,42 @@ def _probe_scheduler(address: str, timeout: float) -> None:
     if not (isinstance(reply, dict) and reply.get("type") == "Scheduler"):
         raise InputError(f"{what}: the service at that port is not a dask scheduler "
                          f"(it answered {str(reply)[:80]!r})")
+
+
+class _InterruptLatch:
+    """Remembers a Ctrl-C so that it cannot be lost.
+
+    Python raises :class:`KeyboardInterrupt` at the next bytecode after SIGINT; when that
+    bytecode runs inside a ctypes callback (numba compiling a kernel calls back into
+    Python to cache it), the exception is printed as "ignored" and the run goes on. The
+    latch records the signal before raising as usual, and :meth:`check`, called after
+    every finished task, raises it again if it was swallowed.
+    """
+
+    def __init__(self) -> None:
+        self.hit = False
+        self._previous: Any = None
+
+    def __enter__(self) -> _InterruptLatch:
+        if threading.current_thread() is threading.main_thread():
+            self._previous = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def _handle(self, signum: int, frame: Any) -> None:
+        if self._previous == signal.SIG_IGN:
+            return
+        self.hit = True
+        if callable(self._previous):
+            self._previous(signum, frame)  # the default handler raises KeyboardInterrupt
+        raise KeyboardInterrupt
+
+    def check(self) -> None:
+        if self.hit:
+            raise KeyboardInterrupt
+
+    def __exit__(self, *exc_info: object) -> None:
+        if self._previous is not None:
+            signal.signal(signal.SIGINT, self._previous)
 
 
 @contextlib.contextmanager
