@@ -168,6 +168,39 @@ def join_separations(small: PairCounts, large: PairCounts) -> PairCounts:
                                n_subsets=large.n_subsets)
 
 
+def join_disjoint_auto(auto1: PairCounts, cross: PairCounts, auto2: PairCounts) -> PairCounts:
+    """The auto count of the union of two disjoint point sets, from each set's auto count
+    and their cross count: every distinct pair of the union lies in exactly one of the
+    three, so the sums add (with weights 1 the sums are whole numbers below 2⁵³, and the
+    union's counts equal a count of the union bit for bit).
+
+    Parameters
+    ----------
+    auto1, auto2 : PairCounts
+        Auto counts of set 1 and of set 2.
+    cross : PairCounts
+        Their cross count (either order), same bins and jackknife regions.
+    """
+    parts = (auto1, cross, auto2)
+    if (not auto1.is_auto or not auto2.is_auto or cross.is_auto
+            or any(p.total.shape != auto1.total.shape or p.n_regions != auto1.n_regions
+                   or not np.array_equal(p.rp_edges, auto1.rp_edges)
+                   or not np.array_equal(p.pi_edges, auto1.pi_edges) for p in parts)):
+        raise ValueError("join_disjoint_auto needs two auto counts and a cross count of the "
+                         "same bins and regions")
+    s = auto1.sum_w1 + auto2.sum_w1
+    sq = auto1.sum_w1_sq + auto2.sum_w1_sq
+    r = auto1.region_sum_w1 + auto2.region_sum_w1
+    rq = auto1.region_sum_w1_sq + auto2.region_sum_w1_sq
+    touch = None if auto1.touch is None else auto1.touch + cross.touch + auto2.touch
+    return PairCounts(total=auto1.total + cross.total + auto2.total, touch=touch,
+                      rp_edges=auto1.rp_edges, pi_edges=auto1.pi_edges, is_auto=True,
+                      sum_w1=s, sum_w2=s, sum_w1_sq=sq, sum_w2_sq=sq,
+                      region_sum_w1=r, region_sum_w2=r, region_sum_w1_sq=rq,
+                      region_sum_w2_sq=rq, norm=0.5 * (s * s - sq),
+                      norm_delete_one=0.5 * ((s - r) ** 2 - (sq - rq)))
+
+
 def _assemble(total: NDArray[np.float64], touch: NDArray[np.float64],
               bins: RpPiBins | SMuBins, p1: Points, p2: Points | None, n_regions: int
               ) -> PairCounts:
