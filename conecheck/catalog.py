@@ -412,6 +412,11 @@ class GalaxyBox:
         Comoving distances [Mpc/h] where snapshot k hands over to k + 1 (one fewer than
         the snapshots): a cone takes a galaxy at true distance χ from the snapshot whose
         range holds χ.
+    draw_key : ndarray of uint64 or None
+        Each galaxy's identity in the random draws, for boxes populated with draws keyed
+        per galaxy (:class:`conecheck.box.populate.KeyedDraws`): every per-galaxy draw made
+        on the box (dilution, redshift scatter) is then keyed by it too, so that two such
+        boxes treat a galaxy they share alike. None for every other box.
     """
 
     position: NDArray[np.float64]
@@ -427,6 +432,7 @@ class GalaxyBox:
     snapshot: NDArray[np.int16] | None = None
     snapshot_redshifts: tuple[float, ...] = ()
     snapshot_chi_edges: tuple[float, ...] = ()
+    draw_key: NDArray[np.uint64] | None = None
 
     def __len__(self) -> int:
         return int(self.position.shape[0])
@@ -460,6 +466,8 @@ class GalaxyBox:
             token["snapshots"] = {"snapshot": self.snapshot,
                                   "redshifts": list(self.snapshot_redshifts),
                                   "chi_edges": list(self.snapshot_chi_edges)}
+        if self.draw_key is not None:
+            token["draw_key"] = self.draw_key
         return token
 
     def subset(self, mask: NDArray[np.bool_]) -> GalaxyBox:
@@ -469,7 +477,8 @@ class GalaxyBox:
         return GalaxyBox(self.position[mask], self.velocity[mask], self.box_size, self.redshift,
                          pick(self.abs_mag), pick(self.is_central), pick(self.halo_id),
                          pick(self.halo_mass), dict(self.meta), self.matter,
-                         pick(self.snapshot), self.snapshot_redshifts, self.snapshot_chi_edges)
+                         pick(self.snapshot), self.snapshot_redshifts, self.snapshot_chi_edges,
+                         pick(self.draw_key))
 
     def to_table(self) -> Table:
         """Canonical-column astropy Table with box_size and redshift in the metadata."""

@@ -64,3 +64,34 @@ def test_bad_axis_and_sigma_are_input_errors():
     with pytest.raises(InputError, match="sigma_v"):
         apply_box_redshift_scatter(box.position, 0, -5.0, 0.5, COSMO,
                                    np.random.default_rng(0), 500.0)
+
+
+def test_per_galaxy_draws_follow_the_box_galaxies_identities():
+    """A box without identities draws from the named stream in its own order; a box whose
+    galaxies carry identities gives a galaxy the same draw in every box that holds it (the
+    HOD derivatives' ± boxes), and the draws stay standard: a KS test of the normals against
+    N(0, 1) and of the uniforms against U(0, 1)."""
+    from scipy import stats
+
+    from conecheck.box.effects import galaxy_normals, galaxy_uniforms
+    from conecheck.streams import seeded_rng
+
+    n = 50_000
+    rng = np.random.default_rng(2)
+    plain = GalaxyBox(rng.uniform(0, 500.0, (n, 3)), np.zeros((n, 3)), 500.0, 0.3)
+    assert np.array_equal(galaxy_uniforms(plain, 7, "box-dilution", "s"),
+                          seeded_rng(7, "box-dilution", "s").random(n))
+    assert np.array_equal(galaxy_normals(plain, 7, "box-scatter"),
+                          seeded_rng(7, "box-scatter").standard_normal(n))
+    keyed = GalaxyBox(plain.position, plain.velocity, 500.0, 0.3,
+                      draw_key=rng.permutation(10 * n)[:n].astype(np.uint64))
+    part = keyed.subset(rng.random(n) < 0.3)
+    for draw in (galaxy_uniforms, galaxy_normals):
+        whole = draw(keyed, 7, "x")
+        mine = dict(zip(keyed.draw_key.tolist(), whole.tolist(), strict=True))
+        assert np.array_equal(draw(part, 7, "x"), [mine[k] for k in part.draw_key.tolist()])
+    assert stats.kstest(galaxy_uniforms(keyed, 7, "x"), "uniform").pvalue > 1e-4
+    assert stats.kstest(galaxy_normals(keyed, 7, "x"), "norm").pvalue > 1e-4
+    scattered = apply_box_redshift_scatter(keyed.position, 2, 100.0, 0.3, COSMO,
+                                           galaxy_normals(keyed, 7, "x"), 500.0)
+    assert np.array_equal(scattered[:, :2], keyed.position[:, :2])

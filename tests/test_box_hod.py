@@ -19,7 +19,10 @@ from conecheck.box import (
     populate,
 )
 from conecheck.box.hod import DEFAULT_HOD, split_by_secondary
+from conecheck.box.populate import KeyedDraws, galaxy_ids, poisson_quantile
+from conecheck.box.sensitivity import DEFAULT_STEPS, step_values, varied_model
 from conecheck.errors import InputError
+from conecheck.streams import keyed_uniforms, stream_key
 
 BOX = 1000.0
 
@@ -58,12 +61,15 @@ def binned_chi2(mass, observed, expected, variance, edges):
     return chi2, dof
 
 
-@pytest.fixture(scope="module")
-def populated():
+@pytest.fixture(scope="module", params=["stream", "keyed"])
+def populated(request):
+    """Each occupation test runs on a box drawn from one generator and on one drawn per
+    galaxy (the HOD derivatives' draws): both must follow the same HOD."""
     rng = np.random.default_rng(11)
     mass = 10 ** rng.uniform(11.3, 14.8, 150_000)
     halos = make_halos(mass, rng)
-    return halos, populate(halos, default_hod_model(), rng)
+    draws = rng if request.param == "stream" else KeyedDraws(stream_key(11, "test-populate"))
+    return halos, populate(halos, default_hod_model(), draws)
 
 
 def test_mean_occupations_match_the_threshold_formulae(populated):
@@ -132,6 +138,93 @@ def test_populate_is_reproducible():
     a = populate(halos, default_hod_model(), np.random.default_rng(9))
     b = populate(halos, default_hod_model(), np.random.default_rng(9))
     assert np.array_equal(a.position, b.position) and np.array_equal(a.abs_mag, b.abs_mag)
+
+
+def test_populate_with_one_generator_keeps_its_draw_order():
+    """The main box draws from one generator in a fixed order: the halos' central uniforms,
+    then their satellite counts (Poisson), then the satellites' draws. Replaying the first
+    two from a generator of the same seed gives the box's occupation exactly (same numpy on
+    both sides, so this holds for any numpy version's streams)."""
+    rng = np.random.default_rng(5)
+    halos = make_halos(10 ** rng.uniform(11.5, 14.5, 3000), rng)
+    model = default_hod_model()
+    box = populate(halos, model, np.random.default_rng(9))
+    replay = np.random.default_rng(9)
+    cen, sat = model.mean_occupations(halos.mass)
+    has_central = replay.random(len(halos)) < cen[0]
+    n_sat = replay.poisson(sat[0])
+    assert box.draw_key is None
+    assert np.array_equal(np.sort(box.halo_id[box.is_central]), np.flatnonzero(has_central))
+    assert np.array_equal(np.bincount(box.halo_id[~box.is_central], minlength=len(halos)),
+                          n_sat)
+
+
+def test_keyed_uniforms_are_uniform_independent_and_per_identity():
+    """Counter-based draws: a KS test against U(0, 1) and correlations between fields and
+    neighbours within 5/√N (their standard error for independent uniforms), and each
+    identity's number unchanged by which other identities are drawn with it."""
+    ids = np.arange(200_000, dtype=np.uint64) * np.uint64(7) + np.uint64(3)
+    key = stream_key(4, "test")
+    u, v = keyed_uniforms(key, ids, 0), keyed_uniforms(key, ids, 1)
+    assert u.min() >= 0.0 and u.max() < 1.0
+    assert stats.kstest(u, "uniform").pvalue > 1e-4
+    bound = 5.0 / np.sqrt(ids.size)
+    assert abs(np.corrcoef(u, v)[0, 1]) < bound
+    assert abs(np.corrcoef(u[:-1], u[1:])[0, 1]) < bound
+    assert abs(np.corrcoef(u, keyed_uniforms(stream_key(5, "test"), ids, 0))[0, 1]) < bound
+    pick = np.array([17, 5, 123_456])
+    assert np.array_equal(keyed_uniforms(key, ids[pick], 0), u[pick])
+
+
+@pytest.mark.parametrize("name", ["log_mmin", "log_m1", "alpha", "a_sat"])
+def test_keyed_draws_share_every_galaxy_both_models_occupy(name):
+    """Common random numbers for the HOD derivatives: the ± boxes of a parameter hold the
+    same galaxy (same identity) at the same place with the same velocity and magnitude
+    wherever both models occupy it. A halo's satellites are its first ranks in both boxes,
+    so the boxes share exactly min(n₋, n₊) satellites per halo and every central both
+    place; and a parameter that lowers every satellite mean or none (log M₁; log M_min,
+    through the central when satellites need one) lowers every halo's count or leaves it
+    (the Poisson quantile of one uniform never rises as the mean falls)."""
+    rng = np.random.default_rng(3)
+    n = 40_000
+    halos = make_halos(10 ** rng.uniform(11.5, 14.8, n), rng, secondary=rng.random(n))
+    model = default_hod_model()
+    model = HODModel(model.thresholds, AssemblyBias(secondary="secondary"), model.concentration,
+                     model.satellites_need_central, model.bright_tail_mag)
+    thr = model.thresholds[0]
+    lo, hi = step_values(model, thr, name, DEFAULT_STEPS[name])
+    draws = KeyedDraws(stream_key(8, "test-coupling"))
+    a, b = (populate(halos, varied_model(model, thr, name, v), draws) for v in (lo, hi))
+    common, ia, ib = np.intersect1d(a.draw_key, b.draw_key, return_indices=True)
+    for col in ("position", "velocity", "abs_mag", "is_central", "halo_id"):
+        assert np.array_equal(getattr(a, col)[ia], getattr(b, col)[ib]), col
+    sat_a = np.bincount(a.halo_id[~a.is_central], minlength=n)
+    sat_b = np.bincount(b.halo_id[~b.is_central], minlength=n)
+    both_central = np.intersect1d(a.halo_id[a.is_central], b.halo_id[b.is_central]).size
+    assert common.size == np.minimum(sat_a, sat_b).sum() + both_central
+    assert common.size < max(len(a), len(b))          # the step changed some occupation
+    if name in ("log_mmin", "log_m1"):
+        assert np.all(sat_b <= sat_a)
+
+
+def test_poisson_quantile_equals_scipy_and_never_falls_as_the_mean_rises():
+    """Inverse-CDF Poisson counts against scipy.stats.poisson.ppf (reference library) over
+    means from 0 to 400 (both the summed and the scipy branch), and monotone in the mean at
+    fixed u (what couples the ± boxes' satellite counts)."""
+    rng = np.random.default_rng(12)
+    n = 300_000
+    u = rng.random(n)
+    mean = np.concatenate([np.zeros(1000), rng.exponential(1.0, n - 21_000),
+                           rng.uniform(0.0, 30.0, 10_000), rng.uniform(30.0, 400.0, 10_000)])
+    got = poisson_quantile(u, mean)
+    np.testing.assert_array_equal(got, stats.poisson.ppf(u, mean).astype(np.int64))
+    assert np.all(got[:1000] == 0)
+    assert np.all(poisson_quantile(u, mean * 1.05) >= got)
+
+
+def test_galaxy_ids_refuse_a_rank_they_cannot_hold():
+    with pytest.raises(InputError, match="satellites"):
+        galaxy_ids(np.array([0]), np.array([1 << 24]))
 
 
 @pytest.mark.parametrize("a_cen,a_sat", [(0.6, -0.8), (-1.0, 1.0)])

@@ -22,7 +22,15 @@ import pytest
 from run_helpers import tiny_dict
 from scipy.special import erf
 
-from conecheck.box.sensitivity import DECORATION_PARAMETERS, DEFAULT_STEPS
+from conecheck.box import populate
+from conecheck.box.populate import KeyedDraws
+from conecheck.box.sensitivity import (
+    DECORATION_PARAMETERS,
+    DEFAULT_STEPS,
+    sample_threshold,
+    step_values,
+    varied_model,
+)
 from conecheck.compare import VerdictRules
 from conecheck.compare.fisher import shifts_for_cut
 from conecheck.config import config_from_dict
@@ -30,8 +38,9 @@ from conecheck.run.cache import content_digest
 from conecheck.run.inputs import box_halos, load_box, load_box_and_halos
 from conecheck.run.sensitivity import hod_derivatives_task, merge_derivatives
 from conecheck.run.specs import DerivativesSpec, box_spec
-from conecheck.run.tasks import box_task, sample_mask
+from conecheck.run.tasks import box_task, measure_box_pair, measure_box_sample, sample_mask
 from conecheck.run.validate import validate
+from conecheck.streams import stream_key
 
 
 @pytest.fixture(scope="module")
@@ -65,6 +74,36 @@ def test_one_task_per_parameter_joins_to_the_task_over_all(setup):
     for stat, d in whole["derivatives"].items():
         assert np.array_equal(joined["derivatives"][stat], d), stat
     assert joined["notes"] == whole["notes"] + ["no such parameter here"]
+
+
+@pytest.mark.parametrize("scatter", [0.0, 150.0])
+def test_the_boxes_of_a_step_measured_together_equal_each_measured_whole(scatter):
+    """The ± boxes of a step share most galaxies (keyed draws): measured together, wp counts
+    their shared pairs once (the pair estimator) and every statistic equals the box measured
+    on its own, bit for bit, with and without a redshift error on the box (whose draws
+    are keyed per galaxy too)."""
+    d = tiny_dict(seed=21)
+    d["statistics"]["measure"] = ["number_density", "wp", "cic", "vpf"]
+    d["box"]["redshift_scatter_kms"] = scatter
+    cfg = config_from_dict(d, "test")
+    box, halos, hod = load_box_and_halos(cfg)
+    spec = box_spec(cfg, cfg.samples[0], content_digest(box))
+    assert spec.effects.redshift_scatter_kms == scatter
+    thr = sample_threshold(hod, cfg.samples[0].mag_max)
+    lo, hi = step_values(hod, thr, "log_m1", DEFAULT_STEPS["log_m1"])
+    draws = KeyedDraws(stream_key(cfg.seed, "test-pair"))
+    boxes = [populate(halos, varied_model(hod, thr, "log_m1", v), draws, spec.model())
+             for v in (lo, hi)]
+    shared = np.intersect1d(boxes[0].draw_key, boxes[1].draw_key).size
+    assert 0.5 * len(boxes[0]) < shared < len(boxes[0])
+    together = measure_box_pair(spec, *boxes)
+    for box_, got in zip(boxes, together, strict=True):
+        alone = measure_box_sample(spec, box_, np.ones(len(box_), bool), jackknife=False)
+        assert got.keys() == alone.keys()
+        for name, m in alone.items():
+            np.testing.assert_array_equal(got[name].value, m.value, err_msg=name)
+    with pytest.raises(ValueError, match="draw_key"):
+        measure_box_pair(spec, box, box)
 
 
 def test_density_derivative_matches_the_expected_central_occupation(setup):

@@ -9,6 +9,11 @@ with H(z) in km/s/(Mpc/h) (:meth:`conecheck.cosmology.Cosmology.hubble`).  The (
 the peculiar velocity into the comoving displacement: dχ = c dz / H and δz = (1+z) v/c.
 A redshift error of σ_v [km/s] likewise displaces by (1+z) σ_v / H(z) · N(0, 1).
 Positions are wrapped back into [0, L).
+
+Per-galaxy draws made on a box (:func:`galaxy_uniforms`, :func:`galaxy_normals`) come from
+a named stream in the box's order, or, for a box whose galaxies carry identities
+(``GalaxyBox.draw_key``), from those identities: two such boxes then give a galaxy they
+share the same redshift error and the same dilution draw.
 """
 
 from __future__ import annotations
@@ -19,6 +24,23 @@ from numpy.typing import NDArray
 from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..streams import keyed_uniforms, seeded_rng, stream_key
+from .populate import KeyedDraws
+
+
+def galaxy_uniforms(box: GalaxyBox, run_seed: int, *names: int | str) -> NDArray[np.float64]:
+    """One uniform in [0, 1) per galaxy of ``box``, from the stream ``(run_seed, *names)``
+    (:func:`~conecheck.streams.seeded_rng`), keyed by ``box.draw_key`` when it has one."""
+    if box.draw_key is None:
+        return seeded_rng(run_seed, *names).random(len(box))
+    return keyed_uniforms(stream_key(run_seed, *names), box.draw_key, 0)
+
+
+def galaxy_normals(box: GalaxyBox, run_seed: int, *names: int | str) -> NDArray[np.float64]:
+    """One standard normal per galaxy of ``box``, as :func:`galaxy_uniforms` draws."""
+    if box.draw_key is None:
+        return seeded_rng(run_seed, *names).standard_normal(len(box))
+    return KeyedDraws(stream_key(run_seed, *names)).normal(0, box.draw_key, 1)[:, 0]
 
 
 def _check_axis(los_axis: int) -> None:
@@ -54,7 +76,7 @@ def apply_box_rsd(box: GalaxyBox, los_axis: int, cosmology: Cosmology) -> NDArra
 
 def apply_box_redshift_scatter(positions: NDArray[np.float64], los_axis: int,
                                sigma_v_kms: float, z: float, cosmology: Cosmology,
-                               rng: np.random.Generator,
+                               rng: np.random.Generator | NDArray[np.float64],
                                box_size: float) -> NDArray[np.float64]:
     """Add a Gaussian redshift error along ``los_axis``: (1+z) σ_v / H(z) · N(0, 1) [Mpc/h].
 
@@ -70,8 +92,9 @@ def apply_box_redshift_scatter(positions: NDArray[np.float64], los_axis: int,
         Snapshot redshift.
     cosmology : Cosmology
         For H(z).
-    rng : numpy.random.Generator
-        Source of the draws.
+    rng : numpy.random.Generator or ndarray (N,)
+        Source of the draws, or the N standard normals themselves
+        (:func:`galaxy_normals`).
     box_size : float
         Box side, Mpc/h (for the periodic wrap).
 
@@ -87,5 +110,9 @@ def apply_box_redshift_scatter(positions: NDArray[np.float64], los_axis: int,
     if sigma_v_kms == 0:
         return pos
     scale = rsd_displacement(np.float64(sigma_v_kms), z, cosmology)
-    pos[:, los_axis] = _wrap(pos[:, los_axis] + scale * rng.standard_normal(len(pos)), box_size)
+    normal = (rng.standard_normal(len(pos)) if isinstance(rng, np.random.Generator)
+              else np.asarray(rng, dtype=np.float64))
+    if normal.shape != (len(pos),):
+        raise ValueError(f"{normal.shape} normals for {len(pos)} positions")
+    pos[:, los_axis] = _wrap(pos[:, los_axis] + scale * normal, box_size)
     return pos

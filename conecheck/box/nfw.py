@@ -81,13 +81,29 @@ def sample_nfw_radii(concentration: NDArray[np.float64],
                      rng: np.random.Generator) -> NDArray[np.float64]:
     """Draw r / r_vir for one satellite per entry of ``concentration`` (truncated NFW)."""
     c = np.asarray(concentration, dtype=float)
-    y = rng.random(c.shape) * nfw_mass_profile(c)
+    return nfw_radii(c, rng.random(c.shape))
+
+
+def nfw_radii(concentration: NDArray[np.float64],
+              u: NDArray[np.float64]) -> NDArray[np.float64]:
+    """r / r_vir of a truncated NFW profile at the enclosed-mass quantiles ``u`` ∈ [0, 1)
+    (inverse-CDF sampling: uniform ``u`` give NFW-distributed radii)."""
+    c = np.asarray(concentration, dtype=float)
+    y = np.asarray(u, dtype=float) * nfw_mass_profile(c)
     return np.minimum(nfw_inverse_mass(y) / c, 1.0)
 
 
 def isotropic_directions(n: int, rng: np.random.Generator) -> NDArray[np.float64]:
     """n unit vectors uniform on the sphere, shape (n, 3)."""
-    mu = rng.uniform(-1.0, 1.0, n)
-    phi = rng.uniform(0.0, 2.0 * np.pi, n)
+    return directions_from_uniforms(rng.random(n), rng.random(n))
+
+
+def directions_from_uniforms(u_mu: NDArray[np.float64],
+                             u_phi: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Unit vectors, shape (n, 3), from two uniforms in [0, 1) each: cos θ = 2 u_mu − 1 and
+    φ = 2π u_phi (uniform on the sphere for uniform inputs)."""
+    # −1 + 2u and 2πu are exactly what Generator.uniform(−1, 1) and (0, 2π) compute
+    mu = -1.0 + 2.0 * np.asarray(u_mu, dtype=float)
+    phi = 2.0 * np.pi * np.asarray(u_phi, dtype=float)
     s = np.sqrt(1.0 - mu**2)
     return np.column_stack([s * np.cos(phi), s * np.sin(phi), mu])

@@ -22,6 +22,13 @@ Satellites follow a truncated NFW profile around the halo centre (see :mod:`.nfw
 with the halo velocity plus an isotropic Gaussian of the halo's virial dispersion; centrals
 sit at the halo centre with the halo velocity.  Positions are wrapped into the box.
 Everything is vectorised (satellites expanded per halo with ``np.repeat``).
+
+The draws come from one generator in a fixed order (:class:`StreamDraws`, the run's box), or
+per galaxy (:class:`KeyedDraws`, the HOD derivatives' boxes): a galaxy is (halo, rank), rank
+0 the central and 1, 2, … the satellites, and each of its numbers is a function of the key,
+that identity and what is drawn. The satellite count is then the Poisson quantile of the
+halo's own uniform and every other draw inverts a uniform, so two models differ only in the
+galaxies one occupies and the other does not.
 """
 
 from __future__ import annotations
@@ -29,18 +36,21 @@ from __future__ import annotations
 import logging
 from typing import Any
 
+import numba
 import numpy as np
 from numpy.typing import NDArray
+from scipy import special, stats
 
 from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..streams import keyed_uniforms
 from .halos import HaloCatalog
 from .hod import HODModel, decorate, split_by_secondary
 from .nfw import (
     concentration_power_law,
-    isotropic_directions,
-    sample_nfw_radii,
+    directions_from_uniforms,
+    nfw_radii,
     virial_dispersion,
     virial_radius,
 )
@@ -112,21 +122,140 @@ def halo_threshold_densities(halos: HaloCatalog, model: HODModel) -> NDArray[np.
     return (cen + sat).sum(axis=1) / float(halos.box_size) ** 3
 
 
+#: What a galaxy draws, one sequence each (:meth:`KeyedDraws.uniform`'s ``field``).
+CENTRAL, SATELLITE_COUNT, SATELLITE_LEVEL, MAGNITUDE, BRIGHT_TAIL, RADIUS, POLAR, AZIMUTH, \
+    VELOCITY = range(9)
+
+#: Bits of a galaxy's identity that hold its rank in the halo (0 the central, 1, 2, … its
+#: satellites); the halo's index fills the bits above.
+RANK_BITS = 24
+
+
+class StreamDraws:
+    """Every draw of :func:`populate` from one generator, in a fixed order.
+
+    The numbers a galaxy gets depend on how many were drawn before it, so two models
+    populate different galaxies everywhere after the first halo whose occupation differs.
+    """
+
+    def __init__(self, rng: np.random.Generator) -> None:
+        self.rng = rng
+
+    def uniform(self, field: int, ids: NDArray[np.uint64]) -> NDArray[np.float64]:
+        return self.rng.random(len(ids))
+
+    def exponential(self, field: int, ids: NDArray[np.uint64]) -> NDArray[np.float64]:
+        return self.rng.standard_exponential(len(ids))
+
+    def normal(self, field: int, ids: NDArray[np.uint64], k: int) -> NDArray[np.float64]:
+        return self.rng.standard_normal((len(ids), k))
+
+    def poisson(self, field: int, ids: NDArray[np.uint64],
+                mean: NDArray[np.float64]) -> NDArray[np.int64]:
+        return self.rng.poisson(mean)
+
+
+class KeyedDraws:
+    """Every draw of :func:`populate` a function of (key, galaxy identity, field) alone
+    (:func:`~conecheck.streams.keyed_uniforms`), by inversion of the uniform.
+
+    A galaxy (halo, rank) gets the same numbers whatever else the box holds, and a halo's
+    satellite count is the Poisson quantile of one uniform, which never falls when the mean
+    rises: two models share every galaxy both occupy, at the same place with the same
+    velocity and magnitude draw, and differ only in the halos whose occupation the change
+    of the model reaches (the coupling of common random numbers for the HOD derivatives).
+    """
+
+    def __init__(self, key: int) -> None:
+        self.key = int(key)
+
+    def uniform(self, field: int, ids: NDArray[np.uint64]) -> NDArray[np.float64]:
+        return keyed_uniforms(self.key, ids, field)
+
+    def exponential(self, field: int, ids: NDArray[np.uint64]) -> NDArray[np.float64]:
+        return -np.log1p(-self.uniform(field, ids))
+
+    def normal(self, field: int, ids: NDArray[np.uint64], k: int) -> NDArray[np.float64]:
+        # component j of a galaxy's vector is its own sequence; ndtri of a uniform in
+        # [0, 1) is a standard normal (−inf only for u = 0, probability 2⁻⁵³ per draw)
+        return np.column_stack([special.ndtri(np.maximum(self.uniform(field * 8 + j, ids),
+                                                         2.0**-54)) for j in range(k)])
+
+    def poisson(self, field: int, ids: NDArray[np.uint64],
+                mean: NDArray[np.float64]) -> NDArray[np.int64]:
+        return poisson_quantile(self.uniform(field, ids), mean)
+
+
+#: Means up to which :func:`poisson_quantile` sums the probabilities itself.
+SUMMED_MEANS = 30.0
+
+
+@numba.njit(cache=True)
+def _summed_poisson_quantile(u: NDArray[np.float64], mean: NDArray[np.float64],
+                             out: NDArray[np.int64]) -> None:
+    for i in range(u.size):
+        lam = mean[i]
+        if lam <= 0.0:
+            out[i] = 0
+            continue
+        k = 0
+        p = np.exp(-lam)
+        cdf = p
+        # p > 0: rounding can keep the sum just below a u within 10⁻¹⁵ of 1
+        while cdf < u[i] and p > 0.0:
+            k += 1
+            p *= lam / k
+            cdf += p
+        out[i] = k
+
+
+def poisson_quantile(u: NDArray[np.float64], mean: NDArray[np.float64]) -> NDArray[np.int64]:
+    """Smallest k with P(N ≤ k) ≥ u for N ~ Poisson(mean), elementwise (inverse-CDF
+    sampling: uniform ``u`` give Poisson counts, and for a fixed u the count never falls as
+    the mean rises). Means up to :data:`SUMMED_MEANS` sum the probabilities term by term
+    (numba), larger ones use scipy.stats.poisson.ppf."""
+    u = np.ascontiguousarray(u, dtype=np.float64)
+    mean = np.ascontiguousarray(mean, dtype=np.float64)
+    out = np.zeros(u.size, dtype=np.int64)
+    small = mean <= SUMMED_MEANS
+    if small.all():
+        _summed_poisson_quantile(u, mean, out)
+        return out
+    part = np.zeros(int(small.sum()), dtype=np.int64)
+    _summed_poisson_quantile(u[small], mean[small], part)
+    out[small] = part
+    out[~small] = stats.poisson.ppf(u[~small], mean[~small]).astype(np.int64)
+    return out
+
+
+Draws = StreamDraws | KeyedDraws
+
+
+def galaxy_ids(halo: NDArray[np.int64], rank: NDArray[np.int64]) -> NDArray[np.uint64]:
+    """Identity of the galaxy of rank ``rank`` (0 the central, 1, … satellites) in halo
+    index ``halo``: what :class:`KeyedDraws` draws for."""
+    if rank.size and int(rank.max()) >= 1 << RANK_BITS:
+        raise InputError(f"a halo holds {int(rank.max())} satellites, more than the "
+                         f"{(1 << RANK_BITS) - 1} a galaxy identity can number")
+    return (halo.astype(np.uint64) << np.uint64(RANK_BITS)) | rank.astype(np.uint64)
+
+
 def _magnitudes(level: NDArray[np.int64], mags: NDArray[np.float64], tail: float,
-                rng: np.random.Generator) -> NDArray[np.float64]:
+                draws: Draws, ids: NDArray[np.uint64]) -> NDArray[np.float64]:
     """Magnitude for galaxies brighter than ``level`` thresholds (level ≥ 1)."""
     k = len(mags)
     hi = mags[level - 1]                               # the faintest threshold it passes
     lo = np.where(level < k, mags[np.minimum(level, k - 1)], hi)
-    u = rng.random(level.size)
+    u = draws.uniform(MAGNITUDE, ids)
     inside = lo + (hi - lo) * u
-    tail_draw = hi - rng.exponential(tail, level.size)
+    # tail · E is exactly Generator.exponential(tail) for the stream
+    tail_draw = hi - tail * draws.exponential(BRIGHT_TAIL, ids)
     out = np.where(level < k, inside, tail_draw)
     # keep abs_mag < m_j strict even when u rounds (hi − lo)·u up to the bin edge
     return np.minimum(out, np.nextafter(hi, -np.inf))
 
 
-def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
+def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator | KeyedDraws,
              cosmology: Cosmology | None = None) -> GalaxyBox:
     """Paint galaxies into ``halos`` with the HOD ``model``.
 
@@ -136,8 +265,11 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
         Positions [Mpc/h], velocities [km/s], masses [Msun/h] (Δ = 200m).
     model : HODModel
         Nested luminosity thresholds (+ assembly bias).
-    rng : numpy.random.Generator
-        Source of every random draw.
+    rng : numpy.random.Generator or KeyedDraws
+        Source of every random draw: a generator draws in a fixed order
+        (:class:`StreamDraws`); :class:`KeyedDraws` give each galaxy its own numbers, so
+        that boxes of two models share the galaxies both occupy; such a box carries the
+        galaxies' identities as ``draw_key``.
     cosmology : Cosmology, optional
         Only Ω_m is used, for halo radii when the catalogue has no ``rvir``; default
         ``Cosmology()``.
@@ -152,17 +284,23 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
     InputError
         When the HOD puts no galaxy in any halo, or assembly bias needs a missing column.
     """
+    draws = rng if isinstance(rng, KeyedDraws) else StreamDraws(rng)
     n_halo = len(halos)
     mags = model.mag_limits
     cen_n, sat_n = decorated_occupations(halos, model)
 
-    u = rng.random(n_halo)
+    halo_index = np.arange(n_halo, dtype=np.int64)
+    halo_ids = galaxy_ids(halo_index, np.zeros(n_halo, dtype=np.int64))
+    u = draws.uniform(CENTRAL, halo_ids)
     level_c = np.sum(u[None, :] < cen_n, axis=0)
     cen_idx = np.flatnonzero(level_c > 0)
 
-    n_sat = rng.poisson(sat_n[0])
-    host = np.repeat(np.arange(n_halo), n_sat)
-    us = rng.random(host.size) * sat_n[0, host]
+    n_sat = draws.poisson(SATELLITE_COUNT, halo_ids, sat_n[0])
+    host = np.repeat(halo_index, n_sat)
+    # rank of each satellite in its halo: 1, 2, …
+    rank = np.arange(host.size, dtype=np.int64) - np.repeat(np.cumsum(n_sat) - n_sat, n_sat) + 1
+    sat_ids = galaxy_ids(host, rank)
+    us = draws.uniform(SATELLITE_LEVEL, sat_ids) * sat_n[0, host]
     level_s = np.sum(us[None, :] < sat_n[:, host], axis=0)
 
     if cen_idx.size + host.size == 0:
@@ -172,8 +310,9 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
             f"log_mmin = {model.thresholds[0].params.log_mmin}): check the HOD parameters "
             "against the halo masses")
 
-    mag_c = _magnitudes(level_c[cen_idx], mags, model.bright_tail_mag, rng)
-    mag_s = _magnitudes(level_s, mags, model.bright_tail_mag, rng)
+    cen_ids = halo_ids[cen_idx]
+    mag_c = _magnitudes(level_c[cen_idx], mags, model.bright_tail_mag, draws, cen_ids)
+    mag_s = _magnitudes(level_s, mags, model.bright_tail_mag, draws, sat_ids)
 
     # satellites: NFW radius within the halo radius, isotropic direction, virial velocities
     mass_s = halos.mass[host]
@@ -181,13 +320,15 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
             else virial_radius(mass_s, (cosmology or Cosmology()).omega_m))
     conc = (halos.concentration[host] if halos.concentration is not None
             else concentration_power_law(mass_s, halos.redshift))
-    radius = sample_nfw_radii(conc, rng) * rvir
-    offset = radius[:, None] * isotropic_directions(host.size, rng)
+    radius = nfw_radii(conc, draws.uniform(RADIUS, sat_ids)) * rvir
+    direction = directions_from_uniforms(draws.uniform(POLAR, sat_ids),
+                                         draws.uniform(AZIMUTH, sat_ids))
+    offset = radius[:, None] * direction
     pos_s = np.mod(halos.position[host] + offset, halos.box_size)
     # np.mod can return L itself for tiny negative inputs; keep [0, L)
     pos_s[pos_s >= halos.box_size] = 0.0
     sigma = virial_dispersion(mass_s, rvir, halos.redshift)
-    vel_s = halos.velocity[host] + sigma[:, None] * rng.standard_normal((host.size, 3))
+    vel_s = halos.velocity[host] + sigma[:, None] * draws.normal(VELOCITY, sat_ids, 3)
 
     hid = halos.halo_id if halos.halo_id is not None else np.arange(n_halo, dtype=np.int64)
     owner = np.concatenate([cen_idx, host])
@@ -206,4 +347,6 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator,
         is_central=np.concatenate([np.ones(cen_idx.size, bool), np.zeros(host.size, bool)]),
         halo_id=np.asarray(hid, dtype=np.int64)[owner],
         halo_mass=halos.mass[owner],
-        meta=meta)
+        meta=meta,
+        draw_key=(np.concatenate([cen_ids, sat_ids]) if isinstance(draws, KeyedDraws)
+                  else None))

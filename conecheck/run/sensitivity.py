@@ -3,10 +3,11 @@
 One task per sample and parameter (so that a cluster's workers share the stage evenly: one
 task per sample left a worker idle while the larger sample ran): the run's halos are
 populated again with the parameter moved by ± its step (:mod:`conecheck.box.sensitivity`),
-every time from the same generator (common random numbers), and every configured statistic
-is measured on the box as the box task measures it. :func:`merge_derivatives` joins a
-sample's tasks; the central differences feed the parameter-shift forecast of the
-comparison (:mod:`conecheck.compare.fisher`).
+each galaxy's draws keyed by its identity (:class:`conecheck.box.populate.KeyedDraws`), so
+that the two boxes share every galaxy both models occupy (common random numbers), and every
+configured statistic is measured on the box as the box task measures it.
+:func:`merge_derivatives` joins a sample's tasks; the central differences feed the
+parameter-shift forecast of the comparison (:mod:`conecheck.compare.fisher`).
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import numpy as np
 
 from ..box import populate
 from ..box.halos import HaloCatalog
+from ..box.populate import KeyedDraws
 from ..box.sensitivity import (
     DECORATION_PARAMETERS,
     parameter_values,
@@ -25,9 +27,9 @@ from ..box.sensitivity import (
     varied_model,
 )
 from ..errors import InputError
-from ..streams import seeded_rng
+from ..streams import stream_key
 from .specs import DerivativesSpec
-from .tasks import measure_box_sample
+from .tasks import measure_box_pair
 
 
 def _has_column(halos: Any, name: str) -> bool:
@@ -76,14 +78,14 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
     steps = []
     for name in names:
         lo, hi = step_values(model, threshold, name, step_of[name])
-        values = {}
-        for side, v in (("lo", lo), ("hi", hi)):
-            # the same draws each time (common random numbers)
-            rng = seeded_rng(box_spec.seed, "hod-derivative", sample.name)
-            box = populate(halos, varied_model(model, threshold, name, v), rng, cosmo)
+        # every galaxy's draws keyed by its identity (common random numbers): the two
+        # boxes share every galaxy both models occupy, and their pairs are counted once
+        draws = KeyedDraws(stream_key(box_spec.seed, "hod-derivative", sample.name))
+        boxes = [populate(halos, varied_model(model, threshold, name, v), draws, cosmo)
+                 for v in (lo, hi)]
+        for box in boxes:
             box.matter = halos.matter
-            keep = np.ones(len(box), dtype=bool)
-            values[side] = measure_box_sample(box_spec, box, keep, jackknife=False)
+        values = dict(zip(("lo", "hi"), measure_box_pair(box_spec, *boxes), strict=True))
         for stat in per_stat:
             per_stat[stat].append((np.asarray(values["hi"][stat].value, dtype=np.float64)
                                    - np.asarray(values["lo"][stat].value, dtype=np.float64))

@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from ..box import apply_box_redshift_scatter, apply_box_rsd
+from ..box.effects import galaxy_normals, galaxy_uniforms
 from ..catalog import GalaxyBox
 from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms, select_cut
 from ..cone.build import SurveyModel, prepare_box
@@ -53,7 +54,7 @@ def box_redshift_space(spec: BoxSpec, box: GalaxyBox, axis: int | None = None) -
     pos = apply_box_rsd(box, axis, cosmo) if eff.rsd else np.array(box.position)
     if eff.redshift_scatter_kms > 0:
         pos = apply_box_redshift_scatter(pos, axis, eff.redshift_scatter_kms, box.redshift,
-                                         cosmo, seeded_rng(spec.seed, "box-scatter"),
+                                         cosmo, galaxy_normals(box, spec.seed, "box-scatter"),
                                          box.box_size)
     return pos
 
@@ -157,7 +158,7 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
         # the cones' galaxies are thinned by the survey's completeness: so are the box's for
         # the statistics that count in cells (one draw per galaxy of the box, so every axis
         # and every box of the HOD derivatives keeps the same galaxies where it can)
-        u = seeded_rng(spec.seed, "box-dilution", sample.name).random(len(box))
+        u = galaxy_uniforms(box, spec.seed, "box-dilution", sample.name)
         counted = sample_of(pos[keep & (u < spec.dilution)])
     matter = None if box.matter is None else MatterSample(
         box.matter.position, box.matter.particle_mass, box.box_size)
@@ -172,6 +173,50 @@ def measure_box_sample(spec: BoxSpec, box: GalaxyBox, keep: np.ndarray, *, jackk
                                      spec.statistics.get(name), rng, jackknife=jackknife,
                                      **extra)
     return out
+
+
+def measure_box_pair(spec: BoxSpec, first: GalaxyBox, second: GalaxyBox
+                     ) -> tuple[dict[str, Measurement], dict[str, Measurement]]:
+    """The spec's statistics of every galaxy of two boxes whose galaxies carry identities
+    (``draw_key``: the HOD derivatives' ± boxes), without jackknife.
+
+    Each result equals :func:`measure_box_sample` of its box. A statistic with an estimator
+    for two boxes (:meth:`~conecheck.stats.Statistic.measure_box_pair`, e.g. wp's pair
+    counts) gets the galaxies both boxes hold once and the rest of each; the others, and
+    those that count in cells (their box sample is thinned), measure each box whole.
+    """
+    if first.draw_key is None or second.draw_key is None:
+        raise ValueError("measure_box_pair: both boxes need galaxy identities (draw_key)")
+    axis = spec.effects.los_axis
+    pos1, pos2 = box_redshift_space(spec, first), box_redshift_space(spec, second)
+    _, i1, i2 = np.intersect1d(first.draw_key, second.draw_key, assume_unique=True,
+                               return_indices=True)
+    if not np.array_equal(pos1[i1], pos2[i2]):
+        raise ValueError("measure_box_pair: a galaxy both boxes hold sits at two places")
+    only1, only2 = np.ones(len(first), bool), np.ones(len(second), bool)
+    only1[i1], only2[i2] = False, False
+
+    def sample_of(points: np.ndarray) -> BoxSample:
+        return BoxSample(points, first.box_size, axis)
+
+    common = sample_of(pos1[i1])
+    paired: tuple[dict[str, Measurement], dict[str, Measurement]] = ({}, {})
+    for name in spec.statistics.measure:
+        stat = STATISTICS[name]
+        if stat.counts_in_cells or stat.needs_matter:
+            continue
+        both = stat.measure_box_pair(common, sample_of(pos1[only1]), sample_of(pos2[only2]),
+                                     spec.statistics.get(name),
+                                     seeded_rng(spec.seed, "box", spec.sample.name, name))
+        if both is not None:
+            paired[0][name], paired[1][name] = both
+    rest = tuple(n for n in spec.statistics.measure if n not in paired[0])
+    out = []
+    for box, done in ((first, paired[0]), (second, paired[1])):
+        whole = (measure_box_sample(spec, box, np.ones(len(box), dtype=bool), jackknife=False,
+                                    statistics=rest) if rest else {})
+        out.append({n: done[n] if n in done else whole[n] for n in spec.statistics.measure})
+    return out[0], out[1]
 
 
 def sample_density(box: GalaxyBox, sample: SampleThreshold | Any) -> float:

@@ -181,6 +181,18 @@ class Statistic:
         """The statistic of a periodic box sample."""
         raise NotImplementedError
 
+    def measure_box_pair(self, common: BoxSample, only_first: BoxSample,
+                         only_second: BoxSample, settings: Any = None,
+                         rng: np.random.Generator | None = None
+                         ) -> tuple[Measurement, Measurement] | None:
+        """The statistic of two boxes that share the galaxies ``common`` (the first box
+        holds ``only_first`` besides, the second ``only_second``), without jackknife, each
+        equal to :meth:`measure_box` of its box; None (the default) when the statistic has
+        no cheaper way than measuring each box whole. A statistic that sums over pairs
+        overrides it to count the shared galaxies' pairs once (the HOD derivatives' ± boxes
+        share most of their galaxies)."""
+        return None
+
     def measure_cone(self, sample: ConeSample, randoms: ConeSample | None,
                      geometry: ConeGeometry, settings: Any = None,
                      rng: np.random.Generator | None = None, shared: Any = None, *,
