@@ -88,8 +88,8 @@ def test_box_cross_matches_ckdtree(box_points):
 def test_box_cross_of_a_few_points_with_a_dense_set_matches_ckdtree():
     """A handful of points against a dense set (the HOD derivatives' changed galaxies
     against the galaxies two boxes share): each cell of set 1 holds one point or none, so
-    every window starts from a bisection of the dense cell rather than a merging scan.
-    Reference: scipy's cKDTree pair finding."""
+    every window of the dense cells is found afresh. Reference: scipy's cKDTree pair
+    finding."""
     rng = np.random.default_rng(17)
     L = 80.0
     dense = rng.uniform(0, L, (20_000, 3))

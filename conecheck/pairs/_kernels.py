@@ -51,18 +51,6 @@ def _f2i(typingctx, x):
 
 
 @numba.njit(cache=True, inline="always")
-def _first_above(z, lo, hi, v):
-    """First index in [lo, hi) of the sorted ``z`` whose value exceeds ``v`` (hi if none)."""
-    while lo < hi:
-        mid = (lo + hi) >> 1
-        if z[mid] <= v:
-            lo = mid + 1
-        else:
-            hi = mid
-    return lo
-
-
-@numba.njit(cache=True, inline="always")
 def _wrap(i, n):
     """Cell index modulo n and the number of box lengths crossed."""
     k = i % n
@@ -154,11 +142,8 @@ def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
     dummy = lut.size - 1
     last = lut.size - 2
     nb = (n_rp + 1) * n_pi
-    # the window of the block's first point by bisection, the others' by a merging scan
-    # (a sparse set 1 against a dense set 2, as in a cross count of a few galaxies with a
-    # whole box, would otherwise scan every cell of set 2 from its start)
-    jlo = _first_above(z2, s2, e2, z1[s1] - sz - pi_max) if s1 < e1 else s2
-    jhi = jlo
+    jlo = s2
+    jhi = s2
     for i in range(s1, e1):
         zi = z1[i] - sz
         while jlo < e2 and z2[jlo] <= zi - pi_max:
