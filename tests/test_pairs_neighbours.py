@@ -121,3 +121,25 @@ def test_nearest_distance_gives_the_empty_spheres_of_the_shell_counts(box):
     counts = (neighbours_box(cen, pts, None, box_size=box, edges=edges) if box else
               neighbours_cone(cen, pts, None, edges=edges))
     np.testing.assert_array_equal(np.cumsum(counts, axis=1) == 0, d[:, None] >= radii)
+
+
+@pytest.mark.parametrize("box, r_max", [(20.0, 6.0), (100.0, 9.0), (100.0, 2.5)])
+def test_nearest_distance_in_a_box_equals_scipy_periodic_kdtree(box, r_max):
+    """The box's grid search against scipy's periodic cKDTree (a reference library), with
+    points given outside [0, L) (they wrap), a coarse grid whose neighbour offsets wrap
+    onto the same cell more than once (L = 20, r_max = 6), and sparse and dense points."""
+    from scipy.spatial import cKDTree
+
+    from conecheck.pairs import nearest_distance
+
+    rng = np.random.default_rng(11)
+    for n_pts in (200, 20000):
+        pts = rng.uniform(-box, 2 * box, (n_pts, 3))
+        cen = rng.uniform(0.0, box, (3000, 3))
+        d = nearest_distance(cen, pts, r_max=r_max, box_size=box)
+        ref, _ = cKDTree(np.mod(pts, box), boxsize=box).query(
+            cen, k=1, distance_upper_bound=r_max)
+        assert np.array_equal(np.isinf(d), np.isinf(ref))
+        found = np.isfinite(ref)
+        assert found.sum() > 20  # the fewest expected: 3000 centres, 200 points, r = 2.5: 39
+        np.testing.assert_allclose(d[found], ref[found], rtol=1e-12, atol=1e-12)

@@ -516,6 +516,77 @@ def neighbours_box_kernel(cx, cy, cz, cidx, cself, cstart, tasks, x2, y2, z2, w2
                     out[row, _rp_bin(r2, edges2, n_b)] += w2[j]
 
 
+@numba.njit(cache=True, inline="always")
+def _step_wrap(i, n):
+    """:func:`_wrap` for an index at most one grid length outside [0, n), without division."""
+    if i < 0:
+        return i + n, -1
+    if i >= n:
+        return i - n, 1
+    return i, 0
+
+
+@numba.njit(cache=True, inline="always")
+def _wrap_coordinate(v, box_size):
+    """``v`` modulo the box side as ``numpy.mod`` computes it (Python's float modulo: the
+    exact C fmod, plus L when negative), then L → 0 as in :func:`.counts.to_box_frame`."""
+    if v >= 0.0 and v < box_size:
+        return v
+    m = v % box_size
+    if m >= box_size:
+        m = 0.0
+    return m
+
+
+@numba.njit(parallel=True, cache=True)
+def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, best):
+    """Smallest squared distance from each centre to the points, periodic box.
+
+    The few centres (wrapped into [0, L)) are sorted into a grid of ``dims`` cells no
+    smaller than r_max, ``cstart`` their cell offsets; the many points are streamed
+    unsorted, each visiting the 27 centre cells around its own. The points are split into
+    ``best.shape[0]`` fixed chunks run in parallel, chunk k lowering only ``best[k, :]``
+    (initialised to r2_max), so the minimum over chunks does not depend on the threads.
+    """
+    nx, ny, nz = dims[0], dims[1], dims[2]
+    cell_x = box_size / nx
+    cell_y = box_size / ny
+    cell_z = box_size / nz
+    n = px.size
+    n_chunks = best.shape[0]
+    for k in prange(n_chunks):
+        for i in range(k * n // n_chunks, (k + 1) * n // n_chunks):
+            x = _wrap_coordinate(px[i], box_size)
+            y = _wrap_coordinate(py[i], box_size)
+            z = _wrap_coordinate(pz[i], box_size)
+            ix = min(int(x / cell_x), nx - 1)
+            iy = min(int(y / cell_y), ny - 1)
+            iz = min(int(z / cell_z), nz - 1)
+            for ox in range(-1, 2):
+                kx, wx = _step_wrap(ix + ox, nx)
+                for oy in range(-1, 2):
+                    ky, wy = _step_wrap(iy + oy, ny)
+                    for oz in range(-1, 2):
+                        kz, wz = _step_wrap(iz + oz, nz)
+                        cell = (kx * ny + ky) * nz + kz
+                        s = cstart[cell]
+                        e = cstart[cell + 1]
+                        if s == e:
+                            continue
+                        # the centres of cell k lie wx box lengths away: compare their
+                        # image with the point, or equally the point shifted back
+                        xi = x - wx * box_size
+                        yi = y - wy * box_size
+                        zi = z - wz * box_size
+                        for j in range(s, e):
+                            dx = cx[j] - xi
+                            dy = cy[j] - yi
+                            dz = cz[j] - zi
+                            r2 = dx * dx + dy * dy + dz * dz
+                            if r2 < best[k, j]:
+                                best[k, j] = r2
+
+
 @numba.njit(parallel=True, cache=True)
 def neighbours_cone_kernel(cx, cy, cz, self_idx, x2, y2, z2, c2, w2, idx2, start2, offsets,
                            dims, origin, cell, edges2, h, sphere, out):

