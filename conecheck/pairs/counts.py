@@ -314,22 +314,69 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
     -------
     PairCounts
     """
+    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine)
+    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
+    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    g1, g2, tasks = _sorted_box(grid, p1, p2, grid.box_size, los_axis)
+    return _count_sorted_box(g1, g2, tasks, grid, bins, p1, p2, int(n_regions))
+
+
+def _box_setup(rp_edges: ArrayLike, pi_max: float, dpi: float, box_size: float, los_axis: int,
+               refine: int) -> tuple[RpPiBins, Any, int]:
+    """Checked bins, the box's cell grid and the line-of-sight axis of a box count."""
     bins = make_bins(rp_edges, pi_max, dpi)
     box_size = float(box_size)
     check_box_extent(bins.rp_max, box_size, "largest r_p edge")
     check_box_extent(bins.pi_max, box_size, "pi_max")
-    los_axis = _check_axis(los_axis)
-    p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
-    p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
     grid = box_grid(box_size, bins.rp_max, bins.pi_max, refine=max(1, int(refine)))
+    return bins, grid, _check_axis(los_axis)
+
+
+def _count_sorted_box(g1: Any, g2: Any, tasks: NDArray[np.int64], grid: Any, bins: RpPiBins,
+                      p1: Points, p2: Points | None, n_regions: int) -> PairCounts:
+    """The box kernel on point sets already sorted into ``grid`` (``p2`` None: auto)."""
     offsets = neighbour_offsets(grid, bins.rp_max, bins.pi_max, "cylinder", half=p2 is None)
-    g1, g2, tasks = _sorted_box(grid, p1, p2, box_size, los_axis)
     total, touch = _kernels.rppi_box(
         g1.x, g1.y, g1.z, g1.w, g1.reg, g1.start, g2.x, g2.y, g2.z, g2.w, g2.reg, g2.start,
-        tasks, offsets, grid.dims, box_size, bins.rp_edges**2, bins.pi_max, bins.dpi,
-        bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
+        tasks, offsets, grid.dims, grid.box_size, bins.rp_edges**2, bins.pi_max, bins.dpi,
+        bins.n_pi, n_regions, p2 is None, _n_chunks(tasks.size),
         *_lookup_args(bins), _max_cell(g2.start))
-    return _assemble(total, touch, bins, p1, p2, int(n_regions))
+    return _assemble(total, touch, bins, p1, p2, n_regions)
+
+
+def count_rppi_box_shared(shared: ArrayLike, only_first: ArrayLike, only_second: ArrayLike, *,
+                          box_size: float, los_axis: int = 2, rp_edges: ArrayLike,
+                          pi_max: float, dpi: float = 1.0, refine: int = 2
+                          ) -> tuple[PairCounts, PairCounts]:
+    """Auto counts in (r_p, |π|) bins of two boxes that share most of their points (unit
+    weights, no jackknife): the first box holds ``shared`` and ``only_first``, the second
+    ``shared`` and ``only_second``.
+
+    The shared points' pairs are counted once and the shared set is sorted into the grid
+    once; each box's count joins that auto count, its own points' cross count with the
+    shared set and their auto count (:func:`join_disjoint_auto`), and equals
+    :func:`count_rppi_box` of the box bit for bit.
+
+    Parameters
+    ----------
+    shared, only_first, only_second : array_like, shape (N, 3)
+        Positions [Mpc/h] (redshift space along ``los_axis``), three disjoint sets.
+    box_size, los_axis, rp_edges, pi_max, dpi, refine
+        As for :func:`count_rppi_box` (L, r_p edges, π_max and Δπ in Mpc/h).
+    """
+    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine)
+    ps = check_points(shared, None, None, 0, "shared points")
+    gs, _, tasks_s = _sorted_box(grid, ps, None, grid.box_size, los_axis)
+    auto_shared = _count_sorted_box(gs, gs, tasks_s, grid, bins, ps, None, 0)
+    out = []
+    for name, only in (("first", only_first), ("second", only_second)):
+        po = check_points(only, None, None, 0, f"points of the {name} box only")
+        go, _, tasks_o = _sorted_box(grid, po, None, grid.box_size, los_axis)
+        # the own points first: the kernel loops over set 1's cells, the fewer the better
+        cross = _count_sorted_box(go, gs, tasks_o, grid, bins, po, ps, 0)
+        auto_own = _count_sorted_box(go, go, tasks_o, grid, bins, po, None, 0)
+        out.append(join_disjoint_auto(auto_shared, cross, auto_own))
+    return out[0], out[1]
 
 
 def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,

@@ -51,7 +51,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
-from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_cone, join_disjoint_auto
+from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_box_shared, count_rppi_cone
 from ..pairs.binning import check_rp_edges, make_bins
 from ._common import (
     check_filled,
@@ -212,20 +212,21 @@ def wp_box_pair(common: BoxSample, only_first: BoxSample, only_second: BoxSample
     """wp(r_p) [Mpc/h] of two boxes that share the galaxies ``common`` (first box: common
     and ``only_first``, second: common and ``only_second``), without jackknife.
 
-    The shared galaxies' pairs are counted once (:func:`~conecheck.pairs.join_disjoint_auto`),
-    so two boxes that differ in a few per cent of their galaxies cost little more than one;
-    each result equals :func:`wp_box` of its box bit for bit (unit weights).
+    The shared galaxies' pairs are counted once
+    (:func:`~conecheck.pairs.count_rppi_box_shared`), so two boxes that differ in a few per
+    cent of their galaxies cost little more than one; each result equals :func:`wp_box` of
+    its box bit for bit (unit weights).
     """
     parts = (common, only_first, only_second)
     if any(p.box_size != common.box_size or p.los_axis != common.los_axis
            or p.weight is not None for p in parts):
         raise ValueError("wp_box_pair: three unweighted samples of one box and line of sight")
-    dd_common = box_pair_counts(common, settings)
+    bins = (settings or WpSettings()).bins
+    counts = count_rppi_box_shared(common.position, only_first.position, only_second.position,
+                                   box_size=common.box_size, los_axis=common.los_axis,
+                                   rp_edges=bins.rp_edges, pi_max=bins.pi_max, dpi=bins.dpi)
     out = []
-    for only in (only_first, only_second):
-        # the small set first: the count loops over its cells
-        dd = join_disjoint_auto(dd_common, box_pair_counts(only, settings, common),
-                                box_pair_counts(only, settings))
+    for only, dd in zip((only_first, only_second), counts, strict=True):
         union = BoxSample(np.concatenate([common.position, only.position]), common.box_size,
                           common.los_axis)
         out.append(wp_box(union, settings, jackknife=False, dd=dd))
