@@ -12,7 +12,10 @@ Measured in one run, on the same points, two threads for every threaded code:
   shell of the run workload (8×10⁴ data in a 40°-radius cap between χ = 60 and
   290 Mpc/h, r_p ≤ 20) — conecheck, ``Corrfunc.mocks.DDrppi_mocks`` (comoving
   distances) and cKDTree ``sparse_distance_matrix``;
-* linear growth of the engine's run time with N at fixed density (box).
+* linear growth of the engine's run time with N at fixed density (box);
+* box DD at the lower densities of the HOD samples (2×10⁴ to 2×10⁶ points in
+  L = 585 Mpc/h, r_p ≤ 20) — conecheck, conecheck with the former fixed r_p,max / 2 cells,
+  and ``Corrfunc.theory.DDrppi``.
 
 The cKDTree route returns every pair within r_max, so it runs on a subset and its time is
 scaled to the full size (time ∝ number of query points at fixed density: stated in the
@@ -174,6 +177,57 @@ def cone_rows(rng, geo, scale, repeat, say) -> float:
     return worst
 
 
+#: Box sizes of the sparse-box rows: the HOD samples' densities in the run workload's box.
+SPARSE_BOX = {"box_size": 585.0, "n": (40_000, 150_000, 500_000, 2_000_000),
+              "edges": np.geomspace(0.3, 20.0, 9), "pi_max": 40.0}
+
+
+def sparse_rows(rng, scale, repeat, say) -> float:
+    """Box DD at the densities of the HOD samples (10⁻⁴ to 10⁻² h³/Mpc³): conecheck,
+    conecheck with the former fixed cells of r_p,max / 2, and Corrfunc. Returns the largest
+    ratio of conecheck's time to Corrfunc's (0 without Corrfunc)."""
+    g = SPARSE_BOX
+    edges, pi_max = g["edges"], g["pi_max"]
+    n_pi = int(pi_max)
+    say(f"## Box DD at lower densities: L = {g['box_size']:.0f} Mpc/h (scaled with N in a quick "
+        f"run), r_p {edges[0]:g}–{edges[-1]:g} Mpc/h in {len(edges) - 1} bins, π_max = "
+        f"{pi_max:g} Mpc/h")
+    say()
+    say("Cells are r_p,max wide, widened to hold about `BOX_CELL_POINTS` points on average; "
+        "the former rule kept r_p,max / 2 at every density.")
+    say()
+    say("| N | density [h³/Mpc³] | conecheck [s] | former r_p,max / 2 cells [s] | Corrfunc [s] "
+        "| conecheck / Corrfunc | counts identical |")
+    say("|---|---|---|---|---|---|---|")
+    worst = 0.0
+    for n_full in g["n"]:
+        n = int(n_full * scale)
+        density = n_full / g["box_size"] ** 3
+        L = np.cbrt(n / density)
+        pos = rng.uniform(0, L, (n, 3))
+        t_new, pc = best_of(lambda pos=pos, L=L: count_rppi_box(
+            pos, box_size=L, rp_edges=edges, pi_max=pi_max), repeat)
+        t_old, old = best_of(lambda pos=pos, L=L: count_rppi_box(
+            pos, box_size=L, rp_edges=edges, pi_max=pi_max, refine=2, cell_points=0.0), repeat)
+        same = np.array_equal(old.total, pc.total)
+        cf_cell = ratio_cell = "—"
+        if Corrfunc:
+            x, y, z = (np.ascontiguousarray(pos[:, i]) for i in range(3))
+            t_cf, res = best_of(lambda x=x, y=y, z=z, L=L: DDrppi(
+                1, THREADS, pi_max, edges, x, y, z, boxsize=L, periodic=True), repeat)
+            cf_tot = res["npairs"].astype(float).reshape(len(edges) - 1, n_pi) / 2
+            same = same and np.array_equal(cf_tot, pc.total)
+            worst = max(worst, t_new / t_cf)
+            cf_cell, ratio_cell = f"{t_cf:.3f}", f"{t_new / t_cf:.2f}"
+        say(f"| {n:,} | {density:.2e} | {t_new:.3f} | {t_old:.3f} | {cf_cell} | {ratio_cell} "
+            f"| {same} |")
+    say()
+    if Corrfunc:
+        say(f"Largest ratio of conecheck's time to Corrfunc's over these rows: {worst:.2f}.")
+        say()
+    return worst
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="10× smaller sizes, for a smoke run")
@@ -263,6 +317,9 @@ def main(argv=None) -> int:
                                                          pi_max=pi_max), repeat)
         say(f"| {n:,} | {ll:.0f} | {t:.3f} | {t / n * 1e6:.3f} |")
     say()
+
+    # ------------------------------------------------------------------ sparse boxes
+    sparse_rows(rng, scale, repeat, say)
 
     # ------------------------------------------------------------------ cones
     worst = 0.0

@@ -153,6 +153,38 @@ def test_shared_box_counts_equal_each_box_counted_whole():
     np.testing.assert_array_equal(first.total, ref)
 
 
+def test_box_counts_equal_brute_force_at_every_cell_width():
+    """The box grid's cell width is a speed choice: r_p,max / refine, widened for sparse
+    sets to hold ``cell_points`` partner points (from 1 cell per side up to several per
+    r_p,max). Every width gives scipy's cKDTree counts exactly (unit weights) and the same
+    jackknife pieces."""
+    rng = np.random.default_rng(23)
+    L = 90.0
+    p1 = rng.uniform(0, L, (3000, 3))
+    p2 = rng.uniform(0, L, (800, 3))
+    r1 = rng.integers(0, 5, 3000)
+    r2 = rng.integers(0, 5, 800)
+    edges = np.geomspace(0.4, 14.0, 6)
+    kw = dict(box_size=L, los_axis=2, rp_edges=edges, pi_max=18.0, dpi=2.0, n_regions=5)
+    ref_auto = brute_box(p1, np.ones(3000), None, None, L, 2, edges, 18.0, 2.0, True)
+    ref_cross = brute_box(p1, np.ones(3000), p2, np.ones(800), L, 2, edges, 18.0, 2.0, False)
+    assert ref_auto.sum() > 5000 and ref_cross.sum() > 1000
+    first = None
+    for refine, cell_points in [(1, 0.0), (3, 0.0), (1, 20.0), (1, 80.0), (1, 1e9)]:
+        auto = count_rppi_box(p1, None, r1, **kw, refine=refine, cell_points=cell_points)
+        cross = count_rppi_box(p1, None, r1, p2, None, r2, **kw, refine=refine,
+                               cell_points=cell_points)
+        label = f"refine {refine}, cell_points {cell_points}"
+        np.testing.assert_array_equal(auto.total, ref_auto, err_msg=label)
+        np.testing.assert_array_equal(cross.total, ref_cross, err_msg=label)
+        if first is None:
+            first = (auto, cross)
+        for got, want in zip((auto, cross), first, strict=True):
+            np.testing.assert_array_equal(got.touch, want.touch, err_msg=label)
+    with pytest.raises(InputError, match="cell_points"):
+        count_rppi_box(p1, **kw | {"n_regions": 0}, cell_points=-1.0)
+
+
 def test_box_few_cells_wraps_correctly():
     # r_p,max and π_max close to L/2: one or two cells per side, where every neighbour
     # offset wraps onto the same cells through different periodic images.

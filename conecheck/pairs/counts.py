@@ -40,6 +40,14 @@ from .points import Points, check_points, region_sums
 
 #: Number of private accumulators of a pair count (bit-identical sums up to this many threads).
 MIN_CHUNKS = 32
+#: Partner points a box cell holds at least, on average, when r_p,max-wide cells would hold
+#: fewer (:func:`count_rppi_box`). Chosen by timing uniform boxes of 2·10⁴ to 2·10⁶ points
+#: (densities 10⁻⁴ to 10⁻² h³/Mpc³, r_p ≤ 20 or 30, π_max = 40 Mpc/h) over cell widths of
+#: r_p,max/2 to 4 r_p,max: the fastest width holds 58–330 points, and 80 is within 10 % of
+#: it on each auto count and within 12 % on two sparse-against-dense cross counts
+#: (benchmarks/RESULTS.md: the sixth-pass notes hold the sweep; bench_pairs times this rule
+#: against the former fixed r_p,max / 2 cells and Corrfunc).
+BOX_CELL_POINTS = 80.0
 
 
 @dataclass
@@ -282,7 +290,7 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
                    pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
                    reg2: ArrayLike | None = None, *, box_size: float, los_axis: int = 2,
                    rp_edges: ArrayLike, pi_max: float, dpi: float = 1.0, n_regions: int = 0,
-                   refine: int = 2) -> PairCounts:
+                   refine: int = 1, cell_points: float = BOX_CELL_POINTS) -> PairCounts:
     """Pair counts in (r_p, |π|) bins in a periodic box.
 
     Parameters
@@ -308,27 +316,39 @@ def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike
     n_regions : int
         Number of jackknife regions (0: none).
     refine : int
-        Cells per r_p,max across the LOS (speed only).
+        Cells per r_p,max across the LOS, at most (speed only).
+    cell_points : float
+        Cells are widened until they hold this many points of the partner set on average
+        (speed only; 0 keeps r_p,max / ``refine``).
 
     Returns
     -------
     PairCounts
     """
-    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine)
     p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
     p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
+    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine,
+                                      (p1 if p2 is None else p2).n, cell_points)
     g1, g2, tasks = _sorted_box(grid, p1, p2, grid.box_size, los_axis)
     return _count_sorted_box(g1, g2, tasks, grid, bins, p1, p2, int(n_regions))
 
 
 def _box_setup(rp_edges: ArrayLike, pi_max: float, dpi: float, box_size: float, los_axis: int,
-               refine: int) -> tuple[RpPiBins, Any, int]:
-    """Checked bins, the box's cell grid and the line-of-sight axis of a box count."""
+               refine: int, n_partner: int, cell_points: float
+               ) -> tuple[RpPiBins, Any, int]:
+    """Checked bins, the box's cell grid and the line-of-sight axis of a box count whose
+    partner set (set 2, or the one set of an auto count) holds ``n_partner`` points."""
     bins = make_bins(rp_edges, pi_max, dpi)
     box_size = float(box_size)
     check_box_extent(bins.rp_max, box_size, "largest r_p edge")
     check_box_extent(bins.pi_max, box_size, "pi_max")
-    grid = box_grid(box_size, bins.rp_max, bins.pi_max, refine=max(1, int(refine)))
+    # cells r_p,max / refine across the LOS, widened until they hold cell_points partner
+    # points on average: in a sparse box a cell visit costs more than the candidates it saves
+    if not (np.isfinite(cell_points) and cell_points >= 0):
+        raise InputError(f"cell_points: expected a number >= 0, got {cell_points!r}")
+    column = cell_points * box_size**3 / (max(int(n_partner), 1) * bins.pi_max)
+    grid = box_grid(box_size, bins.rp_max, bins.pi_max, refine=max(1, int(refine)),
+                    min_side=float(np.sqrt(column)))
     return bins, grid, _check_axis(los_axis)
 
 
@@ -346,7 +366,7 @@ def _count_sorted_box(g1: Any, g2: Any, tasks: NDArray[np.int64], grid: Any, bin
 
 def count_rppi_box_shared(shared: ArrayLike, only_first: ArrayLike, only_second: ArrayLike, *,
                           box_size: float, los_axis: int = 2, rp_edges: ArrayLike,
-                          pi_max: float, dpi: float = 1.0, refine: int = 2
+                          pi_max: float, dpi: float = 1.0, refine: int = 1
                           ) -> tuple[PairCounts, PairCounts]:
     """Auto counts in (r_p, |π|) bins of two boxes that share most of their points (unit
     weights, no jackknife): the first box holds ``shared`` and ``only_first``, the second
@@ -364,8 +384,11 @@ def count_rppi_box_shared(shared: ArrayLike, only_first: ArrayLike, only_second:
     box_size, los_axis, rp_edges, pi_max, dpi, refine
         As for :func:`count_rppi_box` (L, r_p edges, π_max and Δπ in Mpc/h).
     """
-    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine)
     ps = check_points(shared, None, None, 0, "shared points")
+    # one grid for every count: sized for the shared set, the partner of all but the
+    # small own-point auto counts
+    bins, grid, los_axis = _box_setup(rp_edges, pi_max, dpi, box_size, los_axis, refine, ps.n,
+                                      BOX_CELL_POINTS)
     gs, _, tasks_s = _sorted_box(grid, ps, None, grid.box_size, los_axis)
     auto_shared = _count_sorted_box(gs, gs, tasks_s, grid, bins, ps, None, 0)
     out = []
