@@ -102,16 +102,22 @@ class ZhengParams:
         if problems:
             raise InputError("; ".join(problems), problems)
 
-    def mean_central(self, mass: ArrayLike) -> NDArray[np.float64]:
-        """<N_cen>(M), mass in Msun/h."""
-        logm = np.log10(np.asarray(mass, dtype=float))
+    def mean_central(self, mass: ArrayLike, *, log_mass: NDArray[np.float64] | None = None
+                     ) -> NDArray[np.float64]:
+        """<N_cen>(M), mass in Msun/h; ``log_mass``, log10 of the same masses, spares the
+        logarithm when the caller has it already."""
+        logm = np.log10(np.asarray(mass, dtype=float)) if log_mass is None else log_mass
         return 0.5 * (1.0 + erf((logm - self.log_mmin) / self.sigma_logm))
 
     def mean_satellite(self, mass: ArrayLike) -> NDArray[np.float64]:
         """<N_sat>(M) without central modulation, mass in Msun/h."""
         mass = np.asarray(mass, dtype=float)
         excess = np.maximum(mass - 10.0**self.log_m0, 0.0) / 10.0**self.log_m1
-        return excess**self.alpha * (excess > 0)
+        # the power only above M_0, where most halos are not; zero below
+        out = np.zeros_like(excess)
+        above = excess > 0
+        out[above] = excess[above] ** self.alpha
+        return out
 
 
 @dataclass(frozen=True)
@@ -192,7 +198,8 @@ class HODModel:
     def raw_occupations(self, mass: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """Undecorated (<N_cen>, <N_sat>) per threshold, each of shape (K, N), faintest first."""
         mass = np.asarray(mass, dtype=float)
-        cen = np.stack([t.params.mean_central(mass) for t in self.thresholds])
+        log_mass = np.log10(mass)
+        cen = np.stack([t.params.mean_central(mass, log_mass=log_mass) for t in self.thresholds])
         sat = np.stack([t.params.mean_satellite(mass) for t in self.thresholds])
         if self.satellites_need_central:
             sat = sat * cen
