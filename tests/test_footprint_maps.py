@@ -164,6 +164,36 @@ def test_disc_fraction_fast_path_agrees_with_exact_queries():
 
 
 @pytest.mark.parametrize("nest", [False, True])
+def test_disc_fraction_is_the_mean_over_healpys_nested_disc_query(monkeypatch, nest):
+    """Every disc sent through the sub-pixel query (an edge margin of 10⁶ ρ_max) gets the
+    mean completeness of the sub-pixels healpy's own nested ``query_disc`` returns at the
+    same N_side_q (the module queries in RING order and converts): exactly on a map of 0s
+    and 1s, whose sums are exact in any order, and to rounding on a fractional map."""
+    nside = 32
+    rng = np.random.default_rng(19)
+    theta, phi = hp.pix2ang(nside, np.arange(hp.nside2npix(nside)), nest=nest)
+    block = (np.floor(np.degrees(phi) / 9.0) * 7 + np.floor(np.degrees(theta) / 7.0)) % 13
+    fractional = np.where(block < 3, 0.0, 0.3 + 0.1 * (block % 7))
+    monkeypatch.setattr(discs, "EDGE_MARGIN", 1e6)
+    n = 300
+    ra, dec = rng.uniform(0.0, 60.0, n), rng.uniform(-40.0, 40.0, n)
+    rad = np.exp(rng.uniform(np.log(0.5), np.log(5.0), n))
+    for vals in (fractional, (fractional > 0).astype(float)):
+        fp = Footprint.from_map(vals, nest=nest)
+        got = discs.disc_fraction(fp, ra, dec, rad)
+        levels = discs._query_level(nside, np.radians(rad), 10.0)
+        nested = fp.reordered(True).values
+        ref = np.array([nested[hp.query_disc(nside << int(k), hp.ang2vec(a, d, lonlat=True),
+                                             np.radians(r), nest=True) >> (2 * int(k))].mean()
+                        for a, d, r, k in zip(ra, dec, rad, levels, strict=True)])
+        if vals is fractional:
+            np.testing.assert_allclose(got, ref, rtol=1e-13, atol=1e-15)
+        else:
+            assert 0.1 < np.mean((ref > 0) & (ref < 1)) < 0.9  # many discs cut by an edge
+            np.testing.assert_array_equal(got, ref)
+
+
+@pytest.mark.parametrize("nest", [False, True])
 def test_disc_fraction_shortcut_never_changes_an_answer(monkeypatch, nest):
     """Discs judged uniform from the nearest boundary pixel get exactly what the sub-pixel
     query gives them. A patchy completeness map (blocks of 7-9° with seven values and

@@ -142,13 +142,16 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
             per_disc = 2.0 * np.pi * (1 - np.cos(r_max)) / hp.nside2pixarea(nside_q)
             stop = min(sel.size, start + max(1, int(BATCH_PIXELS / max(per_disc, 1.0))))
             chunk = sel[start:stop]
-            # queried in NESTED order whatever the map's: a parent is then a bit shift away
-            # (converting RING sub-pixels through their vectors costs far more)
-            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False, nest=True)
+            # queried in RING order (healpy's ring-scheme disc query is about ten times
+            # faster than its nested one, for the same pixels), then converted to NESTED in
+            # one vectorised call, where a parent is a bit shift away
+            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False)
                      for i in chunk]
             counts = np.array([len(q) for q in lists], dtype=np.int64)
             if counts.sum():
-                sub = np.concatenate(lists).astype(np.int64)
+                sub = hp.ring2nest(nside_q, np.concatenate(lists).astype(np.int64))
+                # summed in ring order: exact whatever the order for a map of 0s and 1s (a
+                # coverage); otherwise equal to a nested-order sum up to rounding
                 pv = vals_nest[sub >> (2 * int(level))]
                 has = counts > 0
                 offsets = np.concatenate([[0], np.cumsum(counts)[:-1]])
