@@ -106,6 +106,8 @@ class BoxRegions:
         if p.ndim != 2 or p.shape[1] != 3:
             raise InputError(f"positions must have shape (N, 3) in Mpc/h, got {p.shape}")
         axes = [a for a in range(3) if a != self.los_axis] + [self.los_axis]
+        if self.layout == "columns":
+            axes = axes[:2]  # a column is the same at every depth: the LOS axis is not read
         ijk = np.floor(np.mod(p[:, axes], self.box_size) / self.side).astype(np.int64)
         np.clip(ijk, 0, self.n_side - 1, out=ijk)
         lab = ijk[:, 0] * self.n_side + ijk[:, 1]
