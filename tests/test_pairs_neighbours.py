@@ -11,7 +11,7 @@ import pytest
 from scipy.spatial import cKDTree
 
 from conecheck.errors import InputError
-from conecheck.pairs import neighbours_box, neighbours_cone
+from conecheck.pairs import nearest_distance, neighbours_box, neighbours_cone
 
 
 def brute(centres, points, w, edges, h, box=None, los=2, self_pairs=False):
@@ -99,11 +99,9 @@ def test_exclude_self_index_and_bad_input():
 
 @pytest.mark.parametrize("box", [None, 50.0])
 def test_nearest_distance_gives_the_empty_spheres_of_the_shell_counts(box):
-    """A sphere of radius R is empty exactly when the nearest point is at ≥ R: the k-d tree
+    """A sphere of radius R is empty exactly when the nearest point is at ≥ R: the nearest
     distances agree with the engine's own sphere counts (and, for the box, wrap across the
     edges like minimum-image counts), with a brute-force minimum as the reference."""
-    from conecheck.pairs import nearest_distance
-
     rng = np.random.default_rng(3)
     lo = 0.0 if box else 100.0
     pts = rng.uniform(lo, lo + 50.0, (3000, 3))
@@ -128,10 +126,6 @@ def test_nearest_distance_in_a_box_equals_scipy_periodic_kdtree(box, r_max):
     """The box's grid search against scipy's periodic cKDTree (a reference library), with
     points given outside [0, L) (they wrap), a coarse grid whose neighbour offsets wrap
     onto the same cell more than once (L = 20, r_max = 6), and sparse and dense points."""
-    from scipy.spatial import cKDTree
-
-    from conecheck.pairs import nearest_distance
-
     rng = np.random.default_rng(11)
     for n_pts in (200, 20000):
         pts = rng.uniform(-box, 2 * box, (n_pts, 3))
