@@ -8,6 +8,7 @@ their entropy and spawn key.  The back-end check compares in-process results wit
 
 from __future__ import annotations
 
+import ctypes
 import io
 import json
 import logging
@@ -127,6 +128,23 @@ def swallow_a_ctrl_c(x):
         signal.raise_signal(signal.SIGINT)  # delivered to this (the main) thread at once
     except KeyboardInterrupt:
         pass
+    return {"x": np.array([x], dtype=np.int64)}
+
+
+def ctrl_c_in_a_ctypes_callback(x):
+    """Receives SIGINT inside a ctypes callback (as numba does when it caches a compiled
+    kernel): Python cannot raise the KeyboardInterrupt there and hands it to
+    sys.unraisablehook. A ValueError raised in a second callback goes the same way."""
+    CALLS.append(f"callback {x}")
+
+    def interrupted():
+        signal.raise_signal(signal.SIGINT)  # the handler runs inside this callback
+
+    def failing():
+        raise ValueError("not an interrupt")
+
+    ctypes.CFUNCTYPE(None)(interrupted)()
+    ctypes.CFUNCTYPE(None)(failing)()
     return {"x": np.array([x], dtype=np.int64)}
 
 
@@ -396,6 +414,24 @@ def test_a_swallowed_ctrl_c_still_stops_the_run_after_its_task(tmp_path):
     c = TaskCache(tmp_path)
     assert tasks[0].key in c and tasks[1].key not in c
     # the handler is put back: this process's Ctrl-C behaves as before
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+
+
+def test_a_ctrl_c_inside_a_ctypes_callback_stops_the_run_without_a_traceback(tmp_path,
+                                                                             monkeypatch):
+    """The interrupt lost in a ctypes callback is not reported as "ignored" with a
+    traceback (a Ctrl-C must print one line, not a traceback), while any other exception
+    lost there still reaches the hook; the run stops after the task, and the hook is put
+    back afterwards."""
+    reported = []
+    monkeypatch.setattr(sys, "unraisablehook", reported.append)
+    CALLS.clear()
+    tasks = make_tasks(ctrl_c_in_a_ctypes_callback, [1]) + make_tasks(square, [2])
+    with pytest.raises(KeyboardInterrupt):
+        LocalExecutor().run(tasks, TaskCache(tmp_path))
+    assert CALLS == ["callback 1"]
+    assert [type(u.exc_value) for u in reported] == [ValueError]
+    assert sys.unraisablehook == reported.append
     assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
 
 

@@ -15,6 +15,7 @@ import contextlib
 import logging
 import os
 import signal
+import sys
 import threading
 import traceback
 import uuid
@@ -473,19 +474,29 @@ class _InterruptLatch:
 
     Python raises :class:`KeyboardInterrupt` at the next bytecode after SIGINT; when that
     bytecode runs inside a ctypes callback (numba compiling a kernel calls back into
-    Python to cache it), the exception is printed as "ignored" and the run goes on. The
-    latch records the signal before raising as usual, and :meth:`check`, called after
-    every finished task, raises it again if it was swallowed.
+    Python to cache it), the exception is handed to :func:`sys.unraisablehook`, which
+    would print it with a traceback as "ignored", and the run goes on. The latch records
+    the signal before raising as usual, keeps that report quiet (any other unraisable
+    exception is reported as before), and :meth:`check`, called after every finished
+    task, raises the interrupt again if it was swallowed.
     """
 
     def __init__(self) -> None:
         self.hit = False
         self._previous: Any = None
+        self._previous_hook: Any = None
 
     def __enter__(self) -> _InterruptLatch:
         if threading.current_thread() is threading.main_thread():
             self._previous = signal.signal(signal.SIGINT, self._handle)
+            self._previous_hook = sys.unraisablehook
+            sys.unraisablehook = self._unraisable
         return self
+
+    def _unraisable(self, unraisable: Any) -> None:
+        if self.hit and isinstance(unraisable.exc_value, KeyboardInterrupt):
+            return  # the interrupt this latch raised; check() raises it after the task
+        self._previous_hook(unraisable)
 
     def _handle(self, signum: int, frame: Any) -> None:
         if self._previous == signal.SIG_IGN:
@@ -502,6 +513,8 @@ class _InterruptLatch:
     def __exit__(self, *exc_info: object) -> None:
         if self._previous is not None:
             signal.signal(signal.SIGINT, self._previous)
+        if self._previous_hook is not None:
+            sys.unraisablehook = self._previous_hook
 
 
 @contextlib.contextmanager
