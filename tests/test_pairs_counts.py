@@ -21,6 +21,7 @@ from scipy.spatial import cKDTree
 from conecheck.errors import InputError
 from conecheck.pairs import (
     count_rppi_box,
+    count_rppi_box_shared,
     count_rppi_cone,
     join_disjoint_auto,
     join_separations,
@@ -133,8 +134,6 @@ def test_shared_box_counts_equal_each_box_counted_whole():
     """Two boxes sharing most of their points: each joined count equals the box counted on
     its own bit for bit, and the first equals scipy's periodic cKDTree pair count (the
     reference of this file); an empty own set gives the shared set's auto count."""
-    from conecheck.pairs import count_rppi_box_shared
-
     rng = np.random.default_rng(8)
     L = 50.0
     shared = rng.uniform(-L, 2 * L, (2500, 3))  # outside [0, L): wrapped like the box counts

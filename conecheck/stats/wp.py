@@ -192,16 +192,12 @@ def _measurement(bins: RpPiBins, value: NDArray[np.float64],
 
 
 def box_pair_counts(sample: BoxSample, settings: WpSettings | None = None,
-                    other: BoxSample | None = None, n_regions: int = 0) -> PairCounts:
-    """The (r_p, |π|) counts wp's box estimator uses: the auto count of ``sample``, or its
-    cross count with ``other`` (same box and line of sight); jackknife regions when
-    ``n_regions`` > 0."""
+                    n_regions: int = 0) -> PairCounts:
+    """The (r_p, |π|) auto counts of ``sample`` that wp's box estimator uses; jackknife
+    regions when ``n_regions`` > 0."""
     bins = (settings or WpSettings()).bins
     k = int(n_regions)
     return count_rppi_box(sample.position, sample.weight, sample.region if k else None,
-                          None if other is None else other.position,
-                          None if other is None else other.weight,
-                          None if other is None or not k else other.region,
                           box_size=sample.box_size, los_axis=sample.los_axis,
                           rp_edges=bins.rp_edges, pi_max=bins.pi_max, dpi=bins.dpi,
                           n_regions=k)
