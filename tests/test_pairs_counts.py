@@ -347,23 +347,35 @@ def test_grid_sort_orders_like_lexsort():
 
 
 @pytest.mark.parametrize("geometry", ["box", "cone"])
-def test_delete_one_equals_recount_without_region(geometry):
+@pytest.mark.parametrize("labels", ["patches", "scattered"])
+@pytest.mark.parametrize("binning", ["table", "scan"])
+def test_delete_one_equals_recount_without_region(geometry, labels, binning):
     # One-pass bookkeeping (total − touch[k]) against a recount on the points outside k,
-    # brute-forced with cKDTree (scipy reference).
+    # brute-forced with cKDTree (scipy reference). Regions in patches leave most cells
+    # inside one region (the kernels' fast path, both for pairs within a region and across
+    # two); scattered labels make every cell straddle regions. Edges 1e-9 apart defeat the
+    # look-up table, so the kernels scan the edges.
     rng = np.random.default_rng(8)
     k = 4
     edges = np.geomspace(0.5, 10.0, 4)
+    if binning == "scan":
+        edges = np.array([0.5, 2.0, 2.0 + 1e-9, 10.0])
+        assert rp2_lookup(edges**2).scan
     if geometry == "box":
         L = 40.0
         p = rng.uniform(0, L, (1200, 3))
         reg = (p[:, 0] // (L / 2)).astype(int) * 2 + (p[:, 1] // (L / 2)).astype(int)
-        w = rng.uniform(0.5, 1.5, len(p))
-        pc = count_rppi_box(p, w, reg, box_size=L, rp_edges=edges, pi_max=8.0, dpi=2.0,
-                            n_regions=k)
     else:
         p = _shell(rng, 1500)
         reg = np.minimum((np.degrees(np.arctan2(p[:, 1], p[:, 0])) // 9).astype(int), 3)
-        w = rng.uniform(0.5, 1.5, len(p))
+    if labels == "scattered":
+        reg = rng.integers(0, k, len(p))
+    w = rng.uniform(0.5, 1.5, len(p))
+    if geometry == "box":
+        # cells r_p,max wide (4 per side), so that the patches hold whole cells
+        pc = count_rppi_box(p, w, reg, box_size=L, rp_edges=edges, pi_max=8.0, dpi=2.0,
+                            n_regions=k, cell_points=0.0)
+    else:
         pc = count_rppi_cone(p, w, reg, rp_edges=edges, pi_max=8.0, dpi=2.0, n_regions=k)
     for r in range(k):
         keep = reg != r

@@ -15,8 +15,10 @@ Pair counts, per point and neighbour cell, run in passes over that window:
    mispredict);
 3. a scalar loop binning the accepted candidates and adding their weights into the
    histogram (histogram updates cannot be vectorised), compiled once per binning mode
-   (look-up cells, a scan of the edges, jackknife tags: :data:`BIN_LOOKUP`) so that no
-   test of the mode is left inside it.
+   (look-up cells or a scan of the edges, each with or without jackknife tags:
+   :data:`BIN_LOOKUP`) so that no test of the mode is left inside it. With jackknife tags
+   a window whose cell lies inside one region (:func:`cell_regions`) adds each pair without
+   reading its partner's region.
 
 Before a window is scanned, a cheap geometric test skips what cannot hold a pair: on a
 cone, a cell pair and then each point against the neighbour cell (:func:`_can_pair`, a
@@ -72,32 +74,25 @@ def _rp_bin(rp2, edges2, n_rp):
     return k
 
 
-@numba.njit(cache=True, inline="always")
-def _bin_of(c, rp2, lut, nxt, scan, edges2, n_rp):
-    """Bin of a candidate from its look-up cell (``n_rp`` for the dummy cell)."""
-    if scan:
-        if c == lut.size - 1:
-            return n_rp
-        return _rp_bin(rp2, edges2, n_rp)
-    return lut[c] + (rp2 >= nxt[c])
-
-
 #: Binning modes of the third pass, each compiled on its own (``numba.literally``): with
-#: the look-up cells, with a scan of the edges (``Rp2Lookup.scan``), and with jackknife
-#: tags. Tested inside the pair loop, the mode is not hoisted out of it by the compiler,
-#: and the box kernel ran 30 % slower (benchmarks/RESULTS.md, bench_pairs).
-BIN_LOOKUP, BIN_SCAN, BIN_TOUCH = 0, 1, 2
+#: the look-up cells, with a scan of the edges (``Rp2Lookup.scan``), and each of them with
+#: jackknife tags. Tested inside the pair loop, the mode is not hoisted out of it by the
+#: compiler, and the box kernel ran 30 % slower (benchmarks/RESULTS.md, bench_pairs); a
+#: scan branch left inside the tagged loop cost cone DR counts about 10 %.
+BIN_LOOKUP, BIN_SCAN, BIN_TOUCH, BIN_TOUCH_SCAN = 0, 1, 2, 3
 
 
 @numba.njit(cache=True, inline="always")
 def _bin_mode(with_touch, scan):
     """The binning mode of a count (see :data:`BIN_LOOKUP`)."""
-    return BIN_TOUCH if with_touch else (BIN_SCAN if scan else BIN_LOOKUP)
+    if with_touch:
+        return BIN_TOUCH_SCAN if scan else BIN_TOUCH
+    return BIN_SCAN if scan else BIN_LOOKUP
 
 
 @numba.njit(cache=True, inline="always")
 def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, edges2, n_rp,
-                n_pi, nb, tot, touch, mode):
+                n_pi, nb, tot, touch, mode, rcell):
     """Pass 3: bin the ``m`` accepted candidates ``j0 + jbuf[:m]`` of one point (weight
     ``wi``, jackknife region ``ri``) and add their weights to the histogram."""
     if mode == BIN_LOOKUP:
@@ -111,23 +106,82 @@ def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, e
             q = np.uint64(jbuf[a])
             k = _rp_bin(fbuf[q], edges2, n_rp)
             tot[np.uint64(k * n_pi + pbuf[q])] += wi * w2[np.uint64(j0) + q]
-    else:
+    elif mode == BIN_TOUCH_SCAN:
+        # jackknife tags, edges scanned (layout of :func:`_reduce`): every pair goes into its
+        # first point's region, and into its second point's as well when that differs
+        own = np.uint64(ri * nb)
+        other = np.uint64(touch.size // 2)
         for a in range(m):
             q = np.uint64(jbuf[a])
-            k = _bin_of(np.uint64(cbuf[q]), fbuf[q], lut, nxt, scan, edges2, n_rp)
-            idx = np.uint64(k * n_pi + pbuf[q])
+            idx = np.uint64(_rp_bin(fbuf[q], edges2, n_rp) * n_pi + pbuf[q])
             j = np.uint64(j0) + q
             ww = wi * w2[j]
-            tot[idx] += ww
+            touch[own + idx] += ww
             rj = np.int64(g2[j])
-            touch[np.uint64(ri * nb) + idx] += ww
-            touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
+            if rj != ri:
+                touch[other + np.uint64(rj * nb) + idx] += ww
+    else:
+        # jackknife tags with the look-up cells, as above; ``rcell`` is the one region of
+        # every candidate of the window (its cell lies inside one region, the usual case),
+        # or −1 when the cell straddles regions and each candidate's is read
+        own = np.uint64(ri * nb)
+        other = np.uint64(touch.size // 2)
+        if rcell < 0:
+            for a in range(m):
+                q = np.uint64(jbuf[a])
+                c = np.uint64(cbuf[q])
+                idx = np.uint64((lut[c] + (fbuf[q] >= nxt[c])) * n_pi + pbuf[q])
+                j = np.uint64(j0) + q
+                ww = wi * w2[j]
+                touch[own + idx] += ww
+                rj = np.int64(g2[j])
+                if rj != ri:
+                    touch[other + np.uint64(rj * nb) + idx] += ww
+        elif rcell == ri:
+            for a in range(m):
+                q = np.uint64(jbuf[a])
+                c = np.uint64(cbuf[q])
+                k = lut[c] + (fbuf[q] >= nxt[c])
+                touch[own + np.uint64(k * n_pi + pbuf[q])] += wi * w2[np.uint64(j0) + q]
+        else:
+            cross = other + np.uint64(rcell * nb)
+            for a in range(m):
+                q = np.uint64(jbuf[a])
+                c = np.uint64(cbuf[q])
+                k = lut[c] + (fbuf[q] >= nxt[c])
+                idx = np.uint64(k * n_pi + pbuf[q])
+                ww = wi * w2[np.uint64(j0) + q]
+                touch[own + idx] += ww
+                touch[cross + idx] += ww
+
+
+@numba.njit(cache=True)
+def cell_regions(reg, start):
+    """The jackknife region shared by every point of each cell (points sorted by cell,
+    cell c holding ``start[c]:start[c + 1]``), or −1 for a cell that is empty or straddles
+    regions."""
+    n = start.size - 1
+    out = np.full(n, -1, dtype=np.int64)
+    for c in range(n):
+        s = start[c]
+        e = start[c + 1]
+        if e == s:
+            continue
+        r = np.int64(reg[s])
+        uniform = True
+        for i in range(s + 1, e):
+            if np.int64(reg[i]) != r:
+                uniform = False
+                break
+        if uniform:
+            out[c] = r
+    return out
 
 
 @numba.njit(cache=True)
 def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
                sx, sy, sz, same, edges2, pi_max, inv_dpi, n_pi,
-               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, mode,
+               lut, nxt, shift, base, scan, fbuf, cbuf, pbuf, jbuf, tot, touch, mode, rcell,
                bx0, bx1, by0, by1, reach2):
     """All pairs between one cell of set 1 and one (shifted) cell of set 2, periodic box.
 
@@ -178,20 +232,53 @@ def _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2,
             jbuf[m] = q
             m += cbuf[q] != dummy
         _bin_window(m, j0, w1[i], np.int64(g1[i]), w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt,
-                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode)
+                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode, rcell)
+
+
+@numba.njit(cache=True, inline="always")
+def _touch_size(n_regions, nb):
+    """Length of one chunk's jackknife accumulator (see :func:`_reduce`)."""
+    return 2 * n_regions * nb if n_regions > 0 else 1
+
+
+@numba.njit(cache=True, inline="always")
+def _add_pair(tot, touch, idx, ww, ri, rj, nb, with_touch):
+    """Add one pair of weight ``ww`` to histogram cell ``idx`` (layout of :func:`_reduce`)."""
+    if with_touch:
+        touch[np.uint64(ri * nb) + idx] += ww
+        if rj != ri:
+            touch[np.uint64(touch.size // 2) + np.uint64(rj * nb) + idx] += ww
+    else:
+        tot[idx] += ww
 
 
 @numba.njit(cache=True)
 def _reduce(tot, touch, n_regions, n_rp, n_pi):
-    """Sum the chunk accumulators and drop the overflow row."""
+    """Sum the chunk accumulators and drop the overflow row.
+
+    With jackknife regions a pair is added once by its first point's region (``touch[c,
+    r·nb + …]``, the first half) and once more, in the second half, by its second point's
+    region when that differs: one histogram update for most pairs instead of three (the
+    total and each region the pair touches). Here ``total`` is the sum over the first half
+    and ``touch[k]`` the first half plus the second of region k. With this layout and the
+    one-region cells of :func:`_bin_window`, a cone DR count with 25 regions takes about
+    1.2 times the time of the same count without regions, against 1.4 times before
+    (benchmarks/RESULTS.md).
+    """
     n_chunks = tot.shape[0]
     nb = (n_rp + 1) * n_pi
+    n = n_rp * n_pi
     total = np.zeros((n_rp, n_pi))
     tch = np.zeros((n_regions, n_rp, n_pi))
+    other = n_regions * nb
     for c in range(n_chunks):
-        total += tot[c, : n_rp * n_pi].reshape(n_rp, n_pi)
+        if n_regions == 0:
+            total += tot[c, :n].reshape(n_rp, n_pi)
         for r in range(n_regions):
-            tch[r] += touch[c, r * nb: r * nb + n_rp * n_pi].reshape(n_rp, n_pi)
+            own = touch[c, r * nb: r * nb + n].reshape(n_rp, n_pi)
+            total += own
+            tch[r] += own
+            tch[r] += touch[c, other + r * nb: other + r * nb + n].reshape(n_rp, n_pi)
     return total, tch
 
 
@@ -216,7 +303,9 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
     cy = box_size / ny
     tol = 1e-9 * box_size
     tot = np.zeros((n_chunks, nb))
-    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
+    # the one region of each cell of set 2, if it has one (see _bin_window)
+    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
@@ -239,6 +328,7 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                 if s2 == e2:
                     continue
                 same = auto and o == 0
+                rc = cells2[cell2]
                 sx, sy, sz = wx * box_size, wy * box_size, wz * box_size
                 bx0, bx1 = kx * cx - tol, (kx + 1) * cx + tol
                 by0, by1 = ky * cy - tol, (ky + 1) * cy + tol
@@ -248,17 +338,22 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                     _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
                                sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
-                               bx0, bx1, by0, by1, rpmax2)
+                               rc, bx0, bx1, by0, by1, rpmax2)
+                elif mode == BIN_TOUCH_SCAN:
+                    _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
+                               sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                               base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c,
+                               BIN_TOUCH_SCAN, rc, bx0, bx1, by0, by1, rpmax2)
                 elif mode == BIN_SCAN:
                     _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
                                sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
-                               bx0, bx1, by0, by1, rpmax2)
+                               rc, bx0, bx1, by0, by1, rpmax2)
                 else:
                     _block_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy,
                                sz, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_LOOKUP,
-                               bx0, bx1, by0, by1, rpmax2)
+                               rc, bx0, bx1, by0, by1, rpmax2)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
 
@@ -307,7 +402,7 @@ def _can_pair(ax, ay, az, dx, dy, dz, ex, ey, ez, lx, ly, lz, first_los, rp_max,
 @numba.njit(cache=True, error_model="numpy")
 def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
                 edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
-                fbuf, cbuf, pbuf, jbuf, tot, touch, mode, first_los, window,
+                fbuf, cbuf, pbuf, jbuf, tot, touch, mode, rcell, first_los, window,
                 bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max, s_max):
     """All pairs between two cells of a cone (observer at the origin); ``mode`` is a
     compile-time binning mode (:data:`BIN_LOOKUP`)."""
@@ -370,7 +465,7 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
         if m == 0:
             continue
         _bin_window(m, j0, w1[i], np.int64(g1[i]), w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt,
-                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode)
+                    scan, edges2, n_rp, n_pi, nb, tot, touch, mode, rcell)
 
 
 @numba.njit(parallel=True, cache=True)
@@ -398,7 +493,9 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     mode = _bin_mode(with_touch, scan)
     nb = (n_rp + 1) * n_pi
     tot = np.zeros((n_chunks, nb))
-    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
+    # the one region of each cell of set 2, if it has one (see _bin_window)
+    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
@@ -430,6 +527,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                                  lx, ly, lz, first_los, rp_max, pi_max, s_max):
                     continue
                 same = auto and o == 0
+                rc = cells2[cell2]
                 bx = origin[0] + (kx + 0.5) * side[0]
                 by = origin[1] + (ky + 0.5) * side[1]
                 bz = origin[2] + (kz + 0.5) * side[2]
@@ -440,19 +538,25 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                     _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
                                 e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                 base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_TOUCH,
-                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                rc, first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
                                 s_max)
+                elif mode == BIN_TOUCH_SCAN:
+                    _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
+                                e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                                base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c,
+                                BIN_TOUCH_SCAN, rc, first_los, window, bx, by, bz, hx, hy, hz,
+                                qx, qy, qz, rp_max, s_max)
                 elif mode == BIN_SCAN:
                     _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
                                 e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                 base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c, BIN_SCAN,
-                                first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
+                                rc, first_los, window, bx, by, bz, hx, hy, hz, qx, qy, qz, rp_max,
                                 s_max)
                 else:
                     _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
                                 e2, same, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
                                 base, scan, fbuf, cbuf, pbuf, jbuf, tot_c, touch_c,
-                                BIN_LOOKUP, first_los, window, bx, by, bz, hx, hy, hz, qx, qy,
+                                BIN_LOOKUP, rc, first_los, window, bx, by, bz, hx, hy, hz, qx, qy,
                                 qz, rp_max, s_max)
     return _reduce(tot, touch, n_regions, n_rp, n_pi)
 
@@ -648,14 +752,6 @@ def neighbours_cone_kernel(cx, cy, cz, self_idx, x2, y2, z2, c2, w2, idx2, start
                 out[i, _rp_bin(r2, edges2, n_b)] += w2[j]
 
 
-@numba.njit(cache=True, inline="always")
-def _add_pair(tot, touch, idx, ww, ri, rj, nb, with_touch):
-    tot[idx] += ww
-    if with_touch:
-        touch[np.uint64(ri * nb) + idx] += ww
-        touch[np.uint64(rj * nb) + idx] += ww * (rj != ri)
-
-
 @numba.njit(cache=True)
 def _block_smu_box(x1, y1, z1, w1, g1, s1, e1, x2, y2, z2, w2, g2, s2, e2, sx, sy, sz, same,
                    edges2, n_mu, tot, touch, with_touch):
@@ -705,7 +801,7 @@ def smu_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offse
     with_touch = n_regions > 0
     nb = (n_s + 1) * n_mu
     tot = np.zeros((n_chunks, nb))
-    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
@@ -784,7 +880,7 @@ def smu_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tas
     with_touch = n_regions > 0
     nb = (n_s + 1) * n_mu
     tot = np.zeros((n_chunks, nb))
-    touch = np.zeros((n_chunks, max(n_regions, 1) * nb if with_touch else 1))
+    touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
