@@ -257,6 +257,10 @@ def part_conecheck(d: dict[str, Any], work: Path, profile: bool) -> dict[str, An
                  "the main process only: the tasks ran in dask worker processes, which "
                  "cProfile does not see (use --scheduler local for a profile of the work)")
         report["profile"] = f"cProfile of {where}\n" + profile_text(prof)
+        # the raw statistics too, for a closer look with pstats (path printed with the profile)
+        raw = work / "conecheck.prof"
+        prof.dump_stats(raw)
+        report["profile"] += f"\nraw cProfile statistics: {raw}\n"
     return report
 
 
