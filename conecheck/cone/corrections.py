@@ -26,6 +26,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
+import numba
 import numpy as np
 from astropy.table import Table
 from numpy.typing import NDArray
@@ -79,7 +80,9 @@ def nearest_fibred(table: Table, fibred: NDArray[np.bool_]
     lost = np.flatnonzero(~fibred)
     if lost.size == 0 or fib.size == 0:
         return np.zeros(0, dtype=np.int64), np.zeros(0)
-    chord, j = cKDTree(xyz[fib]).query(xyz[lost], k=1)
+    # an unbalanced tree of plain nodes builds in half the time; the nearest one is the same
+    tree = cKDTree(xyz[fib], balanced_tree=False, compact_nodes=False)
+    chord, j = tree.query(xyz[lost], k=1, workers=max(1, numba.get_num_threads()))
     sep = np.degrees(2.0 * np.arcsin(np.clip(chord / 2.0, 0.0, 1.0))) * 3600.0
     return fib[j], sep
 
