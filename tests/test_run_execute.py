@@ -435,6 +435,56 @@ def test_a_ctrl_c_inside_a_ctypes_callback_stops_the_run_without_a_traceback(tmp
     assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
 
 
+#: A run whose first task is a parallel numba kernel that receives SIGINT while it works;
+#: such kernels call back into numba as they finish, where the interrupt lands.
+CTRL_C_IN_A_PARALLEL_KERNEL = """
+import os, signal, sys, threading
+import numba, numpy as np
+from numba import prange
+from conecheck.run.cache import TaskCache, task_key
+from conecheck.run.execute import LocalExecutor, Task
+
+@numba.njit(parallel=True)
+def spin(n):
+    out = np.zeros(4)
+    for c in prange(4):
+        s = 0.0
+        for i in range(n):
+            s += np.sqrt(i)
+        out[c] = s
+    return out
+
+spin(10)  # compiled before the clock starts
+
+def work():
+    threading.Timer(0.05, os.kill, (os.getpid(), signal.SIGINT)).start()
+    return {"x": spin(400_000_000)}  # over a second of work on two cores
+
+def after():
+    return {"x": np.zeros(1)}
+
+tasks = [Task(key=task_key("spin", {}), label="spin", func=work),
+         Task(key=task_key("after", {}), label="after", func=after)]
+cache = TaskCache(sys.argv[1])
+try:
+    LocalExecutor().run(tasks, cache)
+except KeyboardInterrupt:
+    print("interrupted", tasks[0].key in cache, tasks[1].key in cache)
+"""
+
+
+def test_a_ctrl_c_inside_a_parallel_numba_kernel_stops_the_run_after_its_task(tmp_path):
+    """Raised where it lands (numba's callback as a parallel kernel finishes), the
+    KeyboardInterrupt went back into compiled code: a SystemError, or a segmentation fault
+    in the interrupt test under load. The latch records it there, and the run stops after
+    the task, whose result is kept. In a child process, which could crash."""
+    done = subprocess.run([sys.executable, "-c", CTRL_C_IN_A_PARALLEL_KERNEL, str(tmp_path)],
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["interrupted", "True", "False"], done.stderr
+    assert "Error" not in done.stderr, done.stderr
+
+
 def test_failures_are_reported_after_the_other_tasks_finish(tmp_path):
     CALLS.clear()
     c = TaskCache(tmp_path)

@@ -472,13 +472,21 @@ def _probe_scheduler(address: str, timeout: float) -> None:
 class _InterruptLatch:
     """Remembers a Ctrl-C so that it cannot be lost.
 
-    Python raises :class:`KeyboardInterrupt` at the next bytecode after SIGINT; when that
-    bytecode runs inside a ctypes callback (numba compiling a kernel calls back into
-    Python to cache it), the exception is handed to :func:`sys.unraisablehook`, which
-    would print it with a traceback as "ignored", and the run goes on. The latch records
-    the signal before raising as usual, keeps that report quiet (any other unraisable
-    exception is reported as before), and :meth:`check`, called after every finished
-    task, raises the interrupt again if it was swallowed.
+    Python raises :class:`KeyboardInterrupt` at the next bytecode after SIGINT, and that
+    bytecode may run in Python code that compiled code calls back:
+
+    * numba's parallel kernels call back into numba (``_numba_unpickle``) as they finish:
+      an exception raised there returns into the compiled code, which then fails with a
+      SystemError or a segmentation fault (found by the interrupt test under load, where
+      the Ctrl-C landed in a box pair count). Inside numba the latch only records the
+      signal;
+    * in a ctypes callback (numba caching a kernel it has just compiled), the exception is
+      handed to :func:`sys.unraisablehook`, which would print it with a traceback as
+      "ignored"; the latch keeps that report quiet (any other unraisable exception is
+      reported as before).
+
+    :meth:`check`, called after every finished task, raises a recorded interrupt that was
+    deferred or swallowed.
     """
 
     def __init__(self) -> None:
@@ -502,6 +510,8 @@ class _InterruptLatch:
         if self._previous == signal.SIG_IGN:
             return
         self.hit = True
+        if frame is not None and str(frame.f_globals.get("__name__", "")).startswith("numba"):
+            return  # called back from compiled code: check() raises it after the task
         if callable(self._previous):
             self._previous(signum, frame)  # the default handler raises KeyboardInterrupt
         raise KeyboardInterrupt
