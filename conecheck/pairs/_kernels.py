@@ -91,6 +91,16 @@ def _bin_mode(with_touch, scan):
 
 
 @numba.njit(cache=True, inline="always")
+def _add_tagged(touch, own, other, idx, ww, ri, rj, nb):
+    """Add a pair of weight ``ww`` (regions ``ri``, ``rj``) to histogram cell ``idx`` of its
+    first point's region (offset ``own``) and, when ``rj`` differs, of its second point's
+    in the second half (offset ``other``): the layout of :func:`_reduce`."""
+    touch[own + idx] += ww
+    if rj != ri:
+        touch[other + np.uint64(rj * nb) + idx] += ww
+
+
+@numba.njit(cache=True, inline="always")
 def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, edges2, n_rp,
                 n_pi, nb, tot, touch, mode, rcell):
     """Pass 3: bin the ``m`` accepted candidates ``j0 + jbuf[:m]`` of one point (weight
@@ -115,11 +125,7 @@ def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, e
             q = np.uint64(jbuf[a])
             idx = np.uint64(_rp_bin(fbuf[q], edges2, n_rp) * n_pi + pbuf[q])
             j = np.uint64(j0) + q
-            ww = wi * w2[j]
-            touch[own + idx] += ww
-            rj = np.int64(g2[j])
-            if rj != ri:
-                touch[other + np.uint64(rj * nb) + idx] += ww
+            _add_tagged(touch, own, other, idx, wi * w2[j], ri, np.int64(g2[j]), nb)
     else:
         # jackknife tags with the look-up cells, as above; ``rcell`` is the one region of
         # every candidate of the window (its cell lies inside one region, the usual case),
@@ -132,11 +138,7 @@ def _bin_window(m, j0, wi, ri, w2, g2, jbuf, cbuf, fbuf, pbuf, lut, nxt, scan, e
                 c = np.uint64(cbuf[q])
                 idx = np.uint64((lut[c] + (fbuf[q] >= nxt[c])) * n_pi + pbuf[q])
                 j = np.uint64(j0) + q
-                ww = wi * w2[j]
-                touch[own + idx] += ww
-                rj = np.int64(g2[j])
-                if rj != ri:
-                    touch[other + np.uint64(rj * nb) + idx] += ww
+                _add_tagged(touch, own, other, idx, wi * w2[j], ri, np.int64(g2[j]), nb)
         elif rcell == ri:
             for a in range(m):
                 q = np.uint64(jbuf[a])
@@ -245,9 +247,7 @@ def _touch_size(n_regions, nb):
 def _add_pair(tot, touch, idx, ww, ri, rj, nb, with_touch):
     """Add one pair of weight ``ww`` to histogram cell ``idx`` (layout of :func:`_reduce`)."""
     if with_touch:
-        touch[np.uint64(ri * nb) + idx] += ww
-        if rj != ri:
-            touch[np.uint64(touch.size // 2) + np.uint64(rj * nb) + idx] += ww
+        _add_tagged(touch, np.uint64(ri * nb), np.uint64(touch.size // 2), idx, ww, ri, rj, nb)
     else:
         tot[idx] += ww
 
