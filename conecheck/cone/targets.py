@@ -35,13 +35,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 
-import numba
 import numpy as np
 from numpy.typing import NDArray
 from scipy.integrate import cumulative_trapezoid
 from scipy.spatial import cKDTree
 
 from ..cosmology import Cosmology
+from ..pairs import query_workers
 from .photometry import observed_frame_magnitude
 from .settings import LuminosityFunction, SurveyShell
 
@@ -168,7 +168,7 @@ def neighbour_distances(position: NDArray[np.float64], box_size: float,
     tree = cKDTree(np.mod(position, box_size), boxsize=box_size, balanced_tree=False,
                    compact_nodes=False)
     d, _ = tree.query(np.mod(position[pick], box_size), k=2,
-                      workers=max(1, numba.get_num_threads()))
+                      workers=query_workers())
     return np.asarray(d[:, 1], dtype=np.float64)
 
 

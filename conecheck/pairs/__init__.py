@@ -16,9 +16,9 @@ from .counts import (
     join_disjoint_auto,
     join_separations,
 )
-from .neighbours import nearest_distance, neighbours_box, neighbours_cone
+from .neighbours import nearest_distance, neighbours_box, neighbours_cone, query_workers
 
 __all__ = ["PairCounts", "RpPiBins", "SMuBins", "count_rppi_box", "count_rppi_box_shared",
            "count_rppi_cone", "count_smu_box", "count_smu_cone", "join_disjoint_auto",
            "join_separations", "make_bins", "make_smu_bins", "nearest_distance",
-           "neighbours_box", "neighbours_cone"]
+           "neighbours_box", "neighbours_cone", "query_workers"]

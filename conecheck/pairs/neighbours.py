@@ -38,6 +38,13 @@ NEAREST_CHUNKS = 16
 NEAREST_CELLS_PER_CENTRE = 64
 
 
+def query_workers() -> int:
+    """Threads for a scipy k-d tree query: as many as numba's kernels use, which each run
+    sets (one per dask worker process, every core locally), so the queries do not
+    oversubscribe the cores."""
+    return max(1, numba.get_num_threads())
+
+
 def _self_index(exclude_self: ArrayLike | None, same: bool, n_centres: int,
                 n_points: int) -> NDArray[np.int64]:
     if same:
@@ -190,7 +197,7 @@ def nearest_distance(centres: ArrayLike, points: ArrayLike, *, r_max: float,
     # a point at exactly r_max, found or not, leaves a sphere of radius r_max empty
     if box_size is None:
         d, _ = cKDTree(p).query(c, k=1, distance_upper_bound=float(r_max),
-                                workers=max(1, numba.get_num_threads()))
+                                workers=query_workers())
         out[:] = d
         return out
     box_size = float(box_size)

@@ -510,7 +510,8 @@ class _InterruptLatch:
         if self._previous == signal.SIG_IGN:
             return
         self.hit = True
-        if frame is not None and str(frame.f_globals.get("__name__", "")).startswith("numba"):
+        module = "" if frame is None else str(frame.f_globals.get("__name__", ""))
+        if module == "numba" or module.startswith("numba."):
             return  # called back from compiled code: check() raises it after the task
         if callable(self._previous):
             self._previous(signum, frame)  # the default handler raises KeyboardInterrupt
