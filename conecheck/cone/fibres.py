@@ -3,8 +3,8 @@
 Two targets closer than θ_fc on the sky cannot both get a fibre on one pass
 (θ_fc = 55″ for plug-plate spectrographs; Blanton et al. 2003, AJ 125, 2276).
 
-1. Collision graph: pairs closer than θ_fc from a KD-tree on unit vectors with chord
-   length 2 sin(θ_fc / 2) (``scipy.spatial.cKDTree.query_pairs``); connected groups
+1. Collision graph: pairs of unit vectors closer than the chord 2 sin(θ_fc / 2)
+   (:func:`conecheck.pairs.close_pairs_sphere`, a parallel strip search); connected groups
    from ``scipy.sparse.csgraph.connected_components``.
 2. First pass: in every group, fibres go to a maximum independent set (the largest
    set of targets no two of which collide), with random tie-breaks:
@@ -39,9 +39,9 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
-from scipy.spatial import cKDTree
 
 from ..errors import InputError
+from ..pairs import close_pairs_sphere
 from ..sphere import radec_to_vec
 from .settings import FibreSettings
 
@@ -53,16 +53,14 @@ _EXACT_BATCH_CELLS = 1 << 22
 
 
 def collision_pairs(xyz: NDArray[np.float64], angle_rad: float) -> NDArray[np.int64]:
-    """Index pairs (M, 2), i < j, of unit vectors closer than ``angle_rad`` [rad]."""
-    if len(xyz) < 2:
-        return np.zeros((0, 2), dtype=np.int64)
-    chord = 2.0 * np.sin(0.5 * angle_rad)
-    # an unbalanced tree of plain nodes builds in half the time and finds the same pairs;
-    # their order differs, which nothing downstream depends on (groups, tie-breaks and
-    # picks follow the targets' order)
-    tree = cKDTree(xyz, balanced_tree=False, compact_nodes=False)
-    pairs = tree.query_pairs(chord, output_type="ndarray")
-    return np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+    """Index pairs (M, 2), i < j, of unit vectors closer than ``angle_rad`` [rad].
+
+    The search runs on numba's threads (:func:`conecheck.pairs.close_pairs_sphere`, the
+    same pairs as a k-d tree's ``query_pairs`` at the chord 2 sin(θ / 2)); their order is
+    not the tree's, which nothing downstream reads: groups, tie-breaks and picks follow the
+    targets' order.
+    """
+    return close_pairs_sphere(xyz, 2.0 * np.sin(0.5 * angle_rad))
 
 
 def collision_groups(n: int, pairs: NDArray[np.int64]) -> NDArray[np.int64]:
