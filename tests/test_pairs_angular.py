@@ -1,6 +1,7 @@
-"""Close pairs on the sphere against scipy's k-d tree (``cKDTree.query_pairs``, the
-reference library), on the geometries where a strip search can go wrong: the poles, the
-azimuth seam at φ = ±π, RA = 0, duplicated points and a chord wider than most strips."""
+"""Close pairs and nearest neighbours on the sphere against scipy's k-d tree
+(``cKDTree.query_pairs`` and ``cKDTree.query``, the reference library), on the geometries
+where a strip search can go wrong: the poles, the azimuth seam at φ = ±π, RA = 0,
+duplicated points and a chord wider than most strips."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from conecheck.pairs import close_pairs_sphere
+from conecheck.pairs import close_pairs_sphere, nearest_on_sphere
 from conecheck.sphere import radec_to_vec
 
 
@@ -70,3 +71,23 @@ def test_close_pairs_wide_chord_tiny_sets_and_fixed_order():
         np.testing.assert_array_equal(a, close_pairs_sphere(xyz, 0.3))
     finally:
         numba.set_num_threads(threads)
+
+
+@pytest.mark.parametrize("name", ["north cap", "azimuth seam", "narrow patch"])
+def test_nearest_on_sphere_equals_the_k_d_tree(name):
+    """Nearest data point of each query against ``cKDTree.query(k=1)``: queries next to
+    data points, anywhere in the data's patch (nearest distances out to the strips' search
+    radius and a few beyond it) and all over the sky (most far outside the data, answered
+    by the k-d tree fallback); the same index and the same distance."""
+    ra, dec, _ = GEOMETRIES[name]
+    rng = np.random.default_rng(sorted(GEOMETRIES).index(name) + 100)
+    data = _sky(rng, 8000, ra, dec)
+    near = data[:3000] + 2e-5 * rng.normal(size=(3000, 3))
+    near /= np.linalg.norm(near, axis=1)[:, None]
+    query = np.concatenate([near, _sky(rng, 3000, ra, dec),
+                            _sky(rng, 2000, (0.0, 360.0), (-90.0, 90.0))])
+    dist, index = nearest_on_sphere(query, data)
+    ref_dist, ref_index = cKDTree(data).query(query, k=1)
+    np.testing.assert_array_equal(index, ref_index)
+    np.testing.assert_allclose(dist, ref_dist, rtol=1e-12, atol=0)
+    assert nearest_on_sphere(query[:0], data)[1].shape == (0,)

@@ -5,7 +5,7 @@ the origin, line of sight at the pair midpoint), weighted, with every jackknife 
 count from a single pass.  See :mod:`.counts` for the counting conventions.
 """
 
-from .angular import close_pairs_sphere
+from .angular import close_pairs_sphere, nearest_on_sphere
 from .binning import RpPiBins, SMuBins, make_bins, make_smu_bins
 from .counts import (
     PairCounts,
@@ -22,4 +22,5 @@ from .neighbours import nearest_distance, neighbours_box, neighbours_cone, query
 __all__ = ["PairCounts", "RpPiBins", "SMuBins", "close_pairs_sphere", "count_rppi_box",
            "count_rppi_box_shared", "count_rppi_cone", "count_smu_box", "count_smu_cone",
            "join_disjoint_auto", "join_separations", "make_bins", "make_smu_bins",
-           "nearest_distance", "neighbours_box", "neighbours_cone", "query_workers"]
+           "nearest_distance", "nearest_on_sphere", "neighbours_box", "neighbours_cone",
+           "query_workers"]
