@@ -5,8 +5,9 @@ import pytest
 from astropy.cosmology import FlatLambdaCDM, LambdaCDM
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from scipy.interpolate import CubicSpline
 
-from conecheck.cosmology import Cosmology
+from conecheck.cosmology import Cosmology, TabulatedCubic
 from conecheck.errors import InputError
 
 Z = np.linspace(0.001, 3.0, 200)
@@ -148,3 +149,39 @@ def test_volumes_and_randoms_follow_the_curved_volume_law():
 
     assert sps.kstest(chi, curved).pvalue > 1e-3
     assert sps.kstest(chi, flat).pvalue < 1e-6
+
+
+@pytest.mark.parametrize("omega_k", [0.0, 0.2])
+def test_tabulated_cubic_equals_scipys_cubic_spline(omega_k):
+    """The distance tables' fast evaluation against the scipy CubicSpline it wraps
+    (reference library): random values, every knot and its floating-point neighbours (the
+    interval choice), values beyond both ends (the end pieces extended), NaN, any shape.
+    The arithmetic is scipy's, so with scipy 1.17 they agree bit for bit; the margin (a few
+    rounding errors) only leaves room for another scipy's order of operations."""
+    c = Cosmology(omega_m=0.3, omega_k=omega_k, z_max_table=4.0)
+    rng = np.random.default_rng(11)
+    for table in (c._chi_spline, c._z_spline):
+        k = table.knots
+        v = np.concatenate([rng.uniform(k[0], k[-1], 200_000), k, np.nextafter(k, -np.inf),
+                            np.nextafter(k, np.inf), [k[0] - 1.0, k[-1] + 7.0, np.nan]])
+        got, ref = table(v), table.spline(v)
+        scale = np.nanmax(np.abs(ref))
+        np.testing.assert_allclose(got, ref, rtol=4e-16, atol=4e-16 * scale, equal_nan=True)
+        assert np.isnan(got[-1])
+        grid = rng.uniform(k[0], k[-1], (3, 5))
+        assert table(grid).shape == (3, 5) and np.shape(table(0.5 * k[-1])) == ()
+    # rough splines, where a piece used one interval off is far off: uneven knots, and even
+    # ones that fall on the look-up bins' edges, probed on both sides of every knot
+    # knots on the bins' edges (computed as the table computes them), where rounding can
+    # put a value just below a knot into the bin that starts at it
+    n, lo, hi = 200, 0.3, 8.07
+    edges = lo + np.arange(4 * n) / (4 * n / (hi - lo))
+    on_edges = np.concatenate([[lo], edges[3:-3:4][:n - 2], [hi]])
+    for knots in (np.cumsum(rng.uniform(0.01, 1.0, 300)), 0.1 * np.arange(300), on_edges):
+        rough = TabulatedCubic(CubicSpline(knots, rng.normal(size=len(knots))))
+        v = np.concatenate([rng.uniform(knots[0] - 0.5, knots[-1] + 0.5, 100_000), knots,
+                            np.nextafter(knots, -np.inf), np.nextafter(knots, np.inf)])
+        np.testing.assert_allclose(rough(v), rough.spline(v), rtol=1e-13, atol=1e-13)
+        # the piece of every value is the one of the knots' rule (numpy's searchsorted)
+        expected = np.clip(np.searchsorted(knots, v, side="right") - 1, 0, len(knots) - 2)
+        np.testing.assert_array_equal(rough.intervals(v), expected)
