@@ -33,6 +33,7 @@ from scipy.spatial import cKDTree
 
 from ..errors import InputError
 from ..sphere import angle_to_chord, check_radec, chord_to_angle, radec_to_vec
+from .pixel_order import ring2nest
 from .protocols import HealpixMap
 
 #: Largest sub-pixel N_side used (healpy's limit).
@@ -143,13 +144,13 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
             stop = min(sel.size, start + max(1, int(BATCH_PIXELS / max(per_disc, 1.0))))
             chunk = sel[start:stop]
             # queried in RING order (healpy's ring-scheme disc query is about ten times
-            # faster than its nested one, for the same pixels), then converted to NESTED in
-            # one vectorised call, where a parent is a bit shift away
+            # faster than its nested one, for the same pixels), then converted to NESTED on
+            # numba's threads (:mod:`.pixel_order`), where a parent is a bit shift away
             lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False)
                      for i in chunk]
             counts = np.array([len(q) for q in lists], dtype=np.int64)
             if counts.sum():
-                sub = hp.ring2nest(nside_q, np.concatenate(lists).astype(np.int64))
+                sub = ring2nest(nside_q, np.concatenate(lists))
                 # summed in ring order: exact whatever the order for a map of 0s and 1s (a
                 # coverage); otherwise equal to a nested-order sum up to rounding
                 pv = vals_nest[sub >> (2 * int(level))]
