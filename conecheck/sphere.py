@@ -6,18 +6,38 @@ Angles are degrees at the interface and radians inside, as everywhere in coneche
 
 from __future__ import annotations
 
+import numba
 import numpy as np
+from numba import prange
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError
 
 
+@numba.njit(parallel=True, cache=True)
+def _radec_to_vec(ra, dec, out):
+    for i in prange(ra.size):
+        r = np.radians(ra[i])
+        d = np.radians(dec[i])
+        cd = np.cos(d)
+        out[i, 0] = cd * np.cos(r)
+        out[i, 1] = cd * np.sin(r)
+        out[i, 2] = np.sin(d)
+
+
 def radec_to_vec(ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
-    """Unit vectors (..., 3) of equatorial positions given in degrees."""
-    ra = np.radians(np.asarray(ra_deg, dtype=np.float64))
-    dec = np.radians(np.asarray(dec_deg, dtype=np.float64))
-    cd = np.cos(dec)
-    return np.stack([cd * np.cos(ra), cd * np.sin(ra), np.sin(dec)], axis=-1)
+    """Unit vectors (..., 3) of equatorial positions given in degrees.
+
+    One pass on numba's threads (a cone's 10⁶ targets are converted several times per
+    build); the same products of the same sines and cosines as the numpy expression
+    (cos δ cos α, cos δ sin α, sin δ).
+    """
+    ra, dec = np.broadcast_arrays(np.asarray(ra_deg, dtype=np.float64),
+                                  np.asarray(dec_deg, dtype=np.float64))
+    out = np.empty(ra.shape + (3,))
+    _radec_to_vec(np.ascontiguousarray(ra).reshape(-1), np.ascontiguousarray(dec).reshape(-1),
+                  out.reshape(-1, 3))
+    return out
 
 
 def vec_to_radec(vec: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
