@@ -67,6 +67,30 @@ def _sort_slice(order, key, s, e):
 
 
 @numba.njit(parallel=True, cache=True)
+def sort_by_cell(cid, key, n_cells):
+    """Point indices sorted by (cell ``cid``, ``key``), ties in index order, and where each
+    of the ``n_cells`` cells starts in that order (n_cells + 1 entries): a counting sort by
+    cell, then each cell sorted by its key, cells in parallel."""
+    n = cid.size
+    start = np.zeros(n_cells + 1, dtype=np.int64)
+    for i in range(n):
+        start[cid[i] + 1] += 1
+    for c in range(n_cells):
+        start[c + 1] += start[c]
+    fill = start[:-1].copy()
+    order = np.empty(n, dtype=np.int64)
+    for i in range(n):
+        c = cid[i]
+        order[fill[c]] = i
+        fill[c] += 1
+    occupied = np.flatnonzero(start[1:] - start[:-1] > 1)
+    for t in prange(occupied.size):
+        c = occupied[t]
+        _sort_slice(order, key, start[c], start[c + 1])
+    return order, start
+
+
+@numba.njit(parallel=True, cache=True)
 def grid_sort(pos, w, reg, origin, cell, dims, chi_key):
     """Points sorted by (cell, key): key = distance from the origin χ (``chi_key``, cones)
     or the third coordinate (boxes, LOS along z).
@@ -88,21 +112,7 @@ def grid_sort(pos, w, reg, origin, cell, dims, chi_key):
         iz = min(max(np.int64(np.floor((pz - origin[2]) / cell[2])), 0), nz - 1)
         cid[i] = (ix * ny + iy) * nz + iz
         key[i] = np.sqrt(px * px + py * py + pz * pz) if chi_key else pz
-    start = np.zeros(n_cells + 1, dtype=np.int64)
-    for i in range(n):
-        start[cid[i] + 1] += 1
-    for c in range(n_cells):
-        start[c + 1] += start[c]
-    fill = start[:-1].copy()
-    order = np.empty(n, dtype=np.int64)
-    for i in range(n):
-        c = cid[i]
-        order[fill[c]] = i
-        fill[c] += 1
-    occupied = np.flatnonzero(start[1:] - start[:-1] > 1)
-    for t in prange(occupied.size):
-        c = occupied[t]
-        _sort_slice(order, key, start[c], start[c + 1])
+    order, start = sort_by_cell(cid, key, n_cells)
     x = np.empty(n)
     y = np.empty(n)
     z = np.empty(n)

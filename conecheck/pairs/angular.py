@@ -27,7 +27,7 @@ from numba import prange
 from numpy.typing import NDArray
 from scipy.spatial import cKDTree
 
-from ._sorting import _sort_slice
+from ._sorting import sort_by_cell
 from .neighbours import query_workers
 
 #: Relative widening of the strips and of the azimuth windows: far above the rounding of
@@ -49,21 +49,7 @@ def _strip_sort(xyz, width, n_strips):
         sid[i] = min(max(s, 0), n_strips - 1)
         phi[i] = np.arctan2(xyz[i, 1], xyz[i, 0])
         rho[i] = np.sqrt(xyz[i, 0] * xyz[i, 0] + xyz[i, 1] * xyz[i, 1])
-    start = np.zeros(n_strips + 1, dtype=np.int64)
-    for i in range(n):
-        start[sid[i] + 1] += 1
-    for s in range(n_strips):
-        start[s + 1] += start[s]
-    fill = start[:-1].copy()
-    order = np.empty(n, dtype=np.int64)
-    for i in range(n):
-        s = sid[i]
-        order[fill[s]] = i
-        fill[s] += 1
-    busy = np.flatnonzero(start[1:] - start[:-1] > 1)
-    for t in prange(busy.size):
-        s = busy[t]
-        _sort_slice(order, phi, start[s], start[s + 1])
+    order, start = sort_by_cell(sid, phi, n_strips)
     rho_min = np.full(n_strips, np.inf)
     for i in range(n):
         if rho[i] < rho_min[sid[i]]:
