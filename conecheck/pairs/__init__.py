@@ -2,7 +2,9 @@
 
 Periodic boxes (one axis as the line of sight, minimum image) and light cones (observer at
 the origin, line of sight at the pair midpoint), weighted, with every jackknife delete-one
-count from a single pass.  See :mod:`.counts` for the counting conventions.
+count from a single pass.  See :mod:`.counts` for the counting conventions.  On the unit
+sphere (:mod:`.angular`): every pair within a chord and each query's nearest point, the
+fibre-collision graph and the nearest fibred neighbour of a cone's targets.
 """
 
 from .angular import close_pairs_sphere, nearest_on_sphere
