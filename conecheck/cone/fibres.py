@@ -41,8 +41,9 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from ..errors import InputError
+from ..healpix_pixels import ang2pix_lonlat
 from ..pairs import close_pairs_sphere
-from ..sphere import radec_to_vec
+from ..sphere import check_radec, radec_to_vec
 from .settings import FibreSettings
 
 log = logging.getLogger(__name__)
@@ -220,11 +221,8 @@ class OverlapMap:
 
     def probability(self, ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
         """Second-pass probability at RA, Dec [deg]."""
-        import healpy as hp
-
-        pix = hp.ang2pix(self.nside, np.asarray(ra_deg), np.asarray(dec_deg), nest=self.nest,
-                         lonlat=True)
-        return self.values[pix]
+        ra, dec = check_radec(ra_deg, dec_deg, "fibre-pattern positions")
+        return self.values[ang2pix_lonlat(self.nside, ra, dec, nest=self.nest)]
 
 
 def load_overlap_map(path: str, nest: bool = False) -> OverlapMap:

@@ -1,10 +1,11 @@
 """Completeness-weighted fraction of spherical discs inside a footprint.
 
 For a disc D of angular radius r the fraction is f = (1/Ω_D) ∫_D c dΩ, with c the
-completeness map.  It is evaluated as a midpoint rule on a finer HEALPix grid:
-``healpy.query_disc(..., inclusive=False)`` at N_side_q = N_side · 2^k returns the
-sub-pixels whose *centres* lie in the disc, and f is the mean completeness of their
-parent pixels.  ``inclusive=False`` is the right choice: the centre-in-disc test is
+completeness map.  It is evaluated as a midpoint rule on a finer HEALPix grid: the
+sub-pixels at N_side_q = N_side · 2^k whose *centres* lie in the disc (the rule of
+``healpy.query_disc(..., inclusive=False)``, applied to all discs at once on numba's
+threads by :mod:`.disc_query`), and f is the mean completeness of their parent pixels.
+The centre-in-disc rule is the right choice: the centre-in-disc test is
 the midpoint rule, whose errors along the rim cancel to first order, while
 ``inclusive=True`` returns every sub-pixel that touches the disc and so over-weights
 the rim (biasing f towards the completeness just outside the disc).  N_side_q is the
@@ -21,7 +22,7 @@ lies within ρ_max (largest centre-to-corner distance of a pixel) of that point,
 within r + ρ_max of the disc's centre.  When the nearest boundary pixel centre is
 farther than r + 1.5 ρ_max (``EDGE_MARGIN``), every point of the disc therefore lies in
 a pixel of the centre's value and the exact answer needs no query.  Only centres near
-edges and holes go through ``query_disc``.
+edges and holes go through the sub-pixel query.
 """
 
 from __future__ import annotations
@@ -32,14 +33,13 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
+from ..healpix_pixels import ang2pix_lonlat
 from ..sphere import angle_to_chord, check_radec, chord_to_angle, radec_to_vec
-from .pixel_order import ring2nest
+from .disc_query import parent_value_sums
 from .protocols import HealpixMap
 
 #: Largest sub-pixel N_side used (healpy's limit).
 MAX_NSIDE = 2**29
-#: Sub-pixels gathered per batch of the exact path (bounds memory).
-BATCH_PIXELS = 4_000_000
 #: A disc is uniform when no boundary pixel centre lies within r + this × ρ_max of its
 #: centre (the bound is r + ρ_max, see the module notes; the rest is a safety margin for
 #: pixel edges that bulge beyond the corners ``max_pixrad`` measures).
@@ -118,7 +118,7 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
                          f"({int(bad.sum())} bad values)")
     r = np.radians(rad)
     nside, nest, vals = fp.nside, fp.nest, fp.values
-    pix = np.asarray(hp.ang2pix(nside, ra, dec, nest=nest, lonlat=True))
+    pix = ang2pix_lonlat(nside, ra, dec, nest=nest)
     out = vals[pix].astype(np.float64)
     tree = _boundary_tree(fp)
     if tree is None:
@@ -130,34 +130,9 @@ def disc_fraction(fp: HealpixMap, ra_deg: ArrayLike, dec_deg: ArrayLike, radius_
     hard = np.flatnonzero(chord_to_angle(np.minimum(dist, 2.0)) <= r + margin)
     if hard.size == 0:
         return out.reshape(shape)
-    vec = centres[hard]
     levels = _query_level(nside, r[hard], samples_per_radius)
-    vals_nest = _nested_values(fp)
-    for level in np.unique(levels):
-        sel = np.flatnonzero(levels == level)
-        nside_q = nside << int(level)
-        r_max = r[hard[sel]].max()
-        start = 0
-        while start < sel.size:
-            # Batch so that the gathered sub-pixel lists stay bounded in memory.
-            per_disc = 2.0 * np.pi * (1 - np.cos(r_max)) / hp.nside2pixarea(nside_q)
-            stop = min(sel.size, start + max(1, int(BATCH_PIXELS / max(per_disc, 1.0))))
-            chunk = sel[start:stop]
-            # queried in RING order (healpy's ring-scheme disc query is about ten times
-            # faster than its nested one, for the same pixels), then converted to NESTED on
-            # numba's threads (:mod:`.pixel_order`), where a parent is a bit shift away
-            lists = [hp.query_disc(nside_q, vec[i], r[hard[i]], inclusive=False)
-                     for i in chunk]
-            counts = np.array([len(q) for q in lists], dtype=np.int64)
-            if counts.sum():
-                sub = ring2nest(nside_q, np.concatenate(lists))
-                # summed in ring order: exact whatever the order for a map of 0s and 1s (a
-                # coverage); otherwise equal to a nested-order sum up to rounding
-                pv = vals_nest[sub >> (2 * int(level))]
-                has = counts > 0
-                offsets = np.concatenate([[0], np.cumsum(counts)[:-1]])
-                sums = np.add.reduceat(pv, offsets[has])
-                out[hard[chunk[has]]] = sums / counts[has]
-            start = stop
+    sums, counts = parent_value_sums(_nested_values(fp), centres[hard], r[hard], levels)
+    has = counts > 0
+    out[hard[has]] = sums[has] / counts[has]
     return np.clip(out, 0.0, 1.0).reshape(shape)
 

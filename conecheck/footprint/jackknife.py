@@ -40,6 +40,7 @@ from scipy.spatial import cKDTree
 from ..atomic import atomic_path
 from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
+from ..healpix_pixels import ang2pix_lonlat
 from ..sphere import check_radec, vec_to_radec
 from .maps import Footprint
 from .summary import connected_pieces
@@ -110,7 +111,7 @@ class SkyRegions:
     def region_of(self, ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.int32]:
         """Region index (0 … K−1, −1 outside the footprint) of positions in degrees."""
         ra, dec = check_radec(ra_deg, dec_deg, "jackknife positions")
-        return self.region_map[hp.ang2pix(self.nside, ra, dec, nest=self.nest, lonlat=True)]
+        return self.region_map[ang2pix_lonlat(self.nside, ra, dec, nest=self.nest)]
 
     def save(self, path: str | os.PathLike[str]) -> None:
         """Write to a compressed ``.npz`` file atomically."""

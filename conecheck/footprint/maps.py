@@ -24,6 +24,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..cosmology import DEG2_PER_SR
 from ..errors import InputError
+from ..healpix_pixels import ang2pix_lonlat, ring2nest
 from ..sphere import check_radec
 from .discs import disc_fraction
 from .fitsio import read_healpix, write_healpix
@@ -198,7 +199,7 @@ class Footprint:
     def pixel_of(self, ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.int64]:
         """HEALPix pixel index (this map's ordering) of positions in degrees."""
         ra, dec = check_radec(ra_deg, dec_deg)
-        return np.asarray(hp.ang2pix(self._nside, ra, dec, nest=self._nest, lonlat=True))
+        return ang2pix_lonlat(self._nside, ra, dec, nest=self._nest)
 
     def completeness(self, ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
         """Completeness at positions RA, Dec (degrees); 0 outside the footprint."""
@@ -278,7 +279,7 @@ class Footprint:
         pick = self.occupied[np.minimum(np.searchsorted(cdf, rng.random(n), side="right"),
                                         self.occupied.size - 1)]
         if hp.isnsideok(self._nside, nest=True):
-            parent = pick if self._nest else hp.ring2nest(self._nside, pick)
+            parent = pick if self._nest else ring2nest(self._nside, pick)
             level = int(np.log2(SAMPLE_NSIDE // self._nside))
             child = parent.astype(np.int64) << (2 * level)
             child += rng.integers(0, 1 << (2 * level), size=n, dtype=np.int64)

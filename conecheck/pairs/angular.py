@@ -27,6 +27,7 @@ from numba import prange
 from numpy.typing import NDArray
 from scipy.spatial import cKDTree
 
+from ..healpix_pixels import vec2pix
 from ._sorting import sort_by_cell
 from .neighbours import query_workers
 
@@ -254,7 +255,7 @@ def _search_chord(data: NDArray[np.float64]) -> float:
     while 12 * nside * nside < n / 16 and nside < 8192:
         nside *= 2
     while True:
-        pix = hp.vec2pix(nside, data[:, 0], data[:, 1], data[:, 2])
+        pix = vec2pix(nside, data[:, 0], data[:, 1], data[:, 2])
         covered = np.count_nonzero(np.bincount(pix, minlength=hp.nside2npix(nside)))
         per_pixel = n / covered
         if per_pixel <= 64 or nside >= 8192:
