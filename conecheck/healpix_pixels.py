@@ -268,6 +268,6 @@ def vec2pix(nside: int, x: ArrayLike, y: ArrayLike, z: ArrayLike,
     as ``healpy.vec2pix(nside, x, y, z, nest)``; N_side as for :func:`ang2pix_lonlat`."""
     order = _ring_or_nest_order(nside, nest)
     xs, ys, zs = np.broadcast_arrays(*(np.asarray(c, dtype=np.float64) for c in (x, y, z)))
-    out = _vec2pix(np.int64(nside), order, bool(nest), *(np.ascontiguousarray(c).reshape(-1)
-                                          for c in (xs, ys, zs)))
+    # strided views (the columns of an (n, 3) array) are read in place, not copied
+    out = _vec2pix(np.int64(nside), order, bool(nest), *(c.reshape(-1) for c in (xs, ys, zs)))
     return out.reshape(xs.shape)
