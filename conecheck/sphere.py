@@ -40,6 +40,33 @@ def radec_to_vec(ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
     return out
 
 
+@numba.njit(parallel=True, cache=True)
+def _radec_chi_to_xyz(ra, dec, chi, out):
+    for i in prange(ra.size):
+        r = np.radians(ra[i])
+        d = np.radians(dec[i])
+        scale = chi[i] * np.cos(d)
+        out[i, 0] = scale * np.cos(r)
+        out[i, 1] = scale * np.sin(r)
+        out[i, 2] = chi[i] * np.sin(d)
+
+
+def radec_chi_to_xyz(ra_deg: ArrayLike, dec_deg: ArrayLike,
+                     distance: ArrayLike) -> NDArray[np.float64]:
+    """Cartesian positions (..., 3) of points at RA, Dec [deg] and comoving distance,
+    observer at the origin, in the distance's unit (Mpc/h in conecheck).
+
+    (χ cos δ cos α, χ cos δ sin α, χ sin δ), multiplied in that order, in one pass on
+    numba's threads: a cone's wp converts each sample and random catalogue once per cut.
+    """
+    ra, dec, chi = np.broadcast_arrays(*(np.asarray(a, dtype=np.float64)
+                                         for a in (ra_deg, dec_deg, distance)))
+    out = np.empty(ra.shape + (3,))
+    _radec_chi_to_xyz(*(np.ascontiguousarray(a).reshape(-1) for a in (ra, dec, chi)),
+                      out.reshape(-1, 3))
+    return out
+
+
 def vec_to_radec(vec: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """RA in [0, 360) and Dec in [−90, 90], both in degrees, of (..., 3) vectors."""
     v = np.asarray(vec, dtype=np.float64)

@@ -17,6 +17,7 @@ from ..cosmology import DEG2_PER_SR, Cosmology
 from ..errors import InputError
 from ..footprint.protocols import JackknifeRegions, SkyFootprint
 from ..jackknife import BoxRegions, jackknife_covariance
+from ..sphere import radec_chi_to_xyz
 
 #: Key of ``Measurement.extra`` holding, per bin, the variance of a box value that comes from
 #: the box estimator's own random sampling (e.g. random sphere centres), which the cones do
@@ -302,10 +303,7 @@ class ConeSample:
     @property
     def xyz(self) -> NDArray[np.float64]:
         """Cartesian positions [Mpc/h], observer at the origin, shape (N, 3)."""
-        ra, dec = np.radians(self.ra), np.radians(self.dec)
-        cd = np.cos(dec)
-        return np.column_stack([self.chi * cd * np.cos(ra), self.chi * cd * np.sin(ra),
-                                self.chi * np.sin(dec)])
+        return radec_chi_to_xyz(self.ra, self.dec, self.chi)
 
     @classmethod
     def from_xyz(cls, xyz: ArrayLike, weight: ArrayLike | None = None,
