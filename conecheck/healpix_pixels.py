@@ -55,6 +55,19 @@ def _spread_bits(v):
 
 
 @numba.njit(cache=True)
+def _belt_face(ifp, ifm):
+    """Base face (0 … 11) of an equatorial-belt pixel from the indices ``ifp`` and ``ifm``
+    of the ascending and descending edge lines it lies between, in units of N_side: equal
+    indices put it on one of the four equatorial faces (4 … 7), otherwise on the north
+    (0 … 3) or south (8 … 11) face that the lower index names."""
+    if ifp == ifm:
+        return ifp | 4
+    if ifp < ifm:
+        return ifp
+    return ifm + 8
+
+
+@numba.njit(cache=True)
 def nest_of_ring_position(order, iring, iphi):
     """NESTED index of the pixel ``iphi`` (1-based, counted from φ = 0) of ring ``iring``
     (1 … 4 N_side − 1, counted from the north pole) at N_side = 2^order."""
@@ -71,12 +84,7 @@ def nest_of_ring_position(order, iring, iphi):
         irm = nl2 + 2 - ire
         ifm = (iphi - (ire >> 1) + nside - 1) >> order
         ifp = (iphi - (irm >> 1) + nside - 1) >> order
-        if ifp == ifm:
-            face = ifp | 4
-        elif ifp < ifm:
-            face = ifp
-        else:
-            face = ifm + 8
+        face = _belt_face(ifp, ifm)
     else:  # south polar cap
         nr = 4 * nside - iring
         kshift = 0
@@ -149,14 +157,7 @@ def _pixel_of_location(nside, order, nest, z, phi, sin_theta, have_sin):
         jp = np.int64(temp1 - temp2)  # ascending edge line
         jm = np.int64(temp1 + temp2)  # descending edge line
         if nest:
-            ifp = jp >> order
-            ifm = jm >> order
-            if ifp == ifm:
-                face = ifp | 4
-            elif ifp < ifm:
-                face = ifp
-            else:
-                face = ifm + 8
+            face = _belt_face(jp >> order, jm >> order)
             ix = jm & (nside - 1)
             iy = nside - (jp & (nside - 1)) - 1
             return (face << (2 * order)) + _spread_bits(ix) + (_spread_bits(iy) << 1)
