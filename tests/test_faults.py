@@ -22,6 +22,10 @@ import pytest
 import tomli_w
 from run_helpers import tiny_dict
 
+from conecheck.config import config_from_dict
+from conecheck.run import validate as validate_mod
+from conecheck.run.pipeline import prepare_inputs
+
 pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
 
 BACKENDS = {"local": [], "local-cluster": ["--scheduler", "local-cluster", "--workers", "2"]}
@@ -133,3 +137,40 @@ def test_ladder_on_a_local_cluster_equals_the_local_ladder(tmp_path):
             rung.pop("seconds", None)
         ladders[backend] = {k: r[k] for k in ("ladder", "corrections", "cuts")}
     assert ladders["local"] == ladders["local-cluster"]
+
+
+def _numba_frame():
+    """A frame whose module is numba's, where the interrupt latch only records a Ctrl-C
+    (Python runs the SIGINT handler in such a frame when a parallel kernel calls back)."""
+    scope = {"__name__": "numba.core.serialize", "sys": sys}
+    exec("def here():\n    return sys._getframe()\n", scope)
+    return scope["here"]()
+
+
+def test_a_ctrl_c_recorded_in_the_input_stage_stops_the_run_before_the_next_stage(
+        tmp_path, monkeypatch):
+    """The input stage builds the box, footprint and regions with numba kernels outside
+    any task. A Ctrl-C that lands in numba's callback there is only recorded (raising it
+    into compiled code crashes the process); the run raises it before the pre-flight."""
+    reached = []
+
+    def inputs_hit_by_ctrl_c(*args: Any, **kwargs: Any) -> Any:
+        inp = prepare_inputs(*args, **kwargs)
+        handler = signal.getsignal(signal.SIGINT)
+        assert callable(handler) and handler is not signal.default_int_handler
+        handler(signal.SIGINT, _numba_frame())  # recorded, not raised, as in numba
+        reached.append("inputs")
+        return inp
+
+    def preflight(*args: Any, **kwargs: Any) -> Any:
+        reached.append("preflight")
+        raise AssertionError("the pre-flight ran after a Ctrl-C")
+
+    monkeypatch.setattr(validate_mod, "prepare_inputs", inputs_hit_by_ctrl_c)
+    monkeypatch.setattr(validate_mod, "preflight", preflight)
+    before = signal.getsignal(signal.SIGINT)
+    cfg = config_from_dict(tiny_dict(**{"cones.n_cones": 1}), "test", tmp_path)
+    with pytest.raises(KeyboardInterrupt):
+        validate_mod.validate(cfg, tmp_path / "run", progress=False)
+    assert reached == ["inputs"]
+    assert signal.getsignal(signal.SIGINT) is before  # the run's handler is gone again

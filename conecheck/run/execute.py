@@ -179,7 +179,7 @@ class Executor(ABC):
                      len(value), len(unique), len(pending))
 
         failures: dict[int, tuple[BaseException, str]] = {}
-        latch = _InterruptLatch()
+        latch = InterruptLatch()
 
         def done(j: int, ok: bool, result: Any, tb: str) -> None:
             i = pending[j]
@@ -469,7 +469,7 @@ def _probe_scheduler(address: str, timeout: float) -> None:
                          f"(it answered {str(reply)[:80]!r})")
 
 
-class _InterruptLatch:
+class InterruptLatch:
     """Remembers a Ctrl-C so that it cannot be lost.
 
     Python raises :class:`KeyboardInterrupt` at the next bytecode after SIGINT, and that
@@ -486,7 +486,9 @@ class _InterruptLatch:
       reported as before).
 
     :meth:`check`, called after every finished task, raises a recorded interrupt that was
-    deferred or swallowed.
+    deferred or swallowed. A run also holds one around its stages outside the tasks (the
+    input stage reads and builds the box, footprint and regions with numba kernels too)
+    and checks it after each of them (:func:`conecheck.run.validate.validate`).
     """
 
     def __init__(self) -> None:
@@ -494,7 +496,7 @@ class _InterruptLatch:
         self._previous: Any = None
         self._previous_hook: Any = None
 
-    def __enter__(self) -> _InterruptLatch:
+    def __enter__(self) -> InterruptLatch:
         if threading.current_thread() is threading.main_thread():
             self._previous = signal.signal(signal.SIGINT, self._handle)
             self._previous_hook = sys.unraisablehook

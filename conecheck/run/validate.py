@@ -40,7 +40,7 @@ from ..report import (
 )
 from ..version import __version__
 from .cache import TaskCache
-from .execute import make_executor
+from .execute import InterruptLatch, make_executor
 from .inputs import cosmology_of
 from .pipeline import (
     RunInputs,
@@ -298,9 +298,14 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
         prog = Progress(enabled=progress)
         executor = make_executor(scheduler or cfg.compute.scheduler,
                                  workers if workers is not None else cfg.compute.workers)
-        with executor:
+        # the stages outside the tasks run numba kernels too (the input stage reads and
+        # builds the box, footprint and regions): a Ctrl-C landing in one is recorded by
+        # the latch and raised at the next check, as the executor does after each task
+        with executor, InterruptLatch() as latch:
             inp = prepare_inputs(cfg, executor, cache, prog)
+            latch.check()
             checked = preflight(cfg, inp.footprint, inp.box, force=force)
+            latch.check()
             for note in checked.notes:
                 log.info("pre-flight: %s", note)
             for caution in checked.cautions:
@@ -342,6 +347,7 @@ def validate(cfg: RunConfig, out: str | Path | None = None, *, fresh: bool = Fal
                                                           for c in cones]
             _warn_repeats(results["provenance"]["repeated_per_cone"],
                           [c["info"].get("n_galaxies", 0) for c in cones], inp.box.box_size)
+            latch.check()
         t0 = time.perf_counter()
         # An old report must never sit beside new results: if this run is killed before
         # its PDF is written, there is no PDF (`conecheck report DIR` renders it) rather
