@@ -7,8 +7,10 @@ and Other Resampling Plans*, SIAM; the usual form in clustering work).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -115,6 +117,35 @@ class BoxRegions:
             lab = lab * self.n_side + ijk[:, 2]
         return lab
 
+    def columns_within(self, u: ArrayLike, v: ArrayLike, reach: float
+                       ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+        """The positions that may lie within ``reach`` [Mpc/h] of each column, across the
+        LOS (``columns`` layout).
+
+        Parameters
+        ----------
+        u, v : array_like, shape (N,)
+            Coordinates [Mpc/h] along the first and second axis across the LOS (those of
+            the labels ``i * n_side + j``), in any periodic image.
+        reach : float
+            Distance from a column's square [Mpc/h], at least 0.
+
+        Returns
+        -------
+        (start, index)
+            Column k's candidates are ``index[start[k]:start[k + 1]]``, ascending: every
+            position whose periodic image nearest to the column lies within ``reach`` of its
+            square (with a margin of 10⁻⁹ L for rounding, so a few beyond it may come too;
+            the caller applies its own exact test). One pass over the positions instead of
+            one per column.
+        """
+        if self.layout != "columns":
+            raise ValueError("columns_within: the layout is not 'columns'")
+        uu = np.ascontiguousarray(u, dtype=np.float64)
+        vv = np.ascontiguousarray(v, dtype=np.float64)
+        return _columns_within(uu, vv, float(self.side), int(self.n_side),
+                               float(reach) + 1e-9 * self.box_size)
+
 
 def box_regions(position: ArrayLike, box_size: float, los_axis: int = 2, n_side: int = 4,
                 layout: str = "columns") -> NDArray[np.int64]:
@@ -137,3 +168,38 @@ def box_regions(position: ArrayLike, box_size: float, los_axis: int = 2, n_side:
     ndarray of int, shape (N,)
     """
     return BoxRegions(float(box_size), int(los_axis), int(n_side), layout).region_of(position)
+
+
+@numba.njit(cache=True, inline="always")
+def _column_span(x, side, n_side, reach):
+    """First column index and number of columns (at most ``n_side``) whose interval
+    [i side, (i + 1) side), widened by ``reach``, holds ``x`` in some periodic image."""
+    lo = math.floor((x - reach) / side)
+    hi = math.floor((x + reach) / side)
+    return lo, min(hi - lo + 1, n_side)
+
+
+@numba.njit(cache=True)
+def _columns_within(u, v, side, n_side, reach):
+    k_total = n_side * n_side
+    counts = np.zeros(k_total + 1, dtype=np.int64)
+    for g in range(u.size):  # pass 1: how many positions each column takes
+        ilo, ni = _column_span(u[g], side, n_side, reach)
+        jlo, nj = _column_span(v[g], side, n_side, reach)
+        for a in range(ni):
+            i = (ilo + a) % n_side
+            for b in range(nj):
+                counts[i * n_side + (jlo + b) % n_side + 1] += 1
+    start = np.cumsum(counts)
+    index = np.empty(start[k_total], dtype=np.int64)
+    fill = start[:k_total].copy()
+    for g in range(u.size):  # pass 2: positions in ascending order within each column
+        ilo, ni = _column_span(u[g], side, n_side, reach)
+        jlo, nj = _column_span(v[g], side, n_side, reach)
+        for a in range(ni):
+            i = (ilo + a) % n_side
+            for b in range(nj):
+                k = i * n_side + (jlo + b) % n_side
+                index[fill[k]] = g
+                fill[k] += 1
+    return start, index

@@ -103,3 +103,37 @@ def test_registry_generic_loop():
         make_settings("cic", {"radius": 3.0})
     with pytest.raises(InputError, match="unknown statistic"):
         make_settings("bispectrum", {})
+
+
+@pytest.mark.parametrize("n_side,reach", [(5, 20.0), (4, 0.0), (3, 150.0), (2, 400.0)])
+def test_columns_within_holds_every_position_near_each_column(n_side, reach):
+    """The one-pass candidate lists against the direct test of every position for every
+    column: the periodic image of (u, v) nearest to column (i, j)'s corner lies within
+    ``reach`` of its square. Positions come in any image (negative, beyond L) and on the
+    column edges; each list must hold every such position, ascending, and nothing more than
+    1e-9 L beyond ``reach``."""
+    L = 600.0
+    layout = BoxRegions(L, 2, n_side, "columns")
+    a = layout.side
+    rng = np.random.default_rng(5)
+    u = np.concatenate([rng.uniform(-L, 2 * L, 3000), np.arange(-n_side, 2 * n_side + 1) * a])
+    v = np.concatenate([rng.uniform(-L, 2 * L, 3000), rng.uniform(0, L, 3 * n_side + 1)])
+    start, index = layout.columns_within(u, v, reach)
+    assert start.shape == (n_side**2 + 1,) and start[-1] == index.size
+
+    def within(k, r):
+        i, j = divmod(k, n_side)
+        dx = np.mod(u - i * a + r, L) - r
+        dy = np.mod(v - j * a + r, L) - r
+        return set(np.flatnonzero((dx > -r) & (dx < a + r) & (dy > -r) & (dy < a + r)))
+
+    for k in range(n_side**2):
+        got = index[start[k]:start[k + 1]]
+        assert np.all(np.diff(got) > 0)
+        assert within(k, reach) <= set(got.tolist())
+        assert set(got.tolist()) <= within(k, reach + 1e-6 * L)
+
+
+def test_columns_within_needs_columns():
+    with pytest.raises(ValueError, match="columns"):
+        BoxRegions(100.0, 2, 2, "cubes").columns_within(np.zeros(1), np.zeros(1), 1.0)

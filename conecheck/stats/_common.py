@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 
 import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import InputError
 from ..pairs import PairCounts, join_separations
-from .base import ConeSample
+from .base import BoxSample, ConeSample
 
 #: Smallest random subset of the split RR method (fewer subsets are used below it).
 MIN_SPLIT_SUBSET = 20_000
@@ -134,3 +134,39 @@ def landy_szalay(dd: PairCounts, dr: PairCounts, rr: PairCounts, what: str,
     xik = (dd.normalised_delete_one()[:, :, cols] - 2.0 * dr.normalised_delete_one()[:, :, cols]
            + rrk) / rrk
     return xi, xik
+
+
+def column_neighbourhoods(sample: BoxSample, reach: float
+                          ) -> Iterator[tuple[int, NDArray[np.int64], NDArray[np.float64],
+                                              NDArray[np.float64]]]:
+    """The galaxies near each delete-one column of a box sample (``columns`` layout).
+
+    Parameters
+    ----------
+    sample : BoxSample
+        With regions from a ``columns`` layout (``sample.layout``).
+    reach : float
+        Distance across the LOS from a column's square [Mpc/h].
+
+    Yields
+    ------
+    (k, index, dx, dy)
+        For each column k in turn: the galaxies outside it whose periodic image nearest to
+        it lies within ``reach`` of its square, across the LOS (ascending indices), and
+        their coordinates relative to its corner [Mpc/h] in that image. The candidates come
+        from one pass over the galaxies (:meth:`~conecheck.jackknife.BoxRegions.
+        columns_within`); the test here is the exact one.
+    """
+    layout = sample.layout
+    L, a, n_side = sample.box_size, float(layout.side), int(layout.n_side)
+    perp = [ax for ax in range(3) if ax != sample.los_axis]
+    xs, ys = sample.position[:, perp[0]], sample.position[:, perp[1]]
+    start, index = layout.columns_within(xs, ys, reach)
+    for k in range(layout.k):
+        i, j = divmod(k, n_side)
+        idx = index[start[k]:start[k + 1]]
+        dx = np.mod(xs[idx] - i * a + reach, L) - reach
+        dy = np.mod(ys[idx] - j * a + reach, L) - reach
+        near = ((sample.region[idx] != k) & (dx > -reach) & (dx < a + reach) & (dy > -reach)
+                & (dy < a + reach))
+        yield k, idx[near], dx[near], dy[near]

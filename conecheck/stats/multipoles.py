@@ -48,6 +48,7 @@ from ..pairs import PairCounts, count_smu_box, count_smu_cone
 from ..pairs.binning import SMuBins, check_rp_edges, make_smu_bins
 from ._common import (
     check_filled,
+    column_neighbourhoods,
     cone_regions,
     count_rr_split,
     landy_szalay,
@@ -321,9 +322,7 @@ def ring_weight_in_square(dx: NDArray[np.float64], dy: NDArray[np.float64],
 def _delete_one_dr_columns(sample: BoxSample, bins: SMuBins, n_mu: int, layout: object
                            ) -> NDArray[np.float64]:
     """DR/(W N_R) of each delete-one region R (columns), shape (K, n_s, n_mu)."""
-    L, a, n_side = sample.box_size, float(layout.side), int(layout.n_side)
-    perp = [ax for ax in range(3) if ax != sample.los_axis]
-    xs, ys = sample.position[:, perp[0]], sample.position[:, perp[1]]
+    L, a = sample.box_size, float(layout.side)
     w = sample.w
     s_q, mu_q, w_q = _quadrature(bins, n_mu)
     rho_q = s_q * np.sqrt(1.0 - mu_q**2)
@@ -332,16 +331,11 @@ def _delete_one_dr_columns(sample: BoxSample, bins: SMuBins, n_mu: int, layout: 
     s_max = bins.s_max
     rho = s_max * np.linspace(0.0, 1.0, _N_RHO + 1) ** 2
     out = np.empty((layout.k, bins.n_s, n_mu))
-    for k in range(layout.k):  # one pass per region, vectorised over the galaxies near it
-        i, j = divmod(k, n_side)
-        rest = sample.region != k
-        # positions relative to the column's corner, the periodic image nearest to it
-        dx = np.mod(xs - i * a + s_max, L) - s_max
-        dy = np.mod(ys - j * a + s_max, L) - s_max
-        near = rest & (dx > -s_max) & (dx < a + s_max) & (dy > -s_max) & (dy < a + s_max)
-        phi = ring_weight_in_square(dx[near], dy[near], w[near], a, rho)
+    # one pass per region, vectorised over the galaxies near it
+    for k, near, dx, dy in column_neighbourhoods(sample, float(s_max)):
+        phi = ring_weight_in_square(dx, dy, w[near], a, rho)
         lost = 2.0 * np.pi * (w_q * np.interp(rho_q, rho, phi)).sum(axis=-1)
-        w_rest = w[rest].sum()
+        w_rest = w[sample.region != k].sum()
         out[k] = (w_rest * vbin - lost) / (v_rest * w_rest)
     return out
 

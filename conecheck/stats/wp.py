@@ -55,6 +55,7 @@ from ..pairs import PairCounts, RpPiBins, count_rppi_box, count_rppi_box_shared,
 from ..pairs.binning import check_rp_edges, make_bins
 from ._common import (
     check_filled,
+    column_neighbourhoods,
     cone_regions,
     count_rr_split,
     landy_szalay,
@@ -339,24 +340,16 @@ def _delete_one_dr_columns(sample: BoxSample, bins: RpPiBins, layout: object
     inside R: the whole shell V_bin less the part in the removed column, 2Δπ times the area
     of its r_p annulus inside the column's square (the LOS is whole and periodic).
     """
-    L, a, n_side = sample.box_size, float(layout.side), int(layout.n_side)
-    perp = [ax for ax in range(3) if ax != sample.los_axis]
-    xs, ys = sample.position[:, perp[0]], sample.position[:, perp[1]]
+    L, a = sample.box_size, float(layout.side)
     w = sample.w
     vbin = bins.cylinder_volumes()
     v_rest = L ** 3 * (1.0 - 1.0 / layout.k)
-    r_max = float(bins.rp_edges[-1])
     out = np.empty((layout.k, bins.n_rp, bins.n_pi))
-    for k in range(layout.k):  # one pass per region, vectorised over the galaxies near it
-        i, j = divmod(k, n_side)
-        rest = sample.region != k
-        # positions relative to the column's corner, the periodic image nearest to it
-        dx = np.mod(xs - i * a + r_max, L) - r_max
-        dy = np.mod(ys - j * a + r_max, L) - r_max
-        near = rest & (dx > -r_max) & (dx < a + r_max) & (dy > -r_max) & (dy < a + r_max)
-        area = disc_square_area(dx[near], dy[near], bins.rp_edges, a)
+    # one pass per region, vectorised over the galaxies near it
+    for k, near, dx, dy in column_neighbourhoods(sample, float(bins.rp_edges[-1])):
+        area = disc_square_area(dx, dy, bins.rp_edges, a)
         lost = (w[near][:, None] * np.diff(area, axis=1)).sum(axis=0)  # Σ w_i A_i per r_p bin
-        w_rest = w[rest].sum()
+        w_rest = w[sample.region != k].sum()
         out[k] = (w_rest * vbin - 2.0 * bins.dpi * lost[:, None]) / (v_rest * w_rest)
     return out
 
