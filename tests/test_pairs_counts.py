@@ -27,6 +27,7 @@ from conecheck.pairs import (
     join_separations,
 )
 from conecheck.pairs.binning import rp2_lookup
+from conecheck.pairs.counts import to_box_frame
 
 treecorr = pytest.importorskip("treecorr")
 
@@ -557,3 +558,25 @@ def test_join_separations_keeps_each_part_normalisation():
                                large.normalised_delete_one(), rtol=1e-12)
     np.testing.assert_allclose(joined.normalised_delete_one()[:, :2],
                                small.normalised_delete_one(), rtol=1e-14)
+
+
+@pytest.mark.parametrize("los_axis", [0, 1, 2])
+def test_box_frame_equals_numpy_mod_to_the_bit(los_axis):
+    """The box counters' wrap into [0, L) (one numba pass) against numpy.mod with L → 0 (a
+    tiny negative number rounds up to L), bit for bit: every periodic image, exact
+    multiples of L, −0.0, the smallest subnormal, and the neighbours of 0 and ±L."""
+    L = 585.0
+    rng = np.random.default_rng(11)
+    edge = np.array([0.0, -0.0, 5e-324, -5e-324, -1e-17, L, -L, 2 * L, -3 * L,
+                     np.nextafter(L, 0.0), np.nextafter(L, 2 * L), np.nextafter(-L, 0.0),
+                     np.nextafter(0.0, -1.0), L - 1e-13])
+    pos = np.concatenate([rng.uniform(-3 * L, 4 * L, (20_000, 3)),
+                          np.stack(np.meshgrid(edge, edge, edge), -1).reshape(-1, 3)])
+    axes = [a for a in range(3) if a != los_axis] + [los_axis]
+    expected = np.mod(pos[:, axes], L)
+    expected[expected >= L] = 0.0
+    for p in (pos, pos[::3]):  # contiguous and strided input
+        got = to_box_frame(p, L, los_axis)
+        want = expected if p is pos else expected[::3]
+        assert got.flags.c_contiguous and got.shape == want.shape
+        assert np.array_equal(got.view(np.int64), want.view(np.int64))

@@ -643,6 +643,18 @@ def _wrap_coordinate(v, box_size):
 
 
 @numba.njit(parallel=True, cache=True)
+def box_frame(pos, box_size, axes):
+    """Columns ``axes`` of ``pos`` wrapped into [0, L) by :func:`_wrap_coordinate`, as a new
+    C-ordered (N, 3) array, equal to ``numpy.mod`` to the bit (+ 0.0 turns −0.0 into 0.0,
+    as numpy.mod does, and leaves every other value as it is)."""
+    out = np.empty((pos.shape[0], 3))
+    for i in prange(pos.shape[0]):
+        for c in range(3):
+            out[i, c] = _wrap_coordinate(pos[i, axes[c]], box_size) + 0.0
+    return out
+
+
+@numba.njit(parallel=True, cache=True)
 def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, best):
     """Smallest squared distance from each centre to the points, periodic box.
 
