@@ -110,12 +110,8 @@ class BoxRegions:
         axes = [a for a in range(3) if a != self.los_axis] + [self.los_axis]
         if self.layout == "columns":
             axes = axes[:2]  # a column is the same at every depth: the LOS axis is not read
-        ijk = np.floor(np.mod(p[:, axes], self.box_size) / self.side).astype(np.int64)
-        np.clip(ijk, 0, self.n_side - 1, out=ijk)
-        lab = ijk[:, 0] * self.n_side + ijk[:, 1]
-        if self.layout == "cubes":
-            lab = lab * self.n_side + ijk[:, 2]
-        return lab
+        return _region_labels(p, np.array(axes, dtype=np.int64), float(self.box_size),
+                              float(self.side), int(self.n_side))
 
     def columns_within(self, u: ArrayLike, v: ArrayLike, reach: float
                        ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
@@ -203,3 +199,30 @@ def _columns_within(u, v, side, n_side, reach):
                 index[fill[k]] = g
                 fill[k] += 1
     return start, index
+
+
+@numba.njit(cache=True, inline="always")
+def _python_mod(x, period):
+    """``numpy.mod`` of a float (the C fmod, plus the period when the signs differ; a zero
+    result is +0.0), with no further change: a tiny negative x gives the period itself."""
+    m = np.fmod(x, period)
+    if m == 0.0:
+        return 0.0
+    if (m < 0.0) != (period < 0.0):
+        m += period
+    return m
+
+
+@numba.njit(parallel=True, cache=True)
+def _region_labels(p, axes, box_size, side, n_side):
+    """Sub-volume label of each row of ``p`` from the coordinates ``axes`` (two: columns,
+    three: cubes): ⌊mod(x, L) / side⌋ per axis, clipped to [0, n_side − 1], the first axis
+    slowest."""
+    out = np.empty(p.shape[0], dtype=np.int64)
+    for g in numba.prange(p.shape[0]):
+        lab = 0
+        for a in range(axes.size):
+            i = np.int64(math.floor(_python_mod(p[g, axes[a]], box_size) / side))
+            lab = lab * n_side + min(max(i, 0), n_side - 1)
+        out[g] = lab
+    return out

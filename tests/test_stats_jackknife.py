@@ -137,3 +137,29 @@ def test_columns_within_holds_every_position_near_each_column(n_side, reach):
 def test_columns_within_needs_columns():
     with pytest.raises(ValueError, match="columns"):
         BoxRegions(100.0, 2, 2, "cubes").columns_within(np.zeros(1), np.zeros(1), 1.0)
+
+
+@pytest.mark.parametrize("layout", ["columns", "cubes"])
+@pytest.mark.parametrize("los_axis", [0, 1, 2])
+def test_region_of_is_the_floor_of_the_wrapped_coordinate_over_the_side(layout, los_axis):
+    """Labels (one numba pass) against the definition written with numpy:
+    ⌊mod(x, L) / side⌋ on each axis across the LOS (and along it for cubes), clipped to
+    [0, n_side − 1], first axis slowest; on every periodic image, the sub-volume edges and
+    their neighbours, −0.0 and tiny negatives (numpy.mod rounds those up to L: the last
+    sub-volume)."""
+    L = 585.0
+    rng = np.random.default_rng(3)
+    edge = np.array([0.0, -0.0, -1e-17, 5e-324, -5e-324, L, -L, np.nextafter(L, 0.0),
+                     L / 5, np.nextafter(L / 5, 0.0), 2 * L / 5, np.nextafter(-L, 0.0), 2 * L])
+    pos = np.concatenate([rng.uniform(-L, 2 * L, (30_000, 3)),
+                          np.stack(np.meshgrid(edge, edge, edge), -1).reshape(-1, 3)])
+    for n_side in (1, 5, 7):
+        regions = BoxRegions(L, los_axis, n_side, layout)
+        axes = [a for a in range(3) if a != los_axis] + [los_axis]
+        axes = axes[:2] if layout == "columns" else axes
+        ijk = np.clip(np.floor(np.mod(pos[:, axes], L) / (L / n_side)).astype(np.int64),
+                      0, n_side - 1)
+        expected = ijk[:, 0] * n_side + ijk[:, 1]
+        if layout == "cubes":
+            expected = expected * n_side + ijk[:, 2]
+        assert np.array_equal(regions.region_of(pos), expected)
