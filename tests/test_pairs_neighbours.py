@@ -55,6 +55,25 @@ def test_box_cylinders_and_annuli_self_excluded():
     np.testing.assert_allclose(got, ref, rtol=1e-12)
 
 
+@pytest.mark.parametrize("edges,h", [([0.0, 3.0], 6.0), ([1.5, 4.0], None), ([2.0, 5.0], 6.0)])
+def test_box_one_shell_weighted_self_excluded_and_around_other_centres(edges, h):
+    """One shell (counts in cylinders, the VPF's spheres: the kernel's branch-free loop),
+    with an inner edge, weights and the centres' own points skipped, and around centres
+    that are not points; unit weights must match the brute-force count exactly."""
+    rng = np.random.default_rng(12)
+    L = 50.0
+    p = rng.uniform(0, L, (2000, 3))
+    w = rng.uniform(0.5, 2.0, len(p))
+    e = np.array(edges)
+    got = neighbours_box(p, weights=w, box_size=L, los_axis=1, edges=e, half_length=h)
+    ref = brute(p, p, w, e, h, box=L, los=1, self_pairs=True)
+    assert got.shape == (len(p), 1) and ref.sum() > 1000
+    np.testing.assert_allclose(got, ref, rtol=1e-12)
+    c = rng.uniform(0, L, (600, 3))
+    got = neighbours_box(c, p, box_size=L, los_axis=1, edges=e, half_length=h)
+    np.testing.assert_array_equal(got, brute(c, p, np.ones(len(p)), e, h, box=L, los=1))
+
+
 def test_box_spheres_random_centres():
     rng = np.random.default_rng(4)
     L = 40.0
