@@ -20,6 +20,7 @@ halo_mass   Msun/h       host-halo mass (optional)
 
 from __future__ import annotations
 
+import hashlib
 import logging
 import os
 from collections.abc import Mapping, Sequence
@@ -584,8 +585,6 @@ def write_galaxy_box(box: GalaxyBox, path: str | os.PathLike[str]) -> None:
 
 def file_sha256(path: str | os.PathLike[str], chunk: int = 1 << 20) -> str:
     """Hex SHA-256 of a file's content (for provenance and cache keys)."""
-    import hashlib
-
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         while block := fh.read(chunk):

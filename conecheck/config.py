@@ -26,6 +26,7 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Literal
 
+import tomli_w
 from astropy import cosmology as apc
 
 from .attribution.settings import (
@@ -991,8 +992,6 @@ def _plain(obj: Any) -> Any:
 
 def resolved_toml(cfg: RunConfig) -> str:
     """The resolved configuration (every default filled in) as TOML text."""
-    import tomli_w
-
     d = cfg.to_dict()
     survey = dict(d.pop("survey"))
     for key in _SURVEY_SUBTABLES:

@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import healpy as hp
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.sparse import coo_matrix
@@ -215,8 +216,6 @@ class OverlapMap:
     @property
     def nside(self) -> int:
         """HEALPix N_side of the map."""
-        import healpy as hp
-
         return int(hp.npix2nside(len(self.values)))
 
     def probability(self, ra_deg: ArrayLike, dec_deg: ArrayLike) -> NDArray[np.float64]:
@@ -231,8 +230,6 @@ def load_overlap_map(path: str, nest: bool = False) -> OverlapMap:
     The pixel ordering comes from the ORDERING header keyword, or ``nest`` when absent.
     UNSEEN and NaN pixels count as 0 (no overlap).
     """
-    import healpy as hp
-
     p = Path(path)
     if not p.is_file():
         raise InputError(f"fibres.overlap_map = '{path}': file not found")

@@ -23,6 +23,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
 
+import healpy as hp
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
@@ -251,8 +252,6 @@ class SkyCoverage:
 
 def _positive_pixels(footprint: SkyFootprint, nside: int, eval_rows: int) -> NDArray[np.int64]:
     """NESTED indices of pixels with completeness > 0 at the footprint's N_side."""
-    import healpy as hp
-
     occupied = getattr(footprint, "occupied", None)
     if occupied is not None and hasattr(footprint, "nest"):
         pix = np.asarray(occupied, dtype=np.int64)
@@ -276,8 +275,6 @@ def sky_coverage(footprint: SkyFootprint, nside_coarse: int = 64,
     its parent pixel at ``nside_coarse``, so no part of the footprint is missed.  A
     footprint whose N_side is not a power of 2 uses its own pixels.
     """
-    import healpy as hp
-
     nside = int(getattr(footprint, "nside", 0) or 0)
     if nside <= 0:
         return None

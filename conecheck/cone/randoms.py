@@ -28,9 +28,11 @@ from __future__ import annotations
 import logging
 from typing import Literal
 
+import healpy as hp
 import numpy as np
 from astropy.table import Table
 from numpy.typing import ArrayLike, NDArray
+from scipy.stats import qmc
 
 from ..cosmology import Cosmology
 from ..errors import InputError
@@ -122,8 +124,6 @@ QMC_BATCH = 1 << 18
 def _dec_band(footprint: SkyFootprint) -> tuple[float, float]:
     """sin(Dec) range [−1, 1] that holds every observed pixel of ``footprint`` (padded by a
     pixel), so QMC points are not wasted on declinations the survey never reaches."""
-    import healpy as hp
-
     occupied = getattr(footprint, "occupied", None)
     nside = int(getattr(footprint, "nside", 0) or 0)
     if occupied is None or nside <= 0 or len(occupied) == 0:
@@ -142,8 +142,6 @@ def qmc_points(footprint: SkyFootprint, n: int, rng: np.random.Generator
     Returns RA, Dec [deg] and the volume fraction u in [0, 1) of each (the third Sobol
     coordinate), in sequence order.
     """
-    from scipy.stats import qmc
-
     sampler = qmc.Sobol(d=4, scramble=True, seed=int(rng.integers(0, 2**63 - 1)))
     s_lo, s_hi = _dec_band(footprint)
     ra, dec, u = [], [], []

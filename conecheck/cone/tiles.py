@@ -38,6 +38,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import healpy as hp
 import numpy as np
 from astropy.table import Table
 from numpy.typing import ArrayLike, NDArray
@@ -145,8 +146,6 @@ def read_centres(path: Path, key: str = "survey.tiles.centres"
 
 def _covered_directions(footprint: SkyFootprint) -> tuple[cKDTree, float] | None:
     """A tree of the footprint's observed pixel centres and the pixel radius [rad]."""
-    import healpy as hp
-
     pix = np.asarray(footprint.occupied, dtype=np.int64)
     if pix.size == 0:
         return None

@@ -15,6 +15,7 @@ from typing import Any
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
+from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
 
 from . import style as st
@@ -185,8 +186,6 @@ class Page:
         return r
 
     def hline(self, x0: float, x1: float, y: float, colour: str = st.RULE, lw: float = 0.6):
-        from matplotlib.lines import Line2D
-
         ln = Line2D([self.fx(x0), self.fx(x1)], [self.fy(y), self.fy(y)],
                     transform=self.fig.transFigure, color=colour, lw=lw)
         self.fig.add_artist(ln)
