@@ -211,6 +211,8 @@ class HODModel:
         The clip only removes round-off-sized crossings that :meth:`check_nested` tolerates.
         """
         cen, sat = self.raw_occupations(mass)
+        if cen.shape[0] == 1:  # one threshold (a sample's own model): nothing to clip
+            return cen, sat
         return np.minimum.accumulate(cen, axis=0), np.minimum.accumulate(sat, axis=0)
 
     def check_nested(self) -> None:
