@@ -76,18 +76,20 @@ def test_one_task_per_parameter_joins_to_the_task_over_all(setup):
     assert joined["notes"] == whole["notes"] + ["no such parameter here"]
 
 
-@pytest.mark.parametrize("scatter", [0.0, 150.0])
-def test_the_boxes_of_a_step_measured_together_equal_each_measured_whole(scatter):
+@pytest.mark.parametrize("scatter,dilution", [(0.0, 1.0), (150.0, 1.0), (0.0, 0.7)])
+def test_the_boxes_of_a_step_measured_together_equal_each_measured_whole(scatter, dilution):
     """The ± boxes of a step share most galaxies (keyed draws): measured together, wp counts
     their shared pairs once (the pair estimator) and every statistic equals the box measured
     on its own, bit for bit, with and without a redshift error on the box (whose draws
-    are keyed per galaxy too)."""
+    are keyed per galaxy too), and with the boxes thinned to a survey's completeness for
+    the statistics that count in cells."""
     d = tiny_dict(seed=21)
     d["statistics"]["measure"] = ["number_density", "wp", "cic", "vpf"]
     d["box"]["redshift_scatter_kms"] = scatter
     cfg = config_from_dict(d, "test")
     box, halos, hod = load_box_and_halos(cfg)
-    spec = box_spec(cfg, cfg.samples[0], content_digest(box))
+    spec = dataclasses.replace(box_spec(cfg, cfg.samples[0], content_digest(box)),
+                               dilution=dilution)
     assert spec.effects.redshift_scatter_kms == scatter
     thr = sample_threshold(hod, cfg.samples[0].mag_max)
     lo, hi = step_values(hod, thr, "log_m1", DEFAULT_STEPS["log_m1"])
@@ -102,6 +104,7 @@ def test_the_boxes_of_a_step_measured_together_equal_each_measured_whole(scatter
         assert got.keys() == alone.keys()
         for name, m in alone.items():
             np.testing.assert_array_equal(got[name].value, m.value, err_msg=name)
+        assert got["cic"].extra == alone["cic"].extra
     with pytest.raises(ValueError, match="draw_key"):
         measure_box_pair(spec, box, box)
 
