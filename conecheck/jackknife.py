@@ -177,6 +177,8 @@ def _column_span(x, side, n_side, reach):
 
 @numba.njit(cache=True)
 def _columns_within(u, v, side, n_side, reach):
+    """:meth:`BoxRegions.columns_within` as (start, index): a count pass, then a fill pass
+    in the order of the positions (serial, so each column's list comes out ascending)."""
     k_total = n_side * n_side
     counts = np.zeros(k_total + 1, dtype=np.int64)
     for g in range(u.size):  # pass 1: how many positions each column takes
