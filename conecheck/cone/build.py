@@ -382,7 +382,8 @@ def _fill_table(box: GalaxyBox, survey: SurveyModel, cols: Mapping[str, NDArray[
     rows = _observe(ra[on_sky], dec[on_sky], chi[on_sky], cols["vlos"][host], comp[on_sky],
                     ft.abs_mag[on_sky], survey, True, rng)
     ok = rows.pop("_ok")
-    table = Table({k: v[ok] for k, v in rows.items()})
+    # the columns are fresh arrays (v[ok] copies): the table takes them as they are
+    table = Table({k: v[ok] for k, v in rows.items()}, copy=False)
     host = host[ok]
     hidx = cols["idx"][host]
     for name, value in (("is_central", lambda: np.zeros(len(host), dtype=bool)),
@@ -501,7 +502,7 @@ def build_cone(box: GalaxyBox, survey: SurveyModel, observer: ArrayLike, rotatio
                         survey, flux, streams["redshift_errors"])
     ok = box_rows.pop("_ok")
     n_in_footprint = len(ok)
-    targets = Table({k: v[ok] for k, v in box_rows.items()})
+    targets = Table({k: v[ok] for k, v in box_rows.items()}, copy=False)  # fresh arrays
     idx = cols["idx"][ok]
     for name in ("is_central", "halo_id", "halo_mass", "snapshot"):
         val = getattr(box, name)
