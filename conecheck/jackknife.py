@@ -15,6 +15,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError
+from .periodic import numpy_mod
 
 
 def jackknife_covariance(delete_one: ArrayLike) -> NDArray[np.float64]:
@@ -203,18 +204,6 @@ def _columns_within(u, v, side, n_side, reach):
     return start, index
 
 
-@numba.njit(cache=True, inline="always")
-def _python_mod(x, period):
-    """``numpy.mod`` of a float (the C fmod, plus the period when the signs differ; a zero
-    result is +0.0), with no further change: a tiny negative x gives the period itself."""
-    m = np.fmod(x, period)
-    if m == 0.0:
-        return 0.0
-    if (m < 0.0) != (period < 0.0):
-        m += period
-    return m
-
-
 @numba.njit(parallel=True, cache=True)
 def _region_labels(p, axes, box_size, side, n_side):
     """Sub-volume label of each row of ``p`` from the coordinates ``axes`` (two: columns,
@@ -224,7 +213,7 @@ def _region_labels(p, axes, box_size, side, n_side):
     for g in numba.prange(p.shape[0]):
         lab = 0
         for a in range(axes.size):
-            i = np.int64(math.floor(_python_mod(p[g, axes[a]], box_size) / side))
+            i = np.int64(math.floor(numpy_mod(p[g, axes[a]], box_size) / side))
             lab = lab * n_side + min(max(i, 0), n_side - 1)
         out[g] = lab
     return out

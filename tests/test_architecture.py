@@ -19,8 +19,9 @@ PACKAGE = Path(conecheck.__file__).resolve().parent
 
 #: Layers from first to last; a module may import its own layer and earlier ones.
 LAYERS = [
-    ("foundation", ["errors", "atomic", "units", "cosmology", "sphere", "streams", "jackknife",
-                    "loader", "version", "healpix_pixels", "pairs", "footprint.protocols"]),
+    ("foundation", ["errors", "atomic", "units", "cosmology", "sphere", "streams", "periodic",
+                    "jackknife", "loader", "version", "healpix_pixels", "pairs",
+                    "footprint.protocols"]),
     ("statistics", ["stats"]),
     ("settings", ["cone.settings", "cone.corrections", "compare.rules",
                   "attribution.settings"]),

@@ -24,6 +24,7 @@ from numpy.typing import NDArray
 from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..periodic import wrap_into_box
 from ..streams import keyed_uniforms, seeded_rng, stream_key
 from .populate import KeyedDraws
 
@@ -48,12 +49,6 @@ def _check_axis(los_axis: int) -> None:
         raise InputError(f"line-of-sight axis = {los_axis!r}: expected 0, 1 or 2 (x, y, z)")
 
 
-def _wrap(values: NDArray[np.float64], box_size: float) -> NDArray[np.float64]:
-    out = np.mod(values, box_size)
-    out[out >= box_size] = 0.0
-    return out
-
-
 def rsd_displacement(velocity_los: NDArray[np.float64], redshift: float,
                      cosmology: Cosmology) -> NDArray[np.float64]:
     """Comoving displacement [Mpc/h] for line-of-sight velocities [km/s] at redshift z."""
@@ -70,7 +65,7 @@ def apply_box_rsd(box: GalaxyBox, los_axis: int, cosmology: Cosmology) -> NDArra
     pos = np.array(box.position, dtype=np.float64, copy=True)
     shifted = pos[:, los_axis] + rsd_displacement(box.velocity[:, los_axis], box.redshift,
                                                   cosmology)
-    pos[:, los_axis] = _wrap(shifted, box.box_size)
+    pos[:, los_axis] = wrap_into_box(shifted, box.box_size)
     return pos
 
 
@@ -114,5 +109,5 @@ def apply_box_redshift_scatter(positions: NDArray[np.float64], los_axis: int,
               else np.asarray(rng, dtype=np.float64))
     if normal.shape != (len(pos),):
         raise ValueError(f"{normal.shape} normals for {len(pos)} positions")
-    pos[:, los_axis] = _wrap(pos[:, los_axis] + scale * normal, box_size)
+    pos[:, los_axis] = wrap_into_box(pos[:, los_axis] + scale * normal, box_size)
     return pos

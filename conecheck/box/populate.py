@@ -44,6 +44,7 @@ from scipy import special, stats
 from ..catalog import GalaxyBox
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..periodic import wrap_into_box
 from ..streams import keyed_uniforms
 from .halos import HaloCatalog
 from .hod import HODModel, decorate, split_by_secondary
@@ -324,9 +325,7 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator | Key
     direction = directions_from_uniforms(draws.uniform(POLAR, sat_ids),
                                          draws.uniform(AZIMUTH, sat_ids))
     offset = radius[:, None] * direction
-    pos_s = np.mod(halos.position[host] + offset, halos.box_size)
-    # np.mod can return L itself for tiny negative inputs; keep [0, L)
-    pos_s[pos_s >= halos.box_size] = 0.0
+    pos_s = wrap_into_box(halos.position[host] + offset, halos.box_size)
     sigma = virial_dispersion(mass_s, rvir, halos.redshift)
     vel_s = halos.velocity[host] + sigma[:, None] * draws.normal(VELOCITY, sat_ids, 3)
 

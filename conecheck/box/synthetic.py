@@ -54,6 +54,7 @@ from numpy.typing import NDArray
 from ..catalog import GalaxyBox, MatterParticles
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..periodic import wrap_into_box
 from .halos import HaloCatalog
 from .hod import HODModel
 from .lognormal import (
@@ -306,8 +307,7 @@ def synthetic_matter(halos: HaloCatalog, field_weights: NDArray[np.floating],
     in_halos = halos.position[host] + r[:, None] * isotropic_directions(host.size, rng)
     outside = max(density * L**3 - float(halos.mass.sum()) / m_p, 0.0)
     field, _ = sample_in_cells(field_weights, int(rng.poisson(outside)), L, rng)
-    pos = np.mod(np.vstack([in_halos, field]), L)
-    pos[pos >= L] = 0.0
+    pos = wrap_into_box(np.vstack([in_halos, field]), L)
     log.info("synthetic matter: %d particles of %.3g Msun/h (%d in halos)", len(pos), m_p,
              host.size)
     return MatterParticles(pos, float(m_p), L, {"MATTER": "synthetic: NFW halos + field",

@@ -40,6 +40,8 @@ import numpy as np
 from numba import prange, types
 from numba.extending import intrinsic
 
+from ..periodic import wrap_coordinate
+
 
 @intrinsic
 def _f2i(typingctx, x):
@@ -630,30 +632,6 @@ def _step_wrap(i, n):
     return i, 0
 
 
-@numba.njit(cache=True, inline="always")
-def _wrap_coordinate(v, box_size):
-    """``v`` modulo the box side as ``numpy.mod`` computes it (Python's float modulo: the
-    exact C fmod, plus L when negative), then L → 0 as in :func:`.counts.to_box_frame`."""
-    if v >= 0.0 and v < box_size:
-        return v
-    m = v % box_size
-    if m >= box_size:
-        m = 0.0
-    return m
-
-
-@numba.njit(parallel=True, cache=True)
-def box_frame(pos, box_size, axes):
-    """Columns ``axes`` of ``pos`` wrapped into [0, L) by :func:`_wrap_coordinate`, as a new
-    C-ordered (N, 3) array, equal to ``numpy.mod`` to the bit (+ 0.0 turns −0.0 into 0.0,
-    as numpy.mod does, and leaves every other value as it is)."""
-    out = np.empty((pos.shape[0], 3))
-    for i in prange(pos.shape[0]):
-        for c in range(3):
-            out[i, c] = _wrap_coordinate(pos[i, axes[c]], box_size) + 0.0
-    return out
-
-
 @numba.njit(parallel=True, cache=True)
 def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, best):
     """Smallest squared distance from each centre to the points, periodic box.
@@ -672,9 +650,9 @@ def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, b
     n_chunks = best.shape[0]
     for k in prange(n_chunks):
         for i in range(k * n // n_chunks, (k + 1) * n // n_chunks):
-            x = _wrap_coordinate(px[i], box_size)
-            y = _wrap_coordinate(py[i], box_size)
-            z = _wrap_coordinate(pz[i], box_size)
+            x = wrap_coordinate(px[i], box_size)
+            y = wrap_coordinate(py[i], box_size)
+            z = wrap_coordinate(pz[i], box_size)
             ix = min(int(x / cell_x), nx - 1)
             iy = min(int(y / cell_y), ny - 1)
             iz = min(int(z / cell_z), nz - 1)

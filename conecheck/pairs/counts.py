@@ -33,6 +33,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..errors import InputError
+from ..periodic import wrap_columns
 from . import _kernels
 from .binning import RpPiBins, SMuBins, check_box_extent, make_bins, rp2_lookup
 from .grid import box_grid, cone_grid, cone_refine, neighbour_offsets, sort_into_grid
@@ -280,10 +281,7 @@ def _sorted_cone(grid: Any, p1: Points, p2: Points | None
 
 def to_box_frame(pos: NDArray[np.float64], box_size: float, los_axis: int) -> NDArray[np.float64]:
     """Wrap into [0, L) and permute the axes so the line of sight is the third one."""
-    axes = np.array([a for a in range(3) if a != los_axis] + [los_axis], dtype=np.int64)
-    # numpy.mod's value (np.mod of a tiny negative number can round up to L: then 0), in
-    # one parallel pass instead of numpy's three
-    return _kernels.box_frame(pos, float(box_size), axes)
+    return wrap_columns(pos, box_size, [a for a in range(3) if a != los_axis] + [los_axis])
 
 
 def count_rppi_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,

@@ -20,6 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
+from ..periodic import wrap_into_box
 from . import _kernels
 from .binning import check_box_extent, check_rp_edges
 from .counts import _check_axis, to_box_frame
@@ -209,8 +210,7 @@ def nearest_distance(centres: ArrayLike, points: ArrayLike, *, r_max: float,
                         int(np.ceil((NEAREST_CELLS_PER_CENTRE * len(c)) ** (1 / 3))),
                         int(MAX_CELLS ** (1 / 3))))
     dims = np.full(3, n_side, dtype=np.int64)
-    cw = np.mod(c, box_size)
-    cw[cw >= box_size] = 0.0
+    cw = wrap_into_box(c, box_size)
     ijk = np.minimum((cw / (box_size / n_side)).astype(np.int64), n_side - 1)
     cell = (ijk[:, 0] * n_side + ijk[:, 1]) * n_side + ijk[:, 2]
     order = np.argsort(cell, kind="stable")
