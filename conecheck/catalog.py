@@ -35,6 +35,7 @@ from numpy.typing import NDArray
 
 from .atomic import atomic_path
 from .errors import InputError
+from .periodic import wrap_into_box
 from .units import H_SCALED, to_pipeline_units
 
 log = logging.getLogger(__name__)
@@ -323,7 +324,8 @@ def wrap_positions(pos: NDArray[np.float64], box_size: float, source: str) -> ND
         raise InputError(f"{source}: all positions are below {hi:.4g} while box_size = "
                          f"{box_size:g} Mpc/h; the positions look like they are in other units "
                          "(Gpc/h or box units?)")
-    return np.mod(pos, box_size)
+    # numpy.mod alone can round a tiny negative coordinate up to L itself, outside [0, L)
+    return wrap_into_box(pos, box_size)
 
 
 @dataclass

@@ -38,6 +38,26 @@ def test_each_format_round_trips(tmp_path, suffix):
     np.testing.assert_array_equal(box.abs_mag, np.asarray(t["abs_mag"]))
 
 
+def test_positions_a_hair_outside_the_box_are_wrapped_strictly_inside(tmp_path):
+    """Coordinates within the wrap tolerance of the box edges come back in [0, L), as
+    periodic trees (scipy's cKDTree with ``boxsize``) require: ``numpy.mod`` alone rounds
+    −1e-15 up to L itself (L = 585, whose spacing of doubles is 1.1e-13)."""
+    L = 585.0
+    assert np.mod(-1e-15, L) == L  # the rounding this guards against
+    t = _table()
+    t["x"][:4] = [-1e-15, -1e-9, L, L + 1e-9]
+    t["y"] = t["y"] * (L / 100.0)
+    t["z"] = t["z"] * (L / 100.0)
+    t.write(tmp_path / "edge.fits")
+    box = read_galaxy_box(tmp_path / "edge.fits", None, L, 0.05)
+    assert np.all((box.position >= 0.0) & (box.position < L))
+    edge = np.array([-1e-15, -1e-9, L, L + 1e-9])
+    expected = np.mod(edge, L)
+    expected[expected >= L] = 0.0  # numpy.mod's value, L taken to 0
+    np.testing.assert_array_equal(box.position[:4, 0], expected)
+    assert box.position[0, 0] == 0.0 and box.position[2, 0] == 0.0
+
+
 # --------------------------------------------------------------------------- layouts
 def _vectors(n: int = 40, seed: int = 2) -> dict[str, np.ndarray]:
     rng = np.random.default_rng(seed)
