@@ -332,6 +332,158 @@ def test_cell_pruning_is_exact_where_the_line_of_sight_turns_most():
         np.testing.assert_array_equal(first.total, ref_first, err_msg=f"refine {refine}")
 
 
+def _cap(rng, n, chi_lo, chi_hi, radius_deg, centre=(0.0, 0.0, 1.0)):
+    """Uniform in volume inside a cap of ``radius_deg`` around the unit vector ``centre``."""
+    chi = np.cbrt(rng.uniform(chi_lo**3, chi_hi**3, n))
+    ct = 1.0 - rng.uniform(0.0, 1.0 - np.cos(np.radians(radius_deg)), n)
+    ph = rng.uniform(0.0, 2.0 * np.pi, n)
+    st = np.sqrt(1.0 - ct**2)
+    local = np.column_stack([st * np.cos(ph), st * np.sin(ph), ct])
+    c = np.asarray(centre, dtype=np.float64) / np.linalg.norm(centre)
+    helper = np.eye(3)[int(np.argmin(np.abs(c)))]
+    e1 = np.cross(c, helper)
+    e1 /= np.linalg.norm(e1)
+    e2 = np.cross(c, e1)
+    return chi[:, None] * (local @ np.vstack([e1, e2, c]))
+
+
+#: Geometries for the sky columns: the whole sky near the observer (longitude wraps, the
+#: frame's poles hold points, the angular reach exceeds 90°), a hemisphere, a cap around a
+#: world pole and a narrow distant cap (many shells, reach of a fraction of a degree).
+SKY_GEOMETRIES = {
+    "whole sky near the observer": (2.0, 45.0, 180.0, (1.0, 0.0, 0.0)),
+    "hemisphere": (20.0, 120.0, 90.0, (0.3, -0.4, 0.5)),
+    "cap around a pole": (100.0, 220.0, 25.0, (0.0, 0.0, -1.0)),
+    "narrow distant cap": (600.0, 1400.0, 2.5, (-1.0, 2.0, 0.5)),
+}
+
+
+@pytest.mark.parametrize("geometry", list(SKY_GEOMETRIES))
+def test_sky_columns_equal_brute_force(geometry):
+    """Sky columns (cells in angle and distance) against the float64 brute force (pairs
+    found by scipy's cKDTree, midpoint formula) and the cubic cells, for auto and cross
+    counts with weights and jackknife regions, at cell sizes from a third of the angular
+    reach to 2.5 cells per reach: any bound that is too tight drops pairs here."""
+    chi_lo, chi_hi, radius, centre = SKY_GEOMETRIES[geometry]
+    rng = np.random.default_rng(17)
+    n = 2500 if radius < 10 else 1800
+    p = _cap(rng, n, chi_lo, chi_hi, radius, centre)
+    q = _cap(rng, n, chi_lo, chi_hi, radius, centre)
+    if radius < 10:  # close pairs in a sparse distant cap: jitter copies of the points
+        q[: n // 2] = p[: n // 2] + rng.normal(0.0, 1.5, (n // 2, 3))
+    w, v = rng.uniform(0.5, 2.0, n), rng.uniform(0.5, 2.0, n)
+    rp_, rq = rng.integers(0, 4, n), rng.integers(0, 4, n)
+    edges = np.geomspace(0.4, 4.0, 5)
+    ref_auto = brute_cone(p, None, None, None, edges, 16.0, 4.0)
+    ref_cross = brute_cone(p, None, q, None, edges, 16.0, 4.0)
+    assert ref_auto.sum() > 300 and ref_cross.sum() > 300
+    for refine in (0.3, 0.7, 1.0, 2.5):
+        auto = count_rppi_cone(p, rp_edges=edges, pi_max=16.0, dpi=4.0, cells="sky",
+                               refine=refine)
+        np.testing.assert_array_equal(auto.total, ref_auto, err_msg=f"refine {refine}")
+        cross = count_rppi_cone(p, None, None, q, rp_edges=edges, pi_max=16.0, dpi=4.0,
+                                cells="sky", refine=refine)
+        np.testing.assert_array_equal(cross.total, ref_cross, err_msg=f"refine {refine}")
+    # weights and regions: the same sums as cubic cells, up to the order of the additions
+    for second in (None, q):
+        kw = {} if second is None else {"pos2": second, "w2": v, "reg2": rq}
+        sky = count_rppi_cone(p, w, rp_, rp_edges=edges, pi_max=16.0, dpi=4.0, n_regions=4,
+                              cells="sky", **kw)
+        cub = count_rppi_cone(p, w, rp_, rp_edges=edges, pi_max=16.0, dpi=4.0, n_regions=4,
+                              cells="cubic", **kw)
+        np.testing.assert_allclose(sky.total, cub.total, rtol=1e-12)
+        np.testing.assert_allclose(sky.touch, cub.touch, rtol=1e-12, atol=1e-9)
+        assert sky.norm == cub.norm
+
+
+@pytest.mark.parametrize("chi_floor, radius", [(40.0, 60.0), (900.0, 4.0)])
+def test_sky_columns_keep_pairs_at_the_edge_of_their_angular_reach(chi_floor, radius):
+    """Pairs at the largest angle the columns allow: both points just above the innermost
+    shell's floor χ₀, at equal χ, with r_p = 2χ sin(θ/2) within 10⁻⁶ of r_p,max, in every
+    direction across the line of sight. The reach sin θ ≤ r_p,max (1/χ₁ + 1/χ₂)/2 is tight
+    there to (r_p/χ)², so a reach a few per cent short drops some of them. Also checks the
+    zero-separation convention: an auto count with r_p edges from 0 counts no point with
+    itself (brute force from scipy's cKDTree)."""
+    rng = np.random.default_rng(3)
+    n, rp_max = 3000, 3.0
+    p = _cap(rng, n, chi_floor, chi_floor * (1.0 + 1e-7), radius)
+    chi = np.linalg.norm(p, axis=1)
+    u = p / chi[:, None]
+    helper = np.where(np.abs(u[:, :1]) < 0.9, [[1.0, 0.0, 0.0]], [[0.0, 1.0, 0.0]])
+    e1 = np.cross(u, helper)
+    e1 /= np.linalg.norm(e1, axis=1)[:, None]
+    e2 = np.cross(u, e1)
+    ang = rng.uniform(0.0, 2.0 * np.pi, n)[:, None]
+    theta = 2.0 * np.arcsin(rp_max * (1.0 - 1e-6 * rng.uniform(0.1, 1.0, n)) / (2.0 * chi))
+    turn = np.cos(ang) * e1 + np.sin(ang) * e2
+    q = chi[:, None] * (np.cos(theta)[:, None] * u + np.sin(theta)[:, None] * turn)
+    edges = np.array([0.0, 1.0, rp_max])
+    for refine in (0.7, 1.0, 2.5, 4.0):
+        cross = count_rppi_cone(p, None, None, q, rp_edges=edges, pi_max=8.0, dpi=8.0,
+                                cells="sky", refine=refine)
+        assert cross.total[1, 0] >= n  # every (point, its partner) pair
+        np.testing.assert_array_equal(cross.total, brute_cone(p, None, q, None, edges, 8.0,
+                                                              8.0), err_msg=f"{refine}")
+        both = np.vstack([p, q])
+        auto = count_rppi_cone(both, rp_edges=edges, pi_max=8.0, dpi=8.0, cells="sky",
+                               refine=refine)
+        np.testing.assert_array_equal(auto.total, brute_cone(both, None, None, None, edges,
+                                                             8.0, 8.0), err_msg=f"{refine}")
+
+
+def test_sky_columns_match_treecorr_and_are_chosen_for_thin_cylinders(cone_points,
+                                                                       monkeypatch):
+    """A thin cylinder (r_p < 3, π_max = 12 Mpc/h) is counted in sky columns by default,
+    and the counts equal TreeCorr's (reference library) and do not depend on the number
+    of threads."""
+    from conecheck.pairs import counts as counts_module
+
+    p1, w1, p2, _ = cone_points
+    edges = np.geomspace(0.3, 3.0, 4)
+    calls = []
+    real = counts_module._count_rppi_sky
+    monkeypatch.setattr(counts_module, "_count_rppi_sky",
+                        lambda *a, **k: calls.append(1) or real(*a, **k))
+    auto = count_rppi_cone(p1, rp_edges=edges, pi_max=12.0, dpi=4.0)
+    cross = count_rppi_cone(p1, None, None, p2, rp_edges=edges, pi_max=12.0, dpi=4.0)
+    assert len(calls) == 2
+    ref = treecorr_rppi(p1, None, None, None, edges, 12.0, 4.0)
+    assert ref.sum() > 200
+    np.testing.assert_array_equal(auto.total, ref)
+    np.testing.assert_array_equal(cross.total, treecorr_rppi(p1, None, p2, None, edges, 12.0,
+                                                             4.0))
+    count_rppi_cone(p1, rp_edges=np.geomspace(0.3, 6.0, 4), pi_max=12.0, dpi=4.0)
+    assert len(calls) == 2  # r_p,max > π_max / 4: cubic cells
+    reg = np.arange(len(p1)) % 3
+    threads = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = count_rppi_cone(p1, w1, reg, rp_edges=edges, pi_max=12.0, n_regions=3)
+    finally:
+        numba.set_num_threads(threads)
+    many = count_rppi_cone(p1, w1, reg, rp_edges=edges, pi_max=12.0, n_regions=3)
+    np.testing.assert_array_equal(one.total, many.total)
+    np.testing.assert_array_equal(one.touch, many.touch)
+
+
+def test_sky_columns_bad_requests():
+    p = _cap(np.random.default_rng(0), 50, 10.0, 50.0, 30.0)
+    with pytest.raises(InputError, match="cells: expected"):
+        count_rppi_cone(p, rp_edges=[1.0, 2.0], pi_max=10.0, cells="hexagons")
+    with pytest.raises(InputError, match="midpoint line of sight"):
+        count_rppi_cone(p, None, None, p, rp_edges=[1.0, 2.0], pi_max=10.0, cells="sky",
+                        los="first")
+    with pytest.raises(InputError, match="refine"):
+        count_rppi_cone(p, rp_edges=[1.0, 2.0], pi_max=10.0, cells="sky", refine=0.0)
+    at_origin = np.vstack([p, np.zeros((1, 3))])
+    with pytest.raises(InputError, match="away from the observer"):
+        count_rppi_cone(at_origin, rp_edges=[1.0, 2.0], pi_max=10.0, cells="sky")
+    # the automatic choice falls back to cubic cells there, and counts the same pairs
+    np.testing.assert_array_equal(
+        count_rppi_cone(at_origin, rp_edges=[0.5, 2.0], pi_max=10.0).total,
+        brute_cone(at_origin, None, None, None, np.array([0.5, 2.0]), 10.0, 1.0))
+
+
 def test_grid_sort_orders_like_lexsort():
     """The counting sort by cell then χ gives numpy's lexsort order, ties included."""
     from conecheck.pairs.grid import cone_grid, sort_into_grid

@@ -894,3 +894,256 @@ def smu_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tas
                 _block_smu_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2,
                                 e2, same, edges2, n_mu, tot_c, touch_c, with_touch)
     return _reduce(tot, touch, n_regions, n_s, n_mu)
+
+
+@numba.njit(cache=True, inline="always")
+def _sky_reach(lo_a, lo_b, rp_max, pi_max, s_max):
+    """Largest angle [rad] between a point at χ ≥ ``lo_a`` and one at χ ≥ ``lo_b`` that can
+    pair (r_p < ``rp_max``, |π| < ``pi_max``), with a 10⁻⁹ margin for rounding (the
+    kernels' own cuts decide); see :mod:`.sky_grid`."""
+    # a partner lies within π_max in χ, so each point is at least the other's floor − π_max
+    a = max(lo_a, lo_b - pi_max)
+    b = max(lo_b, lo_a - pi_max)
+    if a <= 0.0 or b <= 0.0 or a * a + b * b <= s_max * s_max:
+        return np.pi
+    sin_t = rp_max * 0.5 * (1.0 / a + 1.0 / b)
+    if sin_t >= 1.0:
+        return 0.5 * np.pi + 1e-9
+    return np.arcsin(sin_t) * (1.0 + 1e-9) + 1e-12
+
+
+@numba.njit(cache=True, inline="always")
+def _lon_reach(theta, gap, cc):
+    """Largest longitude difference [rad] of two points at angle ≤ ``theta`` whose latitudes
+    differ by at least ``gap`` and whose cosines multiply to at least ``cc``, or π (every
+    longitude): sin²(θ/2) = sin²(Δφ/2) + cos φ₁ cos φ₂ sin²(Δλ/2)."""
+    if theta >= np.pi:
+        return np.pi
+    sh = np.sin(0.5 * theta)
+    sg = np.sin(0.5 * gap)
+    rhs = sh * sh - sg * sg
+    if cc <= 0.0 or rhs >= cc:
+        return np.pi
+    return 2.0 * np.arcsin(np.sqrt(rhs / cc)) * (1.0 + 1e-9) + 1e-12
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n_b, jlo, jhi,
+               same_cell, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan, fbuf,
+               cbuf, pbuf, jbuf, wbuf, gbuf, tot, touch, mode, rcell):
+    """All pairs between one sky column of set 1 (points ``s1:e1``) and its ``n_b``
+    neighbour columns of set 2 (``bs[k]:be[k]``; ``same_cell`` is the index k of the column
+    itself in an auto count, or −1). Each point's candidates from every column go into one
+    buffer, so the compaction and binning passes run once per point rather than once per
+    point and column; ``mode`` is a compile-time binning mode (:data:`BIN_LOOKUP`)."""
+    numba.literally(mode)
+    n_rp = edges2.size - 1
+    rpmin2 = edges2[0]
+    rpmax2 = edges2[n_rp]
+    pimax2 = pi_max * pi_max
+    smax2 = rpmax2 + pimax2
+    dummy = lut.size - 1
+    last = lut.size - 2
+    nb = (n_rp + 1) * n_pi
+    for k in range(n_b):
+        jlo[k] = bs[k]
+        jhi[k] = bs[k]
+    for i in range(s1, e1):
+        ci = c1[i]
+        ci2 = ci * ci
+        xi = x1[i]
+        yi = y1[i]
+        zi = z1[i]
+        n = 0
+        for k in range(n_b):
+            e2 = be[k]
+            lo = jlo[k]
+            while lo < e2 and c2[lo] <= ci - pi_max:
+                lo += 1
+            jlo[k] = lo
+            hi = max(jhi[k], lo)
+            while hi < e2 and c2[hi] < ci + pi_max:
+                hi += 1
+            jhi[k] = hi
+            j0 = lo
+            if k == same_cell and j0 <= i:
+                j0 = i + 1
+            for j in range(j0, hi):
+                ju = np.uint64(j)
+                q = np.uint64(n + j - j0)
+                cj = c2[ju]
+                dx = x2[ju] - xi
+                dy = y2[ju] - yi
+                dz = z2[ju] - zi
+                s2v = dx * dx + dy * dy + dz * dz
+                sl = cj * cj - ci2
+                l2 = 2.0 * (ci2 + cj * cj) - s2v
+                pi2 = sl * sl / l2
+                rp2 = s2v - pi2
+                c = min(max((_f2i(rp2) >> shift) - base, 0), last)
+                ok = (s2v < smax2) & (pi2 < pimax2) & (rp2 < rpmax2) & (rp2 >= rpmin2)
+                cbuf[q] = c if ok else dummy
+                pbuf[q] = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
+                fbuf[q] = rp2
+                wbuf[q] = w2[ju]
+                gbuf[q] = g2[ju]
+            n += max(hi - j0, 0)
+        m = 0
+        for q in range(n):
+            jbuf[m] = q
+            m += cbuf[q] != dummy
+        if m == 0:
+            continue
+        _bin_window(m, 0, w1[i], np.int64(g1[i]), wbuf, gbuf, jbuf, cbuf, fbuf, pbuf, lut,
+                    nxt, scan, edges2, n_rp, n_pi, nb, tot, touch, mode, rcell)
+
+
+@numba.njit(parallel=True, cache=True)
+def rppi_cone_sky(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, tasks,
+                  chi_edges, lat0, lon0, dlat, dlon, n_lat, n_lon, offset, periodic,
+                  edges2, pi_max, dpi, n_pi, n_regions, auto, n_chunks, lut, nxt, shift, base,
+                  scan):
+    """Weighted (r_p, |π|) pair counts on a cone, midpoint line of sight, with the points in
+    sky columns (:mod:`.sky_grid`): for each column of set 1, the columns of set 2 in the
+    shells within π_max and within the angular reach of :func:`_sky_reach`.
+
+    Same conventions, outputs and bit-identical chunked sums as :func:`rppi_cone`.
+    """
+    rp_max = np.sqrt(edges2[edges2.size - 1])
+    s_max = np.sqrt(edges2[edges2.size - 1] + pi_max * pi_max)
+    n_rp = edges2.size - 1
+    n_shells = lat0.size
+    inv_dpi = 1.0 / dpi
+    with_touch = n_regions > 0
+    mode = _bin_mode(with_touch, scan)
+    nb = (n_rp + 1) * n_pi
+    tot = np.zeros((n_chunks, nb))
+    touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
+    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
+    half_pi = 0.5 * np.pi
+    for c in prange(n_chunks):
+        tot_c = tot[c]
+        touch_c = touch[c]
+        cap_b = 64
+        bs = np.empty(cap_b, dtype=np.int64)
+        be = np.empty(cap_b, dtype=np.int64)
+        jlo = np.empty(cap_b, dtype=np.int64)
+        jhi = np.empty(cap_b, dtype=np.int64)
+        cap = 256
+        fbuf = np.empty(cap)
+        cbuf = np.empty(cap, dtype=np.int64)
+        pbuf = np.empty(cap, dtype=np.int64)
+        jbuf = np.empty(cap, dtype=np.int64)
+        wbuf = np.empty(cap)
+        gbuf = np.empty(cap, dtype=g2.dtype)
+        for t in range(c, tasks.size, n_chunks):
+            cell = tasks[t]
+            a = np.searchsorted(offset, cell, side="right") - 1
+            local = cell - offset[a]
+            ia = local // n_lon[a]
+            ja = local - ia * n_lon[a]
+            phi0 = lat0[a] + ia * dlat[a]
+            phi1 = phi0 + dlat[a]
+            lam0 = lon0[a] + ja * dlon[a]
+            lam1 = lam0 + dlon[a]
+            top_a = max(abs(phi0), abs(phi1))
+            cos_a = np.cos(top_a) if top_a < half_pi else 0.0
+            n_b = 0
+            n_cand = 0
+            same_cell = -1
+            rc = -2
+            for b in range(n_shells):
+                gap_chi = max(chi_edges[b] - chi_edges[a + 1], chi_edges[a] - chi_edges[b + 1])
+                if gap_chi >= pi_max:
+                    continue
+                theta = _sky_reach(chi_edges[a], chi_edges[b], rp_max, pi_max, s_max)
+                ib0 = max(np.int64(np.floor((phi0 - theta - lat0[b]) / dlat[b])), 0)
+                ib1 = min(np.int64(np.floor((phi1 + theta - lat0[b]) / dlat[b])), n_lat[b] - 1)
+                for ib in range(ib0, ib1 + 1):
+                    psi0 = lat0[b] + ib * dlat[b]
+                    psi1 = psi0 + dlat[b]
+                    gap = max(psi0 - phi1, phi0 - psi1, 0.0)
+                    if gap > theta:
+                        continue
+                    top_b = max(abs(psi0), abs(psi1))
+                    cos_b = np.cos(top_b) if top_b < half_pi else 0.0
+                    dlam = _lon_reach(theta, gap, cos_a * cos_b)
+                    if dlam >= np.pi:
+                        jb0 = 0
+                        jb1 = n_lon[b] - 1
+                    else:
+                        jb0 = np.int64(np.floor((lam0 - dlam - lon0[b]) / dlon[b]))
+                        jb1 = np.int64(np.floor((lam1 + dlam - lon0[b]) / dlon[b]))
+                        if periodic:
+                            if jb1 - jb0 + 1 >= n_lon[b]:
+                                jb0 = 0
+                                jb1 = n_lon[b] - 1
+                        else:
+                            jb0 = max(jb0, 0)
+                            jb1 = min(jb1, n_lon[b] - 1)
+                    row = offset[b] + ib * n_lon[b]
+                    for jj in range(jb0, jb1 + 1):
+                        cell2 = row + (jj % n_lon[b] if periodic else jj)
+                        if auto and cell2 < cell:
+                            continue
+                        s2 = start2[cell2]
+                        e2 = start2[cell2 + 1]
+                        if s2 == e2:
+                            continue
+                        if n_b == cap_b:
+                            cap_b *= 2
+                            bs = _grown(bs, cap_b)
+                            be = _grown(be, cap_b)
+                            jlo = np.empty(cap_b, dtype=np.int64)
+                            jhi = np.empty(cap_b, dtype=np.int64)
+                        if auto and cell2 == cell:
+                            same_cell = n_b
+                        bs[n_b] = s2
+                        be[n_b] = e2
+                        n_b += 1
+                        n_cand += e2 - s2
+                        # one region for every candidate when all the columns share it
+                        r2 = cells2[cell2]
+                        rc = r2 if rc == -2 else (rc if rc == r2 else -1)
+            if n_b == 0:
+                continue
+            if n_cand > cap:
+                while cap < n_cand:
+                    cap *= 2
+                fbuf = np.empty(cap)
+                cbuf = np.empty(cap, dtype=np.int64)
+                pbuf = np.empty(cap, dtype=np.int64)
+                jbuf = np.empty(cap, dtype=np.int64)
+                wbuf = np.empty(cap)
+                gbuf = np.empty(cap, dtype=g2.dtype)
+            s1 = start1[cell]
+            e1 = start1[cell + 1]
+            if mode == BIN_TOUCH:
+                _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n_b,
+                           jlo, jhi, same_cell, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                           base, scan, fbuf, cbuf, pbuf, jbuf, wbuf, gbuf, tot_c, touch_c,
+                           BIN_TOUCH, rc)
+            elif mode == BIN_TOUCH_SCAN:
+                _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n_b,
+                           jlo, jhi, same_cell, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                           base, scan, fbuf, cbuf, pbuf, jbuf, wbuf, gbuf, tot_c, touch_c,
+                           BIN_TOUCH_SCAN, rc)
+            elif mode == BIN_SCAN:
+                _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n_b,
+                           jlo, jhi, same_cell, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                           base, scan, fbuf, cbuf, pbuf, jbuf, wbuf, gbuf, tot_c, touch_c,
+                           BIN_SCAN, rc)
+            else:
+                _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n_b,
+                           jlo, jhi, same_cell, edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift,
+                           base, scan, fbuf, cbuf, pbuf, jbuf, wbuf, gbuf, tot_c, touch_c,
+                           BIN_LOOKUP, rc)
+    return _reduce(tot, touch, n_regions, n_rp, n_pi)
+
+
+@numba.njit(cache=True)
+def _grown(a, n):
+    """``a`` copied into a longer array of length ``n``."""
+    out = np.empty(n, dtype=a.dtype)
+    out[:a.size] = a
+    return out

@@ -113,6 +113,14 @@ def grid_sort(pos, w, reg, origin, cell, dims, chi_key):
         cid[i] = (ix * ny + iy) * nz + iz
         key[i] = np.sqrt(px * px + py * py + pz * pz) if chi_key else pz
     order, start = sort_by_cell(cid, key, n_cells)
+    x, y, z, los, ws, rs = gather_sorted(pos, w, reg, key, order)
+    return x, y, z, los, ws, rs, order, start
+
+
+@numba.njit(parallel=True, cache=True)
+def gather_sorted(pos, w, reg, key, order):
+    """Coordinates (as three arrays), key, weights and regions taken in ``order``."""
+    n = order.size
     x = np.empty(n)
     y = np.empty(n)
     z = np.empty(n)
@@ -127,7 +135,7 @@ def grid_sort(pos, w, reg, origin, cell, dims, chi_key):
         los[a] = key[o]
         ws[a] = w[o]
         rs[a] = reg[o]
-    return x, y, z, los, ws, rs, order, start
+    return x, y, z, los, ws, rs
 
 
 @numba.njit(cache=True)

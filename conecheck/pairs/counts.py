@@ -38,6 +38,7 @@ from . import _kernels
 from .binning import RpPiBins, SMuBins, check_box_extent, make_bins, rp2_lookup
 from .grid import box_grid, cone_grid, cone_refine, neighbour_offsets, sort_into_grid
 from .points import Points, check_points, region_sums
+from .sky_grid import SKY_REFINE, sky_grid, sort_into_sky_grid
 
 #: Number of private accumulators of a pair count (bit-identical sums up to this many threads).
 MIN_CHUNKS = 32
@@ -49,6 +50,11 @@ MIN_CHUNKS = 32
 #: (benchmarks/RESULTS.md: the sixth-pass notes hold the sweep; bench_pairs times this rule
 #: against the former fixed r_p,max / 2 cells and Corrfunc).
 BOX_CELL_POINTS = 80.0
+#: Cone counts with r_p,max at most this fraction of π_max use sky columns
+#: (:mod:`.sky_grid`) rather than cubic cells. Timed on auto counts in caps of 2·10⁵ to
+#: 1.7·10⁶ points (π_max = 40 Mpc/h): columns take 0.4–0.7 of the cubic time at r_p,max =
+#: 2.45 and 5, 0.6–0.9 at 10, and 0.9–1.2 at 20 Mpc/h (benchmarks/RESULTS.md, twelfth pass).
+SKY_RP_OVER_PI = 0.25
 
 
 @dataclass
@@ -403,8 +409,8 @@ def count_rppi_box_shared(shared: ArrayLike, only_first: ArrayLike, only_second:
 def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
                     pos2: ArrayLike | None = None, w2: ArrayLike | None = None,
                     reg2: ArrayLike | None = None, *, rp_edges: ArrayLike, pi_max: float,
-                    dpi: float = 1.0, n_regions: int = 0, refine: int | None = None,
-                    los: str = "midpoint") -> PairCounts:
+                    dpi: float = 1.0, n_regions: int = 0, refine: float | None = None,
+                    los: str = "midpoint", cells: str = "auto") -> PairCounts:
     """Pair counts in (r_p, |π|) bins on a light cone, line of sight at the pair midpoint
     (or along the first point's direction).
 
@@ -414,12 +420,19 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         Cartesian positions [Mpc/h] with the observer at the origin (e.g. ``ConeSample.xyz``).
     w1, reg1, pos2, w2, reg2, rp_edges, pi_max, dpi, n_regions
         As in :func:`count_rppi_box`.
-    refine : int or None
-        Cells per r_max = √(r_p,max² + π_max²) (speed only); ``None`` chooses it from
-        the points' density (:func:`~conecheck.pairs.grid.cone_refine`).
+    refine : float or None
+        Speed only. Cubic cells: cells per r_max = √(r_p,max² + π_max²), an integer;
+        ``None`` chooses it from the points' density
+        (:func:`~conecheck.pairs.grid.cone_refine`). Sky columns: cells across per r_p,max
+        (:mod:`~conecheck.pairs.sky_grid`); ``None`` is
+        :data:`~conecheck.pairs.sky_grid.SKY_REFINE`.
     los : {"midpoint", "first"}
         Line of sight of a pair: through its midpoint (clustering), or through the point of
         set 1 (a cross count around lenses: projected along each lens's radial direction).
+    cells : {"auto", "cubic", "sky"}
+        Speed only, the counts are the same: cubic cells, or columns in angle and distance
+        for a thin cylinder (midpoint line of sight only). ``"auto"`` takes the columns
+        when r_p,max ≤ :data:`SKY_RP_OVER_PI` π_max and no point sits at the observer.
 
     Returns
     -------
@@ -428,6 +441,10 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
     bins = make_bins(rp_edges, pi_max, dpi)
     if los not in ("midpoint", "first"):
         raise InputError(f"los: expected 'midpoint' or 'first', got {los!r}")
+    if cells not in ("auto", "cubic", "sky"):
+        raise InputError(f"cells: expected 'auto', 'cubic' or 'sky', got {cells!r}")
+    if cells == "sky" and los != "midpoint":
+        raise InputError("cells = 'sky' counts with the midpoint line of sight only")
     p1 = check_points(pos1, w1, reg1, n_regions, "points (set 1)")
     p2 = None if pos2 is None else check_points(pos2, w2, reg2, n_regions, "points (set 2)")
     if los == "first" and p2 is None:
@@ -438,6 +455,13 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         return _assemble(np.zeros(shape), np.zeros((int(n_regions),) + shape), bins, p1, p2,
                          int(n_regions))
     sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
+    if cells != "cubic" and los == "midpoint":
+        at_observer = min(float(np.einsum("ij,ij->i", p, p).min()) for p in sets) == 0.0
+        if cells == "sky" and at_observer:
+            raise InputError("cells = 'sky' needs every point away from the observer (χ > 0)")
+        if cells == "sky" or (not at_observer and bins.rp_max <= SKY_RP_OVER_PI * bins.pi_max):
+            return _count_rppi_sky(p1, p2, bins, int(n_regions),
+                                   SKY_REFINE if refine is None else float(refine))
     if refine is None:
         refine = cone_refine(sets, bins.r_max)
     grid = cone_grid(sets, bins.r_max, refine=max(1, int(refine)))
@@ -450,6 +474,25 @@ def count_rppi_cone(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLik
         bins.dpi, bins.n_pi, int(n_regions), p2 is None, _n_chunks(tasks.size),
         *_lookup_args(bins), _max_cell(g2.start), los == "first")
     return _assemble(total, touch, bins, p1, p2, int(n_regions))
+
+
+def _count_rppi_sky(p1: Points, p2: Points | None, bins: RpPiBins, n_regions: int,
+                    refine: float) -> PairCounts:
+    """:func:`count_rppi_cone` with the points in sky columns (midpoint line of sight)."""
+    if not refine > 0:
+        raise InputError(f"refine: expected a positive number of cells, got {refine!r}")
+    sets = [p1.pos] if p2 is None else [p1.pos, p2.pos]
+    grid, angles = sky_grid(sets, bins.rp_max, bins.pi_max, refine)
+    g1 = sort_into_sky_grid(grid, p1.pos, angles[0], p1.w, p1.reg)
+    g2 = g1 if p2 is None else sort_into_sky_grid(grid, p2.pos, angles[1], p2.w, p2.reg)
+    tasks = np.flatnonzero(np.diff(g1.start)).astype(np.int64)
+    total, touch = _kernels.rppi_cone_sky(
+        g1.x, g1.y, g1.z, g1.los, g1.w, g1.reg, g1.start,
+        g2.x, g2.y, g2.z, g2.los, g2.w, g2.reg, g2.start, tasks,
+        grid.chi_edges, grid.lat0, grid.lon0, grid.dlat, grid.dlon, grid.n_lat, grid.n_lon,
+        grid.offset, grid.periodic, bins.rp_edges**2, bins.pi_max, bins.dpi, bins.n_pi,
+        n_regions, p2 is None, _n_chunks(tasks.size), *_lookup_args(bins))
+    return _assemble(total, touch, bins, p1, p2, n_regions)
 
 
 def count_smu_box(pos1: ArrayLike, w1: ArrayLike | None = None, reg1: ArrayLike | None = None,
