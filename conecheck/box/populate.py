@@ -38,6 +38,7 @@ from typing import Any
 
 import numba
 import numpy as np
+from numba import prange
 from numpy.typing import NDArray
 from scipy import special, stats
 
@@ -191,15 +192,22 @@ class KeyedDraws:
 SUMMED_MEANS = 30.0
 
 
-@numba.njit(cache=True)
+@numba.njit(parallel=True, cache=True)
 def _summed_poisson_quantile(u: NDArray[np.float64], mean: NDArray[np.float64],
-                             out: NDArray[np.int64]) -> None:
-    for i in range(u.size):
+                             out: NDArray[np.int64]) -> int:
+    """The quantiles of the means up to :data:`SUMMED_MEANS`; the others (and NaN) are
+    marked −1 and counted, for scipy."""
+    n_left = 0
+    for i in prange(u.size):
         lam = mean[i]
+        k = 0
+        if not lam <= SUMMED_MEANS:
+            out[i] = -1
+            n_left += 1
+            continue
         if lam <= 0.0:
             out[i] = 0
             continue
-        k = 0
         p = np.exp(-lam)
         cdf = p
         # p > 0: rounding can keep the sum just below a u within 10⁻¹⁵ of 1
@@ -208,24 +216,20 @@ def _summed_poisson_quantile(u: NDArray[np.float64], mean: NDArray[np.float64],
             p *= lam / k
             cdf += p
         out[i] = k
+    return n_left
 
 
 def poisson_quantile(u: NDArray[np.float64], mean: NDArray[np.float64]) -> NDArray[np.int64]:
     """Smallest k with P(N ≤ k) ≥ u for N ~ Poisson(mean), elementwise (inverse-CDF
     sampling: uniform ``u`` give Poisson counts, and for a fixed u the count never falls as
     the mean rises). Means up to :data:`SUMMED_MEANS` sum the probabilities term by term
-    (numba), larger ones use scipy.stats.poisson.ppf."""
+    (numba, in one pass over every mean), larger ones use scipy.stats.poisson.ppf."""
     u = np.ascontiguousarray(u, dtype=np.float64)
     mean = np.ascontiguousarray(mean, dtype=np.float64)
-    out = np.zeros(u.size, dtype=np.int64)
-    small = mean <= SUMMED_MEANS
-    if small.all():
-        _summed_poisson_quantile(u, mean, out)
-        return out
-    part = np.zeros(int(small.sum()), dtype=np.int64)
-    _summed_poisson_quantile(u[small], mean[small], part)
-    out[small] = part
-    out[~small] = stats.poisson.ppf(u[~small], mean[~small]).astype(np.int64)
+    out = np.empty(u.size, dtype=np.int64)
+    if _summed_poisson_quantile(u, mean, out):
+        large = out < 0
+        out[large] = stats.poisson.ppf(u[large], mean[large]).astype(np.int64)
     return out
 
 
