@@ -19,7 +19,7 @@ from conecheck.box import (
     populate,
 )
 from conecheck.box.hod import DEFAULT_HOD, split_by_secondary
-from conecheck.box.populate import KeyedDraws, galaxy_ids, poisson_quantile
+from conecheck.box.populate import KeyedDraws, galaxy_ids, poisson_quantile, populate_models
 from conecheck.box.sensitivity import DEFAULT_STEPS, step_values, varied_model
 from conecheck.errors import InputError
 from conecheck.streams import keyed_uniforms, stream_key
@@ -205,6 +205,33 @@ def test_keyed_draws_share_every_galaxy_both_models_occupy(name):
     assert common.size < max(len(a), len(b))          # the step changed some occupation
     if name in ("log_mmin", "log_m1"):
         assert np.all(sat_b <= sat_a)
+
+
+@pytest.mark.parametrize("name", ["log_mmin", "alpha", "a_cen"])
+def test_models_populated_together_equal_each_populated_alone(name):
+    """The HOD derivatives' ± boxes populated in one call (shared halo draws and the
+    union's satellites) are, field for field and bit for bit, the boxes of two separate
+    calls; one generator cannot serve two models at once."""
+    rng = np.random.default_rng(4)
+    n = 30_000
+    halos = make_halos(10 ** rng.uniform(11.5, 14.8, n), rng, secondary=rng.random(n))
+    model = default_hod_model()
+    model = HODModel(model.thresholds, AssemblyBias(secondary="secondary"), model.concentration,
+                     model.satellites_need_central, model.bright_tail_mag)
+    thr = model.thresholds[0]
+    lo, hi = step_values(model, thr, name, DEFAULT_STEPS[name])
+    models = [varied_model(model, thr, name, v) for v in (lo, hi)]
+    key = stream_key(6, "test-together")
+    together = populate_models(halos, models, KeyedDraws(key))
+    for m, box in zip(models, together, strict=True):
+        alone = populate(halos, m, KeyedDraws(key))
+        for col in ("position", "velocity", "abs_mag", "is_central", "halo_id", "halo_mass",
+                    "draw_key"):
+            assert np.array_equal(getattr(box, col), getattr(alone, col)), col
+        assert box.meta == alone.meta
+    assert len(together[0]) != len(together[1])
+    with pytest.raises(ValueError, match="keyed draws"):
+        populate_models(halos, models, np.random.default_rng(1))
 
 
 def test_poisson_quantile_equals_scipy_and_never_falls_as_the_mean_rises():

@@ -289,37 +289,97 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator | Key
     InputError
         When the HOD puts no galaxy in any halo, or assembly bias needs a missing column.
     """
+    return populate_models(halos, [model], rng, cosmology)[0]
+
+
+def populate_models(halos: HaloCatalog, models: list[HODModel],
+                    rng: np.random.Generator | KeyedDraws,
+                    cosmology: Cosmology | None = None) -> list[GalaxyBox]:
+    """:func:`populate` for several models at once, equal to populating with each in turn.
+
+    With :class:`KeyedDraws` every galaxy's numbers depend on its identity alone, so the
+    draws of the halos and the satellites' positions and velocities are computed once, for
+    the union of the models' satellites, and each box takes its own; several models need
+    keyed draws. Parameters as in :func:`populate`; one box per model, in order.
+    """
+    if len(models) > 1 and not isinstance(rng, KeyedDraws):
+        raise ValueError("populating several models at once needs keyed draws (KeyedDraws)")
     draws = rng if isinstance(rng, KeyedDraws) else StreamDraws(rng)
     n_halo = len(halos)
-    mags = model.mag_limits
-    cen_n, sat_n = decorated_occupations(halos, model)
-
     halo_index = np.arange(n_halo, dtype=np.int64)
     halo_ids = galaxy_ids(halo_index, np.zeros(n_halo, dtype=np.int64))
     u = draws.uniform(CENTRAL, halo_ids)
-    level_c = np.sum(u[None, :] < cen_n, axis=0)
-    cen_idx = np.flatnonzero(level_c > 0)
+    # the satellite counts' uniform, drawn once when it is a function of the halo alone
+    u_count = (draws.uniform(SATELLITE_COUNT, halo_ids) if isinstance(draws, KeyedDraws)
+               else None)
+    occupied = []
+    for model in models:
+        cen_n, sat_n = decorated_occupations(halos, model)
+        level_c = np.sum(u[None, :] < cen_n, axis=0)
+        n_sat = (draws.poisson(SATELLITE_COUNT, halo_ids, sat_n[0]) if u_count is None
+                 else poisson_quantile(u_count, sat_n[0]))
+        if not (level_c.any() or n_sat.any()):
+            raise InputError(
+                f"the HOD puts no galaxy in any of the {n_halo} halos (masses "
+                f"{halos.mass.min():.3g} .. {halos.mass.max():.3g} Msun/h; faintest "
+                f"threshold log_mmin = {model.thresholds[0].params.log_mmin}): check the "
+                "HOD parameters against the halo masses")
+        occupied.append((sat_n, level_c, n_sat))
 
-    n_sat = draws.poisson(SATELLITE_COUNT, halo_ids, sat_n[0])
-    host = np.repeat(halo_index, n_sat)
+    # every model's satellites: in each halo the ranks 1 … the largest count of any model
+    n_union = occupied[0][2] if len(models) == 1 else np.max([o[2] for o in occupied], axis=0)
+    host = np.repeat(halo_index, n_union)
     # rank of each satellite in its halo: 1, 2, …
-    rank = np.arange(host.size, dtype=np.int64) - np.repeat(np.cumsum(n_sat) - n_sat, n_sat) + 1
+    rank = (np.arange(host.size, dtype=np.int64)
+            - np.repeat(np.cumsum(n_union) - n_union, n_union) + 1)
     sat_ids = galaxy_ids(host, rank)
-    us = draws.uniform(SATELLITE_LEVEL, sat_ids) * sat_n[0, host]
-    level_s = np.sum(us[None, :] < sat_n[:, host], axis=0)
+    u_level = draws.uniform(SATELLITE_LEVEL, sat_ids)
 
-    if cen_idx.size + host.size == 0:
-        raise InputError(
-            f"the HOD puts no galaxy in any of the {n_halo} halos (masses "
-            f"{halos.mass.min():.3g} .. {halos.mass.max():.3g} Msun/h; faintest threshold "
-            f"log_mmin = {model.thresholds[0].params.log_mmin}): check the HOD parameters "
-            "against the halo masses")
+    levels = []
+    for model, (sat_n, level_c, n_sat) in zip(models, occupied, strict=True):
+        keep = (slice(None) if len(models) == 1 else rank <= n_sat[host])
+        h = host[keep]
+        level_s = np.sum((u_level[keep] * sat_n[0, h])[None, :] < sat_n[:, h], axis=0)
+        cen_idx = np.flatnonzero(level_c > 0)
+        mag_c = _magnitudes(level_c[cen_idx], model.mag_limits, model.bright_tail_mag, draws,
+                            halo_ids[cen_idx])
+        mag_s = _magnitudes(level_s, model.mag_limits, model.bright_tail_mag, draws,
+                            sat_ids[keep])
+        levels.append((keep, cen_idx, mag_c, mag_s))
 
-    cen_ids = halo_ids[cen_idx]
-    mag_c = _magnitudes(level_c[cen_idx], mags, model.bright_tail_mag, draws, cen_ids)
-    mag_s = _magnitudes(level_s, mags, model.bright_tail_mag, draws, sat_ids)
+    pos_s, vel_s = _satellite_phase_space(halos, host, sat_ids, draws, cosmology)
+    hid = halos.halo_id if halos.halo_id is not None else np.arange(n_halo, dtype=np.int64)
+    boxes = []
+    for model, (keep, cen_idx, mag_c, mag_s) in zip(models, levels, strict=True):
+        h = host[keep]
+        owner = np.concatenate([cen_idx, h])
+        meta: dict[str, Any] = dict(halos.meta)
+        # short keys: they become FITS header keywords
+        model_name = "erf_central_powerlaw_satellite"
+        if model.assembly_bias.active:
+            model_name += "+assembly_bias"
+        meta.update({"HODMODEL": model_name,
+                     "NCEN": int(cen_idx.size), "NSAT": int(h.size)})
+        boxes.append(GalaxyBox(
+            position=np.concatenate([halos.position[cen_idx], pos_s[keep]]),
+            velocity=np.concatenate([halos.velocity[cen_idx], vel_s[keep]]),
+            box_size=halos.box_size, redshift=halos.redshift,
+            abs_mag=np.concatenate([mag_c, mag_s]),
+            is_central=np.concatenate([np.ones(cen_idx.size, bool), np.zeros(h.size, bool)]),
+            halo_id=np.asarray(hid, dtype=np.int64)[owner],
+            halo_mass=halos.mass[owner],
+            meta=meta,
+            draw_key=(np.concatenate([halo_ids[cen_idx], sat_ids[keep]])
+                      if isinstance(draws, KeyedDraws) else None)))
+    return boxes
 
-    # satellites: NFW radius within the halo radius, isotropic direction, virial velocities
+
+def _satellite_phase_space(halos: HaloCatalog, host: NDArray[np.int64],
+                           sat_ids: NDArray[np.uint64], draws: Draws,
+                           cosmology: Cosmology | None
+                           ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Positions [Mpc/h] and velocities [km/s] of satellites in halos ``host``: NFW radius
+    within the halo radius, isotropic direction, virial velocity dispersion."""
     mass_s = halos.mass[host]
     rvir = (halos.rvir[host] if halos.rvir is not None
             else virial_radius(mass_s, (cosmology or Cosmology()).omega_m))
@@ -332,24 +392,4 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator | Key
     pos_s = wrap_into_box(halos.position[host] + offset, halos.box_size)
     sigma = virial_dispersion(mass_s, rvir, halos.redshift)
     vel_s = halos.velocity[host] + sigma[:, None] * draws.normal(VELOCITY, sat_ids, 3)
-
-    hid = halos.halo_id if halos.halo_id is not None else np.arange(n_halo, dtype=np.int64)
-    owner = np.concatenate([cen_idx, host])
-    meta: dict[str, Any] = dict(halos.meta)
-    # short keys: they become FITS header keywords
-    model_name = "erf_central_powerlaw_satellite"
-    if model.assembly_bias.active:
-        model_name += "+assembly_bias"
-    meta.update({"HODMODEL": model_name,
-                 "NCEN": int(cen_idx.size), "NSAT": int(host.size)})
-    return GalaxyBox(
-        position=np.concatenate([halos.position[cen_idx], pos_s]),
-        velocity=np.concatenate([halos.velocity[cen_idx], vel_s]),
-        box_size=halos.box_size, redshift=halos.redshift,
-        abs_mag=np.concatenate([mag_c, mag_s]),
-        is_central=np.concatenate([np.ones(cen_idx.size, bool), np.zeros(host.size, bool)]),
-        halo_id=np.asarray(hid, dtype=np.int64)[owner],
-        halo_mass=halos.mass[owner],
-        meta=meta,
-        draw_key=(np.concatenate([cen_ids, sat_ids]) if isinstance(draws, KeyedDraws)
-                  else None))
+    return pos_s, vel_s

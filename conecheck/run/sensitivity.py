@@ -16,7 +16,7 @@ from typing import Any
 
 import numpy as np
 
-from ..box import populate
+from ..box import populate_models
 from ..box.halos import HaloCatalog
 from ..box.populate import KeyedDraws
 from ..box.sensitivity import (
@@ -81,8 +81,8 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
         # every galaxy's draws keyed by its identity (common random numbers): the two
         # boxes share every galaxy both models occupy, and their pairs are counted once
         draws = KeyedDraws(stream_key(box_spec.seed, "hod-derivative", sample.name))
-        boxes = [populate(halos, varied_model(model, threshold, name, v), draws, cosmo)
-                 for v in (lo, hi)]
+        boxes = populate_models(halos, [varied_model(model, threshold, name, v)
+                                        for v in (lo, hi)], draws, cosmo)
         for box in boxes:
             box.matter = halos.matter
         values = dict(zip(("lo", "hi"), measure_box_pair(box_spec, *boxes), strict=True))
