@@ -12,6 +12,10 @@ Measured in one run, on the same points, two threads for every threaded code:
   shell of the run workload (8×10⁴ data in a 40°-radius cap between χ = 60 and
   290 Mpc/h, r_p ≤ 20) — conecheck, ``Corrfunc.mocks.DDrppi_mocks`` (comoving
   distances) and cKDTree ``sparse_distance_matrix``;
+* cone RR of a thin cylinder, the small-scale RR the split random method leaves whole:
+  1.7×10⁶ randoms (the heavy run workload's largest cut) in a 40°-radius cap between
+  χ = 45 and 440 Mpc/h, r_p 0.3–2.45 Mpc/h, π_max = 40 — conecheck in sky columns (its
+  default there), conecheck in cubic cells, and ``Corrfunc.mocks.DDrppi_mocks``;
 * linear growth of the engine's run time with N at fixed density (box);
 * box DD at the lower densities of the HOD samples (2×10⁴ to 2×10⁶ points in
   L = 585 Mpc/h, r_p ≤ 20) — conecheck, conecheck with the former fixed r_p,max / 2 cells,
@@ -177,6 +181,52 @@ def cone_rows(rng, geo, scale, repeat, say) -> float:
     return worst
 
 
+#: The thin-cylinder RR row: (randoms, χ range [Mpc/h], cap radius [deg], r_p edges [Mpc/h]).
+THIN_RR = {"n": 1_700_000, "chi": (45.0, 440.0), "radius": 40.0,
+           "edges": np.array([0.3, 0.5, 0.84, 1.4, 2.45])}
+
+
+def thin_rows(rng, scale, repeat, say) -> float:
+    """RR of a thin cylinder: sky columns, cubic cells and Corrfunc; returns the ratio of
+    conecheck's default to Corrfunc's time."""
+    n = int(THIN_RR["n"] * scale)
+    lo, hi = THIN_RR["chi"]
+    radius = THIN_RR["radius"] if scale == 1.0 else THIN_RR["radius"] * np.sqrt(scale)
+    edges, pi_max = THIN_RR["edges"], PI_MAX
+    nb = len(edges) - 1
+    xyz, ra, dec, chi = cap_points(rng, n, lo, hi, radius)
+    t_sky, sky = best_of(lambda: count_rppi_cone(xyz, rp_edges=edges, pi_max=pi_max), repeat)
+    t_cub, cub = best_of(lambda: count_rppi_cone(xyz, rp_edges=edges, pi_max=pi_max,
+                                                 cells="cubic"), repeat)
+    say(f"## Cone RR of a thin cylinder: {n:,} randoms, cap of radius {radius:.0f}°, "
+        f"{lo:.0f} < χ < {hi:.0f} Mpc/h, r_p {edges[0]:g}–{edges[-1]:g} Mpc/h in {nb} bins, "
+        f"π_max = {pi_max:.0f} Mpc/h")
+    say()
+    say("| code | time [s] | ratio to conecheck | pairs/s |")
+    say("|---|---|---|---|")
+    say(f"| conecheck (sky columns, its default for r_p,max ≤ π_max/4) | {t_sky:.2f} | 1.00 | "
+        f"{sky.total.sum() / t_sky:.3g} |")
+    say(f"| conecheck, cubic cells (`cells=\"cubic\"`) | {t_cub:.2f} | {t_cub / t_sky:.2f} | "
+        f"{cub.total.sum() / t_cub:.3g} |")
+    worst = 0.0
+    if Corrfunc:
+        t_cf, res = best_of(lambda: DDrppi_mocks(1, 2, THREADS, pi_max, edges, ra, dec, chi,
+                                                 is_comoving_dist=True), repeat)
+        worst = t_sky / t_cf
+        say(f"| Corrfunc.mocks.DDrppi_mocks | {t_cf:.2f} | {t_cf / t_sky:.2f} | "
+            f"{sky.total.sum() / t_cf:.3g} |")
+    say()
+    say(f"Sky columns and cubic cells count the same pairs: "
+        f"{np.array_equal(sky.total, cub.total)}.")
+    if Corrfunc:
+        crr = res["npairs"].astype(float).reshape(nb, int(pi_max)) / 2
+        say(f"Counts identical to Corrfunc: {np.array_equal(crr, sky.total)} (largest "
+            f"difference, relative to the fullest bin: "
+            f"{np.max(np.abs(crr - sky.total)) / sky.total.max():.1e}).")
+    say()
+    return worst
+
+
 #: Box sizes of the sparse-box rows: the HOD samples' densities in the run workload's box.
 SPARSE_BOX = {"box_size": 585.0, "n": (40_000, 150_000, 500_000, 2_000_000),
               "edges": np.geomspace(0.3, 20.0, 9), "pi_max": 40.0}
@@ -263,6 +313,7 @@ def main(argv=None) -> int:
                    pi_max=pi_max, n_regions=2)
     count_rppi_cone(small + 500, rp_edges=edges, pi_max=pi_max)
     count_rppi_cone(small + 500, None, None, small + 510, rp_edges=edges, pi_max=pi_max)
+    count_rppi_cone(small + 500, rp_edges=THIN_RR["edges"], pi_max=pi_max)  # sky columns
 
     # ------------------------------------------------------------------ box
     n_box = int(1_000_000 * scale)
@@ -325,6 +376,7 @@ def main(argv=None) -> int:
     worst = 0.0
     for geo in CONE_GEOMETRIES:
         worst = max(worst, cone_rows(rng, geo, scale, repeat, say))
+    worst = max(worst, thin_rows(rng, scale, repeat, say))
     if Corrfunc:
         say(f"Largest ratio of conecheck's time to Corrfunc's over the cone rows: {worst:.2f} "
             "(target ≤ 1.0, goal 0.8).")

@@ -23,7 +23,9 @@ Pair counts, per point and neighbour cell, run in passes over that window:
 Before a window is scanned, a cheap geometric test skips what cannot hold a pair: on a
 cone, a cell pair and then each point against the neighbour cell (:func:`_can_pair`, a
 bound that holds wherever the line of sight points); in a box, each point whose distance
-across the LOS from the neighbour cell's rectangle exceeds r_p,max.
+across the LOS from the neighbour cell's rectangle exceeds r_p,max. In the cone's sky
+columns (:func:`rppi_cone_sky`) the columns within the angular reach of a point's column
+are found first, and each point's candidates from all of them are binned in one pass.
 
 Indices in the hot loops are cast to unsigned integers: numba then skips its
 negative-index wrap-around, which otherwise costs as much as the arithmetic.

@@ -11,7 +11,9 @@ For a cone, |π| ≥ |χ₁ − χ₂| for the midpoint line of sight, because
 Across the line of sight, cone cells are cubes, finer where the points are dense
 (:func:`cone_refine`), and the kernel drops the cell pairs and point-cell pairs that a
 geometric bound rules out, so the candidates hug the (r_p, π) cylinder wherever the line
-of sight points.  The sort itself is a counting sort in numba (:mod:`._sorting`).
+of sight points.  A thin cylinder (r_p,max ≪ π_max) is counted in columns of sky and
+distance instead (:mod:`.sky_grid`), sorted the same way.  The sort itself is a counting
+sort in numba (:mod:`._sorting`).
 """
 
 from __future__ import annotations
