@@ -466,6 +466,21 @@ def test_sky_columns_match_treecorr_and_are_chosen_for_thin_cylinders(cone_point
     np.testing.assert_array_equal(one.touch, many.touch)
 
 
+def test_sky_columns_of_a_few_points():
+    """One point, duplicates and points all at one χ: the same counts in sky columns as in
+    cubic cells (pairs at zero separation included when the first r_p edge is 0)."""
+    sets = [np.array([[100.0, 0.0, 0.0]]), np.array([[100.0, 0.0, 0.0]] * 5),
+            np.array([[100.0, 0.0, 0.0], [0.0, 100.0, 0.0], [99.9, 1.0, 0.0]]),
+            np.array([[0.0, 0.0, 50.0], [0.0, 0.3, 50.0], [0.2, 0.0, 51.0]])]
+    for p in sets:
+        for q in (None, p[::-1] + 0.25):
+            kw = {} if q is None else {"pos2": q}
+            sky = count_rppi_cone(p, rp_edges=[0.0, 1.0, 2.0], pi_max=10.0, cells="sky", **kw)
+            cub = count_rppi_cone(p, rp_edges=[0.0, 1.0, 2.0], pi_max=10.0, cells="cubic", **kw)
+            np.testing.assert_array_equal(sky.total, cub.total)
+    assert count_rppi_cone(sets[1], rp_edges=[0.0, 1.0], pi_max=10.0).total.sum() == 10
+
+
 def test_sky_columns_bad_requests():
     p = _cap(np.random.default_rng(0), 50, 10.0, 50.0, 30.0)
     with pytest.raises(InputError, match="cells: expected"):

@@ -163,10 +163,11 @@ def _frame(pos_list: list[NDArray[np.float64]]) -> NDArray[np.float64]:
 def shell_edges(chi_min: float, chi_max: float, pi_max: float) -> NDArray[np.float64]:
     """Shell edges in χ [Mpc/h] from ``chi_min`` to ``chi_max`` (see the module notes)."""
     edges = [float(chi_min)]
-    while edges[-1] < chi_max:
+    # at least one shell, even when every point has the same χ; the last edge may lie
+    # beyond chi_max (the kernel's bounds only need every point inside its shell)
+    while len(edges) == 1 or edges[-1] < chi_max:
         lo = edges[-1]
         edges.append(lo + max(SHELL_MIN_PI * pi_max, SHELL_RATIO * lo))
-    edges[-1] = max(float(chi_max), edges[-2])
     return np.asarray(edges, dtype=np.float64)
 
 
