@@ -176,6 +176,17 @@ def test_keyed_uniforms_are_uniform_independent_and_per_identity():
     assert np.array_equal(keyed_uniforms(key, ids[pick], 0), u[pick])
 
 
+def _derivative_setup(rng, n, name):
+    """Halos with a secondary property, the default HOD with assembly bias, its faintest
+    threshold and the ± values of parameter ``name`` (the HOD derivatives' set-up)."""
+    halos = make_halos(10 ** rng.uniform(11.5, 14.8, n), rng, secondary=rng.random(n))
+    model = default_hod_model()
+    model = HODModel(model.thresholds, AssemblyBias(secondary="secondary"), model.concentration,
+                     model.satellites_need_central, model.bright_tail_mag)
+    thr = model.thresholds[0]
+    return halos, model, thr, step_values(model, thr, name, DEFAULT_STEPS[name])
+
+
 @pytest.mark.parametrize("name", ["log_mmin", "log_m1", "alpha", "a_sat"])
 def test_keyed_draws_share_every_galaxy_both_models_occupy(name):
     """Common random numbers for the HOD derivatives: the ± boxes of a parameter hold the
@@ -185,14 +196,8 @@ def test_keyed_draws_share_every_galaxy_both_models_occupy(name):
     place; and a parameter that lowers every satellite mean or none (log M₁; log M_min,
     through the central when satellites need one) lowers every halo's count or leaves it
     (the Poisson quantile of one uniform never rises as the mean falls)."""
-    rng = np.random.default_rng(3)
     n = 40_000
-    halos = make_halos(10 ** rng.uniform(11.5, 14.8, n), rng, secondary=rng.random(n))
-    model = default_hod_model()
-    model = HODModel(model.thresholds, AssemblyBias(secondary="secondary"), model.concentration,
-                     model.satellites_need_central, model.bright_tail_mag)
-    thr = model.thresholds[0]
-    lo, hi = step_values(model, thr, name, DEFAULT_STEPS[name])
+    halos, model, thr, (lo, hi) = _derivative_setup(np.random.default_rng(3), n, name)
     draws = KeyedDraws(stream_key(8, "test-coupling"))
     a, b = (populate(halos, varied_model(model, thr, name, v), draws) for v in (lo, hi))
     common, ia, ib = np.intersect1d(a.draw_key, b.draw_key, return_indices=True)
@@ -212,14 +217,7 @@ def test_models_populated_together_equal_each_populated_alone(name):
     """The HOD derivatives' ± boxes populated in one call (shared halo draws and the
     union's satellites) are, field for field and bit for bit, the boxes of two separate
     calls; one generator cannot serve two models at once."""
-    rng = np.random.default_rng(4)
-    n = 30_000
-    halos = make_halos(10 ** rng.uniform(11.5, 14.8, n), rng, secondary=rng.random(n))
-    model = default_hod_model()
-    model = HODModel(model.thresholds, AssemblyBias(secondary="secondary"), model.concentration,
-                     model.satellites_need_central, model.bright_tail_mag)
-    thr = model.thresholds[0]
-    lo, hi = step_values(model, thr, name, DEFAULT_STEPS[name])
+    halos, model, thr, (lo, hi) = _derivative_setup(np.random.default_rng(4), 30_000, name)
     models = [varied_model(model, thr, name, v) for v in (lo, hi)]
     key = stream_key(6, "test-together")
     together = populate_models(halos, models, KeyedDraws(key))

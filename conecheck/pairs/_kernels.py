@@ -403,6 +403,18 @@ def _can_pair(ax, ay, az, dx, dy, dz, ex, ey, ez, lx, ly, lz, first_los, rp_max,
     return True
 
 
+@numba.njit(cache=True, inline="always", error_model="numpy")
+def _cone_candidate(s2v, sl, l2, smax2, pimax2, rpmax2, rpmin2, shift, base, last, dummy,
+                    inv_dpi, n_pi):
+    """One cone candidate from |s|², s·l and |l|² (l its line of sight): its r_p look-up
+    cell, or ``dummy`` when a cut rejects it, its π bin and r_p²."""
+    pi2 = sl * sl / l2
+    rp2 = s2v - pi2
+    c = min(max((_f2i(rp2) >> shift) - base, 0), last)
+    ok = (s2v < smax2) & (pi2 < pimax2) & (rp2 < rpmax2) & (rp2 >= rpmin2)
+    return (c if ok else dummy), min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1), rp2
+
+
 @numba.njit(cache=True, error_model="numpy")
 def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, same,
                 edges2, pi_max, inv_dpi, n_pi, lut, nxt, shift, base, scan,
@@ -455,13 +467,9 @@ def _block_cone(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, s2, e2, 
             else:
                 sl = cj * cj - ci2
                 l2 = 2.0 * (ci2 + cj * cj) - s2v
-            pi2 = sl * sl / l2
-            rp2 = s2v - pi2
-            c = min(max((_f2i(rp2) >> shift) - base, 0), last)
-            ok = (s2v < smax2) & (pi2 < pimax2) & (rp2 < rpmax2) & (rp2 >= rpmin2)
-            cbuf[q] = c if ok else dummy
-            pbuf[q] = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
-            fbuf[q] = rp2
+            cbuf[q], pbuf[q], fbuf[q] = _cone_candidate(s2v, sl, l2, smax2, pimax2, rpmax2,
+                                                        rpmin2, shift, base, last, dummy,
+                                                        inv_dpi, n_pi)
         m = 0
         for q in range(nwin):
             jbuf[m] = q
@@ -980,13 +988,9 @@ def _block_sky(x1, y1, z1, c1, w1, g1, s1, e1, x2, y2, z2, c2, w2, g2, bs, be, n
                 s2v = dx * dx + dy * dy + dz * dz
                 sl = cj * cj - ci2
                 l2 = 2.0 * (ci2 + cj * cj) - s2v
-                pi2 = sl * sl / l2
-                rp2 = s2v - pi2
-                c = min(max((_f2i(rp2) >> shift) - base, 0), last)
-                ok = (s2v < smax2) & (pi2 < pimax2) & (rp2 < rpmax2) & (rp2 >= rpmin2)
-                cbuf[q] = c if ok else dummy
-                pbuf[q] = min(np.int64(np.sqrt(pi2) * inv_dpi), n_pi - 1)
-                fbuf[q] = rp2
+                cbuf[q], pbuf[q], fbuf[q] = _cone_candidate(s2v, sl, l2, smax2, pimax2, rpmax2,
+                                                            rpmin2, shift, base, last, dummy,
+                                                            inv_dpi, n_pi)
                 wbuf[q] = w2[ju]
                 gbuf[q] = g2[ju]
             n += max(hi - j0, 0)

@@ -51,9 +51,10 @@ MIN_CHUNKS = 32
 #: against the former fixed r_p,max / 2 cells and Corrfunc).
 BOX_CELL_POINTS = 80.0
 #: Cone counts with r_p,max at most this fraction of π_max use sky columns
-#: (:mod:`.sky_grid`) rather than cubic cells. Timed on auto counts in caps of 2·10⁵ to
-#: 1.7·10⁶ points (π_max = 40 Mpc/h): columns take 0.4–0.7 of the cubic time at r_p,max =
-#: 2.45 and 5, 0.6–0.9 at 10, and 0.9–1.2 at 20 Mpc/h (benchmarks/RESULTS.md, twelfth pass).
+#: (:mod:`.sky_grid`) rather than cubic cells. Timed in caps of 2·10⁵ to 1.7·10⁶ points
+#: (π_max = 40 Mpc/h): auto counts take 0.4–0.6 of the cubic time in columns at r_p,max =
+#: 2.45 and 5, 0.6–0.9 at 10 and 0.9–1.2 at 20 Mpc/h; data–random counts 0.5–0.9 at 2.45
+#: and 5, 0.7–1.1 at 10 (benchmarks/RESULTS.md, twelfth pass).
 SKY_RP_OVER_PI = 0.25
 
 

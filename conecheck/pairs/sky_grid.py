@@ -18,10 +18,12 @@ Geometry (observer at the origin, midpoint line of sight):
   pair only below 90°, where the sine bound fixes θ.
 
 Angles are latitude and longitude in a frame whose equator passes through the mean
-direction of the points, so a footprint of up to a hemisphere stays clear of the frame's
-poles.  Shells grow with χ (each at least ``SHELL_MIN_PI`` π_max thick and ``SHELL_RATIO``
-times its inner radius), and each shell's cells are r_p,max / ``refine`` across at its
-inner radius, so a column's width tracks the angular reach over the shell.
+direction of the points: a cap of radius R around that direction spans latitudes up to R,
+so a footprint well inside a hemisphere keeps clear of the frame's poles, where a
+column's reach in longitude widens (the counts stay exact there, only slower).  Shells
+grow with χ (each at least ``SHELL_MIN_PI`` π_max thick and ``SHELL_RATIO`` times its
+inner radius), and each shell's cells are r_p,max / ``refine`` across at its inner
+radius, so a column's width tracks the angular reach over the shell.
 """
 
 from __future__ import annotations
