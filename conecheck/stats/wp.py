@@ -322,14 +322,24 @@ def disc_square_area(cx: NDArray[np.float64], cy: NDArray[np.float64],
         Exact, by inclusion–exclusion over the square's corners of the disc's area below and
         left of each corner (:func:`_below_left_area`).
     """
-    r = np.asarray(radii, dtype=np.float64)[None, :]
-    x0 = -np.asarray(cx, dtype=np.float64)[:, None]
-    y0 = -np.asarray(cy, dtype=np.float64)[:, None]
+    radii = np.asarray(radii, dtype=np.float64)
+    cx = np.asarray(cx, dtype=np.float64)
+    cy = np.asarray(cy, dtype=np.float64)
+    area = np.zeros((cx.size, radii.size))
+    # only the discs whose bounding square meets the square: the others hold no area (the
+    # four terms below cancel, to a rounding residue of a few ulp of r² when the disc lies
+    # above or below). Most discs of the delete-one DR lie beside a column and the small
+    # radii miss it: 4x faster on a 10⁶-galaxy box
+    i, e = np.nonzero((cx[:, None] > -radii) & (cx[:, None] < side + radii)
+                      & (cy[:, None] > -radii) & (cy[:, None] < side + radii))
+    r = radii[e]
+    x0, y0 = -cx[i], -cy[i]
     x1, y1 = x0 + side, y0 + side
-    area = (_below_left_area(x1, y1, r) - _below_left_area(x0, y1, r)
-            - _below_left_area(x1, y0, r) + _below_left_area(x0, y0, r))
+    hit = (_below_left_area(x1, y1, r) - _below_left_area(x0, y1, r)
+           - _below_left_area(x1, y0, r) + _below_left_area(x0, y0, r))
     # inclusion–exclusion of four O(r²) terms can leave a rounding residue of either sign
-    return np.clip(area, 0.0, np.pi * r * r)
+    area[i, e] = np.clip(hit, 0.0, np.pi * r * r)
+    return area
 
 
 def _delete_one_dr_columns(sample: BoxSample, bins: RpPiBins, layout: object
