@@ -308,8 +308,9 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
     tol = 1e-9 * box_size
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
-    # the one region of each cell of set 2, if it has one (see _bin_window)
-    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
+    # the one region of each cell of set 2, if it has one (see _bin_window); read only
+    # with jackknife tags
+    cells2 = cell_regions(g2, start2) if with_touch else np.empty(0, dtype=np.int64)
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
@@ -332,7 +333,7 @@ def rppi_box(x1, y1, z1, w1, g1, start1, x2, y2, z2, w2, g2, start2, tasks, offs
                 if s2 == e2:
                     continue
                 same = auto and o == 0
-                rc = cells2[cell2]
+                rc = cells2[cell2] if with_touch else np.int64(-1)
                 sx, sy, sz = wx * box_size, wy * box_size, wz * box_size
                 bx0, bx1 = kx * cx - tol, (kx + 1) * cx + tol
                 by0, by1 = ky * cy - tol, (ky + 1) * cy + tol
@@ -506,8 +507,9 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
     nb = (n_rp + 1) * n_pi
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
-    # the one region of each cell of set 2, if it has one (see _bin_window)
-    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
+    # the one region of each cell of set 2, if it has one (see _bin_window); read only
+    # with jackknife tags
+    cells2 = cell_regions(g2, start2) if with_touch else np.empty(0, dtype=np.int64)
     for c in prange(n_chunks):
         tot_c = tot[c]
         touch_c = touch[c]
@@ -539,7 +541,7 @@ def rppi_cone(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2, ta
                                  lx, ly, lz, first_los, rp_max, pi_max, s_max):
                     continue
                 same = auto and o == 0
-                rc = cells2[cell2]
+                rc = cells2[cell2] if with_touch else np.int64(-1)
                 bx = origin[0] + (kx + 0.5) * side[0]
                 by = origin[1] + (ky + 0.5) * side[1]
                 bz = origin[2] + (kz + 0.5) * side[2]
@@ -1025,7 +1027,7 @@ def rppi_cone_sky(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2
     nb = (n_rp + 1) * n_pi
     tot = np.zeros((n_chunks, nb))
     touch = np.zeros((n_chunks, _touch_size(n_regions, nb)))
-    cells2 = cell_regions(g2, start2) if with_touch else np.full(start2.size - 1, -1)
+    cells2 = cell_regions(g2, start2) if with_touch else np.empty(0, dtype=np.int64)
     half_pi = 0.5 * np.pi
     for c in prange(n_chunks):
         tot_c = tot[c]
@@ -1109,7 +1111,7 @@ def rppi_cone_sky(x1, y1, z1, c1, w1, g1, start1, x2, y2, z2, c2, w2, g2, start2
                         n_b += 1
                         n_cand += e2 - s2
                         # one region for every candidate when all the columns share it
-                        r2 = cells2[cell2]
+                        r2 = cells2[cell2] if with_touch else np.int64(-1)
                         rc = r2 if rc == -2 else (rc if rc == r2 else -1)
             if n_b == 0:
                 continue
