@@ -74,6 +74,43 @@ def test_box_one_shell_weighted_self_excluded_and_around_other_centres(edges, h)
     np.testing.assert_array_equal(got, brute(c, p, np.ones(len(p)), e, h, box=L, los=1))
 
 
+@pytest.mark.parametrize("n_points,max_cells", [(300, None), (10000, None), (3000, 40)])
+def test_box_cell_layouts_sparse_dense_and_capped(n_points, max_cells, monkeypatch):
+    """The counts do not depend on the cells the density picks: sparse points (cells at
+    least r_max across, widened), dense ones (r_max / refine) and a grid held under a
+    small cell cap (longer LOS cells, then wider ones), each against the brute force."""
+    import conecheck.pairs.grid as grid_module
+    from conecheck.pairs.neighbours import NEIGHBOUR_DENSE_POINTS
+
+    if max_cells is not None:
+        monkeypatch.setattr(grid_module, "MAX_CELLS", max_cells)
+    rng = np.random.default_rng(n_points)
+    L, h = 20.0, 4.0
+    p = rng.uniform(0, L, (n_points, 3))
+    edges = np.array([0.0, 1.0, 2.0])
+    # which branch the cell choice takes (the test's set-ups span both)
+    dense = n_points / L**3 * edges[-1] ** 2 * h > NEIGHBOUR_DENSE_POINTS
+    assert dense == (n_points == 10000)
+    got = neighbours_box(p, box_size=L, los_axis=2, edges=edges, half_length=h)
+    ref = brute(p, p, np.ones(n_points), edges, h, box=L, los=2, self_pairs=True)
+    assert ref.sum() > n_points
+    np.testing.assert_array_equal(got, ref)
+
+
+def test_box_grid_under_the_cell_cap_lengthens_los_cells_first(monkeypatch):
+    """Above the cap the grid keeps its cells across the LOS and lengthens them along it
+    (the sorted LOS window prunes inside a cell); only a cap below the cells across halves
+    those."""
+    import conecheck.pairs.grid as grid_module
+
+    monkeypatch.setattr(grid_module, "MAX_CELLS", 10_000)
+    assert grid_module.box_grid(100.0, 1.0, 2.0, refine=1).dims.tolist() == [100, 100, 1]
+    assert grid_module.box_grid(100.0, 1.0, 20.0, refine=1).dims.tolist() == [100, 100, 1]
+    assert grid_module.box_grid(100.0, 10.0, 20.0, refine=1).dims.tolist() == [10, 10, 5]
+    monkeypatch.setattr(grid_module, "MAX_CELLS", 5_000)
+    assert grid_module.box_grid(100.0, 1.0, 2.0, refine=1).dims.tolist() == [50, 50, 1]
+
+
 def test_box_spheres_random_centres():
     rng = np.random.default_rng(4)
     L = 40.0

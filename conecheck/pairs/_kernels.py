@@ -58,9 +58,19 @@ def _f2i(typingctx, x):
 
 @numba.njit(cache=True, inline="always")
 def _wrap(i, n):
-    """Cell index modulo n and the number of box lengths crossed."""
-    k = i % n
-    return k, (i - k) // n
+    """Cell index modulo n and the number of box lengths crossed (``i % n``, ``i // n``),
+    by steps of n: a neighbour cell lies within a grid length or two, and two integer
+    divisions per axis and cell visit made sparse counts (a few points per cell) 1.3x
+    slower."""
+    k = i
+    w = 0
+    while k < 0:
+        k += n
+        w -= 1
+    while k >= n:
+        k -= n
+        w += 1
+    return k, w
 
 
 @numba.njit(cache=True, inline="always")
@@ -634,16 +644,6 @@ def neighbours_box_kernel(cx, cy, cz, cidx, cself, cstart, tasks, x2, y2, z2, w2
                     out[row, _rp_bin(r2, edges2, n_b)] += w2[j]
 
 
-@numba.njit(cache=True, inline="always")
-def _step_wrap(i, n):
-    """:func:`_wrap` for an index at most one grid length outside [0, n), without division."""
-    if i < 0:
-        return i + n, -1
-    if i >= n:
-        return i - n, 1
-    return i, 0
-
-
 @numba.njit(parallel=True, cache=True)
 def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, best):
     """Smallest squared distance from each centre to the points, periodic box.
@@ -669,11 +669,11 @@ def nearest_box_kernel(px, py, pz, cx, cy, cz, cstart, dims, box_size, r2_max, b
             iy = min(int(y / cell_y), ny - 1)
             iz = min(int(z / cell_z), nz - 1)
             for ox in range(-1, 2):
-                kx, wx = _step_wrap(ix + ox, nx)
+                kx, wx = _wrap(ix + ox, nx)
                 for oy in range(-1, 2):
-                    ky, wy = _step_wrap(iy + oy, ny)
+                    ky, wy = _wrap(iy + oy, ny)
                     for oz in range(-1, 2):
-                        kz, wz = _step_wrap(iz + oz, nz)
+                        kz, wz = _wrap(iz + oz, nz)
                         cell = (kx * ny + ky) * nz + kz
                         s = cstart[cell]
                         e = cstart[cell + 1]

@@ -112,11 +112,14 @@ def box_grid(box_size: float, ext_perp: float, ext_los: float, refine: int = 2,
 
     Cells are about ``ext_perp / refine`` across, or ``min_side`` [Mpc/h] when that is
     larger, and ``ext_los`` along the LOS (the sorted LOS window makes finer LOS cells
-    pointless).
+    pointless), longer when the grid would exceed :data:`MAX_CELLS` cells.
     """
     side = max(ext_perp / refine, float(min_side))
     n_perp = max(1, int(np.floor(box_size / side)))
     n_los = max(1, int(np.floor(box_size / ext_los)))
+    # above MAX_CELLS, longer LOS cells first (the LOS window prunes inside a cell), then
+    # wider ones
+    n_los = max(1, min(n_los, MAX_CELLS // (n_perp * n_perp)))
     while n_perp * n_perp * n_los > MAX_CELLS:
         n_perp = max(1, n_perp // 2)
     dims = np.array([n_perp, n_perp, n_los], dtype=np.int64)

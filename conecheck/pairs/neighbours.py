@@ -27,8 +27,12 @@ from .counts import _check_axis, to_box_frame
 from .grid import MAX_CELLS, box_grid, cone_grid, neighbour_offsets, sort_into_grid
 from .points import check_points
 
-#: Points per box cell the neighbour counter aims at when the points are sparse.
-NEIGHBOUR_CELL_POINTS = 2.0
+#: Points per box cell (across the LOS, one cylinder half-length along it) the neighbour
+#: counter aims at when the points are sparse, in cells at least r_max across.
+NEIGHBOUR_CELL_POINTS = 0.3
+#: Points an r_max-wide cell would hold above which the counter takes cells r_max / refine
+#: across instead (dense points: candidates then cost more than cell visits).
+NEIGHBOUR_DENSE_POINTS = 16.0
 
 #: Fixed chunks of points of the box's nearest-point search (each keeps its own minima, so
 #: the result does not depend on the number of threads).
@@ -114,11 +118,17 @@ def neighbours_box(centres: ArrayLike, points: ArrayLike | None = None,
     out = np.zeros((c.n, e.size - 1))
     if c.n == 0 or p.n == 0:
         return out
-    # cells across the LOS: r_max / refine, widened to hold about NEIGHBOUR_CELL_POINTS
-    # points when the points are sparse (a cell visit costs more than a few candidates)
-    column = NEIGHBOUR_CELL_POINTS * box_size**3 / (p.n * ext_los)
-    grid = box_grid(box_size, e[-1], ext_los, refine=max(1, int(refine)),
-                    min_side=float(np.sqrt(column)))
+    # cells across the LOS: r_max / refine for dense points; otherwise never narrower than
+    # r_max (a partner then lies in the 3 × 3 columns around a centre's: cells between
+    # r_max / 2 and r_max need 5 × 5 and ran 1.3-2x slower), widened to hold about
+    # NEIGHBOUR_CELL_POINTS points (a cell visit costs about as much as a candidate); the
+    # sweep behind both constants is in benchmarks/RESULTS.md (thirteenth pass)
+    density = p.n / box_size**3
+    if density * e[-1] ** 2 * ext_los > NEIGHBOUR_DENSE_POINTS:
+        grid = box_grid(box_size, e[-1], ext_los, refine=max(1, int(refine)))
+    else:
+        grid = box_grid(box_size, e[-1], ext_los, refine=1,
+                        min_side=float(np.sqrt(NEIGHBOUR_CELL_POINTS / (density * ext_los))))
     offsets = neighbour_offsets(grid, e[-1], ext_los, "cylinder" if h else "sphere", half=False)
     a = to_box_frame(p.pos, box_size, los_axis)
     g = sort_into_grid(grid, a, pw, p.reg, chi_key=False)
