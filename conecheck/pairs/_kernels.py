@@ -60,8 +60,8 @@ def _f2i(typingctx, x):
 def _wrap(i, n):
     """Cell index modulo n and the number of box lengths crossed (``i % n``, ``i // n``),
     by steps of n: a neighbour cell lies within a grid length or two, and two integer
-    divisions per axis and cell visit made sparse counts (a few points per cell) 1.3x
-    slower."""
+    divisions per axis and cell visit made the box counts in cylinders of 10⁶ galaxies
+    (about 2 points per cell) 10 % slower."""
     k = i
     w = 0
     while k < 0:
