@@ -230,6 +230,15 @@ def test_models_populated_together_equal_each_populated_alone(name):
     assert len(together[0]) != len(together[1])
     with pytest.raises(ValueError, match="keyed draws"):
         populate_models(halos, models, np.random.default_rng(1))
+    # without magnitudes (the derivatives' boxes, measured whole): every other column the
+    # same, to the bit
+    bare = populate_models(halos, models, KeyedDraws(key), magnitudes=False)
+    for box, full in zip(bare, together, strict=True):
+        assert box.abs_mag is None
+        for col in ("position", "velocity", "is_central", "halo_id", "halo_mass", "draw_key"):
+            assert np.array_equal(getattr(box, col), getattr(full, col)), col
+    with pytest.raises(ValueError, match="keyed draws"):
+        populate_models(halos, models[:1], np.random.default_rng(1), magnitudes=False)
 
 
 def test_poisson_quantile_equals_scipy_and_never_falls_as_the_mean_rises():

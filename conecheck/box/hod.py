@@ -195,22 +195,41 @@ class HODModel:
         """Threshold magnitudes, faintest first."""
         return np.array([t.mag_max for t in self.thresholds])
 
-    def raw_occupations(self, mass: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-        """Undecorated (<N_cen>, <N_sat>) per threshold, each of shape (K, N), faintest first."""
+    def raw_occupations(self, mass: ArrayLike, memo: dict | None = None
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Undecorated (<N_cen>, <N_sat>) per threshold, each of shape (K, N), faintest first.
+
+        ``memo``, a dict kept for one mass array [Msun/h] only, holds log10 M and each
+        threshold's mean occupations by their parameters, so that models sharing some
+        (the ± models of an HOD derivative) compute them once.
+        """
         mass = np.asarray(mass, dtype=float)
-        log_mass = np.log10(mass)
-        cen = np.stack([t.params.mean_central(mass, log_mass=log_mass) for t in self.thresholds])
-        sat = np.stack([t.params.mean_satellite(mass) for t in self.thresholds])
+        memo = {} if memo is None else memo
+        if "log_mass" not in memo:
+            memo["log_mass"] = np.log10(mass)
+        cen_rows, sat_rows = [], []
+        for t in self.thresholds:
+            p = t.params
+            key_c, key_s = ("cen", p.log_mmin, p.sigma_logm), ("sat", p.log_m0, p.log_m1, p.alpha)
+            if key_c not in memo:
+                memo[key_c] = p.mean_central(mass, log_mass=memo["log_mass"])
+            if key_s not in memo:
+                memo[key_s] = p.mean_satellite(mass)
+            cen_rows.append(memo[key_c])
+            sat_rows.append(memo[key_s])
+        cen, sat = np.stack(cen_rows), np.stack(sat_rows)
         if self.satellites_need_central:
             sat = sat * cen
         return cen, sat
 
-    def mean_occupations(self, mass: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-        """(<N_cen>, <N_sat>) per threshold, shape (K, N), clipped to be exactly nested.
+    def mean_occupations(self, mass: ArrayLike, memo: dict | None = None
+                         ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """(<N_cen>, <N_sat>) per threshold, shape (K, N), clipped to be exactly nested
+        (``memo``: see :meth:`raw_occupations`).
 
         The clip only removes round-off-sized crossings that :meth:`check_nested` tolerates.
         """
-        cen, sat = self.raw_occupations(mass)
+        cen, sat = self.raw_occupations(mass, memo)
         if cen.shape[0] == 1:  # one threshold (a sample's own model): nothing to clip
             return cen, sat
         return np.minimum.accumulate(cen, axis=0), np.minimum.accumulate(sat, axis=0)

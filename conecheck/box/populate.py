@@ -60,14 +60,16 @@ from .nfw import (
 log = logging.getLogger(__name__)
 
 
-def decorated_occupations(halos: HaloCatalog, model: HODModel
+def decorated_occupations(halos: HaloCatalog, model: HODModel, memo: dict | None = None
                           ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Expected (<N_cen>, <N_sat>) per threshold and halo, shape (K, N_halo), with assembly bias.
+    """Expected (<N_cen>, <N_sat>) per threshold and halo, shape (K, N_halo), with assembly bias
+    (``memo``: the undecorated means already computed for these halos, see
+    :meth:`~conecheck.box.hod.HODModel.raw_occupations`).
 
     Raises InputError when assembly bias is switched on but the halos lack the secondary
     column named in the model.
     """
-    cen, sat = model.mean_occupations(halos.mass)
+    cen, sat = model.mean_occupations(halos.mass, memo)
     ab = model.assembly_bias
     if ab.active:
         secondary = np.asarray(halos.column(ab.secondary), dtype=float)
@@ -294,16 +296,21 @@ def populate(halos: HaloCatalog, model: HODModel, rng: np.random.Generator | Key
 
 def populate_models(halos: HaloCatalog, models: list[HODModel],
                     rng: np.random.Generator | KeyedDraws,
-                    cosmology: Cosmology | None = None) -> list[GalaxyBox]:
+                    cosmology: Cosmology | None = None, *,
+                    magnitudes: bool = True) -> list[GalaxyBox]:
     """:func:`populate` for several models at once, equal to populating with each in turn.
 
     With :class:`KeyedDraws` every galaxy's numbers depend on its identity alone, so the
-    draws of the halos and the satellites' positions and velocities are computed once, for
-    the union of the models' satellites, and each box takes its own; several models need
-    keyed draws. Parameters as in :func:`populate`; one box per model, in order.
+    draws of the halos, the mean occupations the models share and the satellites' positions
+    and velocities are computed once, for the union of the models' satellites, and each box
+    takes its own; several models need keyed draws. Parameters as in :func:`populate`; one
+    box per model, in order. ``magnitudes=False`` (keyed draws only) leaves ``abs_mag``
+    None, for boxes whose every galaxy is measured (the one-threshold models of the HOD
+    derivatives); the other columns are the same.
     """
-    if len(models) > 1 and not isinstance(rng, KeyedDraws):
-        raise ValueError("populating several models at once needs keyed draws (KeyedDraws)")
+    if (len(models) > 1 or not magnitudes) and not isinstance(rng, KeyedDraws):
+        raise ValueError("populating several models at once, or without magnitudes, needs "
+                         "keyed draws (KeyedDraws)")
     draws = rng if isinstance(rng, KeyedDraws) else StreamDraws(rng)
     n_halo = len(halos)
     halo_index = np.arange(n_halo, dtype=np.int64)
@@ -313,8 +320,9 @@ def populate_models(halos: HaloCatalog, models: list[HODModel],
     u_count = (draws.uniform(SATELLITE_COUNT, halo_ids) if isinstance(draws, KeyedDraws)
                else None)
     occupied = []
+    memo: dict = {}   # the models' shared mean occupations, computed once
     for model in models:
-        cen_n, sat_n = decorated_occupations(halos, model)
+        cen_n, sat_n = decorated_occupations(halos, model, memo)
         level_c = np.sum(u[None, :] < cen_n, axis=0)
         n_sat = (draws.poisson(SATELLITE_COUNT, halo_ids, sat_n[0]) if u_count is None
                  else poisson_quantile(u_count, sat_n[0]))
@@ -341,16 +349,19 @@ def populate_models(halos: HaloCatalog, models: list[HODModel],
         h = host[keep]
         level_s = np.sum((u_level[keep] * sat_n[0, h])[None, :] < sat_n[:, h], axis=0)
         cen_idx = np.flatnonzero(level_c > 0)
-        mag_c = _magnitudes(level_c[cen_idx], model.mag_limits, model.bright_tail_mag, draws,
-                            halo_ids[cen_idx])
-        mag_s = _magnitudes(level_s, model.mag_limits, model.bright_tail_mag, draws,
-                            sat_ids[keep])
-        levels.append((keep, cen_idx, mag_c, mag_s))
+        mag = None
+        if magnitudes:
+            mag = np.concatenate([
+                _magnitudes(level_c[cen_idx], model.mag_limits, model.bright_tail_mag, draws,
+                            halo_ids[cen_idx]),
+                _magnitudes(level_s, model.mag_limits, model.bright_tail_mag, draws,
+                            sat_ids[keep])])
+        levels.append((keep, cen_idx, mag))
 
     pos_s, vel_s = _satellite_phase_space(halos, host, sat_ids, draws, cosmology)
     hid = halos.halo_id if halos.halo_id is not None else np.arange(n_halo, dtype=np.int64)
     boxes = []
-    for model, (keep, cen_idx, mag_c, mag_s) in zip(models, levels, strict=True):
+    for model, (keep, cen_idx, mag) in zip(models, levels, strict=True):
         h = host[keep]
         owner = np.concatenate([cen_idx, h])
         meta: dict[str, Any] = dict(halos.meta)
@@ -364,7 +375,7 @@ def populate_models(halos: HaloCatalog, models: list[HODModel],
             position=np.concatenate([halos.position[cen_idx], pos_s[keep]]),
             velocity=np.concatenate([halos.velocity[cen_idx], vel_s[keep]]),
             box_size=halos.box_size, redshift=halos.redshift,
-            abs_mag=np.concatenate([mag_c, mag_s]),
+            abs_mag=mag,
             is_central=np.concatenate([np.ones(cen_idx.size, bool), np.zeros(h.size, bool)]),
             halo_id=np.asarray(hid, dtype=np.int64)[owner],
             halo_mass=halos.mass[owner],

@@ -81,8 +81,9 @@ def hod_derivatives_task(spec: DerivativesSpec, halos: HaloCatalog) -> dict[str,
         # every galaxy's draws keyed by its identity (common random numbers): the two
         # boxes share every galaxy both models occupy, and their pairs are counted once
         draws = KeyedDraws(stream_key(box_spec.seed, "hod-derivative", sample.name))
+        # one-threshold boxes measured whole: no magnitudes needed
         boxes = populate_models(halos, [varied_model(model, threshold, name, v)
-                                        for v in (lo, hi)], draws, cosmo)
+                                        for v in (lo, hi)], draws, cosmo, magnitudes=False)
         for box in boxes:
             box.matter = halos.matter
         values = dict(zip(("lo", "hi"), measure_box_pair(box_spec, *boxes), strict=True))
