@@ -121,7 +121,8 @@ def test_box_spheres_random_centres():
     np.testing.assert_array_equal(got, brute(c, p, np.ones(len(p)), edges, None, box=L))
 
 
-def test_cone_cylinders_midpoint_los():
+@pytest.mark.parametrize("refine", [1, 2, 3])
+def test_cone_cylinders_midpoint_los(refine):
     rng = np.random.default_rng(5)
     chi = rng.uniform(100, 160, 2500)
     ra = np.radians(rng.uniform(0, 40, 2500))
@@ -130,11 +131,11 @@ def test_cone_cylinders_midpoint_los():
                          chi * np.sin(dec)])
     w = rng.uniform(0.5, 2.0, len(p))
     edges = np.array([0.0, 3.0, 6.0])
-    got = neighbours_cone(p, weights=w, edges=edges, half_length=10.0)
+    got = neighbours_cone(p, weights=w, edges=edges, half_length=10.0, refine=refine)
     np.testing.assert_allclose(got, brute(p, p, w, edges, 10.0, self_pairs=True), rtol=1e-12)
     # spheres around centres that are not points, some outside the points' bounding box
     c = p[:300] * rng.uniform(0.9, 1.1, (300, 1))
-    got = neighbours_cone(c, p, edges=[0.0, 4.0, 8.0])
+    got = neighbours_cone(c, p, edges=[0.0, 4.0, 8.0], refine=refine)
     np.testing.assert_array_equal(got, brute(c, p, np.ones(len(p)), np.array([0, 4.0, 8.0]),
                                              None))
 
