@@ -120,7 +120,7 @@ def neighbours_box(centres: ArrayLike, points: ArrayLike | None = None,
         return out
     # cells across the LOS: r_max / refine for dense points; otherwise never narrower than
     # r_max (a partner then lies in the 3 × 3 columns around a centre's: cells between
-    # r_max / 2 and r_max need 5 × 5 and ran 1.3-2x slower), widened to hold about
+    # r_max / 2 and r_max need 5 × 5 and ran 1.3-2.3x slower), widened to hold about
     # NEIGHBOUR_CELL_POINTS points (a cell visit costs about as much as a candidate); the
     # sweep behind both constants is in benchmarks/RESULTS.md (thirteenth pass)
     density = p.n / box_size**3
