@@ -22,12 +22,22 @@ QMC and pseudo-random points at 10 and 20 per galaxy. The ratio g of the QMC var
 the pseudo-random variance at the same number of points is tabulated against λ, the
 expected number of randoms per galaxy in the bin's cell (m n π (r₂² − r₁²) 2 π_max): QMC
 helps where λ is large. Written between the bench_randoms_cells markers.
+
+``--prefix`` measures wp's ``dr_method = "prefix"`` (DR above ``split_above`` from the leading
+part of the randoms :func:`conecheck.cone.randoms.prefix_cells` offers): on cone 0 of
+bench_run's standard workload, every sample and cut, wp's variance over realisations of the
+randoms (data fixed) for the baseline scheme (20 pseudo-random points per galaxy, every
+random pair counted) and for the run's scheme (its ``auto`` multiple of QMC points, RR on an
+independent pseudo-random set, split as configured) with DR from all randoms and with the
+prefix — both on the same randoms and RR in each realisation — and the time of the DR
+count of each. Written between the bench_randoms_prefix markers.
 """
 
 from __future__ import annotations
 
 import argparse
 import dataclasses
+import functools
 import platform
 import subprocess
 import sys
@@ -49,6 +59,8 @@ START = "<!-- bench_randoms:start -->"
 END = "<!-- bench_randoms:end -->"
 CELLS_START = "<!-- bench_randoms_cells:start -->"
 CELLS_END = "<!-- bench_randoms_cells:end -->"
+PREFIX_START = "<!-- bench_randoms_prefix:start -->"
+PREFIX_END = "<!-- bench_randoms_prefix:end -->"
 #: r_p edges [Mpc/h] and |π| limit [Mpc/h] of the --cells measurement.
 CELL_EDGES = np.geomspace(0.1, 20.0, 17)
 CELL_PI_MAX = 40.0
@@ -178,13 +190,129 @@ def cells(realisations: int, write: bool) -> int:
     return 0
 
 
+def prefix(realisations: int, write: bool) -> int:
+    """The --prefix measurement (module notes)."""
+    from conecheck.run.tasks import (
+        _cone_sample,  # the pipeline's table → ConeSample
+        cut_randoms_multiple,
+        cut_volume_per_sr,
+        smallest_random_cell,
+    )
+    from conecheck.stats import ConeGeometry
+    from conecheck.stats.wp import count_rr_cone, wp_cone
+    from conecheck.streams import seeded_rng
+
+    cfg = make_config(workload(False), Path(__file__).parent)
+    box = build_box(cfg)
+    cone = build_cones(box, cfg, n=1)[0]
+    fp, regions = survey_sky(cfg)
+    cosmo = cfg.cosmology.model()
+    wps = cfg.statistics.get("wp")
+    if wps.dr_method != "prefix" or cfg.randoms.sampling != "qmc":
+        raise SystemExit("--prefix needs the template's dr_method = 'prefix' and QMC randoms")
+    full_dr = dataclasses.replace(wps, dr_method="full")
+    baseline = dataclasses.replace(wps, dr_method="full", rr_method="full")
+    r_p = np.sqrt(wps.bins.rp_edges[1:] * wps.bins.rp_edges[:-1])
+    split = wps.bins.rp_edges[:-1] >= wps.split_above
+    rows = []
+    for s in cfg.samples:
+        for cut in s.cuts:
+            sel = select_cut(cone, cut, cfg.shell, cosmo)
+            data = _cone_sample(sel, regions)
+            data = type(data)(data.ra, data.dec, data.chi, data.weight)  # no jackknife
+            lo, hi = cut_distances(cosmo, cut)
+            geometry = ConeGeometry(fp, lo, hi, None, cut_volume_per_sr(cosmo, cut))
+            n_d = float(data.w.sum())
+            multiple = cut_randoms_multiple(cfg.randoms, smallest_random_cell(cfg.statistics),
+                                            n_d, fp, cosmo, cut)
+            vals: dict[str, list[np.ndarray]] = {"baseline": [], "full": [], "prefix": []}
+            t_dr = {"full": 0.0, "prefix": 0.0}
+            used = 0
+            draw = functools.partial(_draw, fp, regions, cosmo, cut, n_d)
+            for r in range(realisations):
+                rb = draw(20.0, "pseudo", seeded_rng(r, "baseline"))
+                vals["baseline"].append(wp_cone(data, rb, geometry, baseline,
+                                                jackknife=False).value)
+                rq = draw(multiple, "qmc", seeded_rng(r, "run"))
+                rr = count_rr_cone(draw(cfg.randoms.rr_multiple, "pseudo", seeded_rng(r, "rr")),
+                                   geometry, wps, n_data=len(data))
+                for name, st in (("full", full_dr), ("prefix", wps)):
+                    t0 = time.perf_counter()
+                    m = wp_cone(data, rq, geometry, st, rr=rr, jackknife=False)
+                    t_dr[name] += time.perf_counter() - t0
+                    vals[name].append(m.value)
+                    if name == "prefix":
+                        used = m.extra["dr_randoms_above_split"]
+                        n_all = len(rq)
+            var = {k: np.var(np.array(v), axis=0, ddof=1) for k, v in vals.items()}
+            rows.append((f"{s.name}/{cut.label}", len(data), n_all, used, var,
+                         t_dr["prefix"] / t_dr["full"]))
+            print(f"{s.name}/{cut.label}: {len(data)} galaxies, {n_all} randoms, "
+                  f"{used} above the split", flush=True)
+    lo90, hi90 = _f_range(realisations)
+    lines = [f"Data: cone 0 of bench_run's standard workload; {realisations} realisations of "
+             "the randoms per scheme, data fixed, no jackknife. wp's variance over the "
+             "realisations divided by the baseline's (20 pseudo-random points per galaxy, "
+             "every random pair counted), per r_p bin "
+             f"({', '.join(f'{x:.2g}' for x in r_p)} Mpc/h; the bins from split_above = "
+             f"{wps.split_above:g} Mpc/h on are marked *), for the run's scheme (its auto "
+             "multiple of QMC points, RR on an independent "
+             f"{cfg.randoms.rr_multiple:g}x pseudo-random set split as configured) with DR "
+             "from all randoms and with dr_method = \"prefix\", on the same randoms and RR in "
+             f"each realisation. A ratio of two equal variances falls between {lo90:.2f} and "
+             f"{hi90:.2f} in 90 % of runs (F({realisations - 1}, {realisations - 1})). Time: "
+             "one wp with the shared RR given (DD + DR + Landy–Szalay), prefix / full.", "",
+             "| cut | galaxies | randoms (above the split) | scheme | variance ratio per r_p "
+             "bin | mean over * bins | wp time prefix / full |", "|---|---|---|---|---|---|---|"]
+    for key, n_d, n_r, used, var, t in rows:
+        for name in ("full", "prefix"):
+            ratio = var[name] / var["baseline"]
+            cells_ = " ".join(f"{x:.2f}{'*' if m else ''}" for x, m in zip(ratio, split,
+                                                                         strict=True))
+            lines.append(f"| {key} | {n_d:,} | {n_r:,} ({used:,}) | DR {name} | {cells_} | "
+                         f"{ratio[split].mean():.2f} | {t:.2f} |" if name == "prefix" else
+                         f"| {key} | {n_d:,} | {n_r:,} | DR {name} | {cells_} | "
+                         f"{ratio[split].mean():.2f} | |")
+    text = "\n".join(lines)
+    print(text)
+    if write:
+        _write_block(PREFIX_START, PREFIX_END,
+                     "## Randoms: DR from a prefix of the QMC randoms (issue #19)",
+                     _head(f"python benchmarks/bench_randoms.py --prefix --realisations "
+                           f"{realisations}"), text)
+    return 0
+
+
+def _draw(fp, regions, cosmo, cut, n_data: float, multiple: float, sampling: str,
+          rng: np.random.Generator):
+    """Randoms of ``cut`` for ``n_data`` galaxies, as a run makes them (without regions)."""
+    from conecheck.cone import n_randoms
+    from conecheck.run.tasks import _cone_sample, with_prefixes
+    lo, hi = cut_distances(cosmo, cut)
+    c = _cone_sample(make_randoms(fp, lo, hi, n_randoms(n_data, multiple), rng,
+                                  cosmology=cosmo, sampling=sampling), regions)
+    return with_prefixes(type(c)(c.ra, c.dec, c.chi, c.weight), sampling, n_data, fp, cosmo,
+                         cut)
+
+
+def _f_range(realisations: int) -> tuple[float, float]:
+    """5 % and 95 % points of the ratio of two sample variances of equal true variance."""
+    from scipy.stats import f as f_dist
+    dof = realisations - 1
+    return float(f_dist.ppf(0.05, dof, dof)), float(f_dist.ppf(0.95, dof, dof))
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--realisations", type=int, default=24)
     ap.add_argument("--no-write", action="store_true")
     ap.add_argument("--cells", action="store_true",
                     help="measure QMC's gain against the randoms per galaxy in a cell")
+    ap.add_argument("--prefix", action="store_true",
+                    help="measure wp's variance and time with DR from a prefix of the randoms")
     a = ap.parse_args(argv)
+    if a.prefix:
+        return prefix(a.realisations, not a.no_write)
     if a.cells:
         return cells(a.realisations, not a.no_write)
     cfg = demo_config(quick=True)

@@ -61,6 +61,7 @@ from .run.tasks import (
     cut_volume_per_sr,
     measure_box_sample,
     sample_mask,
+    with_prefixes,
 )
 from .run.tasks import (
     cone_matter as _cone_matter,
@@ -317,7 +318,8 @@ def measure_cone(cone: Table | Mapping[str, Any], statistic: str, *,
                                         float(data.w.sum()), fp, cosmo, the_cut)
         rt = make_randoms(fp, lo, hi, n_randoms(float(data.w.sum()), multiple), rng,
                           cosmology=cosmo, sampling=sampling)
-        rand = _cone_sample(rt, regions)
+        rand = with_prefixes(_cone_sample(rt, regions), sampling, float(data.w.sum()), fp,
+                             cosmo, the_cut)
     rr_rand = rand
     if rand is not None and sampling == "qmc":
         # random pairs on an independent pseudo-random set, as a run counts them

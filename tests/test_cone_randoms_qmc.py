@@ -18,7 +18,14 @@ import pytest
 from scipy import stats
 
 from conecheck.api import build_box, build_cones, measure_cone, survey_sky
-from conecheck.cone.randoms import QMC_FILLED_CELL_COUNT, auto_multiple, make_randoms
+from conecheck.cone.randoms import (
+    MIN_PREFIX,
+    QMC_FILLED_CELL_COUNT,
+    auto_multiple,
+    make_randoms,
+    prefix_cells,
+    qmc_noise_ratio,
+)
 from conecheck.config import StatisticsConfig
 from conecheck.demo import demo_config
 from conecheck.run.specs import RandomsSpec
@@ -146,3 +153,27 @@ def test_auto_randoms_of_a_cut_are_sized_by_the_rule(footprint):
     assert type(cfg.randoms)().multiple == "auto"
     assert n_of({}) == 20 * n_expected
     assert n_of({"rp_min": 3.0, "rp_max": 30.0, "n_rp": 4}) == 10 * n_expected
+
+
+def test_prefix_cells_keep_the_noise_of_twenty_pseudo_random_points_per_galaxy():
+    """A prefix of n/f points stands in for the catalogue in cells from the volume where its
+    own points per galaxy, λ = density/f × volume, have g(λ) ≤ (multiple/f)/20: just there,
+    not before (g: the measured QMC noise ratio). Pseudo-random points (g = 1) offer a prefix
+    only while it keeps 20 per galaxy, and then in every cell; none is below MIN_PREFIX."""
+    n, density = 400_000, 0.1  # points, (h/Mpc)³
+    for multiple in (10.0, 20.0, 40.0):
+        cells = prefix_cells("qmc", n, multiple, density)
+        assert [size for size, _ in cells] == [n // f for f in (2, 4, 8)][:len(cells)]
+        for size, volume in cells:
+            f = n // size
+            target = multiple / f / 20.0
+            lam = density / f * volume
+            assert qmc_noise_ratio(lam) <= target or volume == 0.0
+            if volume > 0.0:
+                assert qmc_noise_ratio(0.99 * lam) > target
+    assert len(prefix_cells("qmc", n, 20.0, density)) == 3  # 2.5 per galaxy: g ≤ 0.125
+    assert prefix_cells("pseudo", n, 20.0, density) == ()
+    assert prefix_cells("pseudo", n, 80.0, density) == ((n // 2, 0.0), (n // 4, 0.0))
+    assert prefix_cells("qmc", 2 * MIN_PREFIX - 1, 20.0, density) == ()
+    g = qmc_noise_ratio(np.geomspace(0.01, 1e5, 200))
+    assert np.all(np.diff(g) <= 0) and g[0] == 0.92 and g[-1] == 0.03

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 import stats_helpers as sh
@@ -110,6 +112,93 @@ def test_wp_cone_landy_szalay_matches_treecorr_counts():
     rr = slabs(cat(rand)) / (nr * (nr - 1) / 2)
     ref = 2 * 2.0 * ((dd - 2 * dr + rr) / rr).sum(axis=1)
     np.testing.assert_allclose(got.value, ref, rtol=1e-10)
+
+
+def test_wp_cone_dr_from_a_prefix_matches_treecorr_counts():
+    """``dr_method = "prefix"``: DD and RR over every point, DR over every random in the r_p
+    bins that start below ``split_above`` and over the randoms' declared prefix above it,
+    each DR part normalised by N_D times its own number of randoms; the reference counts
+    are TreeCorr's NNCorrelation(metric="Rperp", bin_slop=0) (reference library) in the
+    Landy & Szalay (1993, ApJ 412, 64) estimator, as in the test above."""
+    treecorr = pytest.importorskip("treecorr")
+    rng = np.random.default_rng(4)
+    geo = sh.geometry(sh.patch(16, ra=(0, 40), dec=(-15, 15)), 60.0, 100.0, 4)
+    data = sh.cone_sample(sh.clustered(rng, 20000, 4, 1.0, 200.0) - 100.0, geo)
+    rand = sh.randoms(geo, 4 * len(data), rng)
+    half = len(rand) // 2
+    rand = dataclasses.replace(rand, prefixes=((half, 0.0),))
+    s = WpSettings(rp_edges=(1.0, 2.0, 4.0, 8.0), pi_max=10.0, dpi=2.0, split_above=2.0,
+                   dr_method="prefix")
+    got = wp_cone(data, rand, geo, s, jackknife=False)
+    assert got.extra["dr_randoms_above_split"] == half
+
+    def cat(c, n=None):
+        x = c.xyz[:n]
+        return treecorr.Catalog(x=x[:, 0], y=x[:, 1], z=x[:, 2])
+
+    def slabs(c1, c2=None):
+        cum = [np.zeros(3)]
+        for k in range(1, 6):
+            nn = treecorr.NNCorrelation(min_sep=1.0, max_sep=8.0, nbins=3, metric="Rperp",
+                                        bin_slop=0, min_rpar=-2.0 * k, max_rpar=2.0 * k)
+            nn.process(c1, num_threads=2) if c2 is None else nn.process(c1, c2, num_threads=2)
+            cum.append(nn.npairs.copy())
+        return np.diff(np.array(cum), axis=0).T
+
+    nd, nr = len(data), len(rand)
+    dd = slabs(cat(data)) / (nd * (nd - 1) / 2)
+    dr = slabs(cat(data), cat(rand)) / (nd * nr)
+    dr[1:] = (slabs(cat(data), cat(rand, half)) / (nd * half))[1:]
+    rr = slabs(cat(rand)) / (nr * (nr - 1) / 2)
+    ref = 2 * 2.0 * ((dd - 2 * dr + rr) / rr).sum(axis=1)
+    np.testing.assert_allclose(got.value, ref, rtol=1e-10)
+    # and the prefix changes what it should: the same wp with DR from every random differs
+    every = wp_cone(data, rand, geo, dataclasses.replace(s, dr_method="full"), jackknife=False)
+    np.testing.assert_array_equal(every.value[0], got.value[0])
+    assert np.all(every.value[1:] != got.value[1:])
+
+
+def test_wp_cone_dr_prefix_delete_one_equals_a_recount_without_the_region():
+    """Each delete-one wp with DR from a prefix equals wp recounted on the galaxies and
+    randoms outside the region, the prefix being the prefix's randoms outside it."""
+    _, geo, data, rand = _cone_setup(8, k=4, n_randoms=12)
+    half = len(rand) // 2
+    rand = dataclasses.replace(rand, prefixes=((half, 0.0),))
+    s = WpSettings(rp_edges=EDGES, pi_max=20.0, dpi=2.0, split_above=2.0, dr_method="prefix")
+    got = wp_cone(data, rand, geo, s, jackknife=True)
+    for k in range(4):
+        keep_d, keep_r = data.region != k, rand.region != k
+        d = ConeSample(data.ra[keep_d], data.dec[keep_d], data.chi[keep_d])
+        r = ConeSample(rand.ra[keep_r], rand.dec[keep_r], rand.chi[keep_r],
+                       prefixes=((int(keep_r[:half].sum()), 0.0),))
+        ref = wp_cone(d, r, geo, s, jackknife=False)
+        np.testing.assert_allclose(got.delete_one[k], ref.value, rtol=1e-9)
+
+
+def test_wp_cone_dr_prefix_falls_back_to_every_random():
+    """DR counts every random when the randoms offer no prefix, when the bins' cells are
+    smaller than the prefix needs, or when the prefix would leave a jackknife region
+    without randoms."""
+    _, geo, data, rand = _cone_setup(9, k=4, n_randoms=8)
+    s = WpSettings(rp_edges=EDGES, pi_max=20.0, dpi=2.0, split_above=2.0, dr_method="prefix")
+    every = wp_cone(data, rand, geo, dataclasses.replace(s, dr_method="full"))
+    smallest_above = float(np.min(s.cell_volumes[np.asarray(EDGES[:-1]) >= 2.0]))
+    order = np.argsort(rand.region, kind="stable")  # the prefix then misses the last region
+    by_region = ConeSample(rand.ra[order], rand.dec[order], rand.chi[order], None,
+                           rand.region[order], rand.n_regions,
+                           prefixes=((len(rand) // 2, 0.0),))
+    for r in (rand, dataclasses.replace(rand, prefixes=((len(rand) // 2,
+                                                           1.01 * smallest_above),)),
+              by_region):
+        m = wp_cone(data, r, geo, s)
+        assert m.extra["dr_randoms_above_split"] == len(rand)
+        np.testing.assert_allclose(m.value, every.value, rtol=1e-12)
+        np.testing.assert_allclose(m.delete_one, every.delete_one, rtol=1e-12)
+    used = wp_cone(data, dataclasses.replace(rand, prefixes=((len(rand) // 2,
+                                                               smallest_above),)), geo, s)
+    assert used.extra["dr_randoms_above_split"] == len(rand) // 2
+    with pytest.raises(InputError, match="dr_method"):
+        WpSettings(dr_method="half")
 
 
 def test_wp_cone_poisson_zero_and_rr_reuse():

@@ -106,6 +106,81 @@ def largest_multiple(settings: RandomSettings) -> float:
     return float(settings.multiple)
 
 
+#: Variance of the data–random count in a cell from QMC randoms relative to as many
+#: pseudo-random ones, g, against λ, the expected randoms per galaxy in the cell: the class
+#: means measured by ``python benchmarks/bench_randoms.py --cells`` (RESULTS.md, "Randoms:
+#: when QMC points help"; 40 realisations on bench_run's standard cones), placed at each
+#: class's geometric centre (0.15 for the class 0-0.3, 550 for the open class above 300).
+#: Between the points g is interpolated in log λ; beyond the last it is held, not
+#: extrapolated. :data:`QMC_FILLED_CELL_COUNT` agrees with it (g(10) ≈ 0.43 ≤ 0.5).
+QMC_NOISE_LAMBDA = (0.15, 0.55, 1.7, 5.5, 17.0, 55.0, 170.0, 550.0)
+QMC_NOISE_RATIO = (0.92, 0.78, 0.78, 0.55, 0.33, 0.18, 0.08, 0.03)
+#: Fractions 1/f of a catalogue :func:`prefix_cells` offers as stand-ins for all of it.
+PREFIX_DIVISORS = (2, 4, 8)
+#: Smallest stand-in prefix: below it a delete-one jackknife region holds too few randoms
+#: for the counts' per-region normalisation (the split RR's subsets keep the same floor).
+MIN_PREFIX = 20_000
+
+
+def qmc_noise_ratio(lam: ArrayLike) -> NDArray[np.float64]:
+    """g(λ): the variance of QMC randoms' counts in a cell holding λ of them per galaxy,
+    relative to as many pseudo-random points (:data:`QMC_NOISE_RATIO`)."""
+    return np.interp(np.log(np.maximum(np.asarray(lam, dtype=np.float64), 1e-300)),
+                     np.log(QMC_NOISE_LAMBDA), QMC_NOISE_RATIO)
+
+
+def prefix_cells(sampling: Literal["pseudo", "qmc"], n: int, multiple: float,
+                 random_density: float) -> tuple[tuple[int, float], ...]:
+    """Leading parts of a random catalogue that may stand in for all of it in cross counts.
+
+    A prefix of ``n // f`` points (``f`` in :data:`PREFIX_DIVISORS`) is itself a random
+    catalogue of ``multiple / f`` points per galaxy: independent points for ``pseudo``, a
+    shorter scrambled Sobol sequence for ``qmc`` (:func:`qmc_points` returns its points in
+    sequence order). Its data–random count in a cell holding λ of its points per galaxy has
+    g(λ) (:func:`qmc_noise_ratio`; 1 for ``pseudo``) times the variance of as many
+    pseudo-random points, so it is at least as precise as :data:`PSEUDO_MULTIPLE`
+    pseudo-random points per galaxy — the aim ``multiple = "auto"`` sets for every bin —
+    where g(λ) ≤ (multiple / f) / PSEUDO_MULTIPLE. λ grows with the cell's volume, so that
+    holds in every cell from some volume on.
+
+    Parameters
+    ----------
+    sampling : {"pseudo", "qmc"}
+        How the catalogue was drawn.
+    n : int
+        Points in the catalogue, in the order drawn.
+    multiple : float
+        Its points per galaxy.
+    random_density : float
+        Its mean number density [(h/Mpc)³].
+
+    Returns
+    -------
+    tuple of (int, float)
+        ``(size, smallest cell volume [(Mpc/h)³])`` of each usable prefix, largest first;
+        prefixes below :data:`MIN_PREFIX` points, or that no cell makes precise enough, are
+        left out.
+    """
+    out = []
+    # λ from 0.1 to 10⁴ per galaxy in steps of 0.3 %: the smallest λ with g(λ) ≤ the target
+    lam = np.geomspace(0.1, 1e4, 4001)
+    g = np.ones_like(lam) if sampling == "pseudo" else qmc_noise_ratio(lam)
+    for f in PREFIX_DIVISORS:
+        size = int(n) // f
+        if size < MIN_PREFIX:
+            break
+        target = multiple / f / PSEUDO_MULTIPLE
+        if target >= 1.0:
+            out.append((size, 0.0))
+            continue
+        ok = np.flatnonzero(g <= target)
+        if ok.size == 0:
+            break
+        # λ is the prefix's own points per galaxy in the cell: n/f × density/n per volume
+        out.append((size, float(lam[ok[0]] * f / random_density)))
+    return tuple(out)
+
+
 def randoms_multiple(settings: RandomSettings, galaxy_density: float,
                      cell_volume: float | None) -> float:
     """Randoms per galaxy of ``settings``: its number, or :func:`auto_multiple`'s choice.

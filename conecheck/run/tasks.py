@@ -22,7 +22,7 @@ from ..cone import build_cone, cone_geometry, cone_rngs, make_randoms, n_randoms
 from ..cone.build import SurveyModel, prepare_box
 from ..cone.matter import carry_matter
 from ..cone.photometry import luminosity_scatter
-from ..cone.randoms import randoms_multiple
+from ..cone.randoms import prefix_cells, randoms_multiple
 from ..cone.settings import CompletenessSettings, RandomSettings, SampleCut
 from ..cosmology import Cosmology
 from ..errors import InputError, TaskError
@@ -306,6 +306,17 @@ def cut_rr_randoms(spec: RandomsSpec, footprint: Footprint) -> Any:
                         "pseudo")
 
 
+def with_prefixes(randoms: ConeSample, sampling: str, n_expected: float,
+                  footprint: Footprint, cosmology: Cosmology, cut: SampleCut) -> ConeSample:
+    """``randoms`` of one cut (drawn with ``sampling`` for ``n_expected`` galaxies) with the
+    leading parts data–random counts of large cells may use in their place
+    (:func:`~conecheck.cone.randoms.prefix_cells`, from their density in the cut's volume)."""
+    volume = footprint.area_sr * cut_volume_per_sr(cosmology, cut)
+    n = len(randoms)
+    return dataclasses.replace(randoms, prefixes=prefix_cells(
+        sampling, n, n / max(n_expected, 1e-300), n / max(volume, 1e-300)))
+
+
 def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
                  ) -> dict[str, Any]:
     """The randoms of one sample and cut with everything every cone shares.
@@ -313,13 +324,15 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
     Returns
     -------
     dict
-        ``ra``, ``dec`` [deg], ``chi`` [Mpc/h], ``weight``, ``region`` arrays and ``shared``
-        (statistic → its :meth:`~conecheck.stats.Statistic.pack_shared` mapping, e.g. wp's
-        RR counts or the VPF's sphere centres).
+        ``ra``, ``dec`` [deg], ``chi`` [Mpc/h], ``weight``, ``region`` arrays, ``prefixes``
+        (:func:`~conecheck.cone.randoms.prefix_cells`) and ``shared`` (statistic → its
+        :meth:`~conecheck.stats.Statistic.pack_shared` mapping, e.g. wp's RR counts or the
+        VPF's sphere centres).
     """
     cosmo = spec.model()
     lo, hi = cut_distances(cosmo, spec.cut)
-    rand = _cone_sample(cut_randoms(spec, footprint), regions)
+    rand = with_prefixes(_cone_sample(cut_randoms(spec, footprint), regions),
+                         spec.randoms.sampling, spec.n_expected, footprint, cosmo, spec.cut)
     rr_table = cut_rr_randoms(spec, footprint)
     rr_rand = rand if rr_table is None else _cone_sample(rr_table, regions)
     geometry = ConeGeometry(footprint, lo, hi, regions, cut_volume_per_sr(cosmo, spec.cut),
@@ -335,13 +348,15 @@ def randoms_task(spec: RandomsSpec, footprint: Footprint, regions: SkyRegions
         if s is not None:
             shared[name] = STATISTICS[name].pack_shared(s)
     return {"ra": rand.ra, "dec": rand.dec, "chi": rand.chi, "weight": rand.w,
-            "region": rand.region, "shared": shared}
+            "region": rand.region, "prefixes": [list(p) for p in rand.prefixes],
+            "shared": shared}
 
 
 def randoms_sample(payload: dict[str, Any], regions: SkyRegions) -> ConeSample:
     """The ConeSample of a randoms task result."""
     return ConeSample(payload["ra"], payload["dec"], payload["chi"], payload["weight"],
-                      payload["region"], regions.k)
+                      payload["region"], regions.k,
+                      tuple(tuple(p) for p in payload.get("prefixes", ())))
 
 
 def shared_counts(payload: dict[str, Any]) -> dict[str, Any]:

@@ -98,6 +98,58 @@ def count_rr_split(randoms: ConeSample, rr_method: str, split_factor: float,
     return join_separations(whole, split)
 
 
+def dr_prefix_size(randoms: ConeSample, cell_volumes: NDArray[np.float64]) -> int | None:
+    """The smallest prefix of ``randoms`` (:attr:`~conecheck.stats.base.ConeSample.
+    prefixes`) that may stand in for all of them in bins with cells of ``cell_volumes``
+    [(Mpc/h)³], or None when none may (or one would leave a jackknife region empty)."""
+    if len(cell_volumes) == 0:
+        return None
+    smallest = float(np.min(cell_volumes))
+    usable = [size for size, volume in randoms.prefixes if volume <= smallest]
+    if not usable:
+        return None
+    size = min(usable)
+    if randoms.region is not None and randoms.n_regions:
+        if np.bincount(randoms.region[:size], minlength=randoms.n_regions).min() == 0:
+            return None
+    return size
+
+
+def count_dr_prefix(randoms: ConeSample, dr_method: str,
+                    count: Callable[[NDArray[np.float64], NDArray[np.float64],
+                                     NDArray[np.int64] | None, NDArray[np.float64]],
+                                    PairCounts],
+                    edges: NDArray[np.float64], split_above: float,
+                    cell_volumes: NDArray[np.float64]) -> tuple[PairCounts, int]:
+    """DR of a cone, from all randoms or, above ``split_above``, from a prefix of them.
+
+    ``dr_method = "prefix"`` counts the bins whose lower edge is at least ``split_above``
+    [Mpc/h] against the smallest prefix of the randoms that their cells (``cell_volumes``
+    [(Mpc/h)³], one per bin) allow (:func:`dr_prefix_size`), on that prefix's own
+    normalisation (:func:`~conecheck.pairs.join_separations`); the smaller bins count every
+    random. A count's cost grows with its randoms, and most data–random pairs lie in the
+    large bins. ``count(randoms_xyz, randoms_w, randoms_region, edges)`` is the statistic's
+    cross count of the data against the given randoms in bins of the first separation.
+
+    Returns the counts and the number of randoms the large bins used.
+    """
+    edges = np.asarray(edges, dtype=np.float64)
+    n = len(randoms)
+    first = int(np.searchsorted(edges[:-1], split_above, side="left"))
+    size = (dr_prefix_size(randoms, np.asarray(cell_volumes)[first:])
+            if dr_method == "prefix" and first < edges.size - 1 else None)
+    xyz = randoms.xyz
+    if size is None or size >= n:
+        return count(xyz, randoms.weight, randoms.region, edges), n
+    head = slice(0, size)
+    reg = None if randoms.region is None else randoms.region[head]
+    large = count(xyz[head], randoms.w[head], reg, edges[first:])
+    if first == 0:
+        return large, size
+    small = count(xyz, randoms.weight, randoms.region, edges[:first + 1])
+    return join_separations(small, large), size
+
+
 def cone_regions(data: ConeSample, randoms: ConeSample, jackknife: bool | None,
                  what: str) -> int:
     """Check a cone's galaxies and randoms for a pair-count estimator; returns the number

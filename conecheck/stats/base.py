@@ -268,6 +268,11 @@ class ConeSample:
         Jackknife sky region of each object, in [0, n_regions).
     n_regions : int
         Number of sky regions (0: no jackknife).
+    prefixes : tuple of (int, float)
+        For randoms: leading parts of the catalogue that may stand in for all of it in
+        data–random counts, as ``(size, smallest cell volume [(Mpc/h)³])`` — in bins whose
+        cells are at least that large, the first ``size`` points are as precise as the
+        catalogue is meant to be (:func:`conecheck.cone.randoms.prefix_cells`). Empty: none.
     """
     ra: NDArray[np.float64]
     dec: NDArray[np.float64]
@@ -275,6 +280,7 @@ class ConeSample:
     weight: NDArray[np.float64] | None = None
     region: NDArray[np.int64] | None = None
     n_regions: int = 0
+    prefixes: tuple[tuple[int, float], ...] = ()
 
     def __post_init__(self) -> None:
         ra = _as_float(self.ra, "cone sample ra").ravel()
@@ -291,6 +297,11 @@ class ConeSample:
                                _as_float(self.weight, "cone sample weights", n).ravel())
         object.__setattr__(self, "region", _as_regions(self.region, int(self.n_regions), n,
                                                        "cone sample"))
+        prefixes = tuple((int(size), float(volume)) for size, volume in self.prefixes)
+        if any(not (0 < size <= n and volume >= 0) for size, volume in prefixes):
+            raise InputError(f"cone sample: prefixes {prefixes} must be (size in [1, {n}], "
+                             "cell volume >= 0 (Mpc/h)^3) pairs")
+        object.__setattr__(self, "prefixes", prefixes)
 
     def __len__(self) -> int:
         return int(self.ra.size)

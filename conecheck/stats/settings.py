@@ -17,6 +17,7 @@ from ..pairs.binning import check_rp_edges
 
 EDGE_TREATMENTS = ("none", "drop")
 RR_METHODS = ("full", "split")
+DR_METHODS = ("full", "prefix")
 #: Default ``split_above`` [Mpc/h] of the split RR: bins starting below it count every
 #: random pair. ξ ≳ 1 below a few Mpc/h for typical galaxy samples, and Landy–Szalay passes
 #: RR's relative noise on with a factor 1 − ξ (benchmarks/RESULTS.md measures the wp

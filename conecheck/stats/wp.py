@@ -35,7 +35,11 @@ is counted once per sample and cut (:func:`count_rr_cone`) and passed to every c
 times the data size, normalised by Σ_subsets of their pair numbers (Keihänen et al. 2019,
 A&A 631, A73), in the r_p bins from ``split_above`` on; the smaller bins, where ξ is large
 and amplifies RR's noise, count every random pair, on their own normalisation
-(:func:`~conecheck.pairs.join_separations`).  DR always uses all randoms.  Delete-one
+(:func:`~conecheck.pairs.join_separations`).  DR uses all randoms, or with
+``dr_method = "prefix"``, in the r_p bins from ``split_above`` on, the smallest leading part
+of them that the randoms declare as precise there as 20 pseudo-random points per galaxy
+(:attr:`~conecheck.stats.base.ConeSample.prefixes`; QMC randoms offer such parts where a
+bin's cell holds many of them), on its own normalisation.  Delete-one
 counts and normalisations come from the one-pass region bookkeeping of
 :mod:`conecheck.pairs`.
 """
@@ -57,12 +61,14 @@ from ._common import (
     check_filled,
     column_neighbourhoods,
     cone_regions,
+    count_dr_prefix,
     count_rr_split,
     landy_szalay,
     want_jackknife,
 )
 from .base import BoxSample, ConeGeometry, ConeSample, Measurement
 from .settings import (
+    DR_METHODS,
     RR_METHODS,
     SPLIT_ABOVE,
     check_range_bins,
@@ -102,6 +108,12 @@ class WpSettings:
     split_above : float
         The split method splits only the r_p bins whose lower edge is at least this
         [Mpc/h]; smaller bins count every random pair (0: every bin, as Keihänen et al. do).
+        ``dr_method = "prefix"`` uses the same edge.
+    dr_method : {"full", "prefix"}
+        DR from all randoms, or, in the r_p bins from ``split_above`` on, from the fewest
+        leading randoms that are as precise there as 20 pseudo-random points per galaxy (with
+        QMC randoms a half to an eighth of them, where the bins hold many per galaxy:
+        README, "Randoms"); cheaper at equal precision.
     """
 
     rp_min: float = 0.1
@@ -114,6 +126,7 @@ class WpSettings:
     rr_method: str = "full"
     split_factor: float = 1.0
     split_above: float = SPLIT_ABOVE
+    dr_method: str = "full"
 
     def __post_init__(self) -> None:
         key = "statistics.wp"
@@ -126,6 +139,9 @@ class WpSettings:
         if self.rr_method not in RR_METHODS:
             raise InputError(f"{key}.rr_method: expected one of {RR_METHODS}, "
                              f"got {self.rr_method!r}")
+        if self.dr_method not in DR_METHODS:
+            raise InputError(f"{key}.dr_method: expected one of {DR_METHODS}, "
+                             f"got {self.dr_method!r}")
         positive(self.split_factor, f"{key}.split_factor")
         non_negative(self.split_above, f"{key}.split_above")
         try:
@@ -141,6 +157,13 @@ class WpSettings:
     @property
     def bins(self) -> RpPiBins:
         return make_bins(self.edges, self.pi_max, self.dpi)
+
+    @property
+    def cell_volumes(self) -> NDArray[np.float64]:
+        """Volume around a galaxy of each r_p bin over the whole line-of-sight integration,
+        π (r₂² − r₁²) · 2 π_max [(Mpc/h)³]: where its data–random pairs lie."""
+        e = self.edges
+        return math.pi * (e[1:] ** 2 - e[:-1] ** 2) * 2.0 * self.pi_max
 
 
 def _overlap_perp(e: NDArray[np.float64], a: float) -> NDArray[np.float64]:
@@ -429,18 +452,22 @@ def wp_cone(data: ConeSample, randoms: ConeSample, geometry: ConeGeometry | None
         raise InputError(f"wp: no random pairs in bin r_p ∈ [{bins.rp_edges[rp_i]:g}, "
                          f"{bins.rp_edges[rp_i + 1]:g}) Mpc/h, |π| bin {pi_i}; use more randoms "
                          "or a larger r_p,min")
-    dxyz, rxyz = data.xyz, randoms.xyz
+    dxyz = data.xyz
     dreg = data.region if k else None
-    rreg = randoms.region if k else None
-    kw = {"rp_edges": bins.rp_edges, "pi_max": bins.pi_max, "dpi": bins.dpi, "n_regions": k}
-    dd = count_rppi_cone(dxyz, data.weight, dreg, **kw)
-    dr = count_rppi_cone(dxyz, data.weight, dreg, rxyz, randoms.weight, rreg, **kw)
+    kw = {"pi_max": bins.pi_max, "dpi": bins.dpi, "n_regions": k}
+    dd = count_rppi_cone(dxyz, data.weight, dreg, rp_edges=bins.rp_edges, **kw)
+    dr, n_dr = count_dr_prefix(
+        randoms, settings.dr_method,
+        lambda xyz, w, reg, edges: count_rppi_cone(dxyz, data.weight, dreg, xyz, w,
+                                                   reg if k else None, rp_edges=edges, **kw),
+        bins.rp_edges, settings.split_above, settings.cell_volumes)
     xi, xik = landy_szalay(dd, dr, rr, "wp")
     delete_one = None if xik is None else _wp_from_xi(xik, bins.dpi)
     extra = {"dd_pairs": dd.total.sum(axis=1).tolist(),
              "dr_pairs": dr.total.sum(axis=1).tolist(),
              "rr_pairs": rr.total.sum(axis=1).tolist(),
-             "rr_subsets": rr.n_subsets, "estimator": "Landy-Szalay"}
+             "rr_subsets": rr.n_subsets, "dr_randoms_above_split": n_dr,
+             "estimator": "Landy-Szalay"}
     return _measurement(bins, _wp_from_xi(xi, bins.dpi), delete_one, extra)
 
 
@@ -474,10 +501,8 @@ class ProjectedCorrelation(Statistic):
         return wp_cone(sample, randoms, geometry, settings, rr=shared, jackknife=jackknife)
 
     def random_cell_volume(self, settings=None):
-        s = self.settings_or_default(settings)
-        e = s.edges
-        # the innermost r_p annulus, over the whole line-of-sight integration
-        return float(math.pi * (e[1] ** 2 - e[0] ** 2) * 2.0 * s.pi_max)
+        # the innermost r_p annulus
+        return float(self.settings_or_default(settings).cell_volumes[0])
 
     def cost(self, settings, randoms_multiple):
         s = self.settings_or_default(settings)
