@@ -2,6 +2,7 @@
 
     python benchmarks/calibrate_verdicts.py [--seeds 16] [--cones 8] [--out DIR] [--full-demo]
         [--statistics number_density,wp,cic,vpf] [--only TEXT] [--randoms-multiple auto]
+        [--dr-method full|prefix]
 
 Every seed is an independent synthetic box (the quick demo scale, one sample). Set-ups:
 
@@ -203,8 +204,12 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--randoms-multiple", default=None,
                     help='randoms.multiple of every run ("auto" or a number; default: the '
                          "quick demo's 5)")
+    ap.add_argument("--dr-method", default=None, choices=("full", "prefix"),
+                    help="wp's dr_method of every run (default: the template's)")
     a = ap.parse_args(argv)
     extra: dict[str, Any] = {}
+    if a.dr_method is not None:
+        extra["statistics.wp.dr_method"] = a.dr_method
     if a.randoms_multiple is not None:
         extra["randoms.multiple"] = (a.randoms_multiple if a.randoms_multiple == "auto"
                                      else float(a.randoms_multiple))

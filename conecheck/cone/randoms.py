@@ -117,9 +117,12 @@ QMC_NOISE_LAMBDA = (0.15, 0.55, 1.7, 5.5, 17.0, 55.0, 170.0, 550.0)
 QMC_NOISE_RATIO = (0.92, 0.78, 0.78, 0.55, 0.33, 0.18, 0.08, 0.03)
 #: Fractions 1/f of a catalogue :func:`prefix_cells` offers as stand-ins for all of it.
 PREFIX_DIVISORS = (2, 4, 8)
-#: Smallest stand-in prefix: below it a delete-one jackknife region holds too few randoms
-#: for the counts' per-region normalisation (the split RR's subsets keep the same floor).
-MIN_PREFIX = 20_000
+#: Smallest stand-in prefix, a margin for the delete-one counts: 5,000 points leave each of
+#: 25 jackknife regions about 200, and the cells they serve hold many per galaxy (with up
+#: to 20 randoms per galaxy the rule asks g(λ) ≤ 1/2 or less, so λ ≳ 7). A prefix that
+#: leaves a region empty is refused where it is used
+#: (:func:`conecheck.stats._common.dr_prefix_size`).
+MIN_PREFIX = 5_000
 
 
 def qmc_noise_ratio(lam: ArrayLike) -> NDArray[np.float64]:

@@ -128,8 +128,13 @@ def count_dr_prefix(randoms: ConeSample, dr_method: str,
     [(Mpc/h)³], one per bin) allow (:func:`dr_prefix_size`), on that prefix's own
     normalisation (:func:`~conecheck.pairs.join_separations`); the smaller bins count every
     random. A count's cost grows with its randoms, and most data–random pairs lie in the
-    large bins. ``count(randoms_xyz, randoms_w, randoms_region, edges)`` is the statistic's
-    cross count of the data against the given randoms in bins of the first separation.
+    large bins. The smallest of the large bins' cells decides for all of them, so in the
+    larger ones the prefix's noise lies far below its bound: there the split RR's own noise
+    already takes much of what the randoms may add (a choice bin by bin, down to an eighth
+    of the randoms in the largest bins, gave them up to 1.6 times the variance of 20
+    pseudo-random points per galaxy: benchmarks/RESULTS.md, "Fourteenth pass").
+    ``count(randoms_xyz, randoms_w, randoms_region, edges)`` is the statistic's cross count
+    of the data against the given randoms in bins of the first separation.
 
     Returns the counts and the number of randoms the large bins used.
     """
