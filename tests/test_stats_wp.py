@@ -81,6 +81,25 @@ def _cone_setup(seed, k=6, n_randoms=8):
     return rng, geo, data, rand
 
 
+def _treecorr_catalog(treecorr, c, n=None):
+    """The first ``n`` (default all) points of cone sample ``c`` as a TreeCorr catalogue."""
+    x = c.xyz[:n]
+    return treecorr.Catalog(x=x[:, 0], y=x[:, 1], z=x[:, 2])
+
+
+def _treecorr_rppi(treecorr, c1, c2=None):
+    """TreeCorr's pair counts (NNCorrelation, metric "Rperp", bin_slop=0) in r_p bins
+    1-2-4-8 Mpc/h by |π| slabs of 2 Mpc/h to 10 Mpc/h, shape (3, 5): differences of
+    counts with |π| < 2k."""
+    cum = [np.zeros(3)]
+    for k in range(1, 6):
+        nn = treecorr.NNCorrelation(min_sep=1.0, max_sep=8.0, nbins=3, metric="Rperp",
+                                    bin_slop=0, min_rpar=-2.0 * k, max_rpar=2.0 * k)
+        nn.process(c1, num_threads=2) if c2 is None else nn.process(c1, c2, num_threads=2)
+        cum.append(nn.npairs.copy())
+    return np.diff(np.array(cum), axis=0).T
+
+
 def test_wp_cone_landy_szalay_matches_treecorr_counts():
     # DD, DR, RR from TreeCorr NNCorrelation(metric="Rperp", bin_slop=0) (reference
     # library), combined with the Landy & Szalay (1993, ApJ 412, 64) estimator, normalising
@@ -94,17 +113,10 @@ def test_wp_cone_landy_szalay_matches_treecorr_counts():
     got = wp_cone(data, rand, geo, s, jackknife=False)
 
     def cat(c):
-        x = c.xyz
-        return treecorr.Catalog(x=x[:, 0], y=x[:, 1], z=x[:, 2])
+        return _treecorr_catalog(treecorr, c)
 
     def slabs(c1, c2=None):
-        cum = [np.zeros(3)]
-        for k in range(1, 6):
-            nn = treecorr.NNCorrelation(min_sep=1.0, max_sep=8.0, nbins=3, metric="Rperp",
-                                        bin_slop=0, min_rpar=-2.0 * k, max_rpar=2.0 * k)
-            nn.process(c1, num_threads=2) if c2 is None else nn.process(c1, c2, num_threads=2)
-            cum.append(nn.npairs.copy())
-        return np.diff(np.array(cum), axis=0).T
+        return _treecorr_rppi(treecorr, c1, c2)
 
     nd, nr = len(data), len(rand)
     dd = slabs(cat(data)) / (nd * (nd - 1) / 2)
@@ -133,17 +145,10 @@ def test_wp_cone_dr_from_a_prefix_matches_treecorr_counts():
     assert got.extra["dr_randoms_above_split"] == half
 
     def cat(c, n=None):
-        x = c.xyz[:n]
-        return treecorr.Catalog(x=x[:, 0], y=x[:, 1], z=x[:, 2])
+        return _treecorr_catalog(treecorr, c, n)
 
     def slabs(c1, c2=None):
-        cum = [np.zeros(3)]
-        for k in range(1, 6):
-            nn = treecorr.NNCorrelation(min_sep=1.0, max_sep=8.0, nbins=3, metric="Rperp",
-                                        bin_slop=0, min_rpar=-2.0 * k, max_rpar=2.0 * k)
-            nn.process(c1, num_threads=2) if c2 is None else nn.process(c1, c2, num_threads=2)
-            cum.append(nn.npairs.copy())
-        return np.diff(np.array(cum), axis=0).T
+        return _treecorr_rppi(treecorr, c1, c2)
 
     nd, nr = len(data), len(rand)
     dd = slabs(cat(data)) / (nd * (nd - 1) / 2)
