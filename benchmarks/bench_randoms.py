@@ -29,8 +29,8 @@ bench_run's standard workload, every sample and cut, wp's variance over realisat
 randoms (data fixed) for the baseline scheme (20 pseudo-random points per galaxy, every
 random pair counted) and for the run's scheme (its ``auto`` multiple of QMC points, RR on an
 independent pseudo-random set, split as configured) with DR from all randoms and with the
-prefix — both on the same randoms and RR in each realisation — and the time of the DR
-count of each. Written between the bench_randoms_prefix markers.
+prefix — both on the same randoms and RR in each realisation — and the time of one wp of
+each (the shared RR given). Written between the bench_randoms_prefix markers.
 """
 
 from __future__ import annotations
@@ -46,14 +46,25 @@ from pathlib import Path
 
 import numpy as np
 from bench_run import make_config, workload  # bench_run's standard workload
+from scipy.stats import f as f_dist
 
 from conecheck.api import build_box, build_cones, measure_cone, survey_sky
 from conecheck.atomic import write_text_atomic
-from conecheck.cone import make_randoms, select_cut
+from conecheck.cone import make_randoms, n_randoms, select_cut
 from conecheck.cone.randoms import QMC_FILLED_CELL_COUNT, QMC_MULTIPLE_FILLED
 from conecheck.demo import demo_config
 from conecheck.pairs import count_rppi_cone
-from conecheck.run.tasks import cut_distances
+from conecheck.run.tasks import (
+    _cone_sample,  # the pipeline's table → ConeSample
+    cut_distances,
+    cut_randoms_multiple,
+    cut_volume_per_sr,
+    smallest_random_cell,
+    with_prefixes,
+)
+from conecheck.stats import ConeGeometry, ConeSample
+from conecheck.stats.wp import count_rr_cone, wp_cone
+from conecheck.streams import seeded_rng
 
 START = "<!-- bench_randoms:start -->"
 END = "<!-- bench_randoms:end -->"
@@ -192,16 +203,6 @@ def cells(realisations: int, write: bool) -> int:
 
 def prefix(realisations: int, write: bool) -> int:
     """The --prefix measurement (module notes)."""
-    from conecheck.run.tasks import (
-        _cone_sample,  # the pipeline's table → ConeSample
-        cut_randoms_multiple,
-        cut_volume_per_sr,
-        smallest_random_cell,
-    )
-    from conecheck.stats import ConeGeometry
-    from conecheck.stats.wp import count_rr_cone, wp_cone
-    from conecheck.streams import seeded_rng
-
     cfg = make_config(workload(False), Path(__file__).parent)
     box = build_box(cfg)
     cone = build_cones(box, cfg, n=1)[0]
@@ -219,7 +220,7 @@ def prefix(realisations: int, write: bool) -> int:
         for cut in s.cuts:
             sel = select_cut(cone, cut, cfg.shell, cosmo)
             data = _cone_sample(sel, regions)
-            data = type(data)(data.ra, data.dec, data.chi, data.weight)  # no jackknife
+            data = ConeSample(data.ra, data.dec, data.chi, data.weight)  # no jackknife
             lo, hi = cut_distances(cosmo, cut)
             geometry = ConeGeometry(fp, lo, hi, None, cut_volume_per_sr(cosmo, cut))
             n_d = float(data.w.sum())
@@ -286,18 +287,15 @@ def prefix(realisations: int, write: bool) -> int:
 def _draw(fp, regions, cosmo, cut, n_data: float, multiple: float, sampling: str,
           rng: np.random.Generator):
     """Randoms of ``cut`` for ``n_data`` galaxies, as a run makes them (without regions)."""
-    from conecheck.cone import n_randoms
-    from conecheck.run.tasks import _cone_sample, with_prefixes
     lo, hi = cut_distances(cosmo, cut)
     c = _cone_sample(make_randoms(fp, lo, hi, n_randoms(n_data, multiple), rng,
                                   cosmology=cosmo, sampling=sampling), regions)
-    return with_prefixes(type(c)(c.ra, c.dec, c.chi, c.weight), sampling, n_data, fp, cosmo,
-                         cut)
+    return with_prefixes(ConeSample(c.ra, c.dec, c.chi, c.weight), sampling, n_data, fp,
+                         cosmo, cut)
 
 
 def _f_range(realisations: int) -> tuple[float, float]:
     """5 % and 95 % points of the ratio of two sample variances of equal true variance."""
-    from scipy.stats import f as f_dist
     dof = realisations - 1
     return float(f_dist.ppf(0.05, dof, dof)), float(f_dist.ppf(0.95, dof, dof))
 
