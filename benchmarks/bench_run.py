@@ -424,11 +424,14 @@ def wp_random_variance(cfg: RunConfig, data: Any, geometry: Any, chi_lo: float,
 
 
 def rr_words(d: dict[str, Any]) -> str:
-    """wp's configured RR method in words."""
+    """wp's configured RR and DR methods in words."""
     wp = make_settings("wp", d["statistics"]["wp"])
-    if wp.rr_method == "split":
-        return f"split RR above {wp.split_above:g} Mpc/h"
-    return "full RR"
+    words = (f"split RR above {wp.split_above:g} Mpc/h" if wp.rr_method == "split"
+             else "full RR")
+    if wp.dr_method == "prefix":
+        words += (f", DR above {wp.split_above:g} Mpc/h on the randoms' smallest "
+                  "prefix as precise as 20 pseudo-random per galaxy")
+    return words
 
 
 def randoms_scheme_of(r: Any, multiple: float | None = None) -> str:
