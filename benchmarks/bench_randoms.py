@@ -63,7 +63,7 @@ from conecheck.run.tasks import (
     with_prefixes,
 )
 from conecheck.stats import ConeGeometry, ConeSample
-from conecheck.stats.wp import count_rr_cone, wp_cone
+from conecheck.stats.wp import WpSettings, count_rr_cone, wp_cone
 from conecheck.streams import seeded_rng
 
 START = "<!-- bench_randoms:start -->"
@@ -137,14 +137,20 @@ def _head(command: str) -> str:
             f"{platform.system()}, load average {' '.join(load)} at the end, `{command}`.")
 
 
+def _standard_cone0():
+    """bench_run's standard workload: its configuration, cone 0, footprint, jackknife
+    regions and cosmology."""
+    cfg = make_config(workload(False), Path(__file__).parent)
+    cone = build_cones(build_box(cfg), cfg, n=1)[0]
+    fp, regions = survey_sky(cfg)
+    return cfg, cone, fp, regions, cfg.cosmology.model()
+
+
 def cells(realisations: int, write: bool) -> int:
     """The --cells measurement (module notes)."""
-    cfg = make_config(workload(False), Path(__file__).parent)
-    box = build_box(cfg)
-    cone = build_cones(box, cfg, n=1)[0]
-    fp, _ = survey_sky(cfg)
-    cosmo = cfg.cosmology.model()
-    cell = np.pi * (CELL_EDGES[1:] ** 2 - CELL_EDGES[:-1] ** 2) * 2.0 * CELL_PI_MAX
+    cfg, cone, fp, _, cosmo = _standard_cone0()
+    cell = WpSettings(rp_edges=tuple(CELL_EDGES), pi_max=CELL_PI_MAX,
+                      dpi=CELL_PI_MAX).cell_volumes
     lam, g, rows = [], [], []
     for s in cfg.samples:
         for cut in s.cuts:
@@ -203,11 +209,7 @@ def cells(realisations: int, write: bool) -> int:
 
 def prefix(realisations: int, write: bool) -> int:
     """The --prefix measurement (module notes)."""
-    cfg = make_config(workload(False), Path(__file__).parent)
-    box = build_box(cfg)
-    cone = build_cones(box, cfg, n=1)[0]
-    fp, regions = survey_sky(cfg)
-    cosmo = cfg.cosmology.model()
+    cfg, cone, fp, regions, cosmo = _standard_cone0()
     wps = cfg.statistics.get("wp")
     if wps.dr_method != "prefix" or cfg.randoms.sampling != "qmc":
         raise SystemExit("--prefix needs the template's dr_method = 'prefix' and QMC randoms")

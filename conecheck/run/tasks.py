@@ -237,11 +237,16 @@ def cut_volume_per_sr(cosmology: Cosmology, cut: SampleCut) -> float:
     return float(cosmology.volume_between_distances_per_sr(lo, hi))
 
 
+def cut_volume(cosmology: Cosmology, footprint: Footprint, cut: SampleCut) -> float:
+    """A cut's effective comoving volume V_eff = Ω_eff × the shell's volume per steradian
+    [(Mpc/h)³]: where a cone holds its galaxies and randoms."""
+    return footprint.area_sr * cut_volume_per_sr(cosmology, cut)
+
+
 def expected_count(cosmology: Cosmology, footprint: Footprint, cut: SampleCut,
                    density: float) -> float:
-    """Galaxies a cone should hold: n_box [(h/Mpc)³] × V_eff, V_eff = Ω_eff × the shell's
-    comoving volume per steradian."""
-    return density * footprint.area_sr * cut_volume_per_sr(cosmology, cut)
+    """Galaxies a cone should hold: n_box [(h/Mpc)³] × V_eff (:func:`cut_volume`)."""
+    return density * cut_volume(cosmology, footprint, cut)
 
 
 def shuffle_distances(table: Any, cut: SampleCut, survey: SurveyModel,
@@ -270,7 +275,7 @@ def cut_randoms_multiple(randoms: RandomSettings, cell_volume: float | None,
     cut's mean galaxy density (``n_galaxies`` over the footprint's area × the cut's shell)
     and the smallest cell [(Mpc/h)³] of the statistics counted with randoms
     (:func:`smallest_random_cell`)."""
-    density = n_galaxies / max(footprint.area_sr * cut_volume_per_sr(cosmology, cut), 1e-300)
+    density = n_galaxies / max(cut_volume(cosmology, footprint, cut), 1e-300)
     return randoms_multiple(randoms, density, cell_volume)
 
 
@@ -311,7 +316,7 @@ def with_prefixes(randoms: ConeSample, sampling: str, n_expected: float,
     """``randoms`` of one cut (drawn with ``sampling`` for ``n_expected`` galaxies) with the
     leading parts data–random counts of large cells may use in their place
     (:func:`~conecheck.cone.randoms.prefix_cells`, from their density in the cut's volume)."""
-    volume = footprint.area_sr * cut_volume_per_sr(cosmology, cut)
+    volume = cut_volume(cosmology, footprint, cut)
     n = len(randoms)
     return dataclasses.replace(randoms, prefixes=prefix_cells(
         sampling, n, n / max(n_expected, 1e-300), n / max(volume, 1e-300)))
